@@ -1,0 +1,32 @@
+"""warmstart: keep a team's tuning history, seed new searches from similar
+past tasks, and measure in bits whether the transfer helped.
+
+The names below are the public API; everything else may change.
+"""
+
+from warmstart.errors import (
+    ArchiveError,
+    ArchiveLockedError,
+    IngestError,
+    ProfileError,
+    SpaceError,
+    WarmstartError,
+)
+from warmstart.space import Alignment, Param, Space
+
+__version__ = "0.1.0"
+
+__all__ = [
+    "Alignment",
+    "ArchiveError",
+    "ArchiveLockedError",
+    "IngestError",
+    "Param",
+    "ProfileError",
+    "Space",
+    "SpaceError",
+    "WarmstartError",
+    "__version__",
+]
+
+# Public names added by later modules are imported below, one block each.

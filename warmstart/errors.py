@@ -1,0 +1,41 @@
+"""Error types of warmstart.
+
+Every error a user can cause is a :class:`WarmstartError`. Its message names
+the culprit (file, row, column, parameter, value) and says what would be
+valid, so the command line can print it as it is, without a traceback.
+"""
+
+from __future__ import annotations
+
+__all__ = [
+    "WarmstartError",
+    "SpaceError",
+    "ArchiveError",
+    "ArchiveLockedError",
+    "IngestError",
+    "ProfileError",
+]
+
+
+class WarmstartError(Exception):
+    """Base class of every error warmstart raises on bad input."""
+
+
+class SpaceError(WarmstartError, ValueError):
+    """A search space or a config is not valid."""
+
+
+class ArchiveError(WarmstartError):
+    """The archive cannot be opened, read or written as asked."""
+
+
+class ArchiveLockedError(ArchiveError):
+    """Another process holds the archive for writing."""
+
+
+class IngestError(WarmstartError, ValueError):
+    """A file of past trials cannot be ingested."""
+
+
+class ProfileError(WarmstartError, ValueError):
+    """A dataset cannot be profiled (no target, one class, empty ...)."""
