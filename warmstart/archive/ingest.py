@@ -1,0 +1,250 @@
+"""Validation and preparation of past trials for the archive.
+
+A table of trials has one column per parameter of the space plus ``score``,
+and optionally ``status`` (``ok``/``failed``), ``cost_s``, ``started_at``,
+``finished_at`` and ``error``. :func:`prepare_trials` checks every cell with
+vectorised pandas operations and returns a frame ready for one bulk insert;
+any problem raises :class:`~warmstart.errors.IngestError` naming the source,
+the row (1-based, header not counted), the column and the value.
+"""
+
+from __future__ import annotations
+
+import json
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from warmstart.errors import IngestError
+from warmstart.space import Param, Space
+
+__all__ = ["prepare_trials", "EXTRA_COLUMNS", "param_columns"]
+
+EXTRA_COLUMNS = ("score", "status", "cost_s", "started_at", "finished_at", "error")
+_STATUS = ("ok", "failed")
+
+
+def param_columns(space: Space) -> list[str]:
+    """Names of the prepared value columns, one per parameter (``p0``, ``p1`` ...)."""
+    return [f"p{j}" for j in range(space.dim)]
+
+
+def _rows(mask: np.ndarray) -> np.ndarray:
+    return np.flatnonzero(mask)
+
+
+def _fail(where: str, row: int, column: str, value: Any, why: str) -> IngestError:
+    return IngestError(f"{where}: row {row + 1}, column {column!r}: value {value!r} {why}")
+
+
+def _numeric(col: pd.Series, where: str, name: str, what: str) -> np.ndarray:
+    raw = col.to_numpy(dtype=object, na_value=None) if not pd.api.types.is_numeric_dtype(col) else None
+    if pd.api.types.is_bool_dtype(col):
+        row = 0
+        raise _fail(where, row, name, col.iloc[row], f"is a boolean; {what}")
+    values = pd.to_numeric(col, errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+    if raw is not None:
+        given = np.array([v is not None and not (isinstance(v, str) and v.strip() == "") for v in raw])
+        given &= ~pd.isna(col).to_numpy()
+        bad = given & np.isnan(values)
+        # "nan" text parses to NaN: that is a missing value, not a bad one.
+        bad &= ~np.array([isinstance(v, str) and v.strip().lower() in ("nan", "na", "null", "none") for v in raw])
+        if bad.any():
+            row = int(_rows(bad)[0])
+            raise _fail(where, row, name, raw[row], f"is not a number; {what}")
+        bools = np.array([isinstance(v, (bool, np.bool_)) for v in raw])
+        if bools.any():
+            row = int(_rows(bools)[0])
+            raise _fail(where, row, name, raw[row], f"is a boolean; {what}")
+    return values
+
+
+def _choice_indices(p: Param, col: pd.Series, where: str) -> np.ndarray:
+    """Level index per row (-1 where missing)."""
+    idx = np.full(len(col), -1, dtype=np.int64)
+    missing = pd.isna(col).to_numpy()
+    values = col.to_numpy(dtype=object, na_value=None)
+    lookup: dict[Any, int] = {}
+    for i in _rows(~missing):
+        v = values[i]
+        key = (type(v).__name__, v)
+        if key not in lookup:
+            k = p.level_index(v)
+            if k < 0 and isinstance(v, str):
+                text = v.strip()
+                for parsed in _parse_text(text):
+                    k = p.level_index(parsed)
+                    if k >= 0:
+                        break
+            if k < 0:
+                raise _fail(where, int(i), p.name, v, f"is not allowed; {p.describe()}")
+            lookup[key] = k
+        idx[i] = lookup[key]
+    return idx
+
+
+def _parse_text(text: str) -> list:
+    out: list = [text]
+    try:
+        out.append(json.loads(text))
+    except ValueError:
+        pass
+    if text.lower() in ("true", "false"):
+        out.append(text.lower() == "true")
+    return out
+
+
+def prepare_trials(space: Space, frame: pd.DataFrame, where: str = "trials") -> pd.DataFrame:
+    """Validate a table of trials against a space and prepare it for insert.
+
+    Parameters
+    ----------
+    space : Space
+        The study's search space.
+    frame : pandas.DataFrame
+        One column per parameter plus ``score``; optional ``status``,
+        ``cost_s``, ``started_at``, ``finished_at``, ``error``. A value in the
+        column of an inactive conditional parameter is ignored; a missing
+        value of an active parameter is an error.
+    where : str
+        Name of the source used in error messages (a file name).
+
+    Returns
+    -------
+    pandas.DataFrame
+        Columns ``p0 .. p{d-1}`` (float for real, Int64 for integer, JSON text
+        of the level for choice; missing where inactive), ``score`` (NaN for
+        failed trials), ``status``, ``cost_s``, ``started_at``,
+        ``finished_at``, ``error``.
+
+    Raises
+    ------
+    IngestError
+        Unknown or missing columns, values outside the space, wrong types,
+        bad statuses or times, or an empty table.
+    """
+    if not isinstance(frame, pd.DataFrame):
+        raise IngestError(f"{where}: expected a table (DataFrame), got {type(frame).__name__}")
+    if len(frame) == 0:
+        raise IngestError(f"{where}: the table has no rows")
+    columns = [str(c) for c in frame.columns]
+    frame = frame.set_axis(columns, axis=1).reset_index(drop=True)
+    dup = sorted({c for c in columns if columns.count(c) > 1})
+    if dup:
+        raise IngestError(f"{where}: column(s) {dup} appear more than once")
+    unknown = [c for c in columns if c not in space and c not in EXTRA_COLUMNS]
+    if unknown:
+        raise IngestError(
+            f"{where}: unknown column(s) {unknown}; expected the space's parameters {space.names} "
+            f"plus 'score' and optionally {list(EXTRA_COLUMNS[1:])}"
+        )
+    if "score" not in columns:
+        raise IngestError(f"{where}: no 'score' column; columns are {columns}")
+    n = len(frame)
+    missing_cols = [p.name for p in space.params if p.name not in columns and not p.when]
+    if missing_cols:
+        raise IngestError(
+            f"{where}: missing column(s) for parameter(s) {missing_cols}; every unconditional "
+            f"parameter of the space ({space.names}) needs a column"
+        )
+
+    # Level indices of choice parameters first: conditions depend on them.
+    codes = np.full((n, space.dim), np.nan)
+    present = np.zeros((n, space.dim), dtype=bool)
+    numeric: dict[int, np.ndarray] = {}
+    for j, p in enumerate(space.params):
+        if p.name not in columns:
+            continue
+        col = frame[p.name]
+        if p.kind == "choice":
+            idx = _choice_indices(p, col, where)
+            present[:, j] = idx >= 0
+            codes[present[:, j], j] = idx[present[:, j]]
+        else:
+            vals = _numeric(col, where, p.name, p.describe())
+            present[:, j] = ~np.isnan(vals)
+            numeric[j] = vals
+            codes[present[:, j], j] = 0.0
+    active = space.active_mask(codes)
+    for j, p in enumerate(space.params):
+        lacking = active[:, j] & ~present[:, j]
+        if lacking.any():
+            row = int(_rows(lacking)[0])
+            if p.name not in columns:
+                raise IngestError(f"{where}: row {row + 1}: parameter {p.name!r} is active but there is no column for it")
+            raw = frame[p.name].iloc[row]
+            raise _fail(where, row, p.name, raw, f"is missing or not finite, but parameter {p.name!r} is active here; {p.describe()}")
+
+    out: dict[str, Any] = {}
+    for j, (p, name) in enumerate(zip(space.params, param_columns(space))):
+        use = active[:, j]
+        if p.kind == "choice":
+            texts = np.array([json.dumps(level) for level in p.choices], dtype=object)
+            col = np.full(n, None, dtype=object)
+            col[use] = texts[codes[use, j].astype(int)]
+            out[name] = pd.Series(col, dtype=object)
+            continue
+        vals = numeric[j]
+        bad_inf = use & np.isinf(vals)
+        if bad_inf.any():
+            row = int(_rows(bad_inf)[0])
+            raise _fail(where, row, p.name, frame[p.name].iloc[row], f"is not finite; {p.describe()}")
+        outside = use & ((vals < p.low) | (vals > p.high))
+        if outside.any():
+            row = int(_rows(outside)[0])
+            raise _fail(where, row, p.name, frame[p.name].iloc[row], f"is out of range; {p.describe()}")
+        if p.kind == "integer":
+            frac = use & (vals != np.round(vals))
+            if frac.any():
+                row = int(_rows(frac)[0])
+                raise _fail(where, row, p.name, frame[p.name].iloc[row], f"is not a whole number; {p.describe()}")
+            col = pd.array(np.where(use, vals, 0).astype(np.int64), dtype="Int64")
+            col[~use] = pd.NA
+            out[name] = col
+        else:
+            out[name] = np.where(use, vals, np.nan)
+
+    score = _numeric(frame["score"], where, "score", "a score must be a number (empty, NaN or inf mark a failed trial)")
+    finite = np.isfinite(score)
+    if "status" in columns:
+        status_raw = frame["status"]
+        status = status_raw.astype("string").str.strip().str.lower()
+        status = status.fillna("ok")
+        bad = ~status.isin(_STATUS).to_numpy()
+        if bad.any():
+            row = int(_rows(bad)[0])
+            raise _fail(where, row, "status", status_raw.iloc[row], f"is not a status; use one of {list(_STATUS)}")
+        status = status.to_numpy(dtype=object)
+    else:
+        status = np.full(n, "ok", dtype=object)
+    status = np.where(finite, status, "failed")
+    out["score"] = np.where((status == "ok") & finite, score, np.nan)
+    out["status"] = pd.Series(status, dtype=object)
+
+    if "cost_s" in columns:
+        cost = _numeric(frame["cost_s"], where, "cost_s", "cost_s is the trial's cost in seconds (a number >= 0)")
+        bad = ~np.isnan(cost) & ((cost < 0) | np.isinf(cost))
+        if bad.any():
+            row = int(_rows(bad)[0])
+            raise _fail(where, row, "cost_s", frame["cost_s"].iloc[row], "is not a cost in seconds (a finite number >= 0)")
+        out["cost_s"] = cost
+    else:
+        out["cost_s"] = np.full(n, np.nan)
+    for name in ("started_at", "finished_at"):
+        if name in columns:
+            raw = frame[name]
+            stamps = pd.to_datetime(raw, errors="coerce", utc=True, format="mixed")
+            bad = (stamps.isna() & raw.notna()).to_numpy()
+            if bad.any():
+                row = int(_rows(bad)[0])
+                raise _fail(where, row, name, raw.iloc[row], "is not a date-time (use ISO 8601, e.g. 2026-03-01T12:00:00)")
+            out[name] = stamps.dt.tz_convert(None).astype("datetime64[us]")
+        else:
+            out[name] = pd.Series(pd.NaT, index=range(n), dtype="datetime64[us]")
+    errors = frame["error"].astype("string") if "error" in columns else pd.Series([pd.NA] * n, dtype="string")
+    no_score = (~finite) & errors.isna().to_numpy()
+    errors = errors.astype(object).to_numpy().copy()
+    errors[no_score] = "score is missing or not finite"
+    out["error"] = pd.Series(errors, dtype=object).where(pd.notna(errors), None)
+    return pd.DataFrame(out)

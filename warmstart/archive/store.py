@@ -1,0 +1,643 @@
+"""The archive: one DuckDB file holding every task, profile, space, study and trial.
+
+Rules kept here:
+
+- every value from outside goes through a ``?`` placeholder; identifiers come
+  only from this module;
+- every logical write is one transaction (:meth:`Archive.transaction`), so a
+  crash leaves the archive as it was before or after, never between;
+- one process writes, others read (DuckDB's file lock); a second writer gets
+  :class:`~warmstart.errors.ArchiveLockedError` naming the file and the fix.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import hashlib
+import json
+import os
+import uuid
+from datetime import datetime, timezone
+from importlib import resources
+from pathlib import Path
+from typing import Any, Iterator, Mapping
+
+import duckdb
+import numpy as np
+import pandas as pd
+
+from warmstart.archive.ingest import param_columns, prepare_trials
+from warmstart.errors import ArchiveError, ArchiveLockedError
+from warmstart.space import Space
+
+__all__ = ["Archive", "SCHEMA_VERSION", "DEFAULT_ARCHIVE", "default_archive_path", "fingerprint"]
+
+SCHEMA_VERSION = 1
+MIGRATIONS = {1: "schema_v1.sql"}  # version -> DDL that brings version-1 to version
+DEFAULT_ARCHIVE = "archive/warmstart.duckdb"
+_TABLES = ("schema_version", "archive_info", "tasks", "profiles", "spaces", "studies", "trials")
+
+
+def default_archive_path() -> str:
+    """``$WARMSTART_ARCHIVE`` when set, else ``./archive/warmstart.duckdb``."""
+    return os.environ.get("WARMSTART_ARCHIVE") or DEFAULT_ARCHIVE
+
+
+def _now() -> datetime:
+    return datetime.now(timezone.utc).replace(tzinfo=None)
+
+
+def fingerprint(frame: pd.DataFrame, target: str) -> str:
+    """Content hash of a dataset and its target column (SHA-256, hex).
+
+    Row order matters; the index does not. Uses pandas' vectorised row
+    hashing, so a million rows take well under a second.
+    """
+    h = hashlib.sha256()
+    h.update(json.dumps([str(c) for c in frame.columns]).encode())
+    h.update(json.dumps([str(t) for t in frame.dtypes]).encode())
+    h.update(str(target).encode())
+    h.update(pd.util.hash_pandas_object(frame, index=False).to_numpy().tobytes())
+    return h.hexdigest()
+
+
+class Archive:
+    """The DuckDB archive of tuning history.
+
+    Parameters
+    ----------
+    path : str or Path, default ``default_archive_path()``
+        Archive file; ``":memory:"`` for a throw-away archive. A missing file
+        is created with the current schema (unless ``read_only``).
+    read_only : bool, default False
+        Open for reading only (several readers may share a file).
+
+    Raises
+    ------
+    ArchiveError
+        The file is not a DuckDB database, not a warmstart archive, or comes
+        from a newer warmstart.
+    ArchiveLockedError
+        Another process holds the file for writing.
+
+    Examples
+    --------
+    >>> archive = Archive(":memory:")
+    >>> archive.studies().shape[0]
+    0
+    """
+
+    def __init__(self, path: str | Path | None = None, read_only: bool = False):
+        path = default_archive_path() if path is None else path
+        self.path = str(path)
+        self.read_only = read_only
+        self._depth = 0
+        memory = self.path == ":memory:"
+        if not memory:
+            p = Path(self.path)
+            if p.is_dir():
+                raise ArchiveError(f"{self.path}: is a directory; give the archive file, e.g. {p / 'warmstart.duckdb'}")
+            if read_only and not p.exists():
+                raise ArchiveError(f"{self.path}: no archive here; create one with `warmstart init`")
+            if not read_only:
+                p.parent.mkdir(parents=True, exist_ok=True)
+        try:
+            self.con = duckdb.connect(self.path, read_only=read_only)
+        except duckdb.IOException as exc:
+            text = str(exc)
+            if "lock" in text.lower():
+                raise ArchiveLockedError(
+                    f"{self.path}: another process is writing to this archive ({_pid_hint(text)}). "
+                    "DuckDB allows one writing process at a time: wait for it to finish, then run the "
+                    "command again; nothing was changed."
+                ) from None
+            if "not a valid DuckDB database" in text or "not a valid" in text:
+                raise ArchiveError(
+                    f"{self.path}: not a warmstart archive (the file is not a DuckDB database); "
+                    "give another --archive path or move this file away"
+                ) from None
+            raise ArchiveError(f"{self.path}: cannot open the archive: {text}") from None
+        except duckdb.Error as exc:
+            raise ArchiveError(f"{self.path}: cannot open the archive: {exc}") from None
+        try:
+            self._check_schema()
+        except BaseException:
+            self.con.close()
+            raise
+
+    # -- lifecycle ---------------------------------------------------------
+    def close(self) -> None:
+        """Close the connection (idempotent)."""
+        with contextlib.suppress(duckdb.Error):
+            self.con.close()
+
+    def __enter__(self) -> "Archive":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+    def __repr__(self) -> str:
+        mode = "read-only" if self.read_only else "read-write"
+        return f"Archive({self.path!r}, {mode})"
+
+    @contextlib.contextmanager
+    def transaction(self) -> Iterator[duckdb.DuckDBPyConnection]:
+        """One transaction for a logical write; nested uses join the outer one."""
+        if self.read_only:
+            raise ArchiveError(f"{self.path}: opened read-only; cannot write")
+        if self._depth:
+            self._depth += 1
+            try:
+                yield self.con
+            finally:
+                self._depth -= 1
+            return
+        self.con.begin()
+        self._depth = 1
+        try:
+            yield self.con
+        except BaseException:
+            self._depth = 0
+            with contextlib.suppress(duckdb.Error):
+                self.con.rollback()
+            raise
+        self._depth = 0
+        self.con.commit()
+
+    def _q(self, sql: str, params: Any = None) -> list[tuple]:
+        return self.con.execute(sql, params or []).fetchall()
+
+    def _df(self, sql: str, params: Any = None) -> pd.DataFrame:
+        return self.con.execute(sql, params or []).df()
+
+    # -- schema ------------------------------------------------------------
+    def _existing_tables(self) -> set[str]:
+        rows = self._q("SELECT table_name FROM information_schema.tables WHERE table_schema = 'main'")
+        return {r[0] for r in rows}
+
+    def _check_schema(self) -> None:
+        tables = self._existing_tables()
+        if not tables:
+            if self.read_only:
+                raise ArchiveError(f"{self.path}: empty database, not a warmstart archive; create one with `warmstart init`")
+            self._migrate(0)
+            return
+        if "schema_version" not in tables:
+            raise ArchiveError(
+                f"{self.path}: a DuckDB database but not a warmstart archive (no schema_version table; "
+                f"tables: {sorted(tables)[:8]}); give another --archive path"
+            )
+        version = self.schema_version
+        if version > SCHEMA_VERSION:
+            raise ArchiveError(
+                f"{self.path}: archive schema version {version} is newer than this warmstart "
+                f"understands ({SCHEMA_VERSION}); upgrade warmstart to open it"
+            )
+        if version < SCHEMA_VERSION:
+            if self.read_only:
+                raise ArchiveError(
+                    f"{self.path}: archive schema version {version} needs migrating to {SCHEMA_VERSION}; "
+                    "open it once for writing (any write command) to migrate"
+                )
+            self._migrate(version)
+
+    @property
+    def schema_version(self) -> int:
+        """Schema version recorded in the archive."""
+        row = self._q("SELECT max(version) FROM schema_version")
+        return int(row[0][0] or 0)
+
+    def _migrate(self, current: int) -> None:
+        with self.transaction() as con:
+            for version in range(current + 1, SCHEMA_VERSION + 1):
+                sql = resources.files("warmstart.archive").joinpath(MIGRATIONS[version]).read_text()
+                for statement in _split_sql(sql):
+                    con.execute(statement)
+                con.execute(
+                    "INSERT INTO schema_version VALUES (?, ?, ?)", [version, _now(), duckdb.__version__]
+                )
+            if current == 0:
+                con.execute("INSERT INTO archive_info VALUES (?, ?)", [uuid.uuid4().hex, _now()])
+
+    @property
+    def archive_id(self) -> str:
+        """Random id given to the archive at creation (used as merge provenance)."""
+        return self._q("SELECT archive_id FROM archive_info LIMIT 1")[0][0]
+
+    # -- tasks -------------------------------------------------------------
+    def add_task(
+        self,
+        name: str,
+        frame: pd.DataFrame,
+        target: str,
+        kind: str | None = None,
+        source: str | None = None,
+        profile: Mapping[str, float] | None = None,
+    ) -> int:
+        """Add a task (dataset + target) with its fingerprint and profile.
+
+        A task with the same name and fingerprint is reused (its id is
+        returned); the same name with other data is an error.
+
+        Parameters
+        ----------
+        name : str
+            Task name, stored verbatim.
+        frame : pandas.DataFrame
+            The dataset, target column included.
+        target : str
+            Target column.
+        kind : {"classification", "regression"}, optional
+            Detected from the target when not given.
+        source : str, optional
+            Where the data came from (a file name), for the record.
+        profile : mapping, optional
+            A profile computed earlier with :func:`warmstart.profile`.
+
+        Returns
+        -------
+        int
+            The task id.
+        """
+        from warmstart.profile import PROFILE_VERSION, detect_kind
+        from warmstart.profile import profile as compute_profile
+
+        if not isinstance(name, str) or not name.strip():
+            raise ArchiveError(f"task name must be a non-empty string, got {name!r}")
+        if target not in frame.columns:
+            raise ArchiveError(f"task {name!r}: target column {target!r} not found; columns are {list(frame.columns)}")
+        fp = fingerprint(frame, target)
+        found = self._q("SELECT task_id, fingerprint FROM tasks WHERE name = ?", [name])
+        for task_id, other in found:
+            if other == fp:
+                if self._profile_version(task_id) != PROFILE_VERSION:
+                    prof = dict(profile) if profile is not None else compute_profile(frame, target=target, kind=kind)
+                    with self.transaction():
+                        self._write_profile(task_id, prof, PROFILE_VERSION)
+                return int(task_id)
+        if found:
+            raise ArchiveError(
+                f"task {name!r} already exists in {self.path} with different data "
+                f"(fingerprint {found[0][1][:12]} vs {fp[:12]}); choose another task name"
+            )
+        kind = kind or detect_kind(frame[target])
+        prof = dict(profile) if profile is not None else compute_profile(frame, target=target, kind=kind)
+        with self.transaction() as con:
+            task_id = con.execute("SELECT nextval('task_ids')").fetchall()[0][0]
+            con.execute(
+                "INSERT INTO tasks VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                [task_id, name, fp, kind, target, int(frame.shape[0]), int(frame.shape[1] - 1), _now(), source],
+            )
+            self._write_profile(task_id, prof, PROFILE_VERSION)
+        return int(task_id)
+
+    def _profile_version(self, task_id: int) -> str | None:
+        row = self._q("SELECT min(version) FROM profiles WHERE task_id = ?", [task_id])
+        return row[0][0]
+
+    def _write_profile(self, task_id: int, prof: Mapping[str, float], version: str) -> None:
+        values = {str(k): float(v) for k, v in prof.items()}
+        bad = [k for k, v in values.items() if not np.isfinite(v)]
+        if bad:
+            raise ArchiveError(f"profile of task {task_id} has non-finite value(s) for {bad}")
+        frame = pd.DataFrame(
+            {"task_id": task_id, "feature": list(values), "value": list(values.values()), "version": version}
+        )
+        with self.transaction() as con:
+            con.execute("DELETE FROM profiles WHERE task_id = ?", [task_id])
+            _insert_frame(con, "profiles", frame, ["task_id", "feature", "value", "version"])
+
+    def task_id(self, name: str) -> int:
+        """Id of the task called ``name`` (error listing known names if none)."""
+        rows = self._q("SELECT task_id FROM tasks WHERE name = ? ORDER BY task_id", [name])
+        if not rows:
+            names = [r[0] for r in self._q("SELECT name FROM tasks ORDER BY name LIMIT 20")]
+            raise ArchiveError(f"no task named {name!r} in {self.path}; known tasks include {names}")
+        return int(rows[0][0])
+
+    def tasks(self) -> pd.DataFrame:
+        """All tasks, one row each."""
+        return self._df(
+            "SELECT task_id, name, fingerprint, kind, target, n_rows, n_features, created_at, source "
+            "FROM tasks ORDER BY task_id"
+        )
+
+    def profiles(self) -> pd.DataFrame:
+        """Profiles as a wide table: index task_id, one column per meta-feature,
+        plus ``profile_version``."""
+        long = self._df("SELECT task_id, feature, value, version FROM profiles")
+        if long.empty:
+            return pd.DataFrame(index=pd.Index([], name="task_id", dtype="int64"))
+        wide = long.pivot(index="task_id", columns="feature", values="value")
+        wide.columns.name = None
+        wide["profile_version"] = long.groupby("task_id")["version"].min()
+        return wide.sort_index()
+
+    # -- spaces and studies ------------------------------------------------
+    def _space_id(self, learner: str, space: Space) -> int:
+        h = space.content_hash
+        rows = self._q("SELECT space_id FROM spaces WHERE learner = ? AND content_hash = ?", [learner, h])
+        if rows:
+            return int(rows[0][0])
+        with self.transaction() as con:
+            space_id = con.execute("SELECT nextval('space_ids')").fetchall()[0][0]
+            con.execute(
+                "INSERT INTO spaces VALUES (?, ?, ?, ?)",
+                [space_id, learner, json.dumps({"params": space.to_dict()["params"]}), h],  # keeps order
+            )
+        return int(space_id)
+
+    def space(self, space_id: int) -> Space:
+        """The space stored under ``space_id``."""
+        rows = self._q("SELECT definition, learner FROM spaces WHERE space_id = ?", [space_id])
+        if not rows:
+            raise ArchiveError(f"no space with id {space_id} in {self.path}")
+        d = json.loads(rows[0][0])
+        d["learner"] = rows[0][1]
+        return Space.from_dict(d, where=f"space {space_id}")
+
+    def add_study(
+        self,
+        task: int,
+        learner: str,
+        space: Space,
+        metric: str = "score",
+        maximize: bool = True,
+        origin: str = "cold",
+        prior: Mapping | None = None,
+        owner: str | None = None,
+        tags: Mapping[str, str] | None = None,
+    ) -> int:
+        """Add a study of ``learner`` on task id ``task`` over ``space``.
+
+        Returns
+        -------
+        int
+            The study id.
+        """
+        if not isinstance(learner, str) or not learner.strip():
+            raise ArchiveError(f"learner must be a non-empty string, got {learner!r}")
+        if origin not in ("cold", "warm", "imported"):
+            raise ArchiveError(f"origin must be one of cold, warm, imported; got {origin!r}")
+        if not self._q("SELECT 1 FROM tasks WHERE task_id = ?", [int(task)]):
+            raise ArchiveError(f"no task with id {task} in {self.path}")
+        tags = {str(k): str(v) for k, v in (tags or {}).items()}
+        with self.transaction() as con:
+            space_id = self._space_id(learner, space)
+            study_id = con.execute("SELECT nextval('study_ids')").fetchall()[0][0]
+            con.execute(
+                "INSERT INTO studies (study_id, task_id, learner, space_id, metric, direction, origin, prior, "
+                "created_at, owner, tags) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                [
+                    study_id, int(task), learner, space_id, metric,
+                    "maximize" if maximize else "minimize", origin,
+                    None if prior is None else json.dumps(prior, sort_keys=True),
+                    _now(), owner, json.dumps(tags, sort_keys=True),
+                ],
+            )
+        return int(study_id)
+
+    def finish_study(self, study: int) -> None:
+        """Mark a study finished now."""
+        with self.transaction() as con:
+            con.execute("UPDATE studies SET finished_at = ? WHERE study_id = ?", [_now(), int(study)])
+
+    def set_prior(self, study: int, prior: Mapping) -> None:
+        """Record the provenance of the prior a study used."""
+        with self.transaction() as con:
+            con.execute(
+                "UPDATE studies SET prior = ?, origin = 'warm' WHERE study_id = ?",
+                [json.dumps(prior, sort_keys=True), int(study)],
+            )
+
+    _STUDY_SQL = (
+        "SELECT s.study_id, s.task_id, t.name AS task, s.learner, s.space_id, s.metric, s.direction, "
+        "s.origin, coalesce(r.n_trials, 0) AS n_trials, coalesce(r.n_ok, 0) AS n_ok, "
+        "CASE WHEN s.direction = 'maximize' THEN r.best_max ELSE r.best_min END AS best_score, "
+        "s.created_at, s.finished_at, s.owner, s.tags, s.prior "
+        "FROM studies s LEFT JOIN tasks t ON t.task_id = s.task_id "
+        "LEFT JOIN (SELECT study_id, count(*) AS n_trials, count(score) AS n_ok, max(score) AS best_max, "
+        "min(score) AS best_min FROM trials GROUP BY study_id) r ON r.study_id = s.study_id"
+    )
+
+    def studies(self) -> pd.DataFrame:
+        """One row per study with its task name, learner, metric, trial count and best score."""
+        frame = self._df(self._STUDY_SQL + " ORDER BY s.study_id").drop(columns=["prior"])
+        frame["tags"] = [json.loads(t) if isinstance(t, str) else {} for t in frame["tags"]]
+        return frame
+
+    def study(self, study: int) -> dict:
+        """One study as a dict, with its ``space`` (Space) and ``prior`` (dict or None)."""
+        frame = self._df(self._STUDY_SQL + " WHERE s.study_id = ?", [int(study)])
+        if frame.empty:
+            raise ArchiveError(f"no study with id {study} in {self.path}; `warmstart studies` lists them")
+        row = frame.iloc[0].to_dict()
+        row["tags"] = json.loads(row["tags"]) if isinstance(row["tags"], str) else {}
+        row["prior"] = json.loads(row["prior"]) if isinstance(row["prior"], str) else None
+        row["space"] = self.space(int(row["space_id"]))
+        row["maximize"] = row["direction"] == "maximize"
+        return row
+
+    # -- trials ------------------------------------------------------------
+    def _study_keys(self, study: int) -> tuple[Space, str, str]:
+        rows = self._q(
+            "SELECT s.space_id, t.fingerprint, s.learner FROM studies s JOIN tasks t USING (task_id) "
+            "WHERE s.study_id = ?",
+            [int(study)],
+        )
+        if not rows:
+            raise ArchiveError(f"no study with id {study} in {self.path}; `warmstart studies` lists them")
+        space_id, fp, learner = rows[0]
+        return self.space(int(space_id)), fp, learner
+
+    def add_trials(self, study: int, frame: pd.DataFrame, where: str = "trials") -> int:
+        """Validate and add a table of trials to a study in one transaction.
+
+        Parameters
+        ----------
+        study : int
+            Study id.
+        frame : pandas.DataFrame
+            One column per parameter plus ``score`` (see
+            :func:`warmstart.archive.ingest.prepare_trials`).
+        where : str
+            Source name used in error messages.
+
+        Returns
+        -------
+        int
+            Number of trials added.
+        """
+        space, fp, learner = self._study_keys(study)
+        prepared = prepare_trials(space, frame, where=where)
+        with self.transaction():
+            self._insert_trials(int(study), space, fp, learner, prepared)
+        return len(prepared)
+
+    def record_trial(
+        self,
+        study: int,
+        config: Mapping,
+        score: float | None,
+        status: str = "ok",
+        cost_s: float | None = None,
+        started_at: datetime | None = None,
+        finished_at: datetime | None = None,
+        error: str | None = None,
+    ) -> int:
+        """Record one evaluated config (committed at once); returns its trial number.
+
+        A score that is None, NaN or infinite records a failed trial.
+        """
+        space, fp, learner = self._study_keys(study)
+        config = space.normalize(config)
+        row: dict[str, Any] = {name: [config.get(name)] for name in space.names}
+        row.update(
+            score=[np.nan if score is None else score], status=[status], cost_s=[cost_s],
+            started_at=[started_at], finished_at=[finished_at or _now()], error=[error],
+        )
+        prepared = prepare_trials(space, pd.DataFrame(row), where=f"trial of study {study}")
+        with self.transaction():
+            return self._insert_trials(int(study), space, fp, learner, prepared)
+
+    def _insert_trials(self, study: int, space: Space, fp: str, learner: str, prepared: pd.DataFrame) -> int:
+        """Bulk insert of prepared trials; config JSON and content key built in SQL.
+
+        Placeholders are bound in the order they appear in the statement text:
+        the outer SELECT list (study, start, fingerprint, learner) comes before
+        the sub-query that holds the JSON keys.
+        """
+        cols = param_columns(space)
+        order = sorted(range(space.dim), key=lambda j: space.params[j].name)
+        parts, keys = [], []
+        for j in order:
+            value = f"to_json({cols[j]})::VARCHAR" if space.params[j].kind != "choice" else cols[j]
+            parts.append(f"CASE WHEN {cols[j]} IS NULL THEN NULL ELSE ? || {value} END")
+            keys.append(json.dumps(space.params[j].name) + ":")
+        config_sql = "'{' || concat_ws(',', " + ", ".join(parts) + ") || '}'"
+        con = self.con
+        start = con.execute("SELECT coalesce(max(number), 0) FROM trials WHERE study_id = ?", [study]).fetchall()[0][0]
+        view = f"_incoming_{uuid.uuid4().hex}"
+        con.register(view, prepared)
+        try:
+            con.execute(
+                f"""
+                INSERT INTO trials
+                SELECT ?, ? + row_number() OVER () AS number, cfg, score, status, cost_s,
+                       started_at, finished_at, error, sha256(? || '|' || ? || '|' || cfg)
+                FROM (SELECT {config_sql} AS cfg, * FROM {view})
+                """,
+                [study, int(start), fp, learner] + keys,
+            )
+        finally:
+            con.unregister(view)
+        return int(start) + len(prepared)
+
+    def trials(self, study: int) -> pd.DataFrame:
+        """Trials of a study: number, config (dict), score, status, cost_s, times, error, content_key."""
+        frame = self._df(
+            "SELECT number, config, score, status, cost_s, started_at, finished_at, error, content_key "
+            "FROM trials WHERE study_id = ? ORDER BY number",
+            [int(study)],
+        )
+        frame["config"] = [json.loads(c) for c in frame["config"]]
+        return frame
+
+    def trial_table(self, study: int) -> pd.DataFrame:
+        """Trials of a study with one column per parameter (inactive = missing)."""
+        frame = self.trials(study)
+        space = self.space(int(self._q("SELECT space_id FROM studies WHERE study_id = ?", [int(study)])[0][0]))
+        values = pd.DataFrame(list(frame["config"]), columns=space.names, index=frame.index)
+        return pd.concat([frame[["number"]], values, frame.drop(columns=["number", "config"])], axis=1)
+
+    # -- one-shot ingest ---------------------------------------------------
+    def ingest(
+        self,
+        trials: pd.DataFrame,
+        *,
+        task: str,
+        data: pd.DataFrame,
+        target: str,
+        learner: str,
+        space: Space,
+        metric: str = "score",
+        maximize: bool = True,
+        where: str = "trials",
+        source: str | None = None,
+        owner: str | None = None,
+        tags: Mapping[str, str] | None = None,
+    ) -> tuple[int, int, int]:
+        """Ingest a table of past trials as a new study, all in one transaction.
+
+        The trials are validated before anything is written; the task is
+        reused when its name and data match.
+
+        Returns
+        -------
+        (task_id, study_id, n_trials)
+        """
+        from warmstart.profile import PROFILE_VERSION, detect_kind
+        from warmstart.profile import profile as compute_profile
+
+        prepare_trials(space, trials, where=where)  # fail before any work or write
+        if target not in data.columns:
+            raise ArchiveError(f"{source or 'data'}: target column {target!r} not found; columns are {list(data.columns)}")
+        kind = detect_kind(data[target])
+        prof = None
+        fp = fingerprint(data, target)
+        reuse = self._q("SELECT task_id FROM tasks WHERE name = ? AND fingerprint = ?", [task, fp])
+        if not reuse or self._profile_version(reuse[0][0]) != PROFILE_VERSION:
+            prof = compute_profile(data, target=target, kind=kind)
+        with self.transaction():
+            task_id = self.add_task(task, data, target, kind=kind, source=source, profile=prof)
+            study_id = self.add_study(
+                task_id, learner, space, metric=metric, maximize=maximize, origin="imported", owner=owner, tags=tags
+            )
+            n = self.add_trials(study_id, trials, where=where)
+            self.finish_study(study_id)
+        return task_id, study_id, n
+
+    # -- neighbours and defaults (computed in warmstart.archive.queries) ---
+    def neighbors(self, prof: Mapping[str, float], learner: str | None = None, k: int = 5) -> pd.DataFrame:
+        """Past tasks ranked by similarity of their profile to ``prof``, nearest first."""
+        from warmstart.archive.queries import neighbors
+
+        return neighbors(self, prof, learner=learner, k=k)
+
+    def defaults(self, learner: str, near: Mapping[str, float] | None = None, n: int = 10) -> pd.DataFrame:
+        """Configs that rank well across many past tasks of ``learner``."""
+        from warmstart.archive.queries import defaults
+
+        return defaults(self, learner, near=near, n=n)
+
+    def build_prior(self, prof: Mapping[str, float], learner: str, space: Space, **options: Any):
+        """Build a :class:`~warmstart.prior.Prior` for ``learner`` over ``space``
+        from the studies of tasks similar to ``prof``."""
+        from warmstart.prior import build_prior
+
+        return build_prior(self, prof, learner=learner, space=space, **options)
+
+
+def _insert_frame(con: duckdb.DuckDBPyConnection, table: str, frame: pd.DataFrame, columns: list[str]) -> None:
+    """Bulk insert of a DataFrame through a registered view (table/columns from this module)."""
+    view = f"_frame_{uuid.uuid4().hex}"
+    con.register(view, frame)
+    try:
+        con.execute(f"INSERT INTO {table} ({', '.join(columns)}) SELECT {', '.join(columns)} FROM {view}")
+    finally:
+        con.unregister(view)
+
+
+def _split_sql(sql: str) -> list[str]:
+    lines = [line for line in sql.splitlines() if not line.strip().startswith("--")]
+    return [s.strip() for s in "\n".join(lines).split(";") if s.strip()]
+
+
+def _pid_hint(text: str) -> str:
+    marker = "PID "
+    if marker in text:
+        pid = text.split(marker, 1)[1].split(")")[0]
+        return f"held by process {pid}"
+    return "the file is locked"
+

@@ -1,0 +1,141 @@
+"""Commands that create the archive and move trials in and out of it:
+``init``, ``ingest``, ``studies``, ``show``."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import click
+import pandas as pd
+
+from warmstart.archive.store import Archive
+from warmstart.cli.common import fail, get_archive, json_option, print_json, print_table
+from warmstart.cli.main import main
+from warmstart.space import Space
+from warmstart.tables import read_table
+
+
+def _parse_tags(values: tuple[str, ...]) -> dict[str, str]:
+    tags = {}
+    for item in values:
+        if "=" not in item:
+            raise click.BadParameter(f"{item!r} is not KEY=VALUE (e.g. team=retail)", param_hint="--tag")
+        key, value = item.split("=", 1)
+        if not key:
+            raise click.BadParameter(f"{item!r} has an empty key; use KEY=VALUE", param_hint="--tag")
+        tags[key] = value
+    return tags
+
+
+@main.command()
+@click.pass_context
+def init(ctx: click.Context) -> None:
+    """Create the archive (or check an existing one) and print where it is."""
+    archive = get_archive(ctx, write=True)
+    n = len(archive.studies())
+    click.echo(f"archive ready: {archive.path} (schema {archive.schema_version}, {n} studies)")
+
+
+def _load_space(space_path: str | None, learner: str, data: pd.DataFrame, target: str) -> Space:
+    if space_path:
+        return Space.load(space_path)
+    try:
+        from warmstart.learners import default_space
+        from warmstart.profile import detect_kind
+    except ImportError:  # pragma: no cover - learners arrive with the search issue
+        fail(f"--space is required for learner {learner!r}")
+    return default_space(learner, detect_kind(data[target]))
+
+
+@main.command()
+@click.argument("trials", type=click.Path(dir_okay=False))
+@click.option("--task", required=True, help="Task name (stored verbatim).")
+@click.option("--data", "data_path", required=True, type=click.Path(dir_okay=False), help="The task's dataset (CSV, TSV, Parquet, JSON lines).")
+@click.option("--target", required=True, help="Target column of the dataset.")
+@click.option("--learner", required=True, help="Learner key, e.g. svm, gbt, or your own label.")
+@click.option("--space", "space_path", type=click.Path(dir_okay=False), help="Space file (.json/.toml); built-in learners have a default.")
+@click.option("--metric", default="score", show_default=True, help="Name of the metric the scores are in.")
+@click.option("--minimize", is_flag=True, help="Lower scores are better (default: higher is better).")
+@click.option("--owner", help="Who ran the study.")
+@click.option("--tag", "tags", multiple=True, metavar="KEY=VALUE", help="Tag the study (repeatable).")
+@json_option
+@click.pass_context
+def ingest(ctx, trials, task, data_path, target, learner, space_path, metric, minimize, owner, tags, as_json):
+    """Add past TRIALS (one column per parameter plus 'score') as a study.
+
+    The whole file goes in as one transaction: on any error nothing is written.
+    """
+    tag_map = _parse_tags(tags)
+    trial_frame = read_table(trials)
+    data = read_table(data_path)
+    if target not in data.columns:
+        fail(f"{data_path}: target column {target!r} not found; columns are {list(data.columns)}")
+    space = _load_space(space_path, learner, data, target)
+    archive = get_archive(ctx, write=True)
+    task_id, study_id, n = archive.ingest(
+        trial_frame, task=task, data=data, target=target, learner=learner, space=space, metric=metric,
+        maximize=not minimize, where=str(trials), source=str(data_path), owner=owner, tags=tag_map,
+    )
+    row = archive.study(study_id)
+    summary = {
+        "task_id": task_id, "task": task, "study_id": study_id, "trials": n,
+        "failed": int(row["n_trials"] - row["n_ok"]), "best_score": row["best_score"],
+    }
+    if as_json:
+        print_json(summary)
+    else:
+        click.echo(
+            f"ingested {n} trials of {learner!r} on task {task!r} as study {study_id} "
+            f"({summary['failed']} failed; best {metric} {row['best_score']:.4g})"
+        )
+
+
+@main.command()
+@click.option("--learner", help="Only studies of this learner.")
+@click.option("--task", help="Only studies of this task.")
+@json_option
+@click.pass_context
+def studies(ctx, learner, task, as_json):
+    """List studies: task, learner, metric, trial count, best score."""
+    archive = get_archive(ctx, write=False) if Path(ctx.find_root().obj["archive_path"]).exists() else get_archive(ctx)
+    frame = archive.studies()
+    if learner:
+        frame = frame[frame["learner"] == learner]
+    if task:
+        frame = frame[frame["task"] == task]
+    cols = ["study_id", "task", "learner", "metric", "direction", "origin", "n_trials", "best_score", "owner", "tags", "created_at"]
+    print_table(frame[cols], as_json, empty="no studies yet: add some with `warmstart ingest` or `warmstart tune`")
+
+
+@main.command()
+@click.argument("study", type=int)
+@click.option("--top", default=10, show_default=True, help="How many best trials to list (0 = all).")
+@json_option
+@click.pass_context
+def show(ctx, study, top, as_json):
+    """Show one STUDY (its id): task, space and its best trials."""
+    archive = get_archive(ctx, write=False)
+    row = archive.study(study)
+    table = archive.trial_table(study)
+    ok = table[table["status"] == "ok"].sort_values("score", ascending=not row["maximize"])
+    if top:
+        ok = ok.head(top)
+    if as_json:
+        info = {k: v for k, v in row.items() if k != "space"}
+        info["space"] = row["space"].to_dict()
+        info["trials"] = archive.trial_table(study).drop(columns=["content_key"]).to_dict(orient="records")
+        print_json(info)
+        return
+    click.echo(f"study {row['study_id']}: {row['learner']} on task {row['task']!r} ({row['origin']})")
+    click.echo(f"  metric    {row['metric']} ({row['direction']})")
+    click.echo(f"  trials    {row['n_trials']} ({row['n_trials'] - row['n_ok']} failed)")
+    best = row["best_score"]
+    click.echo(f"  best      {best:.4g}" if pd.notna(best) else "  best      -")
+    if row["owner"]:
+        click.echo(f"  owner     {row['owner']}")
+    if row["tags"]:
+        click.echo("  tags      " + ", ".join(f"{k}={v}" for k, v in row["tags"].items()))
+    click.echo("  space     " + "; ".join(f"{p.name}: {p.describe()}" for p in row["space"]))
+    click.echo("")
+    cols = ["number"] + row["space"].names + ["score", "cost_s"]
+    print_table(ok[cols], empty="no successful trials")

@@ -1,0 +1,104 @@
+"""Helpers shared by the command modules: the open archive, tables, errors."""
+
+from __future__ import annotations
+
+import json
+import math
+from typing import Any
+
+import click
+import numpy as np
+import pandas as pd
+
+from warmstart.archive.store import Archive
+
+__all__ = ["get_archive", "print_table", "print_json", "fail", "json_option", "to_jsonable"]
+
+json_option = click.option("--json", "as_json", is_flag=True, help="Print JSON instead of a table.")
+
+
+def get_archive(ctx: click.Context, write: bool = True) -> Archive:
+    """The archive named by ``--archive``, opened once per command and closed
+    when the command ends. ``write=False`` opens it read-only."""
+    root = ctx.find_root()
+    root.ensure_object(dict)
+    cached = root.obj.get("archive")
+    if cached is not None and (write is False or not cached.read_only):
+        return cached
+    if cached is not None:
+        cached.close()
+    archive = Archive(root.obj["archive_path"], read_only=not write)
+    root.obj["archive"] = archive
+    root.call_on_close(archive.close)
+    return archive
+
+
+def fail(message: str) -> None:
+    """Stop the command with a clean error message (exit code 1)."""
+    raise click.ClickException(message)
+
+
+def to_jsonable(value: Any) -> Any:
+    """Plain JSON value for numpy/pandas scalars, timestamps and containers."""
+    if isinstance(value, dict):
+        return {str(k): to_jsonable(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [to_jsonable(v) for v in value]
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    if value is None or value is pd.NaT:
+        return None
+    if isinstance(value, pd.Timestamp):
+        return value.isoformat()
+    if hasattr(value, "isoformat"):
+        return value.isoformat()
+    try:
+        if pd.isna(value):
+            return None
+    except (TypeError, ValueError):
+        pass
+    return value
+
+
+def print_json(value: Any) -> None:
+    """Print a value as indented JSON on stdout."""
+    click.echo(json.dumps(to_jsonable(value), indent=2))
+
+
+def _cell(value: Any) -> str:
+    if isinstance(value, dict):
+        return ",".join(f"{k}={v}" for k, v in value.items()) if value else ""
+    if isinstance(value, float):
+        if math.isnan(value):
+            return "-"
+        return f"{value:.4g}"
+    if value is None or value is pd.NaT:
+        return "-"
+    if isinstance(value, pd.Timestamp):
+        return value.strftime("%Y-%m-%d %H:%M")
+    return str(value)
+
+
+def print_table(frame: pd.DataFrame, as_json: bool = False, empty: str = "(nothing to show)") -> None:
+    """Print a DataFrame as an aligned text table, or as JSON records."""
+    if as_json:
+        print_json(frame.to_dict(orient="records"))
+        return
+    if frame.empty:
+        click.echo(empty)
+        return
+    cells = [[_cell(v) for v in row] for row in frame.itertuples(index=False)]
+    headers = [str(c) for c in frame.columns]
+    widths = [max([len(h)] + [len(r[j]) for r in cells]) for j, h in enumerate(headers)]
+    numeric = [pd.api.types.is_numeric_dtype(frame[c]) for c in frame.columns]
+
+    def line(values: list[str]) -> str:
+        parts = [v.rjust(w) if num else v.ljust(w) for v, w, num in zip(values, widths, numeric)]
+        return "  ".join(parts).rstrip()
+
+    click.echo(line(headers))
+    click.echo("  ".join("-" * w for w in widths))
+    for row in cells:
+        click.echo(line(row))

@@ -1,0 +1,427 @@
+"""Built-in scikit-learn learners, their default spaces, and the
+cross-validated objective.
+
+Learner keys (DESIGN §2): ``svm``, ``gbt``, ``forest``, ``knn``, ``mlp`` exist
+for both kinds of task; ``logreg`` is for classification and ``ridge`` for
+regression (asking for one on the other kind of task is an error that names
+the right key). Every estimator sits in a pipeline that imputes missing
+values, one-hot encodes categorical columns (unknown levels ignored, rare
+levels grouped) and standardises numeric columns; regressors also
+standardise the target, so ranges such as SVR's ``epsilon`` are in units of
+the target's standard deviation.
+
+The default ranges are common practice (rules of thumb widely used by
+practitioners; the SVM ranges follow the grid of the libsvm practical guide,
+from memory). They are starting points: pass a space file to change them.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+import warnings
+from dataclasses import dataclass, field
+from typing import Any, Callable, Mapping
+
+import numpy as np
+import pandas as pd
+from pandas.api import types as ptypes
+
+from warmstart.objective import ObjectiveError, TrialResult, _check_limit, _error_text, _now
+from warmstart.space import Space
+
+__all__ = [
+    "Learner",
+    "LEARNERS",
+    "METRICS",
+    "CVObjective",
+    "build_estimator",
+    "cv_objective",
+    "default_metric",
+    "default_space",
+    "get_learner",
+    "infer_kind",
+    "metric_direction",
+    "prepare_features",
+]
+
+TASK_KINDS = ("classification", "regression")
+
+# metric -> (kind, maximize, scikit-learn scorer name, sign that turns the
+# scorer's value into the metric's natural value)
+METRICS: dict[str, tuple[str, bool, str, float]] = {
+    "accuracy": ("classification", True, "accuracy", 1.0),
+    "balanced_accuracy": ("classification", True, "balanced_accuracy", 1.0),
+    "roc_auc": ("classification", True, "roc_auc", 1.0),  # roc_auc_ovr for > 2 classes
+    "log_loss": ("classification", False, "neg_log_loss", -1.0),
+    "f1_macro": ("classification", True, "f1_macro", 1.0),
+    "r2": ("regression", True, "r2", 1.0),
+    "rmse": ("regression", False, "neg_root_mean_squared_error", -1.0),
+    "mae": ("regression", False, "neg_mean_absolute_error", -1.0),
+}
+_DEFAULT_METRIC = {"classification": "accuracy", "regression": "r2"}
+_PROBA_METRICS = {"log_loss", "roc_auc"}
+
+# one-hot encoding of categoricals: levels seen in < 1 % of rows are grouped,
+# at most 32 columns per feature (common practice)
+ONEHOT_MIN_FREQUENCY = 0.01
+ONEHOT_MAX_CATEGORIES = 32
+
+
+def _real(low: float, high: float, log: bool = False, **extra: Any) -> dict:
+    return {"type": "real", "low": low, "high": high, "log": log, **extra}
+
+
+def _int(low: int, high: int, log: bool = False, **extra: Any) -> dict:
+    return {"type": "integer", "low": low, "high": high, "log": log, **extra}
+
+
+def _choice(*levels: Any, **extra: Any) -> dict:
+    return {"type": "choice", "choices": list(levels), **extra}
+
+
+# -- default spaces (all ranges common practice) -----------------------------
+_SVM_C = _real(2.0**-5, 2.0**15, log=True)  # libsvm guide grid, from memory
+_SVM_GAMMA = _real(2.0**-15, 2.0**3, log=True)  # libsvm guide grid, from memory
+_GBT = {
+    "learning_rate": _real(0.01, 1.0, log=True),
+    "max_iter": _int(20, 500, log=True),
+    "max_leaf_nodes": _int(4, 128, log=True),
+    "min_samples_leaf": _int(2, 200, log=True),
+    "l2_regularization": _real(1e-6, 10.0, log=True),
+    "max_features": _real(0.2, 1.0),
+}
+_FOREST = {
+    "n_estimators": _int(50, 300, log=True),
+    "max_features": _real(0.05, 1.0),
+    "min_samples_leaf": _int(1, 30, log=True),
+    "min_samples_split": _int(2, 30, log=True),
+    "bootstrap": _choice(True, False),
+}
+_KNN = {
+    "n_neighbors": _int(1, 100, log=True),
+    "weights": _choice("uniform", "distance"),
+    "p": _choice(1, 2),
+}
+_MLP = {
+    "n_layers": _choice(1, 2),
+    "width_1": _int(16, 256, log=True),
+    "width_2": _int(16, 256, log=True, when={"n_layers": [2]}),
+    "activation": _choice("relu", "tanh"),
+    "alpha": _real(1e-6, 1e-1, log=True),
+    "learning_rate_init": _real(1e-4, 1e-1, log=True),
+}
+_MLP_MAX_ITER = 300
+_SVM_MAX_ITER = 1_000_000  # bounds a libsvm run that would not converge
+
+
+def _svc(c: dict, seed: int, n_train: int | None, proba: bool):
+    from sklearn.svm import SVC
+
+    est = SVC(C=c["C"], gamma=c["gamma"], kernel="rbf", max_iter=_SVM_MAX_ITER, random_state=seed)
+    if proba:  # scikit-learn's advice since SVC(probability=True) is deprecated
+        from sklearn.calibration import CalibratedClassifierCV
+
+        return CalibratedClassifierCV(est, ensemble=False, cv=3)
+    return est
+
+
+def _svr(c: dict, seed: int, n_train: int | None, proba: bool):
+    from sklearn.svm import SVR
+
+    return SVR(C=c["C"], gamma=c["gamma"], epsilon=c["epsilon"], kernel="rbf", max_iter=_SVM_MAX_ITER)
+
+
+def _gbt(cls_name: str):
+    def build(c: dict, seed: int, n_train: int | None, proba: bool):
+        from sklearn import ensemble
+
+        return getattr(ensemble, cls_name)(**c, random_state=seed)
+
+    return build
+
+
+def _forest(cls_name: str):
+    def build(c: dict, seed: int, n_train: int | None, proba: bool):
+        from sklearn import ensemble
+
+        return getattr(ensemble, cls_name)(**c, n_jobs=1, random_state=seed)
+
+    return build
+
+
+def _knn(cls_name: str):
+    def build(c: dict, seed: int, n_train: int | None, proba: bool):
+        from sklearn import neighbors
+
+        k = c["n_neighbors"] if n_train is None else max(1, min(c["n_neighbors"], n_train))
+        return getattr(neighbors, cls_name)(n_neighbors=k, weights=c["weights"], p=c["p"])
+
+    return build
+
+
+def _mlp(cls_name: str):
+    def build(c: dict, seed: int, n_train: int | None, proba: bool):
+        from sklearn import neural_network
+
+        layers = (c["width_1"],) if c["n_layers"] == 1 else (c["width_1"], c["width_2"])
+        return getattr(neural_network, cls_name)(
+            hidden_layer_sizes=layers,
+            activation=c["activation"],
+            alpha=c["alpha"],
+            learning_rate_init=c["learning_rate_init"],
+            max_iter=_MLP_MAX_ITER,
+            random_state=seed,
+        )
+
+    return build
+
+
+def _logreg(c: dict, seed: int, n_train: int | None, proba: bool):
+    from sklearn.linear_model import LogisticRegression
+
+    weight = None if c["class_weight"] == "none" else c["class_weight"]
+    return LogisticRegression(C=c["C"], class_weight=weight, max_iter=1000)
+
+
+def _ridge(c: dict, seed: int, n_train: int | None, proba: bool):
+    from sklearn.linear_model import Ridge
+
+    return Ridge(alpha=c["alpha"])
+
+
+@dataclass(frozen=True)
+class Learner:
+    """A built-in learner for one kind of task.
+
+    Attributes
+    ----------
+    key : str
+        Learner key (``svm``, ``gbt``, ...).
+    kind : {"classification", "regression"}
+        Kind of task.
+    estimator : str
+        The scikit-learn estimator it wraps.
+    space : Space
+        Default search space (ranges are common practice).
+    defaults : dict
+        Value of every tunable parameter when a space leaves it out
+        (scikit-learn's own defaults).
+    build : callable
+        ``build(values, seed, n_train, proba) -> estimator`` with ``values``
+        holding every parameter of ``defaults`` (without the preprocessing;
+        use :func:`build_estimator`).
+    """
+
+    key: str
+    kind: str
+    estimator: str
+    space: Space = field(repr=False)
+    defaults: dict = field(repr=False)
+    build: Callable = field(repr=False)
+
+
+def _learner(key: str, kind: str, estimator: str, params: dict, defaults: dict, build: Callable) -> Learner:
+    space = Space.from_dict({"params": params, "learner": key}, where=f"default space of {key!r}")
+    assert set(space.names) <= set(defaults), key
+    return Learner(key, kind, estimator, space, defaults, build)
+
+
+C, R = "classification", "regression"
+_SVM_DEFAULTS = {"C": 1.0, "gamma": "scale"}
+_GBT_DEFAULTS = {"learning_rate": 0.1, "max_iter": 100, "max_leaf_nodes": 31, "min_samples_leaf": 20,
+                 "l2_regularization": 0.0, "max_features": 1.0}
+_FOREST_DEFAULTS = {"n_estimators": 100, "min_samples_leaf": 1, "min_samples_split": 2, "bootstrap": True}
+_KNN_DEFAULTS = {"n_neighbors": 5, "weights": "uniform", "p": 2}
+_MLP_DEFAULTS = {"n_layers": 1, "width_1": 100, "width_2": 100, "activation": "relu", "alpha": 1e-4,
+                 "learning_rate_init": 1e-3}
+LEARNERS: dict[str, dict[str, Learner]] = {
+    "svm": {
+        C: _learner("svm", C, "SVC", {"C": _SVM_C, "gamma": _SVM_GAMMA}, _SVM_DEFAULTS, _svc),
+        R: _learner(
+            "svm", R, "SVR", {"C": _SVM_C, "gamma": _SVM_GAMMA, "epsilon": _real(1e-3, 1.0, log=True)},
+            {**_SVM_DEFAULTS, "epsilon": 0.1}, _svr,
+        ),
+    },
+    "gbt": {
+        C: _learner("gbt", C, "HistGradientBoostingClassifier", _GBT, _GBT_DEFAULTS,
+                    _gbt("HistGradientBoostingClassifier")),
+        R: _learner("gbt", R, "HistGradientBoostingRegressor", _GBT, _GBT_DEFAULTS,
+                    _gbt("HistGradientBoostingRegressor")),
+    },
+    "logreg": {
+        C: _learner(
+            "logreg", C, "LogisticRegression",
+            {"C": _real(1e-4, 1e4, log=True), "class_weight": _choice("none", "balanced")},
+            {"C": 1.0, "class_weight": "none"}, _logreg,
+        ),
+    },
+    "ridge": {R: _learner("ridge", R, "Ridge", {"alpha": _real(1e-4, 1e4, log=True)}, {"alpha": 1.0}, _ridge)},
+    "forest": {
+        C: _learner("forest", C, "RandomForestClassifier", _FOREST, {**_FOREST_DEFAULTS, "max_features": "sqrt"},
+                    _forest("RandomForestClassifier")),
+        R: _learner("forest", R, "RandomForestRegressor", _FOREST, {**_FOREST_DEFAULTS, "max_features": 1.0},
+                    _forest("RandomForestRegressor")),
+    },
+    "knn": {
+        C: _learner("knn", C, "KNeighborsClassifier", _KNN, _KNN_DEFAULTS, _knn("KNeighborsClassifier")),
+        R: _learner("knn", R, "KNeighborsRegressor", _KNN, _KNN_DEFAULTS, _knn("KNeighborsRegressor")),
+    },
+    "mlp": {
+        C: _learner("mlp", C, "MLPClassifier", _MLP, _MLP_DEFAULTS, _mlp("MLPClassifier")),
+        R: _learner("mlp", R, "MLPRegressor", _MLP, _MLP_DEFAULTS, _mlp("MLPRegressor")),
+    },
+}
+_COUNTERPART = {("logreg", R): "ridge", ("ridge", C): "logreg"}
+
+
+def _check_kind(kind: Any) -> str:
+    if kind not in TASK_KINDS:
+        raise ObjectiveError(f"task kind {kind!r} is not known; use one of {', '.join(TASK_KINDS)}")
+    return kind
+
+
+def get_learner(key: str, kind: str) -> Learner:
+    """The built-in learner ``key`` for tasks of ``kind``.
+
+    Raises
+    ------
+    ObjectiveError
+        For an unknown key (the message lists the keys) or a learner that
+        does not fit the kind of task (the message names the one that does).
+    """
+    kind = _check_kind(kind)
+    if key not in LEARNERS:
+        keys = ", ".join(sorted(LEARNERS))
+        raise ObjectiveError(f"unknown learner {key!r}; built-in learners are: {keys}")
+    by_kind = LEARNERS[key]
+    if kind not in by_kind:
+        other = _COUNTERPART.get((key, kind))
+        hint = f"; use {other!r} for {kind}" if other else ""
+        raise ObjectiveError(f"learner {key!r} is for {', '.join(by_kind)} tasks, not {kind}{hint}")
+    return by_kind[kind]
+
+
+def default_space(key: str, kind: str) -> Space:
+    """Default search space of a built-in learner (ranges are common practice)."""
+    return get_learner(key, kind).space
+
+
+def metric_direction(metric: str) -> bool:
+    """True when larger values of ``metric`` are better (False for losses and errors)."""
+    if metric not in METRICS:
+        raise ObjectiveError(f"unknown metric {metric!r}; metrics are: {', '.join(METRICS)}")
+    return METRICS[metric][1]
+
+
+def default_metric(kind: str) -> str:
+    """``accuracy`` for classification, ``r2`` for regression."""
+    return _DEFAULT_METRIC[_check_kind(kind)]
+
+
+def infer_kind(y: pd.Series) -> str:
+    """Guess the kind of task from the target column.
+
+    Non-numeric or boolean targets, and integer-valued targets with at most
+    20 distinct values (common practice), are classification; the rest is
+    regression.
+    """
+    y = y.dropna()
+    if not ptypes.is_numeric_dtype(y) or ptypes.is_bool_dtype(y):
+        return "classification"
+    values = y.to_numpy(dtype=float)
+    if np.all(values == np.round(values)) and y.nunique() <= 20:
+        return "classification"
+    return "regression"
+
+
+def prepare_features(frame: pd.DataFrame) -> pd.DataFrame:
+    """Put feature columns into the dtypes the pipeline expects.
+
+    Numbers stay numbers, booleans become 0/1 floats, datetimes become
+    seconds since the epoch; everything else is categorical and becomes
+    strings (``object`` dtype, missing as NaN).
+    """
+    out = {}
+    for name in frame.columns:
+        col = frame[name]
+        if ptypes.is_bool_dtype(col):
+            out[name] = col.astype(float)
+        elif ptypes.is_datetime64_any_dtype(col):
+            stamps = pd.to_datetime(col)
+            out[name] = pd.Series(
+                np.where(stamps.isna(), np.nan, stamps.astype("int64") / 1e9), index=col.index
+            )
+        elif ptypes.is_numeric_dtype(col):
+            out[name] = col.astype(float)
+        else:
+            values = col.astype(object)
+            out[name] = values.where(values.isna(), values.astype(str)).where(values.notna(), np.nan)
+    return pd.DataFrame(out, index=frame.index).rename(columns=str)
+
+
+def _preprocessor():
+    from sklearn.compose import ColumnTransformer, make_column_selector
+    from sklearn.impute import SimpleImputer
+    from sklearn.pipeline import Pipeline
+    from sklearn.preprocessing import OneHotEncoder, StandardScaler
+
+    numeric = Pipeline([
+        ("impute", SimpleImputer(strategy="median", add_indicator=True, keep_empty_features=True)),
+        ("scale", StandardScaler()),
+    ])
+    categorical = Pipeline([
+        ("impute", SimpleImputer(strategy="constant", fill_value="(missing)")),
+        ("onehot", OneHotEncoder(
+            handle_unknown="ignore",
+            min_frequency=ONEHOT_MIN_FREQUENCY,
+            max_categories=ONEHOT_MAX_CATEGORIES,
+            sparse_output=False,
+        )),
+    ])
+    return ColumnTransformer([
+        ("numeric", numeric, make_column_selector(dtype_include="number")),
+        ("categorical", categorical, make_column_selector(dtype_exclude="number")),
+    ])
+
+
+def build_estimator(
+    key: str, kind: str, config: Mapping, seed: int = 0, n_train: int | None = None, proba: bool = False
+):
+    """The full pipeline (preprocessing + learner) for one config.
+
+    Parameters
+    ----------
+    key, kind : str
+        Learner key and kind of task.
+    config : mapping
+        Values of some or all of the learner's tunable parameters; the rest
+        take :attr:`Learner.defaults`.
+    seed : int, default 0
+        Seed of every random part of the estimator.
+    n_train : int, optional
+        Training rows (``knn`` caps ``n_neighbors`` at it).
+    proba : bool, default False
+        Wrap estimators without ``predict_proba`` so they have one.
+    """
+    from sklearn.compose import TransformedTargetRegressor
+    from sklearn.pipeline import Pipeline
+    from sklearn.preprocessing import StandardScaler
+
+    learner = get_learner(key, kind)
+    check_parameters(learner, config)
+    values = {**learner.defaults, **config}
+    model = Pipeline([("prepare", _preprocessor()), ("model", learner.build(values, seed, n_train, proba))])
+    if kind == "regression":
+        return TransformedTargetRegressor(regressor=model, transformer=StandardScaler())
+    return model
+
+
+def check_parameters(learner: Learner, names: Any) -> None:
+    """Raise ObjectiveError unless every name is a tunable parameter of ``learner``."""
+    unknown = [n for n in names if n not in learner.defaults]
+    if unknown:
+        raise ObjectiveError(
+            f"learner {learner.key!r} ({learner.estimator}) has no tunable parameter(s) {unknown}; "
+            f"its parameters are: {', '.join(learner.defaults)}"
+        )
