@@ -9,5 +9,7 @@ from warmstart.cli.main import main
 
 # Command modules register themselves on ``main`` when imported (one line each).
 from warmstart.cli import archive_cmds  # noqa: E402,F401  init, ingest, studies, show
+from warmstart.cli import transfer_cmds  # noqa: E402,F401  prior, gain
+from warmstart.cli import profile_cmds  # noqa: E402,F401  profile, neighbors, defaults
 
 __all__ = ["main"]

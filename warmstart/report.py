@@ -1,0 +1,149 @@
+"""Plots (matplotlib, PNG) and a self-contained HTML report of gain results."""
+
+from __future__ import annotations
+
+import base64
+import html
+import io
+import math
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Sequence
+
+import matplotlib
+
+matplotlib.use("Agg")
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+
+__all__ = ["plot_gain_per_task", "plot_curves", "write_report"]
+
+_COLORS = {"warm": "#d9480f", "cold": "#1c7ed6", "random": "#868e96", "defaults": "#2b8a3e", "nearest": "#7048e8"}
+
+
+def _png(fig) -> bytes:
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=110, bbox_inches="tight")
+    plt.close(fig)
+    return buf.getvalue()
+
+
+def plot_gain_per_task(result, path: str | Path | None = None) -> bytes:
+    """Gain of warm over cold per task with 95 % intervals (bits). Returns PNG bytes."""
+    rows = sorted(result.tasks, key=lambda t: t.gain)
+    fig, ax = plt.subplots(figsize=(7, max(2.5, 0.22 * len(rows) + 1)))
+    y = np.arange(len(rows))
+    gains = np.array([t.gain for t in rows])
+    lo = gains - np.array([t.gain_low for t in rows])
+    hi = np.array([t.gain_high for t in rows]) - gains
+    colors = ["#2b8a3e" if t.verdict == "helped" else "#c92a2a" if t.verdict == "hurt" else "#868e96" for t in rows]
+    ax.errorbar(gains, y, xerr=[lo, hi], fmt="none", ecolor="#adb5bd", elinewidth=1.5, capsize=2)
+    ax.scatter(gains, y, c=colors, zorder=3, s=18)
+    ax.axvline(0, color="black", lw=0.8)
+    ax.axvline(result.pooled.gain, color=_COLORS["warm"], lw=1, ls="--", label=f"pooled {result.pooled.gain:+.2f} bits")
+    ax.set_yticks(y)
+    ax.set_yticklabels([t.task[:28] + ("*" if t.smoothed else "") for t in rows], fontsize=7)
+    ax.set_xlabel("gain of warm over cold (bits, 95 % interval over runs)")
+    ax.set_title(f"{result.learner}: gain per held-out task, budget {result.budget}")
+    ax.legend(loc="lower right", fontsize=8)
+    data = _png(fig)
+    if path:
+        Path(path).write_bytes(data)
+    return data
+
+
+def plot_curves(result, path: str | Path | None = None) -> bytes:
+    """Hit rate per query and best-so-far regret, averaged over tasks. Returns PNG bytes."""
+    fig, (a1, a2) = plt.subplots(1, 2, figsize=(10, 3.6))
+    p = float(np.mean([t.p for t in result.tasks]))
+    for label, (hits, regret) in result.curves.items():
+        t = np.arange(1, len(hits) + 1)
+        style = "-" if label in ("warm", "cold", "random") else ":"
+        a1.plot(t, hits, style, color=_COLORS.get(label), label=label, marker="o", ms=3)
+        a2.plot(t, regret, style, color=_COLORS.get(label), label=label, marker="o", ms=3)
+    a1.axhline(p, color="black", lw=0.8, ls="--", label="uniform p")
+    a1.set_xlabel("query")
+    a1.set_ylabel("chance the query hits the target set")
+    a1.set_title("hit rate per query")
+    a2.set_xlabel("query")
+    a2.set_ylabel("best-so-far regret (share of score range)")
+    a2.set_title("best-so-far regret")
+    a1.legend(fontsize=8)
+    a2.legend(fontsize=8)
+    data = _png(fig)
+    if path:
+        Path(path).write_bytes(data)
+    return data
+
+
+def _img(data: bytes, alt: str) -> str:
+    return f'<img alt="{html.escape(alt)}" src="data:image/png;base64,{base64.b64encode(data).decode()}">'
+
+
+def _fmt(v) -> str:
+    if isinstance(v, float):
+        if math.isnan(v):
+            return "–"
+        if math.isinf(v):
+            return "never"
+        return f"{v:.3g}"
+    return html.escape(str(v))
+
+
+def _table(rows: Sequence[dict], columns: Sequence[str]) -> str:
+    head = "".join(f"<th>{html.escape(c)}</th>" for c in columns)
+    body = "".join("<tr>" + "".join(f"<td>{_fmt(r.get(c))}</td>" for c in columns) + "</tr>" for r in rows)
+    return f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
+
+
+def write_report(results, path: str | Path, title: str = "warmstart: transfer gain", notes: Sequence[str] = ()) -> Path:
+    """Write a self-contained HTML report (plots embedded) of replay or live results.
+
+    Parameters
+    ----------
+    results : sequence of ReplayResult
+    path : str or Path
+    title : str
+    notes : sequence of str
+        Paragraphs added under the title (e.g. cautions about noise).
+    """
+    path = Path(path)
+    parts = [
+        "<!doctype html><html><head><meta charset='utf-8'>",
+        f"<title>{html.escape(title)}</title>",
+        "<style>body{font-family:system-ui,sans-serif;max-width:1100px;margin:2em auto;color:#212529}"
+        "table{border-collapse:collapse;font-size:13px;margin:1em 0}td,th{border:1px solid #dee2e6;padding:3px 8px;"
+        "text-align:right}th{background:#f1f3f5}td:first-child{text-align:left}img{max-width:100%}"
+        ".note{color:#495057;font-size:14px}</style></head><body>",
+        f"<h1>{html.escape(title)}</h1>",
+        f"<p class='note'>Written {datetime.now(timezone.utc):%Y-%m-%d %H:%M} UTC. Bits over uniform = log2(q/p): q is a "
+        "search's per-query chance of landing in the target set (the top share of the task's scores under uniform "
+        "sampling), p the same chance for a uniform draw. Gain = log2(q_warm/q_cold). Intervals are 95 % bootstraps "
+        "over runs (per task) or over tasks (pooled). * marks a task where a search never hit and its rate was "
+        "smoothed.</p>",
+    ]
+    parts.extend(f"<p class='note'>{html.escape(n)}</p>" for n in notes)
+    summary = []
+    for r in results:
+        d = r.pooled.to_dict()
+        d["learner"] = r.learner
+        d["budget"] = r.budget
+        d["repeats"] = r.repeats
+        summary.append(d)
+    cols = ["learner", "budget", "repeats", "n_tasks", "bits_warm", "bits_cold", "gain", "gain_low", "gain_high",
+            "wilcoxon_p", "share_hurt"]
+    cols += sorted({k for d in summary for k in d if k.startswith("bits_") and k not in cols})
+    parts.append("<h2>Pooled over tasks</h2>" + _table(summary, cols))
+    for r in results:
+        parts.append(f"<h2>{html.escape(r.learner)} — budget {r.budget}, {r.repeats} runs per search</h2>")
+        parts.append(_img(plot_gain_per_task(r), "gain per task"))
+        parts.append(_img(plot_curves(r), "hit rate and regret curves"))
+        rows = [t.to_dict() for t in sorted(r.tasks, key=lambda t: -t.gain)]
+        tcols = ["task", "p", "bits_warm", "bits_cold", "gain", "gain_low", "gain_high", "verdict",
+                 "first_hit_warm", "first_hit_cold", "smoothed"]
+        tcols += sorted({k for row in rows for k in row if k.startswith("bits_") and k not in tcols})
+        parts.append(_table(rows, tcols))
+    parts.append("</body></html>")
+    path.parent.mkdir(parents=True, exist_ok=True)
+    path.write_text("\n".join(parts), encoding="utf-8")
+    return path
