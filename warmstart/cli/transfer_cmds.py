@@ -2,14 +2,11 @@
 
 from __future__ import annotations
 
-import math
-import time
-
 import click
-import pandas as pd
 
 from warmstart.cli.common import fail, get_archive, json_option, print_json, print_table
 from warmstart.cli.main import main
+from warmstart.progress import Progress
 
 
 def _budgets(text: str) -> list[int]:
@@ -20,28 +17,6 @@ def _budgets(text: str) -> list[int]:
     if not values or any(v < 1 for v in values):
         raise click.BadParameter(f"{text!r}: budgets must be whole numbers >= 1, e.g. 10,20")
     return values
-
-
-class Progress:
-    """A progress line on stderr with counts, elapsed time and time left."""
-
-    def __init__(self, label: str, enabled: bool = True):
-        self.label = label
-        self.start = time.monotonic()
-        self.enabled = enabled
-
-    def __call__(self, done: int, total: int) -> None:
-        if not self.enabled:
-            return
-        elapsed = time.monotonic() - self.start
-        left = elapsed / done * (total - done) if done else float("nan")
-        width = 24
-        fill = int(width * done / max(total, 1))
-        eta = "?" if math.isnan(left) else f"{left:4.0f}s"
-        click.echo(
-            f"\r{self.label} [{'#' * fill}{'.' * (width - fill)}] {done}/{total}  {elapsed:4.0f}s elapsed, {eta} left",
-            err=True, nl=done >= total,
-        )
 
 
 def resolve_space(space_path, learner: str, kind: str):
