@@ -36,6 +36,7 @@ __all__ = [
     "target_threshold",
     "hit_rate",
     "bits",
+    "bits_interval",
     "compare",
     "pool",
     "N_BOOT",
@@ -150,6 +151,21 @@ def _boot_rates(hits: np.ndarray, rng: np.random.Generator, n_boot: int) -> np.n
     k = per_run[idx].sum(axis=1).astype(float)
     n = R * B
     return np.where(k > 0, k / n, 0.5 / (n + 1))
+
+
+def bits_interval(runs: Runs, p: float, rng: Any = 0, n_boot: int = N_BOOT) -> tuple[float, float, float]:
+    """Bits over uniform of one search, with a bootstrap 95 % interval over runs.
+
+    Returns
+    -------
+    (bits, low, high)
+    """
+    if not 0 < p <= 1:
+        raise GainError(f"p must lie in (0, 1], got {p!r}")
+    q, _ = hit_rate(runs.hits)
+    boot = np.log2(_boot_rates(runs.hits, np.random.default_rng(rng), n_boot) / p)
+    lo, hi = np.percentile(boot, [2.5, 97.5])
+    return math.log2(q / p), float(lo), float(hi)
 
 
 @dataclass(frozen=True)

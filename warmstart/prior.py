@@ -213,7 +213,13 @@ class Prior:
         _, first = np.unique(np.array(key), return_index=True)
         self._candidates = cand[np.sort(first)]
         self._Q = np.column_stack([_nearest_quantiles(space, s, self._candidates) for s in self.sources])
-        R = np.apply_along_axis(rankdata, 0, self._Q)
+        # agreement is measured on every recorded config (up to 512 of them), not on the
+        # candidates alone: near-top candidates are too alike to tell agreement from noise
+        ref = np.vstack([s.X for s in self.sources])
+        if ref.shape[0] > 512:
+            ref = ref[np.random.default_rng(0).choice(ref.shape[0], 512, replace=False)]
+        Qref = np.column_stack([_nearest_quantiles(space, s, ref) for s in self.sources])
+        R = np.apply_along_axis(rankdata, 0, Qref)
         R = R - R.mean(axis=0)
         norm = np.sqrt((R**2).sum(axis=0))
         norm[norm == 0] = np.inf
@@ -232,7 +238,7 @@ class Prior:
 
     def _agreement(self) -> float:
         """Weighted mean Spearman correlation between sources' predicted quantiles."""
-        if len(self.sources) < 2 or self._Q.shape[0] < 3:
+        if len(self.sources) < 2:
             return 1.0
         W = np.outer(self.weights, self.weights)
         np.fill_diagonal(W, 0.0)

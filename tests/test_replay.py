@@ -1,0 +1,126 @@
+"""Replay protocol and the prior/gain commands, on a small synthetic archive
+(real DuckDB file in tmp_path)."""
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from click.testing import CliRunner
+
+from warmstart.archive import Archive
+from warmstart.cli import main
+from warmstart.prior import Prior
+from warmstart.replay import ReplayObjective, leave_one_task_out, replay_tasks
+from warmstart.space import Space
+
+SPACE = Space.from_dict({"params": {
+    "a": {"type": "real", "low": 0.0, "high": 1.0},
+    "b": {"type": "real", "low": 0.01, "high": 100.0, "log": True},
+    "c": {"type": "choice", "choices": ["x", "y"]},
+}})
+
+
+def _frame(setting, seed):
+    rng = np.random.default_rng(seed)
+    n, d = 120 + int(200 * setting), 3 + int(6 * setting)
+    X = rng.normal(size=(n, d)) * (1 + 3 * setting)
+    y = (X[:, 0] + rng.normal(scale=0.5 + 2 * setting, size=n) > 0).astype(int)
+    frame = pd.DataFrame(X, columns=[f"f{i}" for i in range(d)])
+    frame["label"] = y
+    return frame
+
+
+def _score(config, setting):
+    """Invented test landscape: the best `a` and `b` move with the task setting."""
+    u = SPACE.encode([config])[0]
+    return -((u[0] - setting) ** 2) - (u[1] - 0.5 * setting) ** 2 + (0.02 if config["c"] == "y" else 0.0)
+
+
+@pytest.fixture(scope="module")
+def archive_path(tmp_path_factory):
+    path = tmp_path_factory.mktemp("replay") / "history.duckdb"
+    archive = Archive(str(path))
+    for i, setting in enumerate(np.linspace(0.05, 0.95, 8)):
+        configs = SPACE.sobol(48, 0)
+        trials = pd.DataFrame(configs)
+        trials["score"] = [_score(c, setting) for c in configs]
+        archive.ingest(trials, task=f"family task {i}", data=_frame(setting, i), target="label",
+                       learner="toy", space=SPACE, metric="score")
+    archive.close()
+    return str(path)
+
+
+def test_replay_objective_returns_the_nearest_recorded_score():
+    rng = np.random.default_rng(0)
+    configs = SPACE.sample(40, rng)
+    scores = rng.normal(size=40)
+    obj = ReplayObjective(SPACE, SPACE.encode(configs), scores)
+    assert obj(configs[7]) == scores[7]  # a recorded config scores what it scored
+    # reference: brute-force nearest neighbour in the unit cube (choice mismatch counts 1)
+    query = SPACE.sample(25, 1)
+    Q, X = SPACE.encode(query), SPACE.encode(configs)
+    for row, cfg in zip(Q, query):
+        d = [((row[:2] - x[:2]) ** 2).sum() + (row[2] != x[2]) for x in X]
+        assert obj(cfg) == scores[int(np.argmin(d))]
+
+
+def test_uniform_hit_chance_is_close_to_gamma_on_a_space_filling_design(archive_path):
+    with Archive(archive_path, read_only=True) as archive:
+        tasks = replay_tasks(archive, "toy", gamma=0.1)
+    assert len(tasks) == 8
+    for t in tasks:
+        assert 0.03 < t.p < 0.2  # Voronoi cells of a Sobol design are roughly equal
+
+
+def test_leave_one_task_out_measures_transfer(archive_path):
+    with Archive(archive_path, read_only=True) as archive:
+        result = leave_one_task_out(archive, "toy", budget=8, repeats=6, gamma=0.1, seed=1)
+    frame = result.to_frame()
+    assert len(frame) == 8
+    assert np.isfinite(frame[["bits_warm", "bits_cold", "gain", "gain_low", "gain_high"]].to_numpy()).all()
+    assert (frame["gain_low"] <= frame["gain"]).all() and (frame["gain"] <= frame["gain_high"]).all()
+    # uniform sampling earns about 0 bits (analytic expectation)
+    assert abs(result.pooled.extra["bits_random"]) < 1.0
+    # the landscape moves smoothly with the setting, so transfer should help on this family
+    assert result.pooled.gain > 0
+    assert set(result.curves) >= {"warm", "cold", "random", "defaults", "nearest"}
+
+
+def test_prior_and_gain_commands(archive_path, tmp_path):
+    runner = CliRunner()
+    data = tmp_path / "new.csv"
+    _frame(0.4, 99).to_csv(data, index=False)
+    space_file = tmp_path / "space.json"
+    SPACE.save(space_file)
+    out = tmp_path / "prior.json"
+    res = runner.invoke(main, ["--archive", archive_path, "prior", str(data), "--target", "label", "--learner", "toy",
+                               "--space", str(space_file), "-o", str(out)])
+    assert res.exit_code == 0, res.output
+    assert "prior over 3 parameter(s) from 8 past studies" in res.stdout
+    prior = Prior.load(str(out))
+    assert prior.provenance["n_studies"] == 8
+    report = tmp_path / "gain.html"
+    res = runner.invoke(main, ["--archive", archive_path, "gain", "--learner", "toy", "--budget", "5,8",
+                               "--repeats", "3", "--report", str(report)])
+    assert res.exit_code == 0, res.output
+    assert "pooled over 8 tasks" in res.stdout and "budget 8" in res.stdout
+    html = report.read_text()
+    assert html.count("<img") >= 4 and "family task 3" in html
+    res = runner.invoke(main, ["--archive", archive_path, "gain", "--learner", "toy", "--budget", "5", "--repeats",
+                               "3", "--json"])
+    assert res.exit_code == 0
+    parsed = json.loads(res.stdout)
+    assert parsed[0]["learner"] == "toy" and len(parsed[0]["tasks"]) == 8
+
+
+@pytest.mark.parametrize("args, message", [
+    (["gain", "--learner", "nope"], "no studies of learner 'nope'"),
+    (["gain", "--budget", "a,b"], "not a comma-separated list"),
+    (["gain", "--budget", "0"], "budgets must be whole numbers >= 1"),
+])
+def test_gain_bad_input(archive_path, args, message):
+    res = CliRunner().invoke(main, ["--archive", archive_path] + args)
+    assert res.exit_code != 0
+    assert message in res.output
+    assert "Traceback" not in res.output
