@@ -30,3 +30,30 @@ __all__ = [
 ]
 
 # Public names added by later modules are imported below, one block each.
+
+from warmstart.learners import (  # noqa: E402
+    LEARNERS,
+    METRICS,
+    CVObjective,
+    Learner,
+    build_estimator,
+    cv_objective,
+    default_metric,
+    default_space,
+    get_learner,
+    metric_direction,
+)
+from warmstart.objective import (  # noqa: E402
+    CallableObjective,
+    CommandObjective,
+    ObjectiveError,
+    TrialFailed,
+    TrialResult,
+    score_function,
+)
+
+__all__ += [
+    "LEARNERS", "METRICS", "CVObjective", "Learner", "build_estimator", "cv_objective", "default_metric",
+    "default_space", "get_learner", "metric_direction",
+    "CallableObjective", "CommandObjective", "ObjectiveError", "TrialFailed", "TrialResult", "score_function",
+]

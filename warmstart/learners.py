@@ -28,6 +28,7 @@ import pandas as pd
 from pandas.api import types as ptypes
 
 from warmstart.objective import ObjectiveError, TrialResult, _check_limit, _error_text, _now
+from warmstart.profile import detect_kind
 from warmstart.space import Space
 
 __all__ = [
@@ -40,7 +41,6 @@ __all__ = [
     "default_metric",
     "default_space",
     "get_learner",
-    "infer_kind",
     "metric_direction",
     "prepare_features",
 ]
@@ -60,7 +60,6 @@ METRICS: dict[str, tuple[str, bool, str, float]] = {
     "mae": ("regression", False, "neg_mean_absolute_error", -1.0),
 }
 _DEFAULT_METRIC = {"classification": "accuracy", "regression": "r2"}
-_PROBA_METRICS = {"log_loss", "roc_auc"}
 
 # one-hot encoding of categoricals: levels seen in < 1 % of rows are grouped,
 # at most 32 columns per feature (common practice)
@@ -319,22 +318,6 @@ def default_metric(kind: str) -> str:
     return _DEFAULT_METRIC[_check_kind(kind)]
 
 
-def infer_kind(y: pd.Series) -> str:
-    """Guess the kind of task from the target column.
-
-    Non-numeric or boolean targets, and integer-valued targets with at most
-    20 distinct values (common practice), are classification; the rest is
-    regression.
-    """
-    y = y.dropna()
-    if not ptypes.is_numeric_dtype(y) or ptypes.is_bool_dtype(y):
-        return "classification"
-    values = y.to_numpy(dtype=float)
-    if np.all(values == np.round(values)) and y.nunique() <= 20:
-        return "classification"
-    return "regression"
-
-
 def prepare_features(frame: pd.DataFrame) -> pd.DataFrame:
     """Put feature columns into the dtypes the pipeline expects.
 
@@ -348,15 +331,13 @@ def prepare_features(frame: pd.DataFrame) -> pd.DataFrame:
         if ptypes.is_bool_dtype(col):
             out[name] = col.astype(float)
         elif ptypes.is_datetime64_any_dtype(col):
-            stamps = pd.to_datetime(col)
-            out[name] = pd.Series(
-                np.where(stamps.isna(), np.nan, stamps.astype("int64") / 1e9), index=col.index
-            )
+            epoch = pd.Timestamp(0, tz=col.dt.tz)  # any time unit, any time zone
+            out[name] = (col - epoch) / pd.Timedelta(seconds=1)
         elif ptypes.is_numeric_dtype(col):
             out[name] = col.astype(float)
         else:
             values = col.astype(object)
-            out[name] = values.where(values.isna(), values.astype(str)).where(values.notna(), np.nan)
+            out[name] = values.astype(str).astype(object).where(values.notna(), np.nan)
     return pd.DataFrame(out, index=frame.index).rename(columns=str)
 
 
@@ -425,3 +406,196 @@ def check_parameters(learner: Learner, names: Any) -> None:
             f"learner {learner.key!r} ({learner.estimator}) has no tunable parameter(s) {unknown}; "
             f"its parameters are: {', '.join(learner.defaults)}"
         )
+
+
+def _check_metric(metric: str | None, kind: str) -> str:
+    if metric is None:
+        return default_metric(kind)
+    metric_direction(metric)  # unknown metric -> error listing them
+    if METRICS[metric][0] != kind:
+        fitting = ", ".join(m for m, spec in METRICS.items() if spec[0] == kind)
+        raise ObjectiveError(f"metric {metric!r} is for {METRICS[metric][0]} tasks; for {kind} use one of: {fitting}")
+    return metric
+
+
+class CVObjective:
+    """Cross-validated score of a built-in learner on a table (picklable).
+
+    Build it with :func:`cv_objective`; call it with a config to get a
+    :class:`~warmstart.objective.TrialResult`. Every config is scored on the
+    same folds (fixed at construction), as the mean of the per-fold scores,
+    in the metric's natural units (``rmse`` is a positive error; see
+    :func:`metric_direction`).
+
+    The time limit is checked after every fold: once the elapsed time passes
+    it, the remaining folds are skipped and the trial is failed. A single
+    fold is never interrupted, so a trial overruns its limit by at most one
+    fold (iterative estimators are bounded: ``mlp`` by ``max_iter``, ``svm``
+    by a cap on libsvm iterations). For a hard wall-clock limit, run the
+    training as a command (:class:`~warmstart.objective.CommandObjective`).
+    Warnings (convergence and others) are silenced inside a trial.
+    """
+
+    def __init__(self, frame, target, learner, metric=None, kind=None, cv=5, seed=0,
+                 time_limit=None, space=None, threads=1):
+        if not isinstance(frame, pd.DataFrame):
+            raise ObjectiveError(f"the data must be a pandas DataFrame, got {type(frame).__name__}")
+        if target not in frame.columns:
+            raise ObjectiveError(f"target column {target!r} not found; columns are: {', '.join(map(str, frame.columns))}")
+        frame = frame[frame[target].notna()]
+        y = frame[target]
+        self.kind = _check_kind(kind) if kind is not None else detect_kind(y)
+        self.key = learner
+        spec = get_learner(learner, self.kind)
+        self.metric = _check_metric(metric, self.kind)
+        self.maximize = metric_direction(self.metric)
+        self.space = space if space is not None else spec.space
+        check_parameters(spec, self.space.names)
+        self.X = prepare_features(frame.drop(columns=[target]))
+        if self.X.shape[1] == 0:
+            raise ObjectiveError(f"the data has no feature columns besides the target {target!r}")
+        n = len(frame)
+        if isinstance(cv, bool) or not isinstance(cv, (int, np.integer)) or not 2 <= cv <= n:
+            raise ObjectiveError(f"cv must be a whole number of folds between 2 and the {n} rows, got {cv!r}")
+        from sklearn.model_selection import KFold, StratifiedKFold
+
+        if self.kind == "classification":
+            self.y = y.astype(str).to_numpy(dtype=object) if not ptypes.is_numeric_dtype(y) else y.to_numpy()
+            classes = np.unique(self.y)
+            if len(classes) < 2:
+                raise ObjectiveError(f"target {target!r} has a single class ({classes[0]!r}); a classifier needs two or more")
+            splitter = StratifiedKFold(n_splits=int(cv), shuffle=True, random_state=seed)
+        else:
+            if not ptypes.is_numeric_dtype(y) or ptypes.is_bool_dtype(y):
+                raise ObjectiveError(f"target {target!r} has dtype {y.dtype}; a regression target must be numeric")
+            self.y = y.to_numpy(dtype=float)
+            classes = ()
+            splitter = KFold(n_splits=int(cv), shuffle=True, random_state=seed)
+        with warnings.catch_warnings():  # small classes: scikit-learn warns, we go on
+            warnings.simplefilter("ignore")
+            self.folds = [(tr, te) for tr, te in splitter.split(self.X, self.y)]
+        scorer = METRICS[self.metric][2]
+        if self.metric == "roc_auc" and len(classes) > 2:
+            scorer = "roc_auc_ovr"
+        self.scorer_name, self.sign = scorer, METRICS[self.metric][3]
+        self.proba = self.metric == "log_loss" or scorer == "roc_auc_ovr"
+        self.seed = seed
+        self.time_limit = _check_limit(time_limit)
+        self.threads = threads
+
+    def __call__(self, config: Mapping) -> TrialResult:
+        started_at, started = _now(), time.perf_counter()
+        try:
+            config = self.space.normalize(config)
+        except Exception as exc:
+            return TrialResult.failed(_error_text(exc), started, started_at)
+        scores: list[float] = []
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            try:
+                with _thread_limit(self.threads):
+                    for k, (train, test) in enumerate(self.folds):
+                        scores.append(self._fold(config, train, test, k))
+                        elapsed = time.perf_counter() - started
+                        if self.time_limit is not None and elapsed > self.time_limit:
+                            return TrialResult.failed(
+                                f"trial exceeded its time limit of {self.time_limit:g} s "
+                                f"({elapsed:.1f} s after {k + 1} of {len(self.folds)} folds)",
+                                started, started_at,
+                            )
+            except Exception as exc:  # a failed trial; the search goes on
+                return TrialResult.failed(_error_text(exc), started, started_at)
+        cost = time.perf_counter() - started
+        return TrialResult(float(np.mean(scores)), "ok", cost, None, started_at, _now(), tuple(scores))
+
+    def _fold(self, config: dict, train: np.ndarray, test: np.ndarray, k: int) -> float:
+        from sklearn.metrics import get_scorer
+
+        est = build_estimator(self.key, self.kind, config, self.seed, n_train=len(train), proba=self.proba)
+        est.fit(self.X.iloc[train], self.y[train])
+        value = self.sign * float(get_scorer(self.scorer_name)(est, self.X.iloc[test], self.y[test]))
+        if not math.isfinite(value):
+            raise ObjectiveError(f"metric {self.metric} is {value} on fold {k + 1}")
+        return value
+
+    def __repr__(self) -> str:
+        return (f"CVObjective(learner={self.key!r}, kind={self.kind!r}, metric={self.metric!r}, "
+                f"folds={len(self.folds)}, rows={len(self.y)})")
+
+
+class _thread_limit:
+    """Limit BLAS/OpenMP threads inside a trial (parallel workers), or do nothing."""
+
+    def __init__(self, threads: int | None):
+        self.threads, self._ctl = threads, None
+
+    def __enter__(self):
+        if self.threads:
+            # load the estimators' native libraries first: threadpoolctl only
+            # limits libraries that are already loaded (OpenMP comes with them)
+            import sklearn.ensemble  # noqa: F401
+            import sklearn.neighbors  # noqa: F401
+            import sklearn.svm  # noqa: F401
+            from threadpoolctl import threadpool_limits
+
+            self._ctl = threadpool_limits(limits=self.threads)
+        return self
+
+    def __exit__(self, *exc):
+        if self._ctl is not None:
+            self._ctl.restore_original_limits()
+        return False
+
+
+def cv_objective(frame: pd.DataFrame, target: str, learner: str, metric: str | None = None,
+                 kind: str | None = None, cv: int = 5, seed: int = 0, time_limit: float | None = None,
+                 space: Space | None = None, threads: int | None = 1) -> CVObjective:
+    """Cross-validated objective of a built-in learner.
+
+    Parameters
+    ----------
+    frame : DataFrame
+        Features and target; rows with a missing target are left out.
+    target : str
+        Target column.
+    learner : str
+        Learner key (see :data:`LEARNERS`).
+    metric : str, optional
+        One of :data:`METRICS`; default ``accuracy`` (classification) or
+        ``r2`` (regression). ``roc_auc`` is one-vs-rest for more than two
+        classes. Scores are natural values: check :func:`metric_direction`.
+    kind : {"classification", "regression"}, optional
+        Kind of task; guessed from the target by
+        :func:`warmstart.profile.detect_kind` if None.
+    cv : int, default 5
+        Folds (stratified and shuffled for classification, shuffled for
+        regression), fixed for every config.
+    seed : int, default 0
+        Seed of the folds and of the estimators.
+    time_limit : float, optional
+        Seconds per trial, checked between folds (see :class:`CVObjective`).
+    space : Space, optional
+        The space configs come from; default the learner's default space.
+        Its parameter names must be tunable parameters of the learner.
+    threads : int or None, default 1
+        Cap on BLAS/OpenMP threads inside a trial. One thread per trial is
+        the default: parallelism comes from running trials in parallel
+        workers, and OpenMP threads competing for busy cores can slow a
+        small fit down tenfold. ``None`` leaves the libraries' own default.
+
+    Returns
+    -------
+    CVObjective
+        ``objective(config) -> TrialResult``.
+
+    Examples
+    --------
+    >>> from sklearn.datasets import load_iris
+    >>> frame = load_iris(as_frame=True).frame
+    >>> objective = cv_objective(frame, "target", "knn", cv=3)
+    >>> result = objective({"n_neighbors": 5, "weights": "uniform", "p": 2})
+    >>> result.status, round(result.score, 2) > 0.9
+    ('ok', True)
+    """
+    return CVObjective(frame, target, learner, metric=metric, kind=kind, cv=cv, seed=seed,
+                       time_limit=time_limit, space=space, threads=threads)

@@ -20,8 +20,10 @@ Only ``KeyboardInterrupt`` and ``SystemExit`` pass through.
 
 from __future__ import annotations
 
+import concurrent.futures as cf
 import json
 import math
+import multiprocessing
 import os
 import shlex
 import shutil
@@ -40,7 +42,11 @@ __all__ = [
     "TrialResult",
     "CallableObjective",
     "CommandObjective",
+    "TrialFailed",
+    "local_pool",
     "parse_score",
+    "score_function",
+    "stop_pool",
 ]
 
 _TAIL_CHARS = 2000
@@ -330,6 +336,36 @@ class CommandObjective:
         return f"CommandObjective({shlex.join(self.argv)!r}, timeout={self.timeout})"
 
 
+class TrialFailed(Exception):
+    """Raised by :func:`score_function` wrappers for a failed trial (message = error)."""
+
+
+class _ScoreFunction:
+    """Picklable adapter: ``objective(config) -> TrialResult`` to ``-> float``."""
+
+    def __init__(self, objective: Callable[[dict], TrialResult]):
+        self.objective = objective
+
+    def __call__(self, config: Mapping) -> float:
+        result = self.objective(config)
+        if not isinstance(result, TrialResult):
+            return result  # already a score-returning function
+        if not result.ok:
+            raise TrialFailed(result.error or "failed")
+        return result.score
+
+
+def score_function(objective: Callable[[dict], TrialResult]) -> Callable[[dict], float]:
+    """Wrap an objective for :func:`warmstart.search.run_search`.
+
+    The wrapper returns the score of an ok trial and raises
+    :class:`TrialFailed` (with the error text) for a failed one, which the
+    search loop records as a failed trial. It pickles when the objective
+    does, so it can run in worker processes.
+    """
+    return _ScoreFunction(objective)
+
+
 def _kill(proc: subprocess.Popen) -> None:
     """Kill a command and, on POSIX, every process of its session."""
     try:
@@ -339,3 +375,62 @@ def _kill(proc: subprocess.Popen) -> None:
             proc.kill()
     except (ProcessLookupError, PermissionError):
         pass
+
+
+# -- local worker processes ------------------------------------------------------
+_INSTALLED: Any = None  # the objective inside a worker process
+_PRELOAD = ["warmstart.learners", "sklearn.ensemble", "sklearn.svm", "sklearn.neighbors",
+            "sklearn.linear_model", "sklearn.neural_network", "sklearn.pipeline", "sklearn.compose"]
+
+
+def _install(objective: Any) -> None:
+    """Worker initializer: keep the objective (sent once) and leave Ctrl-C to the parent."""
+    global _INSTALLED
+    _INSTALLED = objective
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    # stop_pool terminates workers: end the running trial as an exception so a
+    # command objective kills its command instead of leaving it behind
+    signal.signal(signal.SIGTERM, _exit_on_term)
+
+
+def _exit_on_term(signum: int, frame: Any) -> None:
+    raise SystemExit(128 + signum)
+
+
+class _Installed:
+    """Picklable stand-in for the objective installed in each worker."""
+
+    def __call__(self, config: Mapping) -> Any:
+        return _INSTALLED(config)
+
+
+def local_pool(n_workers: int, objective: Callable) -> tuple[cf.ProcessPoolExecutor, Callable]:
+    """A process pool whose workers each receive ``objective`` once.
+
+    Returns the pool and a small picklable stand-in to submit instead of
+    the objective, so the data inside it is not sent with every trial.
+    Workers are forked from a fresh *fork server* (``spawn`` where there is
+    none) that has imported scikit-learn once: forking this process, which
+    may have run OpenMP code already, could hang the children. Workers
+    ignore Ctrl-C, which the parent handles (see :func:`stop_pool`).
+    """
+    if "forkserver" in multiprocessing.get_all_start_methods():
+        context = multiprocessing.get_context("forkserver")
+        context.set_forkserver_preload(_PRELOAD)
+    else:  # pragma: no cover - platforms without fork
+        context = multiprocessing.get_context("spawn")
+    pool = cf.ProcessPoolExecutor(
+        max_workers=n_workers,
+        mp_context=context,
+        initializer=_install,
+        initargs=(objective,),
+    )
+    return pool, _Installed()
+
+
+def stop_pool(pool: cf.ProcessPoolExecutor) -> None:
+    """Drop queued work and stop the workers of a :func:`local_pool` now."""
+    pool.shutdown(wait=False, cancel_futures=True)
+    # concurrent.futures has no public way to end running tasks before 3.14
+    for proc in list((getattr(pool, "_processes", None) or {}).values()):
+        proc.terminate()

@@ -1,0 +1,283 @@
+"""Commands that run searches: ``tune`` (evaluate here), ``propose`` and
+``record`` (evaluate elsewhere)."""
+
+from __future__ import annotations
+
+import json
+import math
+import sys
+from datetime import datetime, timezone
+from pathlib import Path
+
+import click
+import numpy as np
+
+from warmstart.cli.common import fail, get_archive, json_option, print_json
+from warmstart.cli.main import main
+from warmstart.learners import LEARNERS, TASK_KINDS, cv_objective, default_space, metric_direction, METRICS
+from warmstart.objective import CommandObjective, local_pool, score_function, stop_pool
+from warmstart.profile import detect_kind
+from warmstart.search import DensitySearch, run_search
+from warmstart.space import Space
+from warmstart.tables import read_table
+
+COLD_NOTE = "cold start: warm starts come with the prior builder"
+
+
+# -- workers -------------------------------------------------------------------
+def _cluster_executor(address: str):
+    try:
+        from dask.distributed import Client
+    except ImportError:
+        fail("--cluster needs dask.distributed, which is not installed; "
+             "install it with: pip install 'warmstart[cluster]'")
+    try:
+        client = Client(address)
+    except Exception as exc:  # connection problems come in many types
+        fail(f"--cluster {address}: cannot connect to the Dask scheduler ({exc})")
+    return client, client.get_executor(pure=False), sum(client.nthreads().values())
+
+
+def _start_search(space: Space, maximize: bool, seed: int, cold: bool):
+    """The search a study starts with, its origin and a note for the user.
+
+    Warm starts (a prior from related studies) plug in here.
+    """
+    note = "cold start (--cold)" if cold else COLD_NOTE
+    return DensitySearch(space, prior=None, seed=seed, maximize=maximize), "cold", note
+
+
+def _stamp(unix: float | None) -> datetime | None:
+    return None if unix is None else datetime.fromtimestamp(unix, timezone.utc)
+
+
+def _fmt(score) -> str:
+    return "-" if score is None or (isinstance(score, float) and math.isnan(score)) else f"{score:.4g}"
+
+
+# -- tune -----------------------------------------------------------------------
+def _objective_and_space(data, target, learner, kind, space_path, metric, minimize, command,
+                         cv, seed, time_limit, threads):
+    """Check every input and build (objective, space, metric, maximize) before
+    anything is written to the archive."""
+    builtin = learner in LEARNERS
+    space = Space.load(space_path) if space_path else None
+    if command:
+        if space is None:
+            if not builtin:
+                fail(f"learner {learner!r} is not built-in; give its space with --space FILE "
+                     f"(built-in learners: {', '.join(sorted(LEARNERS))})")
+            space = default_space(learner, kind)
+        if metric in METRICS:
+            maximize = metric_direction(metric)
+            if minimize and maximize:
+                fail(f"--minimize contradicts metric {metric!r}, which is maximised")
+        else:
+            maximize = not minimize
+        return CommandObjective(command, timeout=time_limit), space, metric or "score", maximize
+    if not builtin:
+        fail(f"learner {learner!r} is not built-in (built-in: {', '.join(sorted(LEARNERS))}); "
+             "to tune your own model give --command and --space")
+    if minimize:
+        fail("--minimize is for --command objectives; a built-in metric knows its direction")
+    objective = cv_objective(data, target, learner, metric=metric, kind=kind, cv=cv, seed=seed,
+                             time_limit=time_limit, space=space, threads=threads)
+    return objective, objective.space, objective.metric, objective.maximize
+
+
+@main.command()
+@click.argument("data", type=click.Path(dir_okay=False))
+@click.option("--target", required=True, help="Target column of DATA.")
+@click.option("--learner", required=True,
+              help=f"Built-in learner ({', '.join(sorted(LEARNERS))}) or your own label with --command.")
+@click.option("--space", "space_path", type=click.Path(dir_okay=False),
+              help="Space file (.toml/.json); built-in learners have a default.")
+@click.option("--budget", default=40, show_default=True, type=click.IntRange(min=0),
+              help="Trials to evaluate (0: only create the study, for propose/record).")
+@click.option("--metric", help=f"Built-in metric ({', '.join(METRICS)}); default accuracy or r2.")
+@click.option("--seed", default=0, show_default=True, type=int, help="Seed of the search and the CV folds.")
+@click.option("--workers", type=click.IntRange(min=1), help="Trials evaluated at once (local processes).")
+@click.option("--cluster", metavar="ADDRESS", help="Evaluate on a Dask cluster (needs warmstart[cluster]).")
+@click.option("--cold", is_flag=True, help="Force a cold start (no prior).")
+@click.option("--command", help="Evaluate each config by running this command (no shell); see DEVELOPERS.md.")
+@click.option("--minimize", is_flag=True, help="With --command: lower scores are better.")
+@click.option("--cv", default=5, show_default=True, type=click.IntRange(min=2), help="Cross-validation folds.")
+@click.option("--time-limit", type=click.FloatRange(min=0, min_open=True), metavar="SECONDS",
+              help="Per-trial limit; a trial over it is recorded as failed.")
+@click.option("--task", "task_name", help="Task name in the archive (default: DATA's file name).")
+@click.option("--kind", type=click.Choice(TASK_KINDS), help="Kind of task (default: from the target).")
+@json_option
+@click.pass_context
+def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, cluster, cold, command,
+         minimize, cv, time_limit, task_name, kind, as_json):
+    """Tune LEARNER on DATA and record every trial in the archive as it finishes.
+
+    The study keeps what it finished if the search is interrupted (Ctrl-C).
+    """
+    frame = read_table(data)
+    if target not in frame.columns:
+        fail(f"{data}: target column {target!r} not found; columns are {list(map(str, frame.columns))}")
+    kind = kind or detect_kind(frame[target])
+    n_workers = workers or 1
+    objective, space, metric, maximize = _objective_and_space(
+        frame, target, learner, kind, space_path, metric, minimize, command, cv, seed, time_limit,
+        threads=1,
+    )
+    client = executor = None
+    if cluster and budget:
+        client, executor, cores = _cluster_executor(cluster)
+        n_workers = workers or max(1, cores)
+    archive = get_archive(ctx, write=True)
+    task_id = archive.add_task(task_name or Path(data).stem, frame, target, kind=kind, source=str(data))
+    search, origin, note = _start_search(space, maximize, seed, cold)
+    study = archive.add_study(task_id, learner, space, metric=metric, maximize=maximize, origin=origin)
+    click.echo(f"study {study}: {learner} on {Path(data).name} ({kind}), {metric} "
+               f"({'maximize' if maximize else 'minimize'}), budget {budget}; {note}", err=True)
+    pool = None
+    if budget and n_workers > 1 and executor is None:
+        pool, proxy = local_pool(n_workers, objective)
+        executor, evaluate = pool, score_function(proxy)
+    else:
+        evaluate = score_function(objective)
+    counts = {"ok": 0, "failed": 0}
+    interrupted = False
+    with click.progressbar(length=budget, label="tuning", file=sys.stderr,
+                           show_pos=True, show_eta=True, item_show_func=lambda s: s) as bar:
+        def keep(trial) -> None:
+            error = trial.error
+            if error and error.startswith("TrialFailed: "):
+                error = error[len("TrialFailed: "):]
+            archive.record_trial(study, trial.config, trial.score, status=trial.status, cost_s=trial.cost_s,
+                                 started_at=_stamp(trial.started_at), finished_at=_stamp(trial.finished_at),
+                                 error=error)
+            counts[trial.status] += 1
+            best = search.best
+            bar.update(1, f"best {_fmt(best.score if best else None)}, {counts['failed']} failed")
+
+        try:
+            if budget:
+                run_search(search, evaluate, budget, callback=keep, n_workers=n_workers, executor=executor)
+        except KeyboardInterrupt:
+            interrupted = True
+            if pool is not None:
+                stop_pool(pool)
+                pool = None
+        finally:
+            if pool is not None:
+                pool.shutdown(wait=True)
+            if client is not None:
+                client.close()
+    if not interrupted:
+        archive.finish_study(study)
+    _report(archive, study, search, counts, interrupted, as_json, budget)
+    if interrupted:
+        ctx.exit(130)
+
+
+def _report(archive, study, search, counts, interrupted, as_json, budget) -> None:
+    row = archive.study(study)
+    best = search.best
+    summary = {
+        "study_id": study, "task_id": int(row["task_id"]), "task": row["task"], "learner": row["learner"],
+        "metric": row["metric"], "direction": row["direction"], "origin": row["origin"],
+        "n_trials": counts["ok"] + counts["failed"], "n_failed": counts["failed"],
+        "best_score": None if best is None else best.score,
+        "best_config": None if best is None else best.config, "interrupted": interrupted,
+    }
+    if as_json:
+        print_json(summary)
+        return
+    state = "interrupted: " if interrupted else ""
+    click.echo(f"{state}study {study} ({row['learner']} on task {row['task']!r}): "
+               f"{summary['n_trials']} trials, {summary['n_failed']} failed")
+    if best is None:
+        hint = ("evaluate configs with `warmstart propose --study "
+                f"{study}` and `warmstart record`") if budget == 0 else "no trial succeeded"
+        click.echo(hint)
+        return
+    click.echo(f"best {row['metric']} {best.score:.6g}")
+    width = max(len(name) for name in best.config)
+    for name, value in best.config.items():
+        click.echo(f"  {name.ljust(width)}  {value}")
+
+
+# -- propose / record -----------------------------------------------------------
+def _rebuilt_search(archive, study: int, seed: int):
+    """A fresh search fed with the study's recorded trials.
+
+    The generator is seeded with (seed, study, number of trials), so the same
+    history gives the same proposals and every new result moves on.
+    """
+    info = archive.study(study)
+    trials = archive.trials(study)
+    rng = np.random.default_rng([seed, study, len(trials)])
+    search = DensitySearch(info["space"], prior=None, seed=rng, maximize=info["maximize"])
+    for config, score, status in zip(trials["config"], trials["score"], trials["status"]):
+        search.record(config, None if status == "failed" else float(score), status)
+    return info, search
+
+
+@main.command()
+@click.option("--study", "study", required=True, type=int, help="Study id (see `warmstart studies`).")
+@click.option("-k", "k", default=1, show_default=True, type=click.IntRange(min=1), help="Configs to propose.")
+@click.option("--seed", default=0, show_default=True, type=int, help="Seed of the search.")
+@json_option
+@click.pass_context
+def propose(ctx, study, k, seed, as_json):
+    """Propose the next config(s) of a STUDY whose trials run elsewhere.
+
+    Prints one JSON config per line. Proposals are not stored: the same
+    history gives the same proposals, so ask for -k N at once for N
+    parallel jobs, then `warmstart record` each result.
+    """
+    archive = get_archive(ctx, write=False)
+    info, search = _rebuilt_search(archive, study, seed)
+    configs = search.propose(k)
+    click.echo(f"study {study}: {search.n_trials} trials recorded, best {_fmt(info['best_score'])}; "
+               f"{COLD_NOTE}", err=True)
+    if as_json:
+        print_json({"study_id": study, "configs": configs})
+        return
+    for config in configs:
+        click.echo(json.dumps(config, sort_keys=True))
+
+
+@main.command()
+@click.option("--study", "study", required=True, type=int, help="Study id.")
+@click.option("--config", "config_text", required=True, metavar="JSON", help='The config, e.g. \'{"C": 1.5}\'.')
+@click.option("--score", type=float, help="The score in the study's metric.")
+@click.option("--failed", is_flag=True, help="The config failed (no score).")
+@click.option("--error", help="What went wrong (with --failed).")
+@click.option("--cost", type=click.FloatRange(min=0), metavar="SECONDS", help="Wall time of the evaluation.")
+@json_option
+@click.pass_context
+def record(ctx, study, config_text, score, failed, error, cost, as_json):
+    """Record the result of one config of a STUDY (committed at once)."""
+    try:
+        config = json.loads(config_text)
+    except json.JSONDecodeError as exc:
+        raise click.BadParameter(f"not valid JSON ({exc.msg} at character {exc.pos}): {config_text!r}",
+                                 param_hint="--config") from None
+    if not isinstance(config, dict):
+        raise click.BadParameter(f"must be a JSON object of parameter values, got {config_text!r}",
+                                 param_hint="--config")
+    if failed == (score is not None):
+        raise click.UsageError("give either --score X or --failed (with --error TEXT)")
+    if score is not None and not math.isfinite(score):
+        raise click.BadParameter(f"must be a finite number, got {score}; use --failed for a failed trial",
+                                 param_hint="--score")
+    if error and not failed:
+        raise click.UsageError("--error goes with --failed")
+    archive = get_archive(ctx, write=True)
+    info = archive.study(study)
+    number = archive.record_trial(study, config, None if failed else score,
+                                  status="failed" if failed else "ok", cost_s=cost,
+                                  error=(error or "failed (recorded by hand)") if failed else None)
+    row = archive.study(study)
+    if as_json:
+        print_json({"study_id": study, "number": number, "status": "failed" if failed else "ok",
+                    "score": score, "best_score": row["best_score"], "n_trials": int(row["n_trials"])})
+        return
+    what = "failed" if failed else f"{info['metric']} {score:.6g}"
+    click.echo(f"recorded trial {number} of study {study} ({what}); "
+               f"best {_fmt(row['best_score'])} over {row['n_trials']} trials")
