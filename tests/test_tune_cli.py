@@ -58,7 +58,7 @@ def _archive(tmp_path) -> Archive:
 def test_tune_records_every_trial_and_prints_best(tmp_path, iris_csv):
     result = _run(tmp_path, "tune", iris_csv, "--target", "target", "--learner", "knn", "--budget", 6, "--seed", 2)
     assert result.exit_code == 0, result.stderr
-    assert "cold start: warm starts come with the prior builder" in result.stderr
+    assert "cold start: the archive has no studies of learner" in result.stderr
     assert "study 1 (knn on task 'iris'): 6 trials, 0 failed" in result.stdout
     with _archive(tmp_path) as archive:
         study = archive.study(1)

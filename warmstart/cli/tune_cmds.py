@@ -21,7 +21,6 @@ from warmstart.search import DensitySearch, run_search
 from warmstart.space import Space
 from warmstart.tables import read_table
 
-COLD_NOTE = "cold start: warm starts come with the prior builder"
 
 
 # -- workers -------------------------------------------------------------------
@@ -38,13 +37,32 @@ def _cluster_executor(address: str):
     return client, client.get_executor(pure=False), sum(client.nthreads().values())
 
 
-def _start_search(space: Space, maximize: bool, seed: int, cold: bool):
-    """The search a study starts with, its origin and a note for the user.
+def _start_search(archive, task_id: int, learner: str, space: Space, maximize: bool, seed: int, cold: bool):
+    """The search a study starts with, its origin, the prior's provenance and a
+    note for the user.
 
-    Warm starts (a prior from related studies) plug in here.
+    Warm by default: a prior from the archive's studies of the same learner on
+    other tasks. Cold when ``cold`` is set or when there is nothing to learn from.
     """
-    note = "cold start (--cold)" if cold else COLD_NOTE
-    return DensitySearch(space, prior=None, seed=seed, maximize=maximize), "cold", note
+    from warmstart.prior import PriorError
+
+    if cold:
+        return DensitySearch(space, prior=None, seed=seed, maximize=maximize), "cold", None, "cold start (--cold)"
+    profiles = archive.profiles()
+    if task_id not in profiles.index:
+        return DensitySearch(space, prior=None, seed=seed, maximize=maximize), "cold", None, \
+            "cold start: this task has no profile to compare"
+    prof = profiles.loc[task_id].drop(labels=["profile_version"], errors="ignore").astype(float).to_dict()
+    try:
+        prior = archive.build_prior(prof, learner=learner, space=space, exclude_tasks=[task_id])
+    except PriorError as exc:
+        return DensitySearch(space, prior=None, seed=seed, maximize=maximize), "cold", None, \
+            f"cold start: {exc}"
+    heaviest = prior.provenance["neighbors"][:3]
+    used = ", ".join(f"{n['task']!r} (study {n['study_id']}, weight {n['weight']:.2f})" for n in heaviest)
+    note = (f"warm start from {len(prior.sources)} past studies of {learner!r}; heaviest: {used}; "
+            f"prior strength n0 = {prior.strength:.1f}")
+    return DensitySearch(space, prior=prior, seed=seed, maximize=maximize), "warm", prior.provenance, note
 
 
 def _stamp(unix: float | None) -> datetime | None:
@@ -129,8 +147,9 @@ def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, 
         n_workers = workers or max(1, cores)
     archive = get_archive(ctx, write=True)
     task_id = archive.add_task(task_name or Path(data).stem, frame, target, kind=kind, source=str(data))
-    search, origin, note = _start_search(space, maximize, seed, cold)
-    study = archive.add_study(task_id, learner, space, metric=metric, maximize=maximize, origin=origin)
+    search, origin, provenance, note = _start_search(archive, task_id, learner, space, maximize, seed, cold)
+    study = archive.add_study(task_id, learner, space, metric=metric, maximize=maximize, origin=origin,
+                              prior=provenance)
     click.echo(f"study {study}: {learner} on {Path(data).name} ({kind}), {metric} "
                f"({'maximize' if maximize else 'minimize'}), budget {budget}; {note}", err=True)
     pool = None
@@ -211,7 +230,13 @@ def _rebuilt_search(archive, study: int, seed: int):
     info = archive.study(study)
     trials = archive.trials(study)
     rng = np.random.default_rng([seed, study, len(trials)])
-    search = DensitySearch(info["space"], prior=None, seed=rng, maximize=info["maximize"])
+    prior, note = None, "cold start"
+    if info["origin"] == "warm":
+        fresh, _, _, note = _start_search(archive, int(info["task_id"]), info["learner"], info["space"],
+                                          info["maximize"], 0, cold=False)
+        prior = fresh.prior
+    info["note"] = note
+    search = DensitySearch(info["space"], prior=prior, seed=rng, maximize=info["maximize"])
     for config, score, status in zip(trials["config"], trials["score"], trials["status"]):
         search.record(config, None if status == "failed" else float(score), status)
     return info, search
@@ -234,7 +259,7 @@ def propose(ctx, study, k, seed, as_json):
     info, search = _rebuilt_search(archive, study, seed)
     configs = search.propose(k)
     click.echo(f"study {study}: {search.n_trials} trials recorded, best {_fmt(info['best_score'])}; "
-               f"{COLD_NOTE}", err=True)
+               f"{info['note']}", err=True)
     if as_json:
         print_json({"study_id": study, "configs": configs})
         return
