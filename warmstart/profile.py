@@ -97,7 +97,7 @@ def detect_kind(series: pd.Series) -> str:
     s = series.dropna()
     if ptypes.is_bool_dtype(s) or not ptypes.is_numeric_dtype(s):
         return "classification"
-    values = s.to_numpy(dtype=float, na_value=np.nan)
+    values = s.to_numpy(dtype=float, na_value=np.nan, copy=True)
     values = values[np.isfinite(values)]
     distinct = pd.unique(values)
     if distinct.size <= 2:
@@ -155,7 +155,13 @@ def profile(
     >>> p["log_classes"] == math.log(2)
     True
     """
-    step = progress or (lambda name: None)
+    from threadpoolctl import threadpool_limits  # installed with scikit-learn
+
+    with threadpool_limits(limits=1):  # small matrices: one BLAS thread is faster and steadier
+        return _profile(frame, target, kind, seed, progress or (lambda name: None))
+
+
+def _profile(frame, target, kind, seed, step) -> dict[str, float]:
     y_full, features, keep = _check_input(frame, target)
     kind = kind or detect_kind(y_full)
     if kind not in ("classification", "regression"):
@@ -215,9 +221,9 @@ def _check_input(frame: pd.DataFrame, target: str) -> tuple[pd.Series, list[int]
     if not features:
         raise ProfileError(f"the table has only the target column {target!r}; a profile needs feature columns")
     y = frame.iloc[:, hits[0]]
-    missing = y.isna().to_numpy()
+    missing = y.isna().to_numpy().copy()
     if ptypes.is_numeric_dtype(y) and not ptypes.is_bool_dtype(y):
-        missing |= ~np.isfinite(y.to_numpy(dtype=float, na_value=np.nan))
+        missing |= ~np.isfinite(y.to_numpy(dtype=float, na_value=np.nan, copy=True))
     if missing.all():
         raise ProfileError(f"target column {target!r} is missing in all {len(y)} rows")
     keep = np.flatnonzero(~missing) if missing.any() else None
@@ -228,17 +234,21 @@ def _class_codes(y: pd.Series, target: str) -> tuple[np.ndarray, np.ndarray]:
     codes, uniques = pd.factorize(y, sort=True)
     if len(uniques) < 2:
         raise ProfileError(
-            f"target column {target!r} has a single class ({uniques[0]!r}); a classification task needs two or more"
+            f"target column {target!r} has a single class ({_plain(uniques[0])!r}); a classification task needs two or more"
         )
     return codes.astype(np.int64), np.bincount(codes)
+
+
+def _plain(value):
+    return value.item() if isinstance(value, np.generic) else value
 
 
 def _regression_target(y: pd.Series, target: str) -> np.ndarray:
     if not ptypes.is_numeric_dtype(y) or ptypes.is_bool_dtype(y):
         raise ProfileError(f"target column {target!r} has dtype {y.dtype}; a regression target must be numeric")
-    values = y.to_numpy(dtype=float, na_value=np.nan)
+    values = y.to_numpy(dtype=float, na_value=np.nan, copy=True)
     if np.ptp(values) == 0:
-        raise ProfileError(f"target column {target!r} has a single value ({values[0]!r}); nothing to predict")
+        raise ProfileError(f"target column {target!r} has a single value ({float(values[0])!r}); nothing to predict")
     return values
 
 
@@ -273,7 +283,7 @@ def _split_columns(sub: pd.DataFrame) -> tuple[np.ndarray, list[np.ndarray]]:
             x[s.isna().to_numpy()] = np.nan
             numeric.append(x)
         elif ptypes.is_numeric_dtype(s) and not ptypes.is_bool_dtype(s):
-            x = s.to_numpy(dtype=float, na_value=np.nan)
+            x = s.to_numpy(dtype=float, na_value=np.nan, copy=True)
             x[~np.isfinite(x)] = np.nan
             numeric.append(x)
         else:
@@ -356,6 +366,8 @@ def _standardize(N: np.ndarray) -> np.ndarray:
     """Columns with spread, standardised; missing values become 0 (the mean)."""
     valid = ~np.isnan(N)
     cnt = np.maximum(valid.sum(axis=0), 1)
+    scale = np.max(np.abs(np.where(valid, N, 0.0)), axis=0, initial=0.0)
+    N = N / np.where(scale > 0, scale, 1.0)  # scale-free: no overflow in the squares
     mean = np.where(valid, N, 0.0).sum(axis=0) / cnt
     d = np.where(valid, N - mean, 0.0)
     sd = np.sqrt((d**2).sum(axis=0) / cnt)
@@ -541,7 +553,7 @@ def _landmark_group(D: np.ndarray, y: np.ndarray, kind: str, seed: int) -> dict:
                     pred = make().fit(D[train], y[train]).predict(D[test])
                 if not np.all(np.isfinite(pred)):
                     raise ValueError("non-finite predictions")
-            except (ValueError, np.linalg.LinAlgError):
+            except Exception:  # a model that cannot fit degenerate data scores the baseline
                 pred = _baseline(y[train], len(test), kind)
             scores[name].append(_fold_score(y[test], pred, kind))
     out = {}

@@ -1,0 +1,106 @@
+"""Commands about tasks and their likeness: ``profile``, ``neighbors``, ``defaults``."""
+
+from __future__ import annotations
+
+import json
+import sys
+import time
+
+import click
+import pandas as pd
+
+from warmstart.cli.common import get_archive, json_option, print_json, print_table
+from warmstart.cli.main import main
+from warmstart.profile import FEATURE_GROUPS, PROFILE_VERSION, detect_kind, profile
+from warmstart.tables import read_table
+
+PROGRESS_CELLS = 200_000  # show progress on stderr when the table has at least this many cells
+
+_kind_option = click.option(
+    "--kind",
+    type=click.Choice(["classification", "regression"]),
+    help="Task kind (detected from the target when omitted).",
+)
+
+
+def _profile_file(path: str, target: str, kind: str | None) -> tuple[dict[str, float], str]:
+    """Read a table and profile it, with progress on stderr for big tables."""
+    frame = read_table(path)
+    if target not in frame.columns:
+        raise click.ClickException(f"{path}: target column {target!r} not found; columns are {list(frame.columns)}")
+    kind = kind or detect_kind(frame[target])
+    cells = frame.shape[0] * frame.shape[1]
+    if cells < PROGRESS_CELLS:
+        return profile(frame, target=target, kind=kind), kind
+    start = time.perf_counter()
+    label = f"profiling {path} ({frame.shape[0]:,} rows x {frame.shape[1]} columns)"
+    steps = 5 if kind == "regression" else 4  # groups reported by profile(progress=...)
+    with click.progressbar(length=steps, label=label, file=sys.stderr, show_eta=False) as bar:
+        prof = profile(frame, target=target, kind=kind, progress=lambda group: bar.update(1))
+    click.echo(f"profiled in {time.perf_counter() - start:.1f} s", err=True)
+    return prof, kind
+
+
+def _echo_notes(frame: pd.DataFrame) -> None:
+    for note in frame.attrs.get("notes", []):
+        click.echo(f"note: {note}", err=True)
+
+
+@main.command("profile")
+@click.argument("data", type=click.Path(dir_okay=False))
+@click.option("--target", required=True, help="Target column of the table.")
+@_kind_option
+@json_option
+def profile_command(data, target, kind, as_json):
+    """Print the meta-features of DATA (CSV, TSV, Parquet or JSON lines)."""
+    prof, kind = _profile_file(data, target, kind)
+    if as_json:
+        print_json({"data": data, "target": target, "kind": kind, "profile_version": PROFILE_VERSION, "profile": prof})
+        return
+    table = pd.DataFrame(
+        {"meta_feature": list(prof), "group": [FEATURE_GROUPS.get(f, "") for f in prof], "value": list(prof.values())}
+    )
+    click.echo(f"{kind} task, target {target!r}, profile version {PROFILE_VERSION}", err=True)
+    print_table(table)
+
+
+@main.command("neighbors")
+@click.argument("data", type=click.Path(dir_okay=False))
+@click.option("--target", required=True, help="Target column of the table.")
+@click.option("--learner", required=True, help="Only past tasks with studies of this learner.")
+@click.option("-k", "k", default=5, show_default=True, type=click.IntRange(min=1), help="How many neighbors.")
+@_kind_option
+@json_option
+@click.pass_context
+def neighbors_command(ctx, data, target, learner, k, kind, as_json):
+    """List the past tasks most similar to DATA that have studies of a learner."""
+    archive = get_archive(ctx, write=False)
+    prof, _ = _profile_file(data, target, kind)
+    frame = archive.neighbors(prof, learner=learner, k=k)
+    _echo_notes(frame)
+    if not as_json:
+        frame = frame.assign(study_ids=[",".join(str(s) for s in ids) for ids in frame["study_ids"]])
+    print_table(frame, as_json)
+
+
+@main.command("defaults")
+@click.option("--learner", required=True, help="Learner whose configs to rank.")
+@click.option("--near", "near", type=click.Path(dir_okay=False), help="Weight past tasks by similarity to this table.")
+@click.option("--target", help="Target column of the --near table.")
+@click.option("-n", "n", default=10, show_default=True, type=click.IntRange(min=1), help="How many configs.")
+@_kind_option
+@json_option
+@click.pass_context
+def defaults_command(ctx, learner, near, target, n, kind, as_json):
+    """List configs of a learner that ranked well across many past tasks."""
+    if near and not target:
+        raise click.UsageError("--near needs --target (the target column of that table)")
+    if target and not near:
+        raise click.UsageError("--target goes with --near DATA; give both or neither")
+    archive = get_archive(ctx, write=False)
+    prof = _profile_file(near, target, kind)[0] if near else None
+    frame = archive.defaults(learner, near=prof, n=n)
+    _echo_notes(frame)
+    if not as_json:
+        frame = frame.assign(config=[json.dumps(c, sort_keys=True) for c in frame["config"]])
+    print_table(frame, as_json, empty=f"no successful trials of {learner!r} in the archive")
