@@ -33,7 +33,7 @@ import pandas as pd
 from warmstart.errors import WarmstartError
 from warmstart.gain import PooledGain, Runs, TaskGain, compare, in_target, pool, target_threshold
 from warmstart.prior import Prior, Source, prior_from_sources, unit_distances
-from warmstart.sources import BANDWIDTH_SCALE, load_sources, weight_sources
+from warmstart.sources import BANDWIDTH_SCALE, comparable_profiles, load_sources, weight_sources
 from warmstart.space import Space
 
 __all__ = ["ReplayObjective", "ReplayTask", "ReplayResult", "replay_tasks", "leave_one_task_out", "static_order"]
@@ -260,14 +260,14 @@ def leave_one_task_out(
             f"found {len(all_tasks)}"
         )
     chosen = all_tasks if tasks is None else [t for t in all_tasks if t.task in set(tasks)]
-    profiles = archive.profiles()
     cache: dict[str, list[Source]] = {}
     jobs = []
     for t in chosen:
         key = t.space.content_hash
         if key not in cache:
             cache[key] = load_sources(archive, learner, t.space)
-        weighted = weight_sources(cache[key], profiles, t.profile, exclude_tasks=[t.task_id],
+        weighted = weight_sources(cache[key], comparable_profiles(archive, t.profile), t.profile,
+                                  exclude_tasks=[t.task_id],
                                   bandwidth_scale=BANDWIDTH_SCALE)
         prior = prior_from_sources(t.space, weighted, provenance={"learner": learner, "held_out": t.task})
         jobs.append((t, prior, budget, repeats, seed))

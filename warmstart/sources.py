@@ -12,7 +12,7 @@ from warmstart.prior import Prior, PriorError, Source, prior_from_sources, withi
 from warmstart.similarity import ProfileIndex
 from warmstart.space import Space
 
-__all__ = ["load_sources", "weight_sources", "build_prior", "BANDWIDTH_SCALE"]
+__all__ = ["load_sources", "weight_sources", "build_prior", "comparable_profiles", "BANDWIDTH_SCALE"]
 
 #: Similarity kernel bandwidth as a share of the median profile distance
 #: (our choice: at the median distance a task keeps e^-2 ~ 14 % of the weight
@@ -87,6 +87,22 @@ def weight_sources(
     return out
 
 
+def comparable_profiles(archive, prof: Mapping[str, float]) -> pd.DataFrame:
+    """The archive's profiles that can be compared with ``prof``: same profile
+    version, same kind of task (classification or regression)."""
+    from warmstart.profile import PROFILE_VERSION, profile_kind
+
+    profiles = archive.profiles()
+    if profiles.empty:
+        return profiles
+    tasks = archive.tasks()
+    same_kind = tasks.loc[tasks["kind"] == profile_kind(dict(prof)), "task_id"]
+    keep = profiles.index.isin(same_kind)
+    if "profile_version" in profiles.columns:
+        keep &= (profiles["profile_version"] == PROFILE_VERSION).to_numpy()
+    return profiles[keep]
+
+
 def build_prior(
     archive,
     prof: Mapping[str, float],
@@ -129,14 +145,12 @@ def build_prior(
 
     if sources is None:
         sources = load_sources(archive, learner, space)
-    profiles = archive.profiles()
-    if "profile_version" in profiles.columns:
-        profiles = profiles[profiles["profile_version"] == PROFILE_VERSION]
+    profiles = comparable_profiles(archive, prof)
     weighted = weight_sources(sources, profiles, prof, exclude_tasks, bandwidth_scale)
     if not weighted:
         raise PriorError(
-            f"no usable past study of learner {learner!r}: none has {PROFILE_VERSION!r}-version profiles and "
-            "successful trials outside the excluded tasks"
+            f"no usable past study of learner {learner!r}: none is of the same kind of task with a "
+            f"version-{PROFILE_VERSION} profile and successful trials outside the excluded tasks"
         )
     info = {"learner": learner, "profile_version": PROFILE_VERSION, "bandwidth_scale": bandwidth_scale}
     return prior_from_sources(space, weighted, top_fraction=top_fraction, provenance=info, n_seeds=n_seeds)
