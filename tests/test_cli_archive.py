@@ -1,0 +1,317 @@
+"""The archive commands through click's CliRunner: init, ingest, studies, show,
+with --json, --archive and WARMSTART_ARCHIVE, and every bad input (a clean
+message naming the culprit, a non-zero exit code, no traceback, nothing lost)."""
+
+from __future__ import annotations
+
+import json
+import re
+from types import SimpleNamespace
+
+import duckdb
+import pandas as pd
+import pytest
+from click.testing import CliRunner
+
+from warmstart.cli import main
+from warmstart.space import Space
+
+TRIALS = (
+    "C,tol,n_trees,depth,kernel,degree,score,status,cost_s\n"
+    "1.0,0.1,100,3,rbf,,0.8,ok,1.5\n"
+    "0.5,0.2,50,2,poly,3,0.7,ok,2\n"
+    "20,0.3,10,8,linear,,,ok,\n"
+)
+
+
+@pytest.fixture
+def files(tmp_path, space, small_frame):
+    space.save(tmp_path / "svm space.toml")
+    small_frame.to_csv(tmp_path / "data.csv", index=False)
+    (tmp_path / "trials.csv").write_text(TRIALS)
+    return SimpleNamespace(
+        space=tmp_path / "svm space.toml", data=tmp_path / "data.csv", trials=tmp_path / "trials.csv",
+        archive=tmp_path / "team" / "history.duckdb", root=tmp_path,
+    )
+
+
+def run(*args, archive=None, env=None):
+    runner = CliRunner()
+    prefix = ["--archive", str(archive)] if archive is not None else []
+    return runner.invoke(main, prefix + [str(a) for a in args], env=env)
+
+
+def ingest_args(files, trials=None, task="churn north", learner="svm", *extra):
+    return ["ingest", trials or files.trials, "--task", task, "--data", files.data, "--target", "y",
+            "--learner", learner, "--space", files.space, *extra]
+
+
+def assert_ok(result):
+    assert result.exit_code == 0, (result.stdout, result.stderr, result.exception)
+    assert result.stderr == ""
+
+
+def assert_clean_failure(result, *parts, code=1):
+    """Non-zero exit, a message on stderr naming every part, no traceback, nothing on stdout."""
+    assert result.exit_code == code, (result.stdout, result.stderr, result.exception)
+    assert isinstance(result.exception, SystemExit)  # not an uncaught Python error
+    assert "Traceback" not in result.stderr + result.stdout
+    assert result.stdout == ""
+    assert result.stderr.startswith("Error: " if code == 1 else "Usage: ")
+    for part in parts:
+        assert part in result.stderr, (part, result.stderr)
+
+
+# -- where the archive is ------------------------------------------------------------------
+
+
+def test_init_with_archive_option(files):
+    result = run("init", archive=files.archive)
+    assert_ok(result)
+    assert result.stdout == f"archive ready: {files.archive} (schema 1, 0 studies)\n"
+    assert files.archive.exists()
+    assert_ok(run("init", archive=files.archive))  # again: checks, changes nothing
+
+
+def test_init_with_environment_variable(files):
+    result = run("init", env={"WARMSTART_ARCHIVE": str(files.archive)})
+    assert_ok(result)
+    assert str(files.archive) in result.stdout and files.archive.exists()
+
+
+def test_option_wins_over_environment(files):
+    other = files.root / "other.duckdb"
+    assert_ok(run("init", archive=files.archive, env={"WARMSTART_ARCHIVE": str(other)}))
+    assert files.archive.exists() and not other.exists()
+
+
+def test_default_archive_location(tmp_path, monkeypatch):
+    monkeypatch.chdir(tmp_path)
+    result = run("init", env={"WARMSTART_ARCHIVE": None})
+    assert_ok(result)
+    assert result.stdout.startswith("archive ready: archive/warmstart.duckdb ")
+    assert (tmp_path / "archive" / "warmstart.duckdb").exists()
+
+
+# -- the happy path ----------------------------------------------------------------------
+
+
+def test_ingest_studies_show(files, space):
+    result = run(*ingest_args(files), archive=files.archive)
+    assert_ok(result)
+    assert result.stdout == "ingested 3 trials of 'svm' on task 'churn north' as study 1 (1 failed; best score 0.8)\n"
+
+    result = run("studies", archive=files.archive)
+    assert_ok(result)
+    header, rule, line = result.stdout.splitlines()
+    assert header.split() == ["study_id", "task", "learner", "metric", "direction", "origin", "n_trials",
+                              "best_score", "owner", "tags", "created_at"]
+    assert line.split()[:9] == ["1", "churn", "north", "svm", "score", "maximize", "imported", "3", "0.8"]
+
+    result = run("show", "1", archive=files.archive)
+    assert_ok(result)
+    assert "study 1: svm on task 'churn north' (imported)" in result.stdout
+    assert "trials    3 (1 failed)" in result.stdout and "best      0.8" in result.stdout
+    assert "kernel: one of \"rbf\", \"poly\", \"linear\"" in result.stdout
+    rows = [line.split() for line in result.stdout.splitlines()[-2:]]
+    assert rows == [["1", "1", "0.1", "100", "3", "rbf", "-", "0.8", "1.5"],
+                    ["2", "0.5", "0.2", "50", "2", "poly", "3", "0.7", "2"]]
+
+
+def test_json_output(files, space):
+    result = run(*ingest_args(files), "--metric", "auc", "--owner", "ana", "--tag", "team=retail", "--json",
+                 archive=files.archive)
+    assert_ok(result)
+    assert json.loads(result.stdout) == {"task_id": 1, "task": "churn north", "study_id": 1, "trials": 3,
+                                         "failed": 1, "best_score": 0.8}
+    studies = json.loads(run("studies", "--json", archive=files.archive).stdout)
+    assert len(studies) == 1
+    assert {k: studies[0][k] for k in ("study_id", "task", "learner", "metric", "n_trials", "best_score", "owner", "tags")} == {
+        "study_id": 1, "task": "churn north", "learner": "svm", "metric": "auc", "n_trials": 3,
+        "best_score": 0.8, "owner": "ana", "tags": {"team": "retail"}}
+    shown = json.loads(run("show", "1", "--json", archive=files.archive).stdout)
+    assert Space.from_dict(shown["space"]) == space
+    assert shown["direction"] == "maximize" and shown["n_trials"] == 3
+    assert [t["score"] for t in shown["trials"]] == [0.8, 0.7, None]
+    assert [t["status"] for t in shown["trials"]] == ["ok", "ok", "failed"]
+    assert shown["trials"][1]["degree"] == 3 and shown["trials"][0]["degree"] is None
+    assert json.loads(run("studies", "--json", "--learner", "forest", archive=files.archive).stdout) == []
+
+
+@pytest.mark.parametrize("suffix", [".parquet", ".jsonl"])
+def test_ingest_parquet_and_json_lines(files, suffix):
+    frame = pd.read_csv(files.trials)
+    path = files.root / f"trials{suffix}"
+    if suffix == ".parquet":
+        frame.assign(degree=frame["degree"].astype("Int64")).to_parquet(path)
+    else:
+        frame.to_json(path, orient="records", lines=True)
+    assert_ok(run(*ingest_args(files, trials=path), "--minimize", archive=files.archive))
+    studies = json.loads(run("studies", "--json", archive=files.archive).stdout)
+    assert (studies[0]["n_trials"], studies[0]["direction"], studies[0]["best_score"]) == (3, "minimize", 0.7)
+
+
+def test_same_task_is_reused_and_names_are_verbatim(files):
+    name = "Robert'); DROP TABLE tasks; -- \"quoted\""
+    assert_ok(run(*ingest_args(files, task=name), archive=files.archive))
+    assert_ok(run(*ingest_args(files, task=name, learner="svm; DELETE FROM trials"), archive=files.archive))
+    studies = json.loads(run("studies", "--json", archive=files.archive).stdout)
+    assert [s["task"] for s in studies] == [name, name]
+    assert [s["learner"] for s in studies] == ["svm", "svm; DELETE FROM trials"]
+    con = duckdb.connect(str(files.archive), read_only=True)
+    assert con.execute("SELECT count(*), min(name) FROM tasks").fetchall() == [(1, name)]
+    con.close()
+
+
+def test_studies_on_an_empty_archive(files):
+    result = run("studies", archive=files.archive)
+    assert_ok(result)
+    assert result.stdout.startswith("no studies yet")
+
+
+# -- bad input ----------------------------------------------------------------------------
+
+HEAD = "C,tol,n_trees,depth,kernel,degree,score"
+BAD_TRIALS = [
+    ("unknown column", "trials.csv", HEAD + ",gamma\n1.0,0.1,100,3,rbf,,0.8,1\n", ["unknown column(s) ['gamma']"]),
+    ("missing column", "trials.csv", "C,tol,n_trees,kernel,degree,score\n1.0,0.1,100,rbf,,0.8\n", ["missing column(s) for parameter(s) ['depth']"]),
+    ("outside the space", "trials.csv", HEAD + "\n1.0,0.1,100,3,rbf,,0.8\n1.0,0.1,100,12,rbf,,0.8\n", ["row 2, column 'depth': value 12 is out of range", "integer in [1, 8]"]),
+    ("text in a number column", "trials.csv", HEAD + "\n1.0,lots,100,3,rbf,,0.8\n", ["row 1, column 'tol': value 'lots' is not a number"]),
+    ("boolean", "trials.csv", HEAD + "\nTrue,0.1,100,3,rbf,,0.8\n", ["row 1, column 'C': value True is a boolean"]),
+    ("not an integer", "trials.csv", HEAD + "\n1.0,0.1,100.5,3,rbf,,0.8\n", ["row 1, column 'n_trees': value 100.5 is not a whole number"]),
+    ("unknown level", "trials.csv", HEAD + "\n1.0,0.1,100,3,sigmoid,,0.8\n", ["row 1, column 'kernel': value 'sigmoid' is not allowed", 'one of "rbf", "poly", "linear"']),
+    ("bad status", "trials.csv", HEAD + ",status\n1.0,0.1,100,3,rbf,,0.8,crashed\n", ["row 1, column 'status': value 'crashed' is not a status"]),
+    ("bad date", "trials.csv", HEAD + ",started_at\n1.0,0.1,100,3,rbf,,0.8,last tuesday\n", ["row 1, column 'started_at': value 'last tuesday' is not a date-time"]),
+    ("negative cost", "trials.csv", HEAD + ",cost_s\n1.0,0.1,100,3,rbf,,0.8,-3.5\n", ["row 1, column 'cost_s': value -3.5 is not a cost in seconds"]),
+    ("empty file", "trials.csv", "", ["the file is empty"]),
+    ("header only", "trials.csv", HEAD + "\n", ["the table has a header but no rows"]),
+    ("malformed", "trials.csv", HEAD + '\n1.0,0.1,"100,3,rbf,,0.8\n', ["not a valid CSV file"]),
+    ("malformed json lines", "trials.jsonl", '{"C": 1.0,\n', ["not a valid JSON lines file"]),
+    ("wrong extension", "trials.xls", HEAD + "\n1.0,0.1,100,3,rbf,,0.8\n", ["cannot tell the format from the extension '.xls'"]),
+]
+
+
+@pytest.mark.parametrize("case, name, content, parts", BAD_TRIALS, ids=[c[0] for c in BAD_TRIALS])
+def test_bad_trials_file(files, table_dump, case, name, content, parts):
+    assert_ok(run(*ingest_args(files, task="earlier"), archive=files.archive))
+    before = table_dump(files.archive)
+    path = files.root / name
+    path.write_text(content)
+    result = run(*ingest_args(files, trials=path), archive=files.archive)
+    assert_clean_failure(result, str(path), *parts)
+    assert table_dump(files.archive) == before
+
+
+def test_missing_trials_file(files):
+    result = run(*ingest_args(files, trials=files.root / "nope.csv"), archive=files.archive)
+    assert_clean_failure(result, "nope.csv: no such file")
+
+
+@pytest.mark.parametrize(
+    "spec, parts",
+    [
+        ({"C": {"type": "real", "low": 10.0, "high": 1.0}}, ["parameter 'C' has low=10.0 >= high=1.0"]),
+        ({"C": {"type": "real", "low": 0.0, "high": 1.0, "log": True}}, ["parameter 'C' is on a log scale but low=0.0", "positive bounds"]),
+        ({"C": {"type": "decimal", "low": 0.0, "high": 1.0}}, ["parameter 'C' has type 'decimal'", "real, integer, choice"]),
+    ],
+)
+def test_bad_space_file(files, table_dump, spec, parts):
+    path = files.root / "bad space.json"
+    path.write_text(json.dumps({"params": spec}))
+    assert_ok(run("init", archive=files.archive))
+    before = table_dump(files.archive)
+    result = run("ingest", files.trials, "--task", "t", "--data", files.data, "--target", "y", "--learner", "svm",
+                 "--space", path, archive=files.archive)
+    assert_clean_failure(result, str(path), *parts)
+    assert table_dump(files.archive) == before
+
+
+def test_unreadable_space_file(files):
+    path = files.root / "space.toml"
+    path.write_text("[params.C\ntype = ")
+    result = run(*ingest_args(files)[:-2], "--space", path, archive=files.archive)
+    assert_clean_failure(result, str(path), "not a valid TOML file")
+
+
+def test_bad_data_file(files, table_dump):
+    assert_ok(run("init", archive=files.archive))
+    before = table_dump(files.archive)
+    result = run("ingest", files.trials, "--task", "t", "--data", files.data, "--target", "label",
+                 "--learner", "svm", "--space", files.space, archive=files.archive)
+    assert_clean_failure(result, str(files.data), "target column 'label' not found", "['f1', 'f2', 'f3', 'y']")
+    assert table_dump(files.archive) == before
+
+
+def test_unknown_learner_without_space(files):
+    result = run("ingest", files.trials, "--task", "t", "--data", files.data, "--target", "y",
+                 "--learner", "my-own-model", archive=files.archive)
+    assert_clean_failure(result, "my-own-model")
+
+
+def test_bad_tag_is_a_usage_error(files):
+    result = run(*ingest_args(files), "--tag", "no-equals-sign", archive=files.archive)
+    assert_clean_failure(result, "--tag", "'no-equals-sign' is not KEY=VALUE", code=2)
+
+
+def test_show_unknown_study_and_missing_archive(files):
+    assert_ok(run("init", archive=files.archive))
+    assert_clean_failure(run("show", "99", archive=files.archive), "no study with id 99")
+    assert_clean_failure(run("show", "1", archive=files.root / "none.duckdb"), "none.duckdb: no archive here", "warmstart init")
+    assert not (files.root / "none.duckdb").exists()
+
+
+# -- bad archives -------------------------------------------------------------------------
+
+
+def _not_duckdb(path):
+    path.parent.mkdir(parents=True, exist_ok=True)
+    path.write_text("a plain text file\n")
+    return "not a warmstart archive (the file is not a DuckDB database)"
+
+
+def _other_duckdb(path):
+    path.parent.mkdir(parents=True, exist_ok=True)
+    con = duckdb.connect(str(path))
+    con.execute("CREATE TABLE stock (item VARCHAR, units INTEGER)")
+    con.close()
+    return "a DuckDB database but not a warmstart archive"
+
+
+def _newer_schema(path):
+    assert run("init", archive=path).exit_code == 0
+    con = duckdb.connect(str(path))
+    con.execute("INSERT INTO schema_version VALUES (?, now(), ?)", [99, "9.9.9"])
+    con.close()
+    return "archive schema version 99 is newer than this warmstart understands (1); upgrade warmstart"
+
+
+@pytest.mark.parametrize("make", [_not_duckdb, _other_duckdb, _newer_schema], ids=["not duckdb", "not an archive", "newer schema"])
+@pytest.mark.parametrize("command", ["init", "ingest", "studies", "show"])
+def test_bad_archive_file(files, table_dump, make, command):
+    message = make(files.archive)
+    before = files.archive.read_bytes() if make is _not_duckdb else table_dump(files.archive)
+    args = {"init": ["init"], "ingest": ingest_args(files), "studies": ["studies"], "show": ["show", "1"]}[command]
+    result = run(*args, archive=files.archive)
+    assert_clean_failure(result, str(files.archive), message)
+    after = files.archive.read_bytes() if make is _not_duckdb else table_dump(files.archive)
+    assert after == before
+
+
+def test_second_writer(files, table_dump, held_open):
+    assert_ok(run(*ingest_args(files, task="earlier"), archive=files.archive))
+    before = table_dump(files.archive)
+    with held_open(files.archive) as pid:
+        for args in (ingest_args(files), ["init"], ["studies"]):
+            result = run(*args, archive=files.archive)
+            assert_clean_failure(result, str(files.archive), "another process is writing to this archive",
+                                 f"held by process {pid}", "nothing was changed")
+    assert table_dump(files.archive) == before
+    assert_ok(run(*ingest_args(files), archive=files.archive))  # free again once the other process is done
+
+
+def test_help_lists_the_commands():
+    result = run("--help")
+    assert_ok(result)
+    for command in ("init", "ingest", "studies", "show"):
+        assert re.search(rf"^\s+{command}\s", result.stdout, re.MULTILINE)
+    assert "WARMSTART_ARCHIVE" in result.stdout
