@@ -1,0 +1,599 @@
+"""Curation of the archive: integrity check and repair, dedupe, prune, labels.
+
+Every repair runs in one transaction (:meth:`Archive.transaction`), so a crash
+or an error leaves the archive exactly as it was. Bulk work happens in DuckDB
+SQL; only the few rows of small tables (spaces, studies) pass through Python,
+plus the distinct configs of each space when :func:`check_archive`
+re-validates them with :meth:`Space.validate`.
+
+Rules written down here (DEVELOPERS.md "Curation" repeats them):
+
+- **Exact duplicate trial**: same content key (task fingerprint, learner,
+  canonical config), same metric and direction of its study, same status and
+  same score. A repeated evaluation with another score is information (noise)
+  and is kept. Of each group of exact duplicates the *earliest* is kept:
+  ordered by the study's ``created_at``, then study id, then trial number.
+- **Safe repairs** (``check --fix``) change nothing a query can use that is
+  not wrong: orphan profiles and trials (nothing can reach them), non-finite
+  scores marked ``ok`` (become ``failed``), scores on failed trials (moved
+  into the error text), stale content keys and space hashes (recomputed),
+  repeated trial numbers (renumbered after the study's last), exact duplicate
+  trials, and studies with no trials. Everything else is reported only.
+"""
+
+from __future__ import annotations
+
+import json
+import uuid
+from dataclasses import dataclass, field
+from datetime import datetime
+from typing import Any, Callable, Iterable, Mapping
+
+import pandas as pd
+
+from warmstart.archive.store import Archive
+from warmstart.errors import ArchiveError, SpaceError
+from warmstart.space import Space
+
+__all__ = [
+    "Finding",
+    "CheckReport",
+    "check_archive",
+    "fix_archive",
+    "dedupe_trials",
+    "count_duplicates",
+    "PrunePlan",
+    "plan_prune",
+    "apply_prune",
+    "label_study",
+    "filter_studies",
+    "archive_digest",
+    "ARCHIVE_TABLES",
+]
+
+ARCHIVE_TABLES = ("schema_version", "archive_info", "tasks", "profiles", "spaces", "studies", "trials")
+_EXAMPLES = 5  # how many culprits a finding names
+
+# Rank of each trial among its exact duplicates (1 = the earliest, kept).
+_DUPLICATE_RANK = (
+    "SELECT t.rowid AS rid, row_number() OVER ("
+    "PARTITION BY t.content_key, s.metric, s.direction, t.status, t.score "
+    "ORDER BY s.created_at, t.study_id, t.number, t.rowid) AS k, t.study_id, t.number "
+    "FROM trials t JOIN studies s USING (study_id)"
+)
+_KEY_SQL = "sha256(k.fingerprint || '|' || s.learner || '|' || t.config)"
+_STALE_KEYS = (
+    "SELECT t.rowid AS rid, t.study_id, t.number, " + _KEY_SQL + " AS fresh "
+    "FROM trials t JOIN studies s USING (study_id) JOIN tasks k ON k.task_id = s.task_id "
+    "WHERE t.content_key <> " + _KEY_SQL
+)
+
+
+@dataclass(frozen=True)
+class Finding:
+    """One kind of problem found by :func:`check_archive`.
+
+    Attributes
+    ----------
+    check : str
+        Short name of the check (e.g. ``"duplicate_trials"``).
+    count : int
+        Number of rows with the problem (0 = fine).
+    fixable : bool
+        Whether ``check --fix`` repairs it.
+    what : str
+        What the check looks for.
+    examples : tuple of str
+        A few culprits, named (study and trial numbers, task names ...).
+    """
+
+    check: str
+    count: int
+    fixable: bool
+    what: str
+    examples: tuple = ()
+
+
+@dataclass(frozen=True)
+class CheckReport:
+    """Result of :func:`check_archive`: findings plus informational notes."""
+
+    path: str
+    findings: tuple
+    notes: dict = field(default_factory=dict)
+
+    @property
+    def ok(self) -> bool:
+        """True when no check found anything."""
+        return all(f.count == 0 for f in self.findings)
+
+    @property
+    def problems(self) -> list:
+        """The findings with a non-zero count."""
+        return [f for f in self.findings if f.count]
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per check: check, count, fixable, what, examples."""
+        return pd.DataFrame(
+            [
+                {"check": f.check, "count": f.count, "fixable": f.fixable, "what": f.what,
+                 "examples": "; ".join(f.examples)}
+                for f in self.findings
+            ]
+        )
+
+
+def _q(archive: Archive, sql: str, params: Any = None) -> list[tuple]:
+    return archive.con.execute(sql, params or []).fetchall()
+
+
+def _count_examples(
+    archive: Archive, sql: str, label: Callable[[tuple], str], params: list | None = None
+) -> tuple[int, tuple]:
+    """Count the rows of ``sql`` and name the first few."""
+    n = _q(archive, f"SELECT count(*) FROM ({sql})", params)[0][0]
+    rows = _q(archive, f"SELECT * FROM ({sql}) LIMIT {_EXAMPLES}", params) if n else []
+    return int(n), tuple(label(r) for r in rows)
+
+
+def _space_problems(archive: Archive) -> tuple[dict[int, Space], list[str], list[str]]:
+    """Parse every space: (parsed spaces, unreadable ones, stale hashes)."""
+    parsed, unreadable, stale = {}, [], []
+    for space_id, learner, definition, stored in _q(
+        archive, "SELECT space_id, learner, definition, content_hash FROM spaces ORDER BY space_id"
+    ):
+        try:
+            d = json.loads(definition)
+            space = Space.from_dict({"params": d.get("params") if isinstance(d, dict) else d},
+                                    where=f"space {space_id}")
+        except (ValueError, SpaceError) as exc:
+            unreadable.append(f"space {space_id} ({learner}): {str(exc)[:160]}")
+            continue
+        parsed[int(space_id)] = space
+        if space.content_hash != stored:
+            stale.append(f"space {space_id} ({learner})")
+    return parsed, unreadable, stale
+
+
+def _outside_space(archive: Archive, spaces: dict[int, Space], progress: Callable | None) -> tuple[int, tuple]:
+    """Trials whose stored config is not a valid config of its study's space."""
+    total = 0
+    if progress:
+        total = _q(archive, "SELECT count(*) FROM (SELECT DISTINCT s.space_id, t.config FROM trials t "
+                            "JOIN studies s USING (study_id))")[0][0]
+    done = 0
+    result = archive.con.execute(
+        "SELECT s.space_id, t.config, count(*) AS n, min(t.study_id) AS study, "
+        "arg_min(t.number, t.study_id) AS number "
+        "FROM trials t JOIN studies s USING (study_id) GROUP BY s.space_id, t.config ORDER BY study, number"
+    )
+    bad, examples = 0, []
+    while chunk := result.fetchmany(50_000):  # streamed: memory stays flat on big archives
+        for space_id, config, n, study, number in chunk:
+            space = spaces.get(int(space_id))
+            if space is None:
+                continue  # reported as an unreadable space or an orphan study
+            try:
+                space.validate(json.loads(config))
+            except (ValueError, SpaceError) as exc:
+                bad += int(n)
+                if len(examples) < _EXAMPLES:
+                    examples.append(f"study {study} trial {number}: {str(exc)[:160]}")
+        done += len(chunk)
+        if progress:
+            progress(done, total)
+    return bad, tuple(examples)
+
+
+def count_duplicates(archive: Archive) -> int:
+    """Number of exact duplicate trials (those dedupe would drop)."""
+    return int(_q(archive, f"SELECT count(*) FROM ({_DUPLICATE_RANK}) WHERE k > 1")[0][0])
+
+
+def check_archive(archive: Archive, progress: Callable[[int, int], None] | None = None) -> CheckReport:
+    """Check the archive's integrity; change nothing.
+
+    Parameters
+    ----------
+    archive : Archive
+        The archive (read-only is enough).
+    progress : callable, optional
+        Called as ``progress(done, total)`` with counts of distinct configs
+        validated (per chunk of 50,000).
+
+    Returns
+    -------
+    CheckReport
+        One :class:`Finding` per check, ``report.ok`` when all counts are 0.
+    """
+    from warmstart.profile import PROFILE_VERSION
+
+    findings = []
+
+    def add(check: str, fixable: bool, what: str, sql: str, label: Callable[[tuple], str], params=None) -> None:
+        n, ex = _count_examples(archive, sql, label, params)
+        findings.append(Finding(check, n, fixable, what, ex))
+
+    add("orphan_profiles", True, "profile rows of a task that does not exist",
+        "SELECT DISTINCT task_id FROM profiles WHERE task_id NOT IN (SELECT task_id FROM tasks)",
+        lambda r: f"task id {r[0]}")
+    add("orphan_trials", True, "trials of a study that does not exist",
+        "SELECT study_id, number FROM trials WHERE study_id NOT IN (SELECT study_id FROM studies) "
+        "ORDER BY study_id, number", lambda r: f"study {r[0]} trial {r[1]}")
+    add("studies_without_task", False, "studies whose task does not exist (prune them or restore the task)",
+        "SELECT study_id, task_id FROM studies WHERE task_id NOT IN (SELECT task_id FROM tasks) ORDER BY study_id",
+        lambda r: f"study {r[0]} (task id {r[1]})")
+    add("studies_without_space", False, "studies whose space does not exist (prune them or restore the space)",
+        "SELECT study_id, space_id FROM studies WHERE space_id NOT IN (SELECT space_id FROM spaces) "
+        "ORDER BY study_id", lambda r: f"study {r[0]} (space id {r[1]})")
+    spaces, unreadable, stale_hash = _space_problems(archive)
+    findings.append(Finding("unreadable_spaces", len(unreadable), False,
+                            "space definitions that are not a valid space", tuple(unreadable[:_EXAMPLES])))
+    findings.append(Finding("stale_space_hashes", len(stale_hash), True,
+                            "spaces whose stored content hash does not match their definition",
+                            tuple(stale_hash[:_EXAMPLES])))
+    n, ex = _outside_space(archive, spaces, progress)
+    findings.append(Finding("trials_outside_space", n, False,
+                            "trials whose config is not valid in their study's space (prune or fix by hand)", ex))
+    add("nonfinite_scores_ok", True, "trials marked ok whose score is missing, NaN or infinite (become failed)",
+        "SELECT study_id, number, score FROM trials WHERE status = 'ok' AND (score IS NULL OR NOT isfinite(score)) "
+        "ORDER BY study_id, number", lambda r: f"study {r[0]} trial {r[1]} (score {r[2]})")
+    add("failed_with_score", True, "failed trials that carry a score (the score moves into the error text)",
+        "SELECT study_id, number, score FROM trials WHERE status = 'failed' AND score IS NOT NULL "
+        "ORDER BY study_id, number", lambda r: f"study {r[0]} trial {r[1]} (score {r[2]})")
+    add("stale_content_keys", True, "trials whose content key does not match task fingerprint, learner and config",
+        _STALE_KEYS + " ORDER BY t.study_id, t.number", lambda r: f"study {r[1]} trial {r[2]}")
+    add("repeated_trial_numbers", True, "trials sharing a number with another trial of the same study",
+        "SELECT study_id, number, count(*) AS n FROM trials GROUP BY study_id, number HAVING count(*) > 1 "
+        "ORDER BY study_id, number", lambda r: f"study {r[0]} trial {r[1]} ({r[2]} times)")
+    add("duplicate_trials", True,
+        "exact duplicate trials (same task data, learner, config, metric and result; the earliest is kept)",
+        f"SELECT study_id, number FROM ({_DUPLICATE_RANK}) WHERE k > 1 ORDER BY study_id, number",
+        lambda r: f"study {r[0]} trial {r[1]}")
+    add("profile_version_mismatch", False,
+        f"tasks whose profile is not version {PROFILE_VERSION} (needs the dataset: ingest it again to re-profile)",
+        "SELECT k.task_id, k.name, min(p.version), max(p.version) FROM tasks k JOIN profiles p USING (task_id) "
+        "GROUP BY k.task_id, k.name HAVING min(p.version) <> ? OR max(p.version) <> ? ORDER BY k.task_id",
+        lambda r: f"task {r[1]!r} (version {r[2]}" + (f"..{r[3]}" if r[3] != r[2] else "") + ")",
+        [str(PROFILE_VERSION)] * 2)
+    add("studies_without_trials", True, "studies with no trials",
+        "SELECT study_id FROM studies WHERE study_id NOT IN (SELECT study_id FROM trials) ORDER BY study_id",
+        lambda r: f"study {r[0]}")
+    add("tasks_without_profiles", False, "tasks with no profile (needs the dataset: ingest it again to profile it)",
+        "SELECT task_id, name FROM tasks WHERE task_id NOT IN (SELECT task_id FROM profiles) ORDER BY task_id",
+        lambda r: f"task {r[1]!r}")
+    notes = {
+        "tasks": _q(archive, "SELECT count(*) FROM tasks")[0][0],
+        "studies": _q(archive, "SELECT count(*) FROM studies")[0][0],
+        "trials": _q(archive, "SELECT count(*) FROM trials")[0][0],
+        "repeated_configs_other_result": _q(
+            archive,
+            "SELECT count(*) FROM (SELECT t.content_key, s.metric FROM trials t JOIN studies s USING (study_id) "
+            "GROUP BY t.content_key, s.metric HAVING count(DISTINCT (t.status, t.score)) > 1)",
+        )[0][0],
+        "spaces_without_studies": _q(
+            archive, "SELECT count(*) FROM spaces WHERE space_id NOT IN (SELECT space_id FROM studies)"
+        )[0][0],
+    }
+    return CheckReport(archive.path, tuple(findings), {k: int(v) for k, v in notes.items()})
+
+
+def _changed(archive: Archive, sql: str, params: Any = None) -> int:
+    """Run a DELETE/UPDATE and return how many rows it changed."""
+    rows = _q(archive, sql, params)
+    return int(rows[0][0]) if rows else 0
+
+
+def _delete_duplicates(archive: Archive) -> tuple[int, int]:
+    """Delete exact duplicates (keeping the earliest) and the studies that
+    held nothing else; returns (trials, studies) removed. Call inside a
+    transaction."""
+    # The ranking joins studies, so find the studies to empty before deleting anything.
+    emptied = [r[0] for r in _q(
+        archive, f"SELECT study_id FROM ({_DUPLICATE_RANK}) GROUP BY study_id HAVING min(k) > 1"
+    )]
+    trials = _changed(archive, f"DELETE FROM trials WHERE rowid IN (SELECT rid FROM ({_DUPLICATE_RANK}) WHERE k > 1)")
+    studies = 0
+    for start in range(0, len(emptied), 1000):
+        chunk = emptied[start:start + 1000]
+        studies += _changed(
+            archive, f"DELETE FROM studies WHERE study_id IN ({', '.join('?' * len(chunk))})", chunk
+        )
+    return trials, studies
+
+
+def fix_archive(archive: Archive) -> list[tuple[str, int]]:
+    """Repair the safe cases found by :func:`check_archive`, in one transaction.
+
+    Returns
+    -------
+    list of (str, int)
+        What was done and to how many rows, in order (zero counts left out).
+    """
+    done: list[tuple[str, int]] = []
+    with archive.transaction():
+        parsed, _, _ = _space_problems(archive)
+        n_hash = 0
+        for space_id, space in parsed.items():
+            fresh = space.content_hash
+            n_hash += _changed(
+                archive, "UPDATE spaces SET content_hash = ? WHERE space_id = ? AND content_hash <> ?",
+                [fresh, space_id, fresh],
+            )
+        steps = [
+            ("deleted orphan profile rows",
+             "DELETE FROM profiles WHERE task_id NOT IN (SELECT task_id FROM tasks)"),
+            ("deleted orphan trials (their study does not exist)",
+             "DELETE FROM trials WHERE study_id NOT IN (SELECT study_id FROM studies)"),
+            ("recomputed stale content keys",
+             f"UPDATE trials SET content_key = x.fresh FROM ({_STALE_KEYS}) x WHERE trials.rowid = x.rid"),
+            ("marked trials with a missing or non-finite score as failed",
+             "UPDATE trials SET status = 'failed', score = NULL, "
+             "error = coalesce(error, 'score is missing or not finite') "
+             "WHERE status = 'ok' AND (score IS NULL OR NOT isfinite(score))"),
+            ("moved the score of failed trials into their error text",
+             "UPDATE trials SET error = coalesce(error || '; ', '') || 'score ' || CAST(score AS VARCHAR) "
+             "|| ' removed: a failed trial has no score', score = NULL WHERE status = 'failed' AND score IS NOT NULL"),
+            ("renumbered trials that repeated a number in their study",
+             "UPDATE trials SET number = x.fresh FROM ("
+             " SELECT rid, top + row_number() OVER (PARTITION BY study_id ORDER BY number, rid) AS fresh FROM ("
+             "  SELECT rowid AS rid, study_id, number, max(number) OVER (PARTITION BY study_id) AS top,"
+             "  row_number() OVER (PARTITION BY study_id, number ORDER BY rowid) AS k FROM trials) WHERE k > 1"
+             ") x WHERE trials.rowid = x.rid"),
+        ]
+        if n_hash:
+            done.append(("recomputed stale space content hashes", n_hash))
+        for what, sql in steps:
+            n = _changed(archive, sql)
+            if n:
+                done.append((what, n))
+        trials, emptied = _delete_duplicates(archive)
+        if trials:
+            done.append(("deleted exact duplicate trials (kept the earliest of each)", trials))
+        n = _changed(archive, "DELETE FROM studies WHERE study_id NOT IN (SELECT study_id FROM trials)") + emptied
+        if n:
+            done.append(("deleted studies with no trials", n))
+    return done
+
+
+def dedupe_trials(archive: Archive, dry_run: bool = False) -> tuple[int, int]:
+    """Drop exact duplicate trials, keeping the earliest of each, in one transaction.
+
+    Parameters
+    ----------
+    archive : Archive
+        Open for writing (unless ``dry_run``).
+    dry_run : bool, default False
+        Only count.
+
+    Returns
+    -------
+    (int, int)
+        Trials removed (or that would be), and studies removed because every
+        one of their trials was a duplicate of an earlier one.
+    """
+    if dry_run:
+        emptied = _q(
+            archive,
+            f"SELECT count(*) FROM (SELECT study_id FROM ({_DUPLICATE_RANK}) GROUP BY study_id HAVING min(k) > 1)",
+        )[0][0]
+        return count_duplicates(archive), int(emptied)
+    with archive.transaction():
+        return _delete_duplicates(archive)
+
+
+# -- studies: filters, labels, prune -------------------------------------------
+def _parse_date(value: Any) -> datetime:
+    if isinstance(value, datetime):
+        stamp = pd.Timestamp(value)
+    else:
+        try:
+            stamp = pd.Timestamp(datetime.fromisoformat(str(value).strip()))
+        except ValueError:
+            raise ArchiveError(
+                f"date {value!r} is not a date; use ISO 8601, e.g. 2026-01-31 or 2026-01-31T12:00"
+            ) from None
+    if stamp.tzinfo is not None:
+        stamp = stamp.tz_convert("UTC").tz_localize(None)
+    return stamp.to_pydatetime()
+
+
+def filter_studies(
+    frame: pd.DataFrame,
+    learner: str | None = None,
+    owner: str | None = None,
+    tags: Mapping[str, str] | None = None,
+    before: Any = None,
+    task: str | None = None,
+) -> pd.DataFrame:
+    """Rows of ``Archive.studies()`` that match every filter given.
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame
+        From :meth:`Archive.studies`.
+    learner, owner, task : str, optional
+        Exact matches.
+    tags : mapping, optional
+        Every ``key: value`` must be among the study's tags.
+    before : str or datetime, optional
+        Studies created before this moment (ISO 8601; naive = UTC).
+    """
+    keep = pd.Series(True, index=frame.index)
+    if learner is not None:
+        keep &= frame["learner"] == learner
+    if owner is not None:
+        keep &= frame["owner"] == owner
+    if task is not None:
+        keep &= frame["task"] == task
+    if tags:
+        want = {str(k): str(v) for k, v in tags.items()}
+        keep &= frame["tags"].map(lambda t: all(t.get(k) == v for k, v in want.items()))
+    if before is not None:
+        keep &= frame["created_at"] < _parse_date(before)
+    return frame[keep.astype(bool)]
+
+
+@dataclass(frozen=True)
+class PrunePlan:
+    """What :func:`apply_prune` will remove.
+
+    Attributes
+    ----------
+    studies : pandas.DataFrame
+        The studies touched: study_id, task, learner, owner, tags, created_at,
+        n_trials, remove (trials that go), emptied (the study goes too).
+    failed_only : bool
+        Only failed trials go (studies left with no trials go too).
+    """
+
+    studies: pd.DataFrame
+    failed_only: bool
+
+    @property
+    def n_trials(self) -> int:
+        """Trials that go."""
+        return int(self.studies["remove"].sum()) if len(self.studies) else 0
+
+    @property
+    def n_studies(self) -> int:
+        """Studies that go."""
+        return int(self.studies["emptied"].sum()) if len(self.studies) else 0
+
+
+def plan_prune(
+    archive: Archive,
+    failed: bool = False,
+    before: Any = None,
+    learner: str | None = None,
+    tags: Mapping[str, str] | None = None,
+    owner: str | None = None,
+) -> PrunePlan:
+    """Work out what a prune would remove; change nothing.
+
+    Study filters (``before``, ``learner``, ``tags``, ``owner``) combine with
+    AND and select whole studies; with ``failed`` only the failed trials of
+    the selected studies (all studies when no study filter is given) go.
+
+    Raises
+    ------
+    ArchiveError
+        When no filter is given, or a date cannot be read.
+    """
+    if not (failed or before is not None or learner is not None or tags or owner is not None):
+        raise ArchiveError(
+            "say what to prune: failed trials (--failed), studies created before a date (--before 2026-01-31), "
+            "of a learner (--learner), with a tag (--tag KEY=VALUE) or of an owner (--owner)"
+        )
+    frame = filter_studies(archive.studies(), learner=learner, owner=owner, tags=tags, before=before)
+    counts = archive.con.execute(
+        "SELECT study_id, count(*) FILTER (WHERE status = 'failed') AS n_failed FROM trials GROUP BY study_id"
+    ).df()
+    frame = frame.merge(counts, on="study_id", how="left")
+    frame["n_failed"] = frame["n_failed"].fillna(0).astype("int64")
+    if failed:
+        frame = frame[frame["n_failed"] > 0].copy()
+        frame["remove"] = frame["n_failed"]
+    else:
+        frame = frame.copy()
+        frame["remove"] = frame["n_trials"].astype("int64")
+    frame["emptied"] = frame["remove"] >= frame["n_trials"]
+    cols = ["study_id", "task", "learner", "owner", "tags", "created_at", "n_trials", "remove", "emptied"]
+    return PrunePlan(frame[cols].reset_index(drop=True), failed_only=bool(failed))
+
+
+def apply_prune(archive: Archive, plan: PrunePlan) -> tuple[int, int]:
+    """Remove what ``plan`` lists, in one transaction; returns (trials, studies) removed."""
+    if plan.studies.empty:
+        return 0, 0
+    view = f"_prune_{uuid.uuid4().hex}"
+    ids = pd.DataFrame({"study_id": plan.studies["study_id"].astype("int64")})
+    with archive.transaction() as con:
+        con.register(view, ids)
+        try:
+            status = " AND status = 'failed'" if plan.failed_only else ""
+            trials = _changed(archive, f"DELETE FROM trials WHERE study_id IN (SELECT study_id FROM {view}){status}")
+            studies = _changed(
+                archive,
+                f"DELETE FROM studies WHERE study_id IN (SELECT study_id FROM {view}) "
+                "AND study_id NOT IN (SELECT study_id FROM trials)",
+            )
+        finally:
+            con.unregister(view)
+    return trials, studies
+
+
+def label_study(
+    archive: Archive,
+    study: int,
+    tags: Mapping[str, str] | None = None,
+    owner: str | None = None,
+    remove: Iterable[str] = (),
+) -> dict:
+    """Set tags and/or the owner of a study (one transaction).
+
+    Parameters
+    ----------
+    study : int
+        Study id.
+    tags : mapping, optional
+        Tags to set (added to, or replacing the value of, existing keys).
+    owner : str, optional
+        New owner; ``""`` clears it; None leaves it as it is.
+    remove : iterable of str
+        Tag keys to remove (an unknown key is an error naming the known ones).
+
+    Returns
+    -------
+    dict
+        ``{"study_id", "owner", "tags"}`` after the change.
+    """
+    rows = _q(archive, "SELECT tags, owner FROM studies WHERE study_id = ?", [int(study)])
+    if not rows:
+        raise ArchiveError(f"no study with id {study} in {archive.path}; `warmstart studies` lists them")
+    current = json.loads(rows[0][0]) if rows[0][0] else {}
+    for key in remove:
+        if key not in current:
+            raise ArchiveError(f"study {study} has no tag {key!r}; its tags are {sorted(current)}")
+        del current[key]
+    for key, value in (tags or {}).items():
+        if not isinstance(key, str) or not key:
+            raise ArchiveError(f"tag keys must be non-empty strings, got {key!r}")
+        current[key] = str(value)
+    new_owner = rows[0][1] if owner is None else (owner or None)
+    with archive.transaction() as con:
+        con.execute(
+            "UPDATE studies SET tags = ?, owner = ? WHERE study_id = ?",
+            [json.dumps(current, sort_keys=True), new_owner, int(study)],
+        )
+    return {"study_id": int(study), "owner": new_owner, "tags": current}
+
+
+def archive_digest(archive: Archive, ignore: Mapping[str, Iterable[str]] | None = None) -> dict[str, str]:
+    """A canonical dump of every table, hashed: ``{table: "rows:sha256"}``.
+
+    Rows are rendered by DuckDB and sorted, so two archives holding the same
+    rows give the same digest whatever their physical order. Used to prove
+    that a failed command changed nothing.
+
+    Parameters
+    ----------
+    ignore : mapping of table -> column names, optional
+        Columns left out (e.g. ``{"studies": ["created_at"]}`` to compare the
+        outcome of two runs of one command made at different times).
+    """
+    out = {}
+    for table in ARCHIVE_TABLES:  # identifiers from the allow-list only
+        columns = [d[0] for d in archive.con.execute(f"SELECT * FROM {table} LIMIT 0").description]
+        dropped = set((ignore or {}).get(table, ()))
+        unknown = dropped - set(columns)
+        if unknown:
+            raise ArchiveError(f"table {table} has no column(s) {sorted(unknown)}; it has {columns}")
+        kept = ", ".join(c for c in columns if c not in dropped)  # names from the table itself
+        n, digest = _q(
+            archive,
+            f"SELECT count(*), sha256(coalesce(string_agg(x, chr(10) ORDER BY x), '')) "
+            f"FROM (SELECT CAST(ROW({kept}) AS VARCHAR) AS x FROM {table})",
+        )[0]
+        out[table] = f"{n}:{digest}"
+    return out

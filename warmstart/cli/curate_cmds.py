@@ -1,0 +1,260 @@
+"""Commands that curate the team's history: ``curate check|dedupe|merge|prune|
+export|import`` and ``tag``. Thin: parse, call :mod:`warmstart.archive.curate`
+or :mod:`warmstart.archive.transfer`, print."""
+
+from __future__ import annotations
+
+import contextlib
+import sys
+from typing import Iterator
+
+import click
+
+from warmstart.archive.curate import (
+    apply_prune,
+    check_archive,
+    dedupe_trials,
+    fix_archive,
+    label_study,
+    plan_prune,
+)
+from warmstart.archive.transfer import MERGE_STEPS, export_archive, import_export, merge_archive
+from warmstart.cli.archive_cmds import _parse_tags
+from warmstart.cli.common import get_archive, json_option, print_json, print_table
+from warmstart.cli.main import main
+
+_SHOW = 20  # studies listed by prune before "... and N more"
+
+
+@contextlib.contextmanager
+def _steps(label: str, enabled: bool = True) -> Iterator:
+    """A progress bar on stderr advanced once per step of a merge/import."""
+    if not enabled:
+        yield None
+        return
+    with click.progressbar(
+        length=len(MERGE_STEPS), label=label, file=sys.stderr,
+        item_show_func=lambda step: step or "", show_eta=True,
+    ) as bar:
+        seen: list[str] = []
+
+        def advance(step: str) -> None:
+            if seen:
+                bar.update(1, seen[-1])
+            seen.append(step)
+
+        yield advance
+        if seen:
+            bar.update(1, "done")
+
+
+@main.group()
+def curate() -> None:
+    """Check, clean up, merge, prune, export and import the archive."""
+
+
+@curate.command()
+@click.option("--fix", is_flag=True, help="Repair the safe cases (one transaction) and say what was done.")
+@json_option
+@click.pass_context
+def check(ctx, fix, as_json):
+    """Check the archive's integrity; exit status 1 when anything is wrong.
+
+    Looks for orphan rows, trials outside their study's space, non-finite
+    scores marked ok, exact duplicate trials, profile-version mismatches,
+    studies without trials and tasks without profiles (and a few more).
+    """
+    archive = get_archive(ctx, write=fix)
+    if as_json:
+        report = check_archive(archive)
+    else:
+        with click.progressbar(length=1, label="validating configs", file=sys.stderr) as bar:
+
+            def progress(done: int, total: int) -> None:
+                bar.length = max(total, 1)
+                bar.update(done - bar.pos)
+
+            report = check_archive(archive, progress=progress)
+    fixed: list[tuple[str, int]] = []
+    if fix and not report.ok:
+        fixed = fix_archive(archive)
+        report = check_archive(archive)
+    if as_json:
+        findings = [{"check": f.check, "count": f.count, "fixable": f.fixable, "what": f.what,
+                     "examples": list(f.examples)} for f in report.findings]
+        print_json({"archive": archive.path, "ok": report.ok, "fixed": [{"what": w, "rows": n} for w, n in fixed],
+                    "findings": findings, "notes": report.notes})
+    else:
+        notes = report.notes
+        click.echo(f"archive {archive.path}: {notes['tasks']} tasks, {notes['studies']} studies, {notes['trials']} trials")
+        for what, n in fixed:
+            click.echo(f"fixed: {what}: {n}")
+        for f in report.findings:
+            mark = "ok" if f.count == 0 else str(f.count)
+            hint = "" if f.count == 0 else ("  [--fix repairs this]" if f.fixable else "  [needs you]")
+            click.echo(f"  {mark:>7}  {f.check:<26} {f.what}{hint}")
+            for example in f.examples:
+                click.echo(f"           {'':<26} e.g. {example}")
+        if notes["repeated_configs_other_result"]:
+            click.echo(f"note: {notes['repeated_configs_other_result']} config(s) were evaluated more than once "
+                       "with different results (kept: repeated evaluations are information)")
+        if notes["spaces_without_studies"]:
+            click.echo(f"note: {notes['spaces_without_studies']} space(s) are used by no study")
+        if report.ok:
+            click.echo("archive is sound")
+        else:
+            n = len(report.problems)
+            tail = "" if fix else " (`warmstart curate check --fix` repairs those marked so)"
+            click.echo(f"{n} kind(s) of problem found{tail}")
+    if not report.ok:
+        ctx.exit(1)
+
+
+@curate.command()
+@click.option("--dry-run", is_flag=True, help="Only count what would go.")
+@json_option
+@click.pass_context
+def dedupe(ctx, dry_run, as_json):
+    """Drop exact duplicate trials, keeping the earliest of each.
+
+    Exact duplicates share task data, learner, config, metric, status and
+    score; a repeated evaluation with another score is kept.
+    """
+    archive = get_archive(ctx, write=not dry_run)
+    trials, studies = dedupe_trials(archive, dry_run=dry_run)
+    if as_json:
+        print_json({"dry_run": dry_run, "trials_removed": trials, "studies_removed": studies})
+        return
+    verb = "would remove" if dry_run else "removed"
+    click.echo(f"{verb} {trials} duplicate trial(s), keeping the earliest of each"
+               + (f"; {verb} {studies} study(ies) that held only duplicates" if studies else ""))
+
+
+def _summary(summary, as_json: bool) -> None:
+    if as_json:
+        print_json(summary.to_dict())
+    else:
+        for line in summary.lines():
+            click.echo(line)
+
+
+@curate.command()
+@click.argument("other", metavar="OTHER")
+@json_option
+@click.pass_context
+def merge(ctx, other, as_json):
+    """Merge the archive file OTHER (a teammate's) into this one.
+
+    Tasks are matched by dataset fingerprint, spaces by learner and content,
+    trials and studies deduplicated; one transaction; OTHER is only read.
+    Merging the same archive twice adds nothing.
+    """
+    archive = get_archive(ctx, write=True)
+    with _steps("merging", not as_json) as progress:
+        summary = merge_archive(archive, other, progress=progress)
+    _summary(summary, as_json)
+
+
+@curate.command()
+@click.option("--failed", is_flag=True, help="Failed trials (of the studies the other filters select).")
+@click.option("--before", metavar="DATE", help="Studies created before DATE (ISO 8601, e.g. 2026-01-31).")
+@click.option("--learner", help="Studies of this learner.")
+@click.option("--tag", "tags", multiple=True, metavar="KEY=VALUE", help="Studies with this tag (repeatable; all must match).")
+@click.option("--owner", help="Studies of this owner.")
+@click.option("--yes", is_flag=True, help="Do not ask for confirmation.")
+@json_option
+@click.pass_context
+def prune(ctx, failed, before, learner, tags, owner, yes, as_json):
+    """Remove studies (or only their failed trials) chosen by filters.
+
+    Filters combine with AND. Shows what would go and asks first (or --yes);
+    everything goes in one transaction.
+    """
+    tag_map = _parse_tags(tags)
+    archive = get_archive(ctx, write=True)
+    plan = plan_prune(archive, failed=failed, before=before, learner=learner, tags=tag_map, owner=owner)
+    if plan.studies.empty:
+        if as_json:
+            print_json({"trials_removed": 0, "studies_removed": 0, "studies": []})
+        else:
+            click.echo("nothing matches: nothing to remove")
+        return
+    what = "failed trials" if plan.failed_only else "trials"
+    head = f"would remove {plan.n_trials} {what} and {plan.n_studies} whole study(ies):"
+    if not as_json:
+        click.echo(head)
+        shown = plan.studies.head(_SHOW).rename(columns={"remove": "trials_to_remove", "emptied": "whole_study"})
+        print_table(shown)
+        if len(plan.studies) > _SHOW:
+            click.echo(f"... and {len(plan.studies) - _SHOW} more studies")
+    if not yes:
+        click.confirm("Remove them?", abort=True, err=True)
+    trials, studies = apply_prune(archive, plan)
+    if as_json:
+        print_json({"trials_removed": trials, "studies_removed": studies,
+                    "studies": plan.studies.to_dict(orient="records")})
+    else:
+        click.echo(f"removed {trials} {what} and {studies} whole study(ies)")
+
+
+@curate.command("export")
+@click.argument("directory", metavar="DIR")
+@json_option
+@click.pass_context
+def export_cmd(ctx, directory, as_json):
+    """Export the archive to DIR as Parquet partitioned by learner, plus a manifest.
+
+    DIR must be new (or empty). DuckDB queries the store in place, e.g.
+    SELECT * FROM read_parquet('DIR/trials/**/*.parquet', hive_partitioning = true).
+    """
+    archive = get_archive(ctx, write=False)
+    manifest = export_archive(archive, directory)
+    if as_json:
+        print_json(manifest)
+        return
+    c = manifest["counts"]
+    click.echo(f"exported {c['tasks']} tasks, {c['spaces']} spaces, {c['studies']} studies and {c['trials']} trials "
+               f"to {directory} (trials partitioned by learner; schema {manifest['schema_version']})")
+    if manifest["orphan_trials_left_out"]:
+        click.echo(f"left out {manifest['orphan_trials_left_out']} orphan trial(s) with no study "
+                   "(`warmstart curate check` lists them)")
+
+
+@curate.command("import")
+@click.argument("directory", metavar="DIR")
+@json_option
+@click.pass_context
+def import_cmd(ctx, directory, as_json):
+    """Import a store written by `curate export` (a merge: same dedupe rules)."""
+    archive = get_archive(ctx, write=True)
+    with _steps("importing", not as_json) as progress:
+        summary = import_export(archive, directory, progress=progress)
+    _summary(summary, as_json)
+
+
+@main.command("tag")
+@click.argument("study", type=int)
+@click.argument("labels", nargs=-1, metavar="[KEY=VALUE]...")
+@click.option("--owner", help="Set the study's owner ('' clears it).")
+@click.option("--remove", multiple=True, metavar="KEY", help="Remove a tag (repeatable).")
+@json_option
+@click.pass_context
+def tag(ctx, study, labels, owner, remove, as_json):
+    """Tag STUDY with KEY=VALUE pairs and/or set its owner."""
+    if not labels and owner is None and not remove:
+        raise click.UsageError("give KEY=VALUE tags, --owner NAME or --remove KEY")
+    try:
+        tags = _parse_tags(labels)
+    except click.BadParameter as exc:
+        exc.param_hint = "'[KEY=VALUE]...'"
+        raise
+    archive = get_archive(ctx, write=True)
+    result = label_study(archive, study, tags=tags, owner=owner, remove=remove)
+    if as_json:
+        print_json(result)
+        return
+    shown = ", ".join(f"{k}={v}" for k, v in result["tags"].items()) or "(no tags)"
+    click.echo(f"study {study}: owner {result['owner'] if result['owner'] is not None else '-'}; tags {shown}")
+
+
+__all__ = ["curate", "tag"]
