@@ -31,6 +31,11 @@ __all__ = [
 
 # Public names added by later modules are imported below, one block each.
 
+from warmstart.profile import PROFILE_VERSION, detect_kind, profile  # noqa: E402
+from warmstart.similarity import ProfileIndex, rank_agreement  # noqa: E402
+
+__all__ += ["PROFILE_VERSION", "ProfileIndex", "detect_kind", "profile", "rank_agreement"]
+
 from warmstart.learners import (  # noqa: E402
     LEARNERS,
     METRICS,
@@ -56,4 +61,42 @@ __all__ += [
     "LEARNERS", "METRICS", "CVObjective", "Learner", "build_estimator", "cv_objective", "default_metric",
     "default_space", "get_learner", "metric_direction",
     "CallableObjective", "CommandObjective", "ObjectiveError", "TrialFailed", "TrialResult", "score_function",
+]
+
+from warmstart.starter import StarterError, StarterLoad, load_starter, read_starter  # noqa: E402
+
+__all__ += ["StarterError", "StarterLoad", "load_starter", "read_starter"]
+
+from warmstart.baselines import (  # noqa: E402
+    GPSearch,
+    NelderMeadSearch,
+    RandomSearch,
+    SobolSearch,
+    expected_improvement,
+)
+from warmstart.kde import KDEError, MixedKDE  # noqa: E402
+from warmstart.search import DensitySearch  # noqa: E402
+from warmstart.strategy import SearchError, SearchResult, SearchStrategy, Trial, run_search  # noqa: E402
+from warmstart.testfunctions import (  # noqa: E402
+    BenchmarkFunction,
+    benchmark_functions,
+    branin,
+    hartmann6,
+    rastrigin,
+    rosenbrock,
+)
+
+__all__ += [
+    "DensitySearch", "GPSearch", "KDEError", "MixedKDE", "NelderMeadSearch", "RandomSearch",
+    "SearchError", "SearchResult", "SearchStrategy", "SobolSearch", "Trial", "expected_improvement",
+    "run_search", "BenchmarkFunction", "benchmark_functions", "branin", "hartmann6", "rastrigin",
+    "rosenbrock",
+]
+
+from warmstart.archive.curate import CheckReport, check_archive, dedupe_trials, fix_archive  # noqa: E402
+from warmstart.archive.transfer import MergeSummary, export_archive, import_export, merge_archive  # noqa: E402
+
+__all__ += [
+    "CheckReport", "check_archive", "dedupe_trials", "fix_archive",
+    "MergeSummary", "export_archive", "import_export", "merge_archive",
 ]

@@ -245,7 +245,11 @@ def _parse_param(name: str, spec: Any, where: str) -> Param:
                 )
             keys.append(_level_key(c))
         if len(set(keys)) != len(keys):
-            raise SpaceError(f"{where}: choice parameter {name!r} repeats a level in {list(choices)!r}")
+            dup = next(_plain(c) for c, k in zip(choices, keys) if keys.count(k) > 1)
+            raise SpaceError(
+                f"{where}: choice parameter {name!r} repeats a level ({dup!r}) in {list(choices)!r}; "
+                "levels must be distinct (1 and 1.0 count as the same level, true and 1 do not)"
+            )
         return Param(name, "choice", choices=tuple(_plain(c) for c in choices), when=when)
     if "choices" in spec:
         raise SpaceError(f"{where}: {kind} parameter {name!r} takes low/high, not 'choices'")

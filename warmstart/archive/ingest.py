@@ -35,6 +35,8 @@ def _rows(mask: np.ndarray) -> np.ndarray:
 
 
 def _fail(where: str, row: int, column: str, value: Any, why: str) -> IngestError:
+    if isinstance(value, np.generic):  # show 3.5, not np.float64(3.5)
+        value = value.item()
     return IngestError(f"{where}: row {row + 1}, column {column!r}: value {value!r} {why}")
 
 
@@ -60,27 +62,54 @@ def _numeric(col: pd.Series, where: str, name: str, what: str) -> np.ndarray:
     return values
 
 
+def _match_level(p: Param, v: Any) -> int:
+    """Index of the level a cell holds, or -1. Text is also read as JSON or a
+    boolean ("2", "true"); a number also matches a text level that spells it
+    (a CSV reader turns the level "10" into the number 10)."""
+    k = p.level_index(v)
+    if k >= 0:
+        return k
+    if isinstance(v, str):
+        for parsed in _parse_text(v.strip()):
+            k = p.level_index(parsed)
+            if k >= 0:
+                return k
+    elif isinstance(v, (int, float, np.integer, np.floating)) and not isinstance(v, (bool, np.bool_)):
+        spellings = [str(v.item() if isinstance(v, np.generic) else v)]
+        if float(v).is_integer():
+            spellings.append(str(int(v)))
+        for text in spellings:
+            k = p.level_index(text)
+            if k >= 0:
+                return k
+    return -1
+
+
 def _choice_indices(p: Param, col: pd.Series, where: str) -> np.ndarray:
     """Level index per row (-1 where missing)."""
-    idx = np.full(len(col), -1, dtype=np.int64)
-    missing = pd.isna(col).to_numpy()
-    values = col.to_numpy(dtype=object, na_value=None)
-    lookup: dict[Any, int] = {}
-    for i in _rows(~missing):
-        v = values[i]
-        key = (type(v).__name__, v)
-        if key not in lookup:
-            k = p.level_index(v)
-            if k < 0 and isinstance(v, str):
-                text = v.strip()
-                for parsed in _parse_text(text):
-                    k = p.level_index(parsed)
-                    if k >= 0:
-                        break
-            if k < 0:
-                raise _fail(where, int(i), p.name, v, f"is not allowed; {p.describe()}")
-            lookup[key] = k
-        idx[i] = lookup[key]
+    if pd.api.types.is_object_dtype(col):
+        # Mixed Python values (JSON lines): True == 1 for hashing, so match value by value.
+        idx = np.full(len(col), -1, dtype=np.int64)
+        values = col.to_numpy(dtype=object, na_value=None)
+        lookup: dict[Any, int] = {}
+        for i in _rows(~pd.isna(col).to_numpy()):
+            v = values[i]
+            key = (type(v).__name__, v)
+            if key not in lookup:
+                k = _match_level(p, v)
+                if k < 0:
+                    raise _fail(where, int(i), p.name, v, f"is not allowed; {p.describe()}")
+                lookup[key] = k
+            idx[i] = lookup[key]
+        return idx
+    # One dtype for the whole column: match each distinct value once.
+    codes, uniques = pd.factorize(col, use_na_sentinel=True)
+    levels = np.array([_match_level(p, v) for v in uniques], dtype=np.int64)
+    idx = np.where(codes >= 0, levels[np.maximum(codes, 0)] if len(levels) else -1, -1)
+    bad = (codes >= 0) & (idx < 0)
+    if bad.any():
+        row = int(_rows(bad)[0])
+        raise _fail(where, row, p.name, col.iloc[row], f"is not allowed; {p.describe()}")
     return idx
 
 
@@ -113,10 +142,11 @@ def prepare_trials(space: Space, frame: pd.DataFrame, where: str = "trials") -> 
     Returns
     -------
     pandas.DataFrame
-        Columns ``p0 .. p{d-1}`` (float for real, Int64 for integer, JSON text
-        of the level for choice; missing where inactive), ``score`` (NaN for
-        failed trials), ``status``, ``cost_s``, ``started_at``,
-        ``finished_at``, ``error``.
+        Columns ``p0 .. p{d-1}`` (float for real, Int64 for integer, a
+        categorical of the levels' JSON texts for choice; missing where
+        inactive), ``score`` (NaN for failed trials), ``status`` (categorical
+        ``ok``/``failed``), ``cost_s``, ``started_at``, ``finished_at``,
+        ``error``.
 
     Raises
     ------
@@ -180,12 +210,11 @@ def prepare_trials(space: Space, frame: pd.DataFrame, where: str = "trials") -> 
     for j, (p, name) in enumerate(zip(space.params, param_columns(space))):
         use = active[:, j]
         if p.kind == "choice":
-            texts = np.array([json.dumps(level) for level in p.choices], dtype=object)
-            col = np.full(n, None, dtype=object)
-            col[use] = texts[codes[use, j].astype(int)]
-            out[name] = pd.Series(col, dtype=object)
+            # categorical of the levels' JSON texts: small integer codes, cheap to build and to scan
+            level_codes = np.where(use, np.nan_to_num(codes[:, j], nan=-1.0), -1).astype(np.int64)
+            out[name] = pd.Categorical.from_codes(level_codes, categories=[json.dumps(level) for level in p.choices])
             continue
-        vals = numeric[j]
+        vals = numeric.get(j, np.full(n, np.nan))  # a conditional column may be absent when never active
         bad_inf = use & np.isinf(vals)
         if bad_inf.any():
             row = int(_rows(bad_inf)[0])
@@ -199,9 +228,7 @@ def prepare_trials(space: Space, frame: pd.DataFrame, where: str = "trials") -> 
             if frac.any():
                 row = int(_rows(frac)[0])
                 raise _fail(where, row, p.name, frame[p.name].iloc[row], f"is not a whole number; {p.describe()}")
-            col = pd.array(np.where(use, vals, 0).astype(np.int64), dtype="Int64")
-            col[~use] = pd.NA
-            out[name] = col
+            out[name] = pd.arrays.IntegerArray(np.where(use, vals, 0).astype(np.int64), ~use)
         else:
             out[name] = np.where(use, vals, np.nan)
 
@@ -215,12 +242,11 @@ def prepare_trials(space: Space, frame: pd.DataFrame, where: str = "trials") -> 
         if bad.any():
             row = int(_rows(bad)[0])
             raise _fail(where, row, "status", status_raw.iloc[row], f"is not a status; use one of {list(_STATUS)}")
-        status = status.to_numpy(dtype=object)
+        failed = (status == "failed").to_numpy() | ~finite
     else:
-        status = np.full(n, "ok", dtype=object)
-    status = np.where(finite, status, "failed")
-    out["score"] = np.where((status == "ok") & finite, score, np.nan)
-    out["status"] = pd.Series(status, dtype=object)
+        failed = ~finite
+    out["score"] = np.where(failed, np.nan, score)
+    out["status"] = pd.Categorical.from_codes(failed.astype(np.int8), categories=list(_STATUS))
 
     if "cost_s" in columns:
         cost = _numeric(frame["cost_s"], where, "cost_s", "cost_s is the trial's cost in seconds (a number >= 0)")
@@ -242,9 +268,12 @@ def prepare_trials(space: Space, frame: pd.DataFrame, where: str = "trials") -> 
             out[name] = stamps.dt.tz_convert(None).astype("datetime64[us]")
         else:
             out[name] = pd.Series(pd.NaT, index=range(n), dtype="datetime64[us]")
-    errors = frame["error"].astype("string") if "error" in columns else pd.Series([pd.NA] * n, dtype="string")
-    no_score = (~finite) & errors.isna().to_numpy()
-    errors = errors.astype(object).to_numpy().copy()
-    errors[no_score] = "score is missing or not finite"
-    out["error"] = pd.Series(errors, dtype=object).where(pd.notna(errors), None)
+    if "error" in columns:
+        given = frame["error"]
+        errors = given.astype("string").astype(object).to_numpy().copy()
+        errors[pd.isna(given).to_numpy()] = None
+    else:
+        errors = np.full(n, None, dtype=object)
+    errors[~finite & pd.isna(errors)] = "score is missing or not finite"
+    out["error"] = errors
     return pd.DataFrame(out)

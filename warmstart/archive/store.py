@@ -120,6 +120,8 @@ class Archive:
         except duckdb.Error as exc:
             raise ArchiveError(f"{self.path}: cannot open the archive: {exc}") from None
         try:
+            # DuckDB's own progress bar prints to stdout on long queries and would corrupt --json output.
+            self.con.execute("SET enable_progress_bar = false")
             self._check_schema()
         except BaseException:
             self.con.close()
@@ -504,35 +506,39 @@ class Archive:
     def _insert_trials(self, study: int, space: Space, fp: str, learner: str, prepared: pd.DataFrame) -> int:
         """Bulk insert of prepared trials; config JSON and content key built in SQL.
 
-        Placeholders are bound in the order they appear in the statement text:
-        the outer SELECT list (study, start, fingerprint, learner) comes before
-        the sub-query that holds the JSON keys.
+        Trial numbers come with the frame (no window function, so DuckDB runs
+        the statement on all its threads). Choice and status columns are
+        categoricals (scanned as ENUM, cast to text). Placeholders are bound in
+        the order they appear in the statement text: the outer SELECT list
+        (study, fingerprint, learner) comes before the sub-query that holds the
+        JSON keys.
         """
         cols = param_columns(space)
         order = sorted(range(space.dim), key=lambda j: space.params[j].name)
         parts, keys = [], []
         for j in order:
-            value = f"to_json({cols[j]})::VARCHAR" if space.params[j].kind != "choice" else cols[j]
+            value = f"to_json({cols[j]})::VARCHAR" if space.params[j].kind != "choice" else f"{cols[j]}::VARCHAR"
             parts.append(f"CASE WHEN {cols[j]} IS NULL THEN NULL ELSE ? || {value} END")
             keys.append(json.dumps(space.params[j].name) + ":")
         config_sql = "'{' || concat_ws(',', " + ", ".join(parts) + ") || '}'"
         con = self.con
-        start = con.execute("SELECT coalesce(max(number), 0) FROM trials WHERE study_id = ?", [study]).fetchall()[0][0]
+        start = int(con.execute("SELECT coalesce(max(number), 0) FROM trials WHERE study_id = ?", [study]).fetchall()[0][0])
+        numbered = prepared.assign(_number=np.arange(start + 1, start + len(prepared) + 1, dtype=np.int64))
         view = f"_incoming_{uuid.uuid4().hex}"
-        con.register(view, prepared)
+        con.register(view, numbered)
         try:
             con.execute(
                 f"""
                 INSERT INTO trials
-                SELECT ?, ? + row_number() OVER () AS number, cfg, score, status, cost_s,
+                SELECT ?, _number, cfg, score, status::VARCHAR, cost_s,
                        started_at, finished_at, error, sha256(? || '|' || ? || '|' || cfg)
                 FROM (SELECT {config_sql} AS cfg, * FROM {view})
                 """,
-                [study, int(start), fp, learner] + keys,
+                [study, fp, learner] + keys,
             )
         finally:
             con.unregister(view)
-        return int(start) + len(prepared)
+        return start + len(prepared)
 
     def trials(self, study: int) -> pd.DataFrame:
         """Trials of a study: number, config (dict), score, status, cost_s, times, error, content_key."""
@@ -580,7 +586,7 @@ class Archive:
         from warmstart.profile import PROFILE_VERSION, detect_kind
         from warmstart.profile import profile as compute_profile
 
-        prepare_trials(space, trials, where=where)  # fail before any work or write
+        prepared = prepare_trials(space, trials, where=where)  # fail before any work or write
         if target not in data.columns:
             raise ArchiveError(f"{source or 'data'}: target column {target!r} not found; columns are {list(data.columns)}")
         kind = detect_kind(data[target])
@@ -594,7 +600,7 @@ class Archive:
             study_id = self.add_study(
                 task_id, learner, space, metric=metric, maximize=maximize, origin="imported", owner=owner, tags=tags
             )
-            n = self.add_trials(study_id, trials, where=where)
+            n = self._insert_trials(study_id, space, fp, learner, prepared)  # validated once, above
             self.finish_study(study_id)
         return task_id, study_id, n
 

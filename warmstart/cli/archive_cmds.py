@@ -28,10 +28,26 @@ def _parse_tags(values: tuple[str, ...]) -> dict[str, str]:
 
 
 @main.command()
+@click.option("--starter", is_flag=True, help="Also load the shipped starter history (real studies on open datasets).")
+@click.option("--starter-learner", "starter_learners", multiple=True, metavar="LEARNER",
+              help="With --starter: only this learner's studies (repeatable).")
 @click.pass_context
-def init(ctx: click.Context) -> None:
+def init(ctx: click.Context, starter: bool, starter_learners: tuple[str, ...]) -> None:
     """Create the archive (or check an existing one) and print where it is."""
     archive = get_archive(ctx, write=True)
+    if starter or starter_learners:
+        from warmstart.starter import load_starter
+
+        with click.progressbar(length=1, label="loading the starter history", file=click.get_text_stream("stderr"),
+                               show_pos=True, show_eta=True) as bar:
+            def progress(done: int, total: int, name: str) -> None:
+                bar.length = total
+                bar.update(done - bar.pos)
+
+            loaded = load_starter(archive, learners=list(starter_learners) or None, progress=progress)
+        click.echo(f"starter history: {loaded}")
+        for name, reason in loaded.skipped:
+            click.echo(f"  skipped {name}: {reason}", err=True)
     n = len(archive.studies())
     click.echo(f"archive ready: {archive.path} (schema {archive.schema_version}, {n} studies)")
 
@@ -93,9 +109,11 @@ def ingest(ctx, trials, task, data_path, target, learner, space_path, metric, mi
 @main.command()
 @click.option("--learner", help="Only studies of this learner.")
 @click.option("--task", help="Only studies of this task.")
+@click.option("--owner", help="Only studies of this owner.")
+@click.option("--tag", "tags", multiple=True, metavar="KEY=VALUE", help="Only studies with this tag (repeatable; all must match).")
 @json_option
 @click.pass_context
-def studies(ctx, learner, task, as_json):
+def studies(ctx, learner, task, owner, tags, as_json):
     """List studies: task, learner, metric, trial count, best score."""
     archive = get_archive(ctx, write=False) if Path(ctx.find_root().obj["archive_path"]).exists() else get_archive(ctx)
     frame = archive.studies()
@@ -103,6 +121,10 @@ def studies(ctx, learner, task, as_json):
         frame = frame[frame["learner"] == learner]
     if task:
         frame = frame[frame["task"] == task]
+    if owner is not None or tags:
+        from warmstart.archive.curate import filter_studies
+
+        frame = filter_studies(frame, owner=owner, tags=_parse_tags(tags))
     cols = ["study_id", "task", "learner", "metric", "direction", "origin", "n_trials", "best_score", "owner", "tags", "created_at"]
     print_table(frame[cols], as_json, empty="no studies yet: add some with `warmstart ingest` or `warmstart tune`")
 
