@@ -100,3 +100,16 @@ __all__ += [
     "CheckReport", "check_archive", "dedupe_trials", "fix_archive",
     "MergeSummary", "export_archive", "import_export", "merge_archive",
 ]
+
+from warmstart.archive import Archive  # noqa: E402
+from warmstart.gain import PooledGain, Runs, TaskGain, bits, bits_interval, compare, pool, target_threshold  # noqa: E402
+from warmstart.live import LiveResult, live_gain  # noqa: E402
+from warmstart.prior import Prior, PriorError, Source, prior_from_sources  # noqa: E402
+from warmstart.replay import ReplayObjective, ReplayResult, leave_one_task_out  # noqa: E402
+from warmstart.sources import build_prior, load_sources  # noqa: E402
+
+__all__ += [
+    "Archive", "LiveResult", "PooledGain", "Prior", "PriorError", "ReplayObjective", "ReplayResult", "Runs",
+    "Source", "TaskGain", "bits", "bits_interval", "build_prior", "compare", "leave_one_task_out", "live_gain",
+    "load_sources", "pool", "prior_from_sources", "target_threshold",
+]
