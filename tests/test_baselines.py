@@ -166,3 +166,7 @@ def test_bad_arguments():
         RandomSearch(UNIT2, maximize="yes")
     with pytest.raises(SearchError, match="space must be a warmstart Space"):
         SobolSearch({"a": 1})
+    with pytest.raises(SearchError, match="n_candidates must be a whole number"):
+        GPSearch(UNIT2, n_candidates=0)
+    with pytest.raises(SearchError, match="xi must be a number"):
+        GPSearch(UNIT2, xi=-1.0)

@@ -29,6 +29,7 @@ from scipy.optimize import minimize
 from scipy.special import ndtr
 from scipy.stats import qmc
 
+from warmstart.search import _check_count, default_n_startup
 from warmstart.space import Space
 from warmstart.strategy import SearchError, SearchStrategy, Trial, _config_key
 
@@ -254,7 +255,13 @@ class GPSearch(SearchStrategy):
                  n_startup: int | None = None, n_candidates: int = 2000, xi: float = 0.0,
                  n_restarts_optimizer: int = 1):
         super().__init__(space, seed=seed, maximize=maximize)
-        self.n_startup = min(10, max(5, space.dim + 1)) if n_startup is None else int(n_startup)
+        n_startup = default_n_startup(space.dim) if n_startup is None else n_startup
+        _check_count("n_startup", n_startup, minimum=0)
+        _check_count("n_candidates", n_candidates, minimum=1)
+        _check_count("n_restarts_optimizer", n_restarts_optimizer, minimum=0)
+        if not math.isfinite(xi) or xi < 0:
+            raise SearchError(f"xi must be a number >= 0, got {xi!r}")
+        self.n_startup = int(n_startup)
         self.n_candidates = int(n_candidates)
         self.xi = float(xi)
         self.n_restarts_optimizer = int(n_restarts_optimizer)

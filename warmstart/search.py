@@ -30,7 +30,14 @@ from warmstart.kde import MixedKDE, log_sum_exp, uniform_logpdf
 from warmstart.space import Space
 from warmstart.strategy import SearchError, SearchResult, SearchStrategy, Trial, run_search
 
-__all__ = ["DensitySearch", "SearchError", "SearchResult", "SearchStrategy", "Trial", "run_search"]
+__all__ = ["DensitySearch", "SearchError", "SearchResult", "SearchStrategy", "Trial", "run_search",
+           "default_n_startup"]
+
+
+def default_n_startup(dim: int) -> int:
+    """Size of a cold search's space-filling start: ``min(10, max(5, dim + 1))``
+    (common practice: about one point per dimension, at least a handful)."""
+    return min(10, max(5, dim + 1))
 
 
 class DensitySearch(SearchStrategy):
@@ -142,7 +149,7 @@ class DensitySearch(SearchStrategy):
                             ("max_rest", max_rest), ("reweight_every", reweight_every)):
             _check_count(name, value, minimum=1)
         if n_startup is None:
-            n_startup = min(10, max(5, space.dim + 1))
+            n_startup = default_n_startup(space.dim)
             if prior is not None:
                 n_startup = max(2, n_startup // 3)
         _check_count("n_startup", n_startup, minimum=0)
