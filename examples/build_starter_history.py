@@ -392,7 +392,7 @@ def write_readme(out: Path, tasks: pd.DataFrame, trials: pd.DataFrame, sizes: di
     (out / "README.md").write_text("\n".join(lines), encoding="utf-8")
 
 
-def settings(sizes: dict[str, int], time_limit: float) -> dict:
+def settings(sizes: dict[str, int], time_limit: float, minutes: float | None) -> dict:
     learners = {}
     for learner in LEARNERS:
         spaces = {kind: default_space(learner, kind) for kind in (C, R)}
@@ -407,6 +407,7 @@ def settings(sizes: dict[str, int], time_limit: float) -> dict:
                "regression": "KFold(shuffle=True)"},
         "subsample": {"max_rows": MAX_ROWS, "seed": SUBSAMPLE_SEED},
         "time_limit_s": time_limit,
+        "build_minutes": None if minutes is None else round(minutes, 1),
         "learners": learners,
     }
 
@@ -423,6 +424,8 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--profiles-only", action="store_true",
                         help="recompute tasks.parquet (profiles) and keep trials.parquet")
     args = parser.parse_args(argv)
+    if args.profiles_only and args.only:
+        parser.error("--profiles-only recomputes every task's profile; leave out --only")
     out = Path(args.out)
     out.mkdir(parents=True, exist_ok=True)
     recipes = [r for r in RECIPES if args.only is None or r.name in args.only]
@@ -430,7 +433,10 @@ def main(argv: list[str] | None = None) -> None:
     tasks = pd.DataFrame(run_jobs([(describe, (r,), 1.0, r.name) for r in recipes], args.jobs, "profile"))
     if args.profiles_only:
         trials = pd.read_parquet(out / "trials.parquet")
+        last = json.loads((out / "spaces.json").read_text(encoding="utf-8"))
         sizes = {k: int(v) for k, v in trials.groupby("learner")["number"].max().items()}
+        sizes = {learner: sizes[learner] for learner in LEARNERS if learner in sizes}
+        args.time_limit, minutes = last["time_limit_s"], last.get("build_minutes")
     else:
         sizes = {learner: args.configs or CONFIGS[learner] for learner in LEARNERS}
         plan = designs(sizes)
@@ -443,15 +449,16 @@ def main(argv: list[str] | None = None) -> None:
         order = {r.name: i for i, r in enumerate(recipes)}
         trials = trials.sort_values(["task", "learner", "number"], key=lambda s: s.map(order) if s.name == "task" else s)
         trials = trials.reset_index(drop=True)
-    minutes = (time.perf_counter() - started) / 60
+        minutes = (time.perf_counter() - started) / 60
+        trials.to_parquet(out / "trials.parquet", index=False, compression="zstd")
     tasks.to_parquet(out / "tasks.parquet", index=False, compression="zstd")
-    trials.to_parquet(out / "trials.parquet", index=False, compression="zstd")
-    (out / "spaces.json").write_text(json.dumps(settings(sizes, args.time_limit), indent=2) + "\n", encoding="utf-8")
-    write_readme(out, tasks, trials, sizes, None if args.profiles_only else minutes)
-    sizes = {p.name: p.stat().st_size for p in out.iterdir()}
+    (out / "spaces.json").write_text(json.dumps(settings(sizes, args.time_limit, minutes), indent=2) + "\n",
+                                     encoding="utf-8")
+    write_readme(out, tasks, trials, sizes, minutes)
+    files = {p.name: p.stat().st_size for p in out.iterdir()}
     print(f"wrote {out}: {len(tasks)} tasks, {len(trials)} trials "
-          f"({int((trials['status'] == 'failed').sum())} failed) in {minutes:.1f} min; "
-          + ", ".join(f"{k} {v / 1024:.0f} KiB" for k, v in sorted(sizes.items())), file=sys.stderr)
+          f"({int((trials['status'] == 'failed').sum())} failed) in {(time.perf_counter() - started) / 60:.1f} min; "
+          + ", ".join(f"{k} {v / 1024:.0f} KiB" for k, v in sorted(files.items())), file=sys.stderr)
 
 
 if __name__ == "__main__":
