@@ -103,7 +103,7 @@ def replay_tasks(archive, learner: str, gamma: float = 0.05, min_trials: int = 2
         scores = trials["score"].to_numpy(dtype=float)
         objective = ReplayObjective(space, X, scores, maximize)
         threshold = target_threshold(scores, gamma, maximize)
-        prof = profiles.loc[row.task_id].drop(labels=["profile_version"], errors="ignore").astype(float).to_dict()
+        prof = archive.profile_of(int(row.task_id))
         out.append(ReplayTask(
             int(row.task_id), str(row.task), int(row.study_id), space, objective, threshold,
             objective.uniform_hit_chance(threshold, rng=int(row.task_id)), prof,

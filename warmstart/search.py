@@ -68,8 +68,14 @@ class DensitySearch(SearchStrategy):
         of that, at least 2.
     n_candidates : int, default 24
         Candidates drawn from ``l`` per proposal.
-    n_seeds : int, optional
-        How many of the prior's seeds to try first. Default: up to 3.
+    n_seeds : int, default 10
+        Most configs a warm search takes from the prior's ranked seeds before
+        its model takes over. The seeds are re-ranked after every result
+        (``prior.reweight``), so the search learns which past tasks to trust;
+        the seed phase also ends as soon as the guard distrusts the prior
+        (``trust() < min_trust`` with four or more results).
+    min_trust : float, default 0.5
+        Guard level below which a warm search stops taking seeds.
     floor : float, default 0.1
         Weight of the uniform density in ``l`` and ``g``. It never reaches
         zero, so no region is ever ruled out.
@@ -132,7 +138,8 @@ class DensitySearch(SearchStrategy):
         gamma: float = 0.15,
         n_startup: int | None = None,
         n_candidates: int = 24,
-        n_seeds: int | None = None,
+        n_seeds: int = 10,
+        min_trust: float = 0.5,
         floor: float = 0.1,
         max_good: int = 64,
         max_rest: int = 256,
@@ -165,7 +172,6 @@ class DensitySearch(SearchStrategy):
         self.initial_prior = prior
         self._prior_lp = np.empty(0)  # prior log density of recorded rows (cache)
         self._reweighted_at = 0
-        self._seed_queue: list[dict] = []
         self.n_startup = int(n_startup)
         # drawn first from the search's generator: equals scipy.stats.qmc.Sobol
         # with scramble=True and rng=numpy.random.default_rng(seed)
@@ -180,12 +186,12 @@ class DensitySearch(SearchStrategy):
             strength = float(prior.strength)
             if not math.isfinite(strength) or strength < 0:
                 raise SearchError(f"prior.strength must be a finite number >= 0, got {prior.strength!r}")
-            seeds = list(prior.seeds or [])
-            limit = min(len(seeds), 3) if n_seeds is None else n_seeds
-            _check_count("n_seeds", limit, minimum=0)
-            self._seed_queue = self._valid_seeds(seeds)[:limit]
+            _check_count("n_seeds", n_seeds, minimum=0)
+        self.n_seeds = int(n_seeds)
+        self.min_trust = float(min_trust)
+        self._n_seeded = 0
+        self._seed_reweighted_at = -1
         self._design_used = 0
-        self._seeds_used: list[dict] = []
 
     # -- prior and guard ---------------------------------------------------
     def _valid_seeds(self, seeds: list) -> list[dict]:
@@ -274,18 +280,34 @@ class DensitySearch(SearchStrategy):
         return w
 
     # -- proposals ---------------------------------------------------------
+    def _seeding(self) -> bool:
+        """Whether a warm search still takes configs from the prior's seeds."""
+        if self.prior is None or self._n_seeded >= self.n_seeds:
+            return False
+        return self.n_trials < 4 or self.trust() >= self.min_trust
+
+    def _next_seed(self) -> dict | None:
+        """The best-ranked seed not tried yet, after re-weighting on every result."""
+        ok = self._ok_mask()
+        n = self.n_trials
+        if ok.sum() >= 2 and self._seed_reweighted_at != n and hasattr(self.prior, "reweight"):
+            self.prior = self.prior.reweight(self.rows()[ok], self._raw_scores()[ok], self.maximize)
+            self._seed_reweighted_at = n
+            self._reweighted_at = n
+            self._prior_lp = np.empty(0)
+        for config in self._valid_seeds(list(self.prior.seeds or [])):
+            if not self._is_known(self.space.encode([config])[0]):
+                return config
+        return None
+
     def _propose_one(self) -> tuple[dict, str]:
-        # warm: seeds and design points alternate, so the guard soon sees
-        # configs of both high and low prior density
-        design_turn = (self._design_used < len(self._design)
-                       and self.n_trials + self.n_pending < len(self._seeds_used) + self.n_startup)
-        if self._seed_queue and not (design_turn and self._design_used < len(self._seeds_used)):
-            while self._seed_queue:
-                config = self._seed_queue.pop(0)
-                if not self._is_known(self.space.encode([config])[0]):
-                    self._seeds_used.append(config)
-                    return config, "seed"
-        if design_turn:
+        if self._seeding():
+            config = self._next_seed()
+            if config is not None:
+                self._n_seeded += 1
+                return config, "seed"
+            self._n_seeded = self.n_seeds  # no untried seed left
+        if self._design_used < len(self._design) and self.n_trials + self.n_pending < self.n_startup + self._n_seeded:
             row = self._design[self._design_used]
             self._design_used += 1
             return self.space.decode(row[None, :])[0], "design"

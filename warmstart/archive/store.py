@@ -336,6 +336,13 @@ class Archive:
         wide["profile_version"] = long.groupby("task_id")["version"].min()
         return wide.sort_index()
 
+    def profile_of(self, task: int) -> dict[str, float]:
+        """The stored profile of one task (meta-feature name -> value)."""
+        rows = self._q("SELECT feature, value FROM profiles WHERE task_id = ? ORDER BY feature", [int(task)])
+        if not rows:
+            raise ArchiveError(f"task {task} has no profile in {self.path}")
+        return {str(name): float(value) for name, value in rows}
+
     # -- spaces and studies ------------------------------------------------
     def _space_id(self, learner: str, space: Space) -> int:
         h = space.content_hash

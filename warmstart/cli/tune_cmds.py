@@ -52,7 +52,7 @@ def _start_search(archive, task_id: int, learner: str, space: Space, maximize: b
     if task_id not in profiles.index:
         return DensitySearch(space, prior=None, seed=seed, maximize=maximize), "cold", None, \
             "cold start: this task has no profile to compare"
-    prof = profiles.loc[task_id].drop(labels=["profile_version"], errors="ignore").astype(float).to_dict()
+    prof = archive.profile_of(task_id)
     try:
         prior = archive.build_prior(prof, learner=learner, space=space, exclude_tasks=[task_id])
     except PriorError as exc:
