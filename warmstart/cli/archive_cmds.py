@@ -36,15 +36,15 @@ def init(ctx: click.Context, starter: bool, starter_learners: tuple[str, ...]) -
     """Create the archive (or check an existing one) and print where it is."""
     archive = get_archive(ctx, write=True)
     if starter or starter_learners:
-        from warmstart.starter import load_starter
+        import sys
 
-        with click.progressbar(length=1, label="loading the starter history", file=click.get_text_stream("stderr"),
-                               show_pos=True, show_eta=True) as bar:
-            def progress(done: int, total: int, name: str) -> None:
-                bar.length = total
-                bar.update(done - bar.pos)
+        from warmstart.starter import load_starter, read_starter
 
-            loaded = load_starter(archive, learners=list(starter_learners) or None, progress=progress)
+        total = len(read_starter().tasks)
+        with click.progressbar(length=total, label="loading the starter history", file=sys.stderr,
+                               show_pos=True) as bar:
+            loaded = load_starter(archive, learners=list(starter_learners) or None,
+                                  progress=lambda done, total, name: bar.update(done - bar.pos))
         click.echo(f"starter history: {loaded}")
         for name, reason in loaded.skipped:
             click.echo(f"  skipped {name}: {reason}", err=True)
