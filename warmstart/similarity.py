@@ -14,6 +14,7 @@ number of meta-features.
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass
 from typing import Any, Mapping, Sequence
 
@@ -77,7 +78,9 @@ class Standardizer:
         X = _transform(profiles.to_numpy(dtype=float), features)
         if X.shape[0] == 0:
             return cls(features, np.zeros(len(features)), np.ones(len(features)))
-        with np.errstate(all="ignore"):
+        with np.errstate(all="ignore"), warnings.catch_warnings():
+            # all-missing columns (a meta-feature no task here has) warn; they get 0 and 1 below
+            warnings.simplefilter("ignore", RuntimeWarning)
             q1, center, q3 = np.nanquantile(X, [0.25, 0.5, 0.75], axis=0) if np.isfinite(X).any() else (
                 np.zeros((3, len(features))))
             scale = (q3 - q1) / _IQR_TO_SD

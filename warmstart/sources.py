@@ -74,7 +74,7 @@ def weight_sources(
     if not keep:
         return []
     task_ids = sorted({s.task_id for s in keep})
-    index = ProfileIndex(profiles.loc[task_ids])
+    index = ProfileIndex(profiles.loc[task_ids].dropna(axis=1, how="all"))
     d = index.distances(prof)
     finite = d[np.isfinite(d) & (d > 0)]
     h = bandwidth_scale * (float(np.median(finite)) if finite.size else 1.0)
