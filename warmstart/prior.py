@@ -35,7 +35,7 @@ from scipy.stats import rankdata
 
 from warmstart.errors import WarmstartError
 from warmstart.kde import MixedKDE
-from warmstart.space import Space
+from warmstart.space import Space, unit_distances
 
 __all__ = ["Prior", "PriorError", "Source", "prior_from_sources", "within_study_quantiles", "unit_distances"]
 
@@ -101,30 +101,6 @@ def within_study_quantiles(scores: Sequence[float], maximize: bool = True) -> np
         return s
     r = rankdata(s if maximize else -s, method="average")
     return (r - 0.5) / s.size
-
-
-def unit_distances(space: Space, A: np.ndarray, B: np.ndarray) -> np.ndarray:
-    """Squared distances between encoded rows, (len(A), len(B)).
-
-    Continuous coordinates add the squared difference on the unit scale; a
-    choice coordinate adds 1 when the levels differ; a coordinate active in
-    one row and inactive in the other adds 1, inactive in both adds 0.
-    """
-    A = np.atleast_2d(A)
-    B = np.atleast_2d(B)
-    choice = space.is_choice
-    total = np.zeros((A.shape[0], B.shape[0]))
-    for j in range(space.dim):
-        a = A[:, j][:, None]
-        b = B[:, j][None, :]
-        na, nb = np.isnan(a), np.isnan(b)
-        if choice[j]:
-            diff = (a != b).astype(float)
-        else:
-            diff = (a - b) ** 2
-        diff = np.where(na & nb, 0.0, np.where(na | nb, 1.0, diff))
-        total += diff
-    return total
 
 
 def _nearest_quantiles(space: Space, source: Source, X: np.ndarray) -> np.ndarray:

@@ -27,7 +27,7 @@ from scipy.stats import rankdata
 
 from warmstart.errors import SpaceError
 from warmstart.kde import MixedKDE, log_sum_exp, uniform_logpdf
-from warmstart.space import Space
+from warmstart.space import Space, unit_distances
 from warmstart.strategy import SearchError, SearchResult, SearchStrategy, Trial, run_search
 
 __all__ = ["DensitySearch", "SearchError", "SearchResult", "SearchStrategy", "Trial", "run_search",
@@ -76,6 +76,11 @@ class DensitySearch(SearchStrategy):
         (``trust() < min_trust`` with four or more results).
     min_trust : float, default 0.5
         Guard level below which a warm search stops taking seeds.
+    seed_radius : float, default 0.2
+        A seed closer than this (unit-cube distance) to a tried config that
+        scored below the best so far is passed over while farther seeds
+        remain, so the seed phase does not dwell in a region already seen to
+        be mediocre (a local penalisation; the radius is our choice).
     floor : float, default 0.1
         Weight of the uniform density in ``l`` and ``g``. It never reaches
         zero, so no region is ever ruled out.
@@ -140,6 +145,7 @@ class DensitySearch(SearchStrategy):
         n_candidates: int = 24,
         n_seeds: int = 10,
         min_trust: float = 0.5,
+        seed_radius: float = 0.2,
         floor: float = 0.1,
         max_good: int = 64,
         max_rest: int = 256,
@@ -189,6 +195,9 @@ class DensitySearch(SearchStrategy):
             _check_count("n_seeds", n_seeds, minimum=0)
         self.n_seeds = int(n_seeds)
         self.min_trust = float(min_trust)
+        if isinstance(seed_radius, bool) or not isinstance(seed_radius, (int, float)) or seed_radius < 0:
+            raise SearchError(f"seed_radius must be a number >= 0, got {seed_radius!r}")
+        self.seed_radius = float(seed_radius)
         self._n_seeded = 0
         self._seed_reweighted_at = -1
         self._design_used = 0
@@ -295,10 +304,19 @@ class DensitySearch(SearchStrategy):
             self._seed_reweighted_at = n
             self._reweighted_at = n
             self._prior_lp = np.empty(0)
+        y = self.signed_scores()
+        scored = ~np.isnan(y)
+        weak = self.rows()[scored & (y < np.max(y[scored]))] if scored.sum() >= 2 else self.rows()[:0]
+        fallback = None
         for config in self._valid_seeds(list(self.prior.seeds or [])):
-            if not self._is_known(self.space.encode([config])[0]):
-                return config
-        return None
+            row = self.space.encode([config])[0]
+            if self._is_known(row):
+                continue
+            if weak.shape[0] and unit_distances(self.space, row[None, :], weak).min() < self.seed_radius**2:
+                fallback = fallback or config
+                continue
+            return config
+        return fallback
 
     def _propose_one(self) -> tuple[dict, str]:
         if self._seeding():

@@ -34,7 +34,7 @@ from scipy.stats import qmc
 
 from warmstart.errors import SpaceError
 
-__all__ = ["Param", "Space", "Alignment", "KINDS"]
+__all__ = ["Param", "Space", "Alignment", "KINDS", "unit_distances"]
 
 KINDS = ("real", "integer", "choice")
 _PARAM_KEYS = {"type", "low", "high", "log", "choices", "when"}
@@ -768,3 +768,27 @@ class Space:
             dropped=tuple(dict.fromkeys(dropped)),
             missing=tuple(missing),
         )
+
+
+def unit_distances(space: Space, A: np.ndarray, B: np.ndarray) -> np.ndarray:
+    """Squared distances between encoded rows, (len(A), len(B)).
+
+    Continuous coordinates add the squared difference on the unit scale; a
+    choice coordinate adds 1 when the levels differ; a coordinate active in
+    one row and inactive in the other adds 1, inactive in both adds 0.
+    """
+    A = np.atleast_2d(A)
+    B = np.atleast_2d(B)
+    choice = space.is_choice
+    total = np.zeros((A.shape[0], B.shape[0]))
+    for j in range(space.dim):
+        a = A[:, j][:, None]
+        b = B[:, j][None, :]
+        na, nb = np.isnan(a), np.isnan(b)
+        if choice[j]:
+            diff = (a != b).astype(float)
+        else:
+            diff = (a - b) ** 2
+        diff = np.where(na & nb, 0.0, np.where(na | nb, 1.0, diff))
+        total += diff
+    return total
