@@ -103,9 +103,9 @@ def build(path: Path, first: int, last: int, per_study: int) -> None:
             archive.add_trials(sid, frame)
 
 
-def build_pair(folder: Path, n_trials: int, per_study: int) -> tuple[Path, Path]:
-    """Two archives of n_trials each, half shared, built side by side in two processes."""
-    n = n_trials // per_study
+def build_pair(folder: Path, trial_count: int, per_study: int) -> tuple[Path, Path]:
+    """Two archives of trial_count each, half shared, built side by side in two processes."""
+    n = trial_count // per_study
     a, b = folder / "a.duckdb", folder / "b.duckdb"
     jobs = [subprocess.Popen([sys.executable, __file__, "--build", str(p), str(lo), str(lo + n), str(per_study)])
             for p, lo in ((a, 0), (b, n // 2))]

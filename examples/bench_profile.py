@@ -111,13 +111,13 @@ def build_archive(path: str, n_tasks: int, seed: int = 1) -> dict:
             "source_archive": None, "merged_at": None,
         })
         grid = np.array([0.01, 0.1, 1.0, 10.0, 100.0])
-        n_trials = 5
+        trial_count = 5
         trials = pd.DataFrame({
-            "study_id": np.repeat(rest + 1, n_trials), "number": np.tile(np.arange(1, n_trials + 1), rest.size),
+            "study_id": np.repeat(rest + 1, trial_count), "number": np.tile(np.arange(1, trial_count + 1), rest.size),
             "config": np.tile([json.dumps({"C": c}) for c in grid], rest.size),
-            "score": rng.random(rest.size * n_trials), "status": "ok", "cost_s": 1.0,
+            "score": rng.random(rest.size * trial_count), "status": "ok", "cost_s": 1.0,
             "started_at": now, "finished_at": now, "error": None,
-            "content_key": [f"k{i}" for i in range(rest.size * n_trials)],
+            "content_key": [f"k{i}" for i in range(rest.size * trial_count)],
         })
         with a.transaction() as con:
             for table, df in (("tasks", tasks), ("profiles", long), ("studies", studies), ("trials", trials)):

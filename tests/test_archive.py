@@ -63,7 +63,7 @@ def test_reopen_keeps_everything_and_adds_no_schema_rows(archive_path, space, sm
         assert archive.archive_id == archive_id
         assert len(archive.trials(study)) == 12
     with Archive(archive_path, read_only=True) as archive:
-        assert archive.studies()["n_trials"].tolist() == [12]
+        assert archive.studies()["trial_count"].tolist() == [12]
     assert table_dump(archive_path) == before
 
 
@@ -324,7 +324,7 @@ def test_studies_study_and_trials(archive_path, space, small_frame):
         archive.add_trials(up, trial_frame(space).assign(score=np.arange(12) / 10))
         archive.add_trials(down, trial_frame(space).assign(score=np.arange(12) / 10))
         studies = archive.studies()
-        assert studies[["study_id", "metric", "direction", "n_trials"]].values.tolist() == [
+        assert studies[["study_id", "metric", "direction", "trial_count"]].values.tolist() == [
             [up, "auc", "maximize", 12], [down, "log_loss", "minimize", 12]]
         assert studies["best_score"].tolist() == pytest.approx([1.1, 0.0])
         assert studies["space_id"].nunique() == 1  # same space stored once

@@ -104,7 +104,7 @@ def test_ingest_studies_show(files, space):
     result = run("studies", archive=files.archive)
     assert_ok(result)
     header, rule, line = result.stdout.splitlines()
-    assert header.split() == ["study_id", "task", "learner", "metric", "direction", "origin", "n_trials",
+    assert header.split() == ["study_id", "task", "learner", "metric", "direction", "origin", "trial_count",
                               "best_score", "owner", "tags", "created_at"]
     assert line.split()[:9] == ["1", "churn", "north", "svm", "score", "maximize", "imported", "3", "0.8"]
 
@@ -126,12 +126,12 @@ def test_json_output(files, space):
                                          "failed": 1, "best_score": 0.8}
     studies = json.loads(run("studies", "--json", archive=files.archive).stdout)
     assert len(studies) == 1
-    assert {k: studies[0][k] for k in ("study_id", "task", "learner", "metric", "n_trials", "best_score", "owner", "tags")} == {
-        "study_id": 1, "task": "churn north", "learner": "svm", "metric": "auc", "n_trials": 3,
+    assert {k: studies[0][k] for k in ("study_id", "task", "learner", "metric", "trial_count", "best_score", "owner", "tags")} == {
+        "study_id": 1, "task": "churn north", "learner": "svm", "metric": "auc", "trial_count": 3,
         "best_score": 0.8, "owner": "ana", "tags": {"team": "retail"}}
     shown = json.loads(run("show", "1", "--json", archive=files.archive).stdout)
     assert Space.from_dict(shown["space"]) == space
-    assert shown["direction"] == "maximize" and shown["n_trials"] == 3
+    assert shown["direction"] == "maximize" and shown["trial_count"] == 3
     assert [t["score"] for t in shown["trials"]] == [0.8, 0.7, None]
     assert [t["status"] for t in shown["trials"]] == ["ok", "ok", "failed"]
     assert shown["trials"][1]["degree"] == 3 and shown["trials"][0]["degree"] is None
@@ -148,7 +148,7 @@ def test_ingest_parquet_and_json_lines(files, suffix):
         frame.to_json(path, orient="records", lines=True)
     assert_ok(run(*ingest_args(files, trials=path), "--minimize", archive=files.archive))
     studies = json.loads(run("studies", "--json", archive=files.archive).stdout)
-    assert (studies[0]["n_trials"], studies[0]["direction"], studies[0]["best_score"]) == (3, "minimize", 0.7)
+    assert (studies[0]["trial_count"], studies[0]["direction"], studies[0]["best_score"]) == (3, "minimize", 0.7)
 
 
 def test_same_task_is_reused_and_names_are_verbatim(files):

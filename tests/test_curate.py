@@ -224,7 +224,7 @@ def test_dedupe_command_counts_then_removes(two_studies):
     result = cli(two_studies, "curate", "dedupe", "--json")
     assert json.loads(result.stdout) == {"dry_run": False, "trials_removed": 5, "studies_removed": 0}
     with Archive(two_studies, read_only=True) as archive:
-        assert list(archive.studies()["n_trials"]) == [12, 3]
+        assert list(archive.studies()["trial_count"]) == [12, 3]
         assert archive.trials(2)["number"].tolist() == [6, 7, 8]
 
 
@@ -253,7 +253,7 @@ def test_prune_failed_trials_asks_and_a_no_changes_nothing(two_studies):
     assert result.exit_code == 0 and "removed 2 failed trials and 0 whole study(ies)" in result.stdout
     with Archive(two_studies, read_only=True) as archive:
         assert archive.con.execute("SELECT count(*) FROM trials WHERE status = 'failed'").fetchall() == [(0,)]
-        assert archive.studies()["n_trials"].tolist() == [12, 8]
+        assert archive.studies()["trial_count"].tolist() == [12, 8]
 
 
 @pytest.mark.parametrize(
@@ -271,8 +271,8 @@ def test_prune_filters_select_whole_studies(two_studies, options, gone):
     with Archive(two_studies) as archive:
         plan = plan_prune(archive, **options)
         assert plan.studies["study_id"].tolist() == gone
-        n_trials = int(archive.studies().set_index("study_id").loc[gone, "n_trials"].sum())
-        assert apply_prune(archive, plan) == (n_trials, len(gone))
+        trial_count = int(archive.studies().set_index("study_id").loc[gone, "trial_count"].sum())
+        assert apply_prune(archive, plan) == (trial_count, len(gone))
         assert sorted(set(archive.studies()["study_id"])) == sorted({1, 2} - set(gone))
         assert archive.con.execute("SELECT count(*) FROM trials WHERE study_id IN (SELECT * FROM "
                                    "(VALUES (1), (2)) v(s) WHERE s NOT IN (SELECT study_id FROM studies))"

@@ -89,7 +89,7 @@ def test_ingest_every_format(archive, tmp_path, space, small_frame, name):
     # times are stored in UTC: 12:00 at +02:00 is 10:00 UTC
     assert trials["started_at"].tolist()[:2] == [pd.Timestamp("2026-03-01 12:00"), pd.Timestamp("2026-03-01 10:00")]
     row = archive.study(study)
-    assert (row["origin"], row["metric"], row["n_trials"], row["best_score"]) == ("imported", "auc", 4, 0.8)
+    assert (row["origin"], row["metric"], row["trial_count"], row["best_score"]) == ("imported", "auc", 4, 0.8)
     assert row["finished_at"] is not None
     assert archive.tasks()["source"].tolist()[-1] == "data.csv"
 

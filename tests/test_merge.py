@@ -207,8 +207,8 @@ def test_export_is_a_hive_partitioned_store_that_plain_duckdb_reads(varied, tmp_
         "GROUP BY learner ORDER BY learner",
         [str(out / "trials" / "**" / "*.parquet")],
     ).fetchall()
-    expected = studies.groupby("learner")[["n_trials"]].sum().sort_index()
-    assert [(r[0], r[1]) for r in rows] == list(expected["n_trials"].items())
+    expected = studies.groupby("learner")[["trial_count"]].sum().sort_index()
+    assert [(r[0], r[1]) for r in rows] == list(expected["trial_count"].items())
     assert dict((r[0], r[2]) for r in rows)[NASTY_LEARNER] == 1
     # reference: pyarrow reads the task table
     assert sorted(pq.read_table(out / "tasks.parquet").column("name").to_pylist()) == sorted([NASTY_TASK, "stores"])

@@ -104,7 +104,7 @@ def test_neighbor_study_columns_equal_the_trials(archive):
     for row in found.itertuples():
         assert row.n_studies == 1 and row.metric == "log_loss"
         trials = archive.trials(row.study_ids[0])  # reference: the stored trials
-        assert row.n_trials == len(trials)
+        assert row.trial_count == len(trials)
         assert row.best_score == pytest.approx(trials["score"].min())  # minimised metric
     everything = neighbors(archive, profile(frame, target), k=20)
     svm_and_gbt = everything[everything["task"] == found["task"].iloc[0]]
@@ -320,5 +320,5 @@ def test_best_score_with_studies_of_different_metrics(archive_file, tmp_path):
         other = a.add_study(task, "svm", SPACE, metric="rmse", maximize=False)  # mixed: the largest study's
         a.add_trials(other, pd.DataFrame(GRID * 2).assign(score=np.arange(12.0) + 3))
         row = neighbors(a, profile(frame, target), learner="svm", k=1).iloc[0]
-        assert row["n_studies"] == 3 and row["n_trials"] == 6 + 2 + 12
+        assert row["n_studies"] == 3 and row["trial_count"] == 6 + 2 + 12
         assert row["metric"] == "rmse (largest study)" and row["best_score"] == pytest.approx(3.0)

@@ -151,12 +151,12 @@ def test_load_counts_match_the_files(loaded, history):
     with Archive(path, read_only=True) as archive:
         studies = archive.studies()
         assert len(archive.tasks()) == len(history.tasks)
-        assert len(studies) == n_studies and int(studies["n_trials"].sum()) == len(history.trials)
+        assert len(studies) == n_studies and int(studies["trial_count"].sum()) == len(history.trials)
         assert set(studies["origin"]) == {"imported"}
         assert all(tags == {"history": "starter"} for tags in studies["tags"])
         kinds = archive.tasks().set_index("task_id")["kind"]
         assert (studies["metric"] == studies["task_id"].map(kinds).map(history.settings["metrics"])).all()
-        per_learner = studies[studies["n_trials"] >= 64].groupby("learner")["task_id"].nunique()
+        per_learner = studies[studies["trial_count"] >= 64].groupby("learner")["task_id"].nunique()
         assert (per_learner >= 30).all() and len(per_learner) >= 2
         profiles = archive.profiles()
         assert set(profiles["profile_version"]) == {PROFILE_VERSION}

@@ -83,7 +83,7 @@ def test_tune_json_workers_and_space_file(tmp_path, iris_csv):
                   "--workers", 2, "--cv", 3, "--space", EXAMPLES / "spaces" / "svm_narrow.toml", "--json")
     assert result.exit_code == 0, result.stderr
     out = json.loads(result.stdout)
-    assert out["n_trials"] == 4 and out["n_failed"] == 0 and not out["interrupted"]
+    assert out["trial_count"] == 4 and out["n_failed"] == 0 and not out["interrupted"]
     assert set(out["best_config"]) == {"C", "gamma"} and 0.1 <= out["best_config"]["C"] <= 1000
     with _archive(tmp_path) as archive:
         assert len(archive.trials(out["study_id"])) == 4
@@ -230,5 +230,5 @@ def test_tune_svm_on_breast_cancer_reaches_published_accuracy(tmp_path):
     result = _run(tmp_path, "tune", path, "--target", "target", "--learner", "svm", "--budget", 30, "--cv", 5, "--json")
     assert result.exit_code == 0, result.stderr
     out = json.loads(result.stdout)
-    assert out["n_trials"] == 30
+    assert out["trial_count"] == 30
     assert out["best_score"] >= 0.965

@@ -278,7 +278,7 @@ class GPSearch(SearchStrategy):
 
     def _propose_one(self) -> tuple[dict, str]:
         if (self._design is not None and self._design_used < self.n_startup
-                and self.n_trials + self.n_pending < self.n_startup):
+                and self.trial_count + self.n_pending < self.n_startup):
             row = self._design[self._design_used]
             self._design_used += 1
             return self.space.decode(row[None, :])[0], "design"

@@ -301,7 +301,7 @@ class Prior:
             neighbors.append({
                 "study_id": int(s.study_id), "task_id": int(s.task_id), "task": s.task,
                 "distance": None if not math.isfinite(s.distance) else float(s.distance),
-                "similarity": float(s.similarity), "weight": float(w), "n_trials": int(s.X.shape[0]),
+                "similarity": float(s.similarity), "weight": float(w), "trial_count": int(s.X.shape[0]),
                 **{k: list(v) for k, v in s.notes.items()},
             })
         neighbors.sort(key=lambda r: -r["weight"])

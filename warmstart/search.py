@@ -225,7 +225,7 @@ class DensitySearch(SearchStrategy):
 
     def _update_prior(self) -> None:
         """Re-weight the prior now and then; keep its log densities cached."""
-        n = self.n_trials
+        n = self.trial_count
         ok = self._ok_mask()
         if (hasattr(self.prior, "reweight") and ok.sum() >= 3
                 and n - self._reweighted_at >= self.reweight_every):
@@ -244,7 +244,7 @@ class DensitySearch(SearchStrategy):
         Failed trials rank below every scored one. NaN without a prior or
         with fewer than four finished trials.
         """
-        if self.prior is None or self.n_trials < 4:
+        if self.prior is None or self.trial_count < 4:
             return math.nan
         self._update_prior()
         y = np.nan_to_num(self.signed_scores(), nan=-np.inf)
@@ -263,7 +263,7 @@ class DensitySearch(SearchStrategy):
         rho = self.agreement()
         if math.isnan(rho):
             return 1.0
-        return float(ndtr(rho * math.sqrt(self.n_trials - 1)))
+        return float(ndtr(rho * math.sqrt(self.trial_count - 1)))
 
     @property
     def prior_weight(self) -> float:
@@ -279,7 +279,7 @@ class DensitySearch(SearchStrategy):
         if self.prior is None:
             w["good" if has_good else "uniform"] += rest
             return w
-        n0, n = float(self.prior.strength), self.n_trials
+        n0, n = float(self.prior.strength), self.trial_count
         f = self.trust()
         alpha0 = n0 / (n0 + n) if n0 + n > 0 else 0.0
         alpha = n0 * f / (n0 * f + n) if n0 * f + n > 0 else 0.0
@@ -293,12 +293,12 @@ class DensitySearch(SearchStrategy):
         """Whether a warm search still takes configs from the prior's seeds."""
         if self.prior is None or self._n_seeded >= self.n_seeds:
             return False
-        return self.n_trials < 4 or self.trust() >= self.min_trust
+        return self.trial_count < 4 or self.trust() >= self.min_trust
 
     def _next_seed(self) -> dict | None:
         """The best-ranked seed not tried yet, after re-weighting on every result."""
         ok = self._ok_mask()
-        n = self.n_trials
+        n = self.trial_count
         if ok.sum() >= 2 and self._seed_reweighted_at != n and hasattr(self.prior, "reweight"):
             self.prior = self.prior.reweight(self.rows()[ok], self._raw_scores()[ok], self.maximize)
             self._seed_reweighted_at = n
@@ -325,7 +325,7 @@ class DensitySearch(SearchStrategy):
                 self._n_seeded += 1
                 return config, "seed"
             self._n_seeded = self.n_seeds  # no untried seed left
-        if self._design_used < len(self._design) and self.n_trials + self.n_pending < self.n_startup + self._n_seeded:
+        if self._design_used < len(self._design) and self.trial_count + self.n_pending < self.n_startup + self._n_seeded:
             row = self._design[self._design_used]
             self._design_used += 1
             return self.space.decode(row[None, :])[0], "design"

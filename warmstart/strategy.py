@@ -214,7 +214,7 @@ class SearchStrategy:
 
     # -- state -------------------------------------------------------------
     @property
-    def n_trials(self) -> int:
+    def trial_count(self) -> int:
         """Number of recorded trials (ok and failed)."""
         return len(self._trials)
 
@@ -283,7 +283,7 @@ class SearchStrategy:
     def __repr__(self) -> str:
         best = self.best
         shown = "none" if best is None else f"{best.score:.6g}"
-        return f"{type(self).__name__}(n_trials={self.n_trials}, best={shown})"
+        return f"{type(self).__name__}(trial_count={self.trial_count}, best={shown})"
 
 
 @dataclass(frozen=True, eq=False)
@@ -342,7 +342,7 @@ class SearchResult:
         best = self.best
         n_failed = sum(t.status == "failed" for t in self.trials)
         shown = "none" if best is None else f"{best.score:.6g}"
-        return f"SearchResult(n_trials={len(self.trials)}, n_failed={n_failed}, best={shown})"
+        return f"SearchResult(trial_count={len(self.trials)}, n_failed={n_failed}, best={shown})"
 
 
 def _evaluate(objective: Callable, config: dict) -> dict:

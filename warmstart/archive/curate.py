@@ -442,7 +442,7 @@ class PrunePlan:
     ----------
     studies : pandas.DataFrame
         The studies touched: study_id, task, learner, owner, tags, created_at,
-        n_trials, remove (trials that go), emptied (the study goes too).
+        trial_count, remove (trials that go), emptied (the study goes too).
     failed_only : bool
         Only failed trials go (studies left with no trials go too).
     """
@@ -451,7 +451,7 @@ class PrunePlan:
     failed_only: bool
 
     @property
-    def n_trials(self) -> int:
+    def trial_count(self) -> int:
         """Trials that go."""
         return int(self.studies["remove"].sum()) if len(self.studies) else 0
 
@@ -496,9 +496,9 @@ def plan_prune(
         frame["remove"] = frame["n_failed"]
     else:
         frame = frame.copy()
-        frame["remove"] = frame["n_trials"].astype("int64")
-    frame["emptied"] = frame["remove"] >= frame["n_trials"]
-    cols = ["study_id", "task", "learner", "owner", "tags", "created_at", "n_trials", "remove", "emptied"]
+        frame["remove"] = frame["trial_count"].astype("int64")
+    frame["emptied"] = frame["remove"] >= frame["trial_count"]
+    cols = ["study_id", "task", "learner", "owner", "tags", "created_at", "trial_count", "remove", "emptied"]
     return PrunePlan(frame[cols].reset_index(drop=True), failed_only=bool(failed))
 
 

@@ -26,9 +26,9 @@ from warmstart.similarity import ProfileIndex
 __all__ = ["neighbors", "defaults", "learners", "profile_index", "clear_cache"]
 
 NEIGHBOR_COLUMNS = [
-    "task_id", "task", "distance", "similarity", "n_studies", "study_ids", "n_trials", "best_score", "metric",
+    "task_id", "task", "distance", "similarity", "n_studies", "study_ids", "trial_count", "best_score", "metric",
 ]
-DEFAULT_COLUMNS = ["config", "shrunk_quantile", "mean_quantile", "n_tasks", "n_trials", "weight"]
+DEFAULT_COLUMNS = ["config", "shrunk_quantile", "mean_quantile", "n_tasks", "trial_count", "weight"]
 PSEUDO_TASKS = 1.0  # neutral pseudo-observations behind the ranking of defaults (a Bayesian average, common practice)
 _CACHE: OrderedDict = OrderedDict()
 _CACHE_SIZE = 16
@@ -175,7 +175,7 @@ def _study_summary(archive, task_ids: list[int], learner: str | None) -> pd.Data
     The best score is over the task's studies when they share metric and
     direction, else that of its largest study (the metric column says so).
     """
-    columns = ["task_id", "n_studies", "study_ids", "n_trials", "best_score", "metric"]
+    columns = ["task_id", "n_studies", "study_ids", "trial_count", "best_score", "metric"]
     if not task_ids:
         return pd.DataFrame(columns=columns)
     con = archive.con
@@ -215,7 +215,7 @@ def _study_summary(archive, task_ids: list[int], learner: str | None) -> pd.Data
             best = np.nan if largest[4] is None else largest[4]
         rows.append({
             "task_id": task_id, "n_studies": len(mine), "study_ids": [s[0] for s in mine],
-            "n_trials": sum(s[3] for s in mine), "best_score": float(best), "metric": metric,
+            "trial_count": sum(s[3] for s in mine), "best_score": float(best), "metric": metric,
         })
     return pd.DataFrame(rows, columns=columns)
 
@@ -269,7 +269,7 @@ def neighbors(
     pandas.DataFrame
         Nearest first: task_id, task, distance, similarity (Gaussian kernel,
         bandwidth by the median heuristic over all candidates), n_studies,
-        study_ids, n_trials and best_score (of the learner's studies) and
+        study_ids, trial_count and best_score (of the learner's studies) and
         metric. ``attrs["notes"]`` lists tasks left out and why.
 
     Raises
@@ -348,7 +348,7 @@ def defaults(
         Best first: config (dict), shrunk_quantile (the ranking key: the
         weighted mean with ``PSEUDO_TASKS`` neutral pseudo-task at 0.5, so a
         config seen on one task does not outrank one that is good on many),
-        mean_quantile, n_tasks, n_trials and weight (share of the total task
+        mean_quantile, n_tasks, trial_count and weight (share of the total task
         weight behind the config). ``attrs["notes"]`` says what was left out.
     """
     n = _positive_int("n", n)
@@ -385,7 +385,7 @@ def defaults(
                        / count(*) OVER (PARTITION BY study_id) AS quantile
                 FROM ok
             ), per_task AS (
-                SELECT q.task_id, q.config, avg(q.quantile) AS quantile, count(*) AS n_trials,
+                SELECT q.task_id, q.config, avg(q.quantile) AS quantile, count(*) AS trial_count,
                        CASE WHEN ? THEN any_value(w.w) ELSE 1.0 END AS w
                 FROM q LEFT JOIN {view} w USING (task_id)
                 GROUP BY q.task_id, q.config
@@ -398,7 +398,7 @@ def defaults(
                    (sum(w * quantile) + ? * 0.5 * any_value(mean_w)) / (sum(w) + ? * any_value(mean_w))
                        AS shrunk_quantile,
                    sum(w * quantile) / sum(w) AS mean_quantile,
-                   count(*) AS n_tasks, sum(n_trials) AS n_trials,
+                   count(*) AS n_tasks, sum(trial_count) AS trial_count,
                    sum(w) / any_value(total_w) AS weight
             FROM usable, total
             GROUP BY config
@@ -413,7 +413,7 @@ def defaults(
         notes = notes + [f"learner {learner!r} has no successful trials with a score"]
     frame["config"] = [json.loads(c) for c in frame["config"]]
     frame["n_tasks"] = frame["n_tasks"].astype("int64")
-    frame["n_trials"] = frame["n_trials"].astype("int64")
+    frame["trial_count"] = frame["trial_count"].astype("int64")
     out = frame[DEFAULT_COLUMNS].reset_index(drop=True)
     out.attrs["notes"] = notes
     return out

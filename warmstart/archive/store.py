@@ -422,11 +422,11 @@ class Archive:
 
     _STUDY_SQL = (
         "SELECT s.study_id, s.task_id, t.name AS task, s.learner, s.space_id, s.metric, s.direction, "
-        "s.origin, coalesce(r.n_trials, 0) AS n_trials, coalesce(r.n_ok, 0) AS n_ok, "
+        "s.origin, coalesce(r.trial_count, 0) AS trial_count, coalesce(r.n_ok, 0) AS n_ok, "
         "CASE WHEN s.direction = 'maximize' THEN r.best_max ELSE r.best_min END AS best_score, "
         "s.created_at, s.finished_at, s.owner, s.tags, s.prior "
         "FROM studies s LEFT JOIN tasks t ON t.task_id = s.task_id "
-        "LEFT JOIN (SELECT study_id, count(*) AS n_trials, count(score) AS n_ok, max(score) AS best_max, "
+        "LEFT JOIN (SELECT study_id, count(*) AS trial_count, count(score) AS n_ok, max(score) AS best_max, "
         "min(score) AS best_min FROM trials GROUP BY study_id) r ON r.study_id = s.study_id"
     )
 
@@ -588,7 +588,7 @@ class Archive:
 
         Returns
         -------
-        (task_id, study_id, n_trials)
+        (task_id, study_id, trial_count)
         """
         from warmstart.profile import PROFILE_VERSION, detect_kind
         from warmstart.profile import profile as compute_profile

@@ -290,7 +290,7 @@ def _merge(archive: Archive, src: _Source, progress: Callable[[str], None] | Non
                 f"JOIN {src.spaces} p ON p.space_id = s.space_id JOIN here h ON h.fingerprint = k.fingerprint "
                 "AND h.learner = s.learner AND h.content_hash = p.content_hash AND h.metric = s.metric "
                 "AND h.direction = s.direction AND h.created_at = s.created_at GROUP BY s.study_id) "
-                "SELECT s.study_id AS src_id, coalesce(inc.n_new, 0) AS n_new, coalesce(cnt.n, 0) AS n_trials, "
+                "SELECT s.study_id AS src_id, coalesce(inc.n_new, 0) AS n_new, coalesce(cnt.n, 0) AS trial_count, "
                 "s.study_id IN (SELECT study_id FROM _ws_valid) AS valid, same.here_id, "
                 "coalesce(top.top, 0) AS base "
                 f"FROM {src.studies} s LEFT JOIN inc ON inc.study_id = s.study_id "
@@ -357,8 +357,8 @@ def _merge(archive: Archive, src: _Source, progress: Callable[[str], None] | Non
         spaces_matched=int(spaces_matched),
         studies_new=int(coming["is_new"].sum()),
         studies_grown=int((~coming["is_new"]).sum()),
-        studies_already_here=int((valid & (study_map["n_new"] == 0) & (study_map["n_trials"] > 0)).sum()),
-        studies_skipped=int((~valid | (study_map["n_trials"] == 0)).sum()),
+        studies_already_here=int((valid & (study_map["n_new"] == 0) & (study_map["trial_count"] > 0)).sum()),
+        studies_skipped=int((~valid | (study_map["trial_count"] == 0)).sum()),
         trials_new=int(trials_new),
         trials_already_here=int(n_valid - trials_new),
         trials_skipped=int(n_all - n_valid),

@@ -95,7 +95,7 @@ def ingest(ctx, trials, task, data_path, target, learner, space_path, metric, mi
     row = archive.study(study_id)
     summary = {
         "task_id": task_id, "task": task, "study_id": study_id, "trials": n,
-        "failed": int(row["n_trials"] - row["n_ok"]), "best_score": row["best_score"],
+        "failed": int(row["trial_count"] - row["n_ok"]), "best_score": row["best_score"],
     }
     if as_json:
         print_json(summary)
@@ -125,7 +125,7 @@ def studies(ctx, learner, task, owner, tags, as_json):
         from warmstart.archive.curate import filter_studies
 
         frame = filter_studies(frame, owner=owner, tags=_parse_tags(tags))
-    cols = ["study_id", "task", "learner", "metric", "direction", "origin", "n_trials", "best_score", "owner", "tags", "created_at"]
+    cols = ["study_id", "task", "learner", "metric", "direction", "origin", "trial_count", "best_score", "owner", "tags", "created_at"]
     print_table(frame[cols], as_json, empty="no studies yet: add some with `warmstart ingest` or `warmstart tune`")
 
 
@@ -150,7 +150,7 @@ def show(ctx, study, top, as_json):
         return
     click.echo(f"study {row['study_id']}: {row['learner']} on task {row['task']!r} ({row['origin']})")
     click.echo(f"  metric    {row['metric']} ({row['direction']})")
-    click.echo(f"  trials    {row['n_trials']} ({row['n_trials'] - row['n_ok']} failed)")
+    click.echo(f"  trials    {row['trial_count']} ({row['trial_count'] - row['n_ok']} failed)")
     best = row["best_score"]
     click.echo(f"  best      {best:.4g}" if pd.notna(best) else "  best      -")
     if row["owner"]:

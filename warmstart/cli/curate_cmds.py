@@ -180,7 +180,7 @@ def prune(ctx, failed, before, learner, tags, owner, yes, as_json):
             click.echo("nothing matches: nothing to remove")
         return
     what = "failed trials" if plan.failed_only else "trials"
-    head = f"would remove {plan.n_trials} {what} and {plan.n_studies} whole study(ies):"
+    head = f"would remove {plan.trial_count} {what} and {plan.n_studies} whole study(ies):"
     if not as_json:
         click.echo(head)
         shown = plan.studies.head(_SHOW).rename(columns={"remove": "trials_to_remove", "emptied": "whole_study"})

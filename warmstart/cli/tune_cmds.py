@@ -199,7 +199,7 @@ def _report(archive, study, search, counts, interrupted, as_json, budget) -> Non
     summary = {
         "study_id": study, "task_id": int(row["task_id"]), "task": row["task"], "learner": row["learner"],
         "metric": row["metric"], "direction": row["direction"], "origin": row["origin"],
-        "n_trials": counts["ok"] + counts["failed"], "n_failed": counts["failed"],
+        "trial_count": counts["ok"] + counts["failed"], "n_failed": counts["failed"],
         "best_score": None if best is None else best.score,
         "best_config": None if best is None else best.config, "interrupted": interrupted,
     }
@@ -208,7 +208,7 @@ def _report(archive, study, search, counts, interrupted, as_json, budget) -> Non
         return
     state = "interrupted: " if interrupted else ""
     click.echo(f"{state}study {study} ({row['learner']} on task {row['task']!r}): "
-               f"{summary['n_trials']} trials, {summary['n_failed']} failed")
+               f"{summary['trial_count']} trials, {summary['n_failed']} failed")
     if best is None:
         hint = ("evaluate configs with `warmstart propose --study "
                 f"{study}` and `warmstart record`") if budget == 0 else "no trial succeeded"
@@ -258,7 +258,7 @@ def propose(ctx, study, k, seed, as_json):
     archive = get_archive(ctx, write=False)
     info, search = _rebuilt_search(archive, study, seed)
     configs = search.propose(k)
-    click.echo(f"study {study}: {search.n_trials} trials recorded, best {_fmt(info['best_score'])}; "
+    click.echo(f"study {study}: {search.trial_count} trials recorded, best {_fmt(info['best_score'])}; "
                f"{info['note']}", err=True)
     if as_json:
         print_json({"study_id": study, "configs": configs})
@@ -301,8 +301,8 @@ def record(ctx, study, config_text, score, failed, error, cost, as_json):
     row = archive.study(study)
     if as_json:
         print_json({"study_id": study, "number": number, "status": "failed" if failed else "ok",
-                    "score": score, "best_score": row["best_score"], "n_trials": int(row["n_trials"])})
+                    "score": score, "best_score": row["best_score"], "trial_count": int(row["trial_count"])})
         return
     what = "failed" if failed else f"{info['metric']} {score:.6g}"
     click.echo(f"recorded trial {number} of study {study} ({what}); "
-               f"best {_fmt(row['best_score'])} over {row['n_trials']} trials")
+               f"best {_fmt(row['best_score'])} over {row['trial_count']} trials")
