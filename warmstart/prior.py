@@ -257,9 +257,11 @@ class Prior:
     @property
     def seeds(self) -> list[dict]:
         """Configs to try first: the candidates with the best weighted mean
-        quantile across sources, best first."""
+        quantile across sources, best first (valid configs: parameters the
+        sources did not have are drawn uniformly)."""
         order = np.argsort(-self.seed_scores(), kind="stable")[: self.n_seeds]
-        return self.space.decode(self._candidates[order])
+        rng = np.random.default_rng(0)  # parameters no source knew are drawn uniformly, reproducibly
+        return [self.space.complete(c, rng) for c in self.space.decode(self._candidates[order])]
 
     def reweight(self, X: np.ndarray, y: np.ndarray, maximize: bool = True) -> "Prior":
         """A prior whose sources are re-weighted by agreement with observations.
