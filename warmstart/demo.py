@@ -56,7 +56,7 @@ class StoreTraits:
 def store_traits(index: int, seed: int = 7) -> StoreTraits:
     """Traits of store ``index`` (fixed by the seed)."""
     rng = np.random.default_rng([seed, index])
-    tangle = float(rng.beta(1.3, 1.3))
+    tangle = float(rng.beta(2.0, 4.0))  # most stores follow a fairly straight rule
     return StoreTraits(
         name=f"{_TOWNS[index % len(_TOWNS)]} store" + (f" {index // len(_TOWNS) + 1}" if index >= len(_TOWNS) else ""),
         n_members=int(rng.integers(200, 400)),
@@ -137,7 +137,7 @@ def _history_study(args):
 def run_demo(
     out_dir: str | Path = "demo-out",
     n_history: int = 16,
-    n_configs: int = 32,
+    n_configs: int = 48,
     budget: int = 10,
     repeats: int = 5,
     workers: int = 2,
