@@ -28,6 +28,7 @@ import click
 import numpy as np
 import pandas as pd
 
+from warmstart.parallel import map_jobs
 from warmstart.progress import Progress
 
 __all__ = ["StoreTraits", "store_traits", "store_table", "demo_space", "run_demo", "ORGANISATION"]
@@ -170,8 +171,6 @@ def run_demo(
     dict
         The figures printed: live gain, replay pooled gain, paths.
     """
-    import concurrent.futures as cf
-
     from warmstart.archive import Archive
     from warmstart.learners import cv_objective
     from warmstart.live import live_gain
@@ -198,12 +197,7 @@ def run_demo(
     design = space.sobol(n_configs, np.random.default_rng(seed))
     bar = Progress("  history")
     jobs = [(tables[i], learner, design, seed) for i in range(n_history)]
-    with cf.ProcessPoolExecutor(max_workers=workers) as ex:
-        futures = {ex.submit(_history_study, job): i for i, job in enumerate(jobs)}
-        results: dict[int, pd.DataFrame] = {}
-        for fut in cf.as_completed(futures):
-            results[futures[fut]] = fut.result()
-            bar(len(results), len(jobs))
+    results = map_jobs(_history_study, jobs, workers, bar)
     for i in range(n_history):
         archive.ingest(results[i], task=stores[i].name, data=tables[i], target="lapsed", learner=learner,
                        space=space, metric="balanced_accuracy", where=f"demo history of {stores[i].name}",

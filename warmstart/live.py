@@ -10,12 +10,12 @@ config met twice is trained once per process.
 
 from __future__ import annotations
 
-import concurrent.futures as cf
 from dataclasses import dataclass, field
 from typing import Any, Callable
 
 import numpy as np
 
+from warmstart.parallel import map_jobs
 from warmstart.gain import PooledGain, Runs, TaskGain, compare, in_target, pool, target_threshold
 from warmstart.space import Space
 
@@ -122,22 +122,7 @@ def live_gain(
     p = float(in_target(ref_scores, threshold, maximize).mean())
     jobs = [(space, evaluate, prior if arm == "warm" else None, budget, seed + r, maximize)
             for arm in ("warm", "cold") for r in range(repeats)]
-    outputs: list = [None] * len(jobs)
-    done = n_reference
-    if workers > 1:
-        with cf.ProcessPoolExecutor(max_workers=workers) as ex:
-            futures = {ex.submit(_arm, job): i for i, job in enumerate(jobs)}
-            for fut in cf.as_completed(futures):
-                outputs[futures[fut]] = fut.result()
-                done += 1
-                if progress:
-                    progress(done, total)
-    else:
-        for i, job in enumerate(jobs):
-            outputs[i] = _arm(job)
-            done += 1
-            if progress:
-                progress(done, total)
+    outputs = map_jobs(_arm, jobs, workers, progress, done_before=n_reference, total=total)
     scores = np.array([o[0] for o in outputs])
     sign = 1.0 if maximize else -1.0
     every = np.concatenate([ref_scores, scores.ravel()])

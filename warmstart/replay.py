@@ -22,7 +22,6 @@ Baselines computed in the same run:
 
 from __future__ import annotations
 
-import concurrent.futures as cf
 import math
 from dataclasses import dataclass, field
 from typing import Any, Callable, Sequence
@@ -31,6 +30,7 @@ import numpy as np
 import pandas as pd
 
 from warmstart.errors import WarmstartError
+from warmstart.parallel import map_jobs
 from warmstart.gain import PooledGain, Runs, TaskGain, compare, in_target, pool, target_threshold
 from warmstart.prior import Prior, Source, prior_from_sources, unit_distances
 from warmstart.sources import BANDWIDTH_SCALE, comparable_profiles, load_sources, weight_sources
@@ -271,22 +271,7 @@ def leave_one_task_out(
                                   bandwidth_scale=BANDWIDTH_SCALE)
         prior = prior_from_sources(t.space, weighted, provenance={"learner": learner, "held_out": t.task})
         jobs.append((t, prior, budget, repeats, seed))
-    results: list[tuple[TaskGain, dict]] = [None] * len(jobs)  # type: ignore[list-item]
-    done = 0
-    if workers > 1:
-        with cf.ProcessPoolExecutor(max_workers=workers) as pool_:
-            futures = {pool_.submit(_one_task, job): i for i, job in enumerate(jobs)}
-            for fut in cf.as_completed(futures):
-                results[futures[fut]] = fut.result()
-                done += 1
-                if progress:
-                    progress(done, len(jobs))
-    else:
-        for i, job in enumerate(jobs):
-            results[i] = _one_task(job)
-            done += 1
-            if progress:
-                progress(done, len(jobs))
+    results = map_jobs(_one_task, jobs, workers, progress)
     gains = [r[0] for r in results]
     curves = {}
     for label in results[0][1]:
