@@ -168,8 +168,17 @@ def bits_interval(runs: Runs, p: float, rng: Any = 0, n_boot: int = N_BOOT) -> t
     return math.log2(q / p), float(lo), float(hi)
 
 
+class _FlatFigures:
+    """``to_dict()`` for result dataclasses: their fields, with ``extra`` merged in."""
+
+    def to_dict(self) -> dict:
+        d = {k: getattr(self, k) for k in self.__dataclass_fields__ if k != "extra"}
+        d.update(self.extra)
+        return d
+
+
 @dataclass(frozen=True)
-class TaskGain:
+class TaskGain(_FlatFigures):
     """Warm vs cold on one task.
 
     Attributes
@@ -208,10 +217,6 @@ class TaskGain:
     verdict: str
     extra: dict = field(default_factory=dict)
 
-    def to_dict(self) -> dict:
-        d = {k: getattr(self, k) for k in self.__dataclass_fields__ if k != "extra"}
-        d.update(self.extra)
-        return d
 
 
 def compare(
@@ -271,7 +276,7 @@ def compare(
 
 
 @dataclass(frozen=True)
-class PooledGain:
+class PooledGain(_FlatFigures):
     """Warm vs cold across tasks.
 
     Attributes
@@ -305,10 +310,6 @@ class PooledGain:
     share_hurt_clearly: float
     extra: dict = field(default_factory=dict)
 
-    def to_dict(self) -> dict:
-        d = {k: getattr(self, k) for k in self.__dataclass_fields__ if k != "extra"}
-        d.update(self.extra)
-        return d
 
 
 def pool(results: Sequence[TaskGain], rng: Any = 0, n_boot: int = N_BOOT) -> PooledGain:
@@ -345,9 +346,29 @@ def pool(results: Sequence[TaskGain], rng: Any = 0, n_boot: int = N_BOOT) -> Poo
     )
 
 
+@dataclass
+class GainResult:
+    """Warm vs cold for one learner and budget: per-task gains, the pooled
+    figure and mean curves (label -> (hit rate per query, regret per query))."""
+
+    learner: str
+    budget: int
+    repeats: int
+    gamma: float
+    tasks: list[TaskGain]
+    pooled: PooledGain
+    curves: dict = field(default_factory=dict)
+
+    def to_frame(self) -> pd.DataFrame:
+        """Per-task figures, one row per task."""
+        frame = pd.DataFrame([t.to_dict() for t in self.tasks])
+        frame.insert(0, "learner", self.learner)
+        return frame
+
+
 def results_frame(results: Sequence[TaskGain]) -> pd.DataFrame:
     """Per-task results as a DataFrame."""
     return pd.DataFrame([r.to_dict() for r in results])
 
 
-__all__ += ["results_frame", "in_target"]
+__all__ += ["GainResult", "results_frame", "in_target"]

@@ -10,13 +10,13 @@ config met twice is trained once per process.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any, Callable
 
 import numpy as np
 
 from warmstart.parallel import map_jobs
-from warmstart.gain import PooledGain, Runs, TaskGain, compare, in_target, pool, target_threshold
+from warmstart.gain import GainResult, Runs, compare, in_target, pool, target_threshold
 from warmstart.space import Space
 
 __all__ = ["LiveResult", "live_gain"]
@@ -59,16 +59,9 @@ def _arm(args) -> tuple[np.ndarray, dict]:
 
 
 @dataclass
-class LiveResult:
-    """Warm vs cold on one live objective (shaped like a replay result, for reports)."""
+class LiveResult(GainResult):
+    """Warm vs cold on one live objective, with the reference sample's scores."""
 
-    learner: str
-    budget: int
-    repeats: int
-    gamma: float
-    tasks: list[TaskGain]
-    pooled: PooledGain
-    curves: dict = field(default_factory=dict)
     reference_scores: np.ndarray | None = None
 
 

@@ -23,15 +23,14 @@ Baselines computed in the same run:
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any, Callable, Sequence
 
 import numpy as np
-import pandas as pd
 
 from warmstart.errors import WarmstartError
 from warmstart.parallel import map_jobs
-from warmstart.gain import PooledGain, Runs, TaskGain, compare, in_target, pool, target_threshold
+from warmstart.gain import GainResult, Runs, TaskGain, compare, in_target, pool, target_threshold
 from warmstart.prior import Prior, Source, prior_from_sources, unit_distances
 from warmstart.sources import BANDWIDTH_SCALE, comparable_profiles, load_sources, weight_sources
 from warmstart.space import Space
@@ -200,23 +199,8 @@ def _one_task(args) -> tuple[TaskGain, dict]:
     return result, {k: (v.hits.mean(axis=0), v.regret.mean(axis=0)) for k, v in curves.items()}
 
 
-@dataclass
-class ReplayResult:
-    """Leave-one-task-out replay of one learner."""
-
-    learner: str
-    budget: int
-    repeats: int
-    gamma: float
-    tasks: list[TaskGain]
-    pooled: PooledGain
-    curves: dict = field(default_factory=dict)  # label -> (mean hits per query, mean regret per query)
-
-    def to_frame(self) -> pd.DataFrame:
-        """Per-task figures, one row per held-out task."""
-        frame = pd.DataFrame([t.to_dict() for t in self.tasks])
-        frame.insert(0, "learner", self.learner)
-        return frame
+class ReplayResult(GainResult):
+    """Leave-one-task-out replay of one learner (see :class:`~warmstart.gain.GainResult`)."""
 
 
 def leave_one_task_out(
