@@ -129,3 +129,19 @@ def test_pool_matches_scipy_wilcoxon_and_pools_q():
     assert pooled.gain == pytest.approx(math.log2(np.mean([r.q_warm for r in results]) / np.mean([r.q_cold for r in results])))
     assert pooled.share_hurt == pytest.approx(np.mean([r.gain < 0 for r in results]))
     assert pooled.gain_low <= pooled.gain <= pooled.gain_high
+
+
+def test_share_hurt_outside_noise_counts_only_unflagged_tasks():
+    rng = np.random.default_rng(11)
+    results = []
+    for i in range(10):
+        qw, qc = (0.05, 0.4) if i < 4 else (0.4, 0.05)  # tasks 0-3 are hurt, the rest helped
+        r = compare(f"t{i}", Runs(rng.random((30, 10)) < qw), Runs(rng.random((30, 10)) < qc), p=0.05, rng=i)
+        r.extra["within_noise"] = i < 3  # three of the four hurt tasks sit within noise
+        results.append(r)
+    pooled = pool(results)
+    assert pooled.share_hurt == pytest.approx(0.4)
+    assert pooled.share_hurt_outside_noise == pytest.approx(1 / 7)  # counted by hand: 1 hurt of 7 unflagged
+    for r in results:
+        del r.extra["within_noise"]
+    assert math.isnan(pool(results).share_hurt_outside_noise)  # no flags: nothing to split on

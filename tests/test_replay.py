@@ -124,3 +124,30 @@ def test_gain_bad_input(archive_path, args, message):
     assert res.exit_code != 0
     assert message in res.output
     assert "Traceback" not in res.output
+
+
+def test_hindsight_rates_of_a_past_task_identical_to_the_held_out_one():
+    from warmstart.gain import target_threshold
+    from warmstart.prior import Source, prior_from_sources, within_study_quantiles
+    from warmstart.replay import ReplayTask, hindsight_rates
+
+    configs = SPACE.sobol(40, 3)
+    X = SPACE.encode(configs)
+    scores = np.array([_score(c, 0.3) for c in configs])
+    objective = ReplayObjective(SPACE, X, scores)
+    threshold = target_threshold(scores, 0.1)  # ceil(0.1 * 40) = 4 target configs
+    task = ReplayTask(0, "held out", 0, SPACE, objective, threshold, 0.1, {})
+
+    def source(i, s):
+        return Source(study_id=i, task_id=i, task=f"past {i}", X=X, quantile=within_study_quantiles(s),
+                      numbers=np.arange(40), clipped=np.zeros(40, bool), similarity=1.0)
+
+    # one past task ranks configs exactly as the held-out task does, one in reverse
+    prior = prior_from_sources(SPACE, [source(1, -scores), source(2, scores)])
+    for budget in (2, 4, 10):
+        rates = hindsight_rates(task, prior, budget)
+        # analytic: the identical task lists all 4 targets first, so both figures are min(4, B) / B
+        assert rates["ideal_list"] == pytest.approx(min(4, budget) / budget)
+        assert rates["best_past_task"] == pytest.approx(min(4, budget) / budget)
+    only_reverse = prior_from_sources(SPACE, [source(1, -scores)])
+    assert hindsight_rates(task, only_reverse, 4)["best_past_task"] == 0.0  # its top 4 are the 4 worst

@@ -40,3 +40,14 @@ def test_tasks_whose_target_lies_within_noise_are_flagged(replays):
     for t in flagged:
         assert t.extra["target_gap"] >= 0
     assert all("within_noise" in t.extra for r in replays.values() for t in r.tasks)
+
+
+@pytest.mark.parametrize("learner", ["svm", "knn"])
+def test_hindsight_lists_bound_the_static_lists(replays, learner):
+    # the starter's studies of one learner share one design, so every static list is a list of distinct
+    # recorded configs, which cannot beat the list of every target config first (analytic bound)
+    for t in replays[learner].tasks:
+        assert t.extra["q_ideal_list"] >= t.extra["q_defaults"] - 1e-12
+        assert t.extra["q_ideal_list"] >= t.extra["q_best_past_task"]
+    pooled = replays[learner].pooled
+    assert pooled.extra["bits_ideal_list"] >= pooled.extra["bits_best_past_task"]

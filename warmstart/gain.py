@@ -295,6 +295,10 @@ class PooledGain(_FlatFigures):
         Share of tasks whose point gain is below zero.
     share_hurt_clearly : float
         Share of tasks whose whole interval lies below zero.
+    share_hurt_outside_noise : float
+        ``share_hurt`` among the tasks not flagged ``within_noise`` (their
+        target set stands out of cross-validation noise); NaN when no task
+        carries the flag or every task does.
     extra : dict
         Pooled bits of further searches (``bits_<label>``).
     """
@@ -308,6 +312,7 @@ class PooledGain(_FlatFigures):
     wilcoxon_p: float
     share_hurt: float
     share_hurt_clearly: float
+    share_hurt_outside_noise: float = float("nan")
     extra: dict = field(default_factory=dict)
 
 
@@ -334,6 +339,8 @@ def pool(results: Sequence[TaskGain], rng: Any = 0, n_boot: int = N_BOOT) -> Poo
     for label in labels:
         q = np.array([r.extra.get(f"q_{label}", np.nan) for r in results])
         extra[f"bits_{label}"] = float(np.log2(np.nanmean(q) / p.mean()))
+    clear = [r for r in results if r.extra.get("within_noise") is False]
+    hurt_clear = float(np.mean([r.gain < 0 for r in clear])) if clear else float("nan")
     return PooledGain(
         n_tasks=n,
         bits_warm=float(np.log2(qw.mean() / p.mean())),
@@ -342,6 +349,7 @@ def pool(results: Sequence[TaskGain], rng: Any = 0, n_boot: int = N_BOOT) -> Poo
         gain_low=lo, gain_high=hi, wilcoxon_p=wp,
         share_hurt=float(np.mean([r.gain < 0 for r in results])),
         share_hurt_clearly=float(np.mean([r.verdict == "hurt" for r in results])),
+        share_hurt_outside_noise=hurt_clear,
         extra=extra,
     )
 

@@ -35,7 +35,8 @@ from warmstart.prior import Prior, Source, prior_from_sources, unit_distances
 from warmstart.sources import BANDWIDTH_SCALE, comparable_profiles, load_sources, weight_sources
 from warmstart.space import Space
 
-__all__ = ["ReplayObjective", "ReplayTask", "ReplayResult", "replay_tasks", "leave_one_task_out", "static_order"]
+__all__ = ["ReplayObjective", "ReplayTask", "ReplayResult", "replay_tasks", "leave_one_task_out", "static_order",
+           "hindsight_rates", "HINDSIGHT"]
 
 
 class ReplayObjective:
@@ -138,6 +139,32 @@ def static_order(prior: Prior, flat: bool, budget: int) -> list[dict]:
     return out
 
 
+#: Labels of the hindsight figures :func:`hindsight_rates` adds (they are
+#: not searches: each one peeks at the held-out task's scores).
+HINDSIGHT = ("best_past_task", "ideal_list")
+
+
+def hindsight_rates(task: ReplayTask, prior: Prior, budget: int) -> dict[str, float]:
+    """Per-query hit rates two hindsight lists reach, to read the searches by.
+
+    ``best_past_task``: the top ``budget`` configs of the one past task
+    whose list hits most often on the held-out task, picked after the fact
+    (what a perfect choice of a single neighbor would give). ``ideal_list``:
+    every recorded target config first, ``min(|T|, B) / B`` (the most any
+    list of distinct recorded configs can reach; a search in the continuous
+    space can exceed it by returning near a hit).
+    """
+    obj = task.objective
+    n_target = int(in_target(obj.scores, task.threshold, obj.maximize).sum())
+    best = 0.0
+    for s in prior.sources:
+        order = np.argsort(-s.quantile, kind="stable")[:budget]
+        configs = [prior.space.complete(c, 0) for c in prior.space.decode(s.X[order])]
+        hits, _ = _score_configs(task, configs)
+        best = max(best, float(hits.sum()) / budget)
+    return {"best_past_task": best, "ideal_list": min(n_target, budget) / budget}
+
+
 def _score_configs(task: ReplayTask, configs: Sequence[dict]) -> tuple[np.ndarray, np.ndarray]:
     """Hits and normalised best-so-far regret of a sequence of configs."""
     obj = task.objective
@@ -190,6 +217,9 @@ def _one_task(args) -> tuple[TaskGain, dict]:
         others[label] = Runs(h[None, :], g[None, :])
         curves[label] = others[label]
     result = compare(task.task, warm, cold, task.p, rng=seed, others=others)
+    for label, q in hindsight_rates(task, prior, budget).items():
+        result.extra[f"q_{label}"] = q
+        result.extra[f"bits_{label}"] = math.log2(max(q, 0.5 / (budget + 1)) / task.p)
     sign = 1.0 if maximize else -1.0
     best = float(np.max(sign * task.objective.scores))
     gap = best - sign * task.threshold

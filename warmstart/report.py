@@ -120,7 +120,10 @@ def write_report(results, path: str | Path, title: str = "warmstart: transfer ga
         "search's per-query chance of landing in the target set (the top share of the task's scores under uniform "
         "sampling), p the same chance for a uniform draw. Gain = log2(q_warm/q_cold). Intervals are 95 % bootstraps "
         "over runs (per task) or over tasks (pooled). * marks a task where a search never hit and its rate was "
-        "smoothed.</p>",
+        "smoothed. Columns bits_best_past_task and bits_ideal_list are hindsight figures, not searches: the best list a "
+        "single past task offered, picked after seeing the held-out scores, and a list of every target config first "
+        "(the most any list of distinct recorded configs can reach). share_hurt_outside_noise counts only tasks whose "
+        "target set stands out of cross-validation noise.</p>",
     ]
     parts.extend(f"<p class='note'>{html.escape(n)}</p>" for n in notes)
     summary = []
@@ -131,7 +134,7 @@ def write_report(results, path: str | Path, title: str = "warmstart: transfer ga
         d["repeats"] = r.repeats
         summary.append(d)
     cols = ["learner", "budget", "repeats", "n_tasks", "bits_warm", "bits_cold", "gain", "gain_low", "gain_high",
-            "wilcoxon_p", "share_hurt"]
+            "wilcoxon_p", "share_hurt", "share_hurt_outside_noise"]
     cols += sorted({k for d in summary for k in d if k.startswith("bits_") and k not in cols})
     parts.append("<h2>Pooled over tasks</h2>" + _table(summary, cols))
     for r in results:

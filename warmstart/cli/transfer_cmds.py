@@ -83,7 +83,7 @@ def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, only_tasks, 
     Leave-one-task-out replay: each archived study is held out in turn and its
     recorded trials act as the objective; the prior comes from every other task.
     """
-    from warmstart.replay import leave_one_task_out
+    from warmstart.replay import HINDSIGHT, leave_one_task_out
 
     budgets = _budgets(budget_text)
     archive = get_archive(ctx, write=False)
@@ -119,14 +119,21 @@ def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, only_tasks, 
         click.echo(f"\n{r.learner}, budget {r.budget}, {r.repeats} runs each (target: top {gamma:.0%}):")
         print_table(frame.sort_values("gain", ascending=False)[cols])
         p = r.pooled
-        extra = "  ".join(f"{k[5:]} {v:+.2f}" for k, v in p.extra.items())
+        hurt = f"transfer hurt on {p.share_hurt:.0%} of tasks"
+        if p.share_hurt_outside_noise == p.share_hurt_outside_noise:  # not NaN
+            hurt += f" ({p.share_hurt_outside_noise:.0%} of those whose target stands out of CV noise)"
         click.echo(
             f"pooled over {p.n_tasks} tasks: warm {p.bits_warm:+.2f} bits, cold {p.bits_cold:+.2f} bits over uniform; "
             f"gain {p.gain:+.2f} bits (95% {p.gain_low:+.2f} to {p.gain_high:+.2f}); Wilcoxon p = {p.wilcoxon_p:.3g}; "
-            f"transfer hurt on {p.share_hurt:.0%} of tasks"
+            + hurt
         )
-        if extra:
-            click.echo(f"baselines, bits over uniform: {extra}")
+        base = {k[5:]: v for k, v in p.extra.items() if k[5:] not in HINDSIGHT}
+        seen = {k[5:]: v for k, v in p.extra.items() if k[5:] in HINDSIGHT}
+        if base:
+            click.echo("baselines, bits over uniform: " + "  ".join(f"{k} {v:+.2f}" for k, v in base.items()))
+        if seen:
+            click.echo("in hindsight (peeking at the held-out scores, not searches): "
+                       + "  ".join(f"{k} {v:+.2f}" for k, v in seen.items()))
     if report_path:
         click.echo(f"\nreport written to {report_path}")
 
