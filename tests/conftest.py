@@ -107,3 +107,14 @@ def _held_open(path: str | Path):
 def held_open():
     """``with held_open(path) as pid:`` -- a second process holds the DuckDB file for writing."""
     return _held_open
+
+
+@pytest.fixture(scope="module")
+def one_blas_thread():
+    """Run a test module on one BLAS/OpenMP thread, as the objective's trials run: reference fits and
+    small matrices stay fast and repeatable on a busy machine. Use it with
+    ``pytestmark = pytest.mark.usefixtures("one_blas_thread")``."""
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(limits=1):
+        yield

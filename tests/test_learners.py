@@ -37,13 +37,7 @@ from warmstart.objective import ObjectiveError
 from warmstart.space import Space
 
 
-@pytest.fixture(autouse=True, scope="module")
-def _one_thread():
-    """Reference fits run on one BLAS/OpenMP thread, like the objective's trials."""
-    from threadpoolctl import threadpool_limits
-
-    with threadpool_limits(limits=1):
-        yield
+pytestmark = pytest.mark.usefixtures("one_blas_thread")
 
 
 @pytest.fixture(scope="module")

@@ -30,12 +30,7 @@ GROUP_A = ["iris", "wine"]  # config 0 is best here
 GROUP_B = ["breast_cancer", "Pima.tr"]  # config 5 is best here
 
 
-@pytest.fixture(autouse=True, scope="module")
-def _one_blas_thread():
-    from threadpoolctl import threadpool_limits
-
-    with threadpool_limits(limits=1):
-        yield
+pytestmark = pytest.mark.usefixtures("one_blas_thread")
 
 
 def _dataset(name: str) -> tuple[pd.DataFrame, str]:

@@ -41,13 +41,7 @@ from warmstart.profile import (
 BUNDLED = ["iris", "wine", "breast_cancer", "digits"]
 
 
-@pytest.fixture(autouse=True, scope="module")
-def _one_blas_thread():
-    """Small matrices: one BLAS thread keeps the references fast on a busy machine."""
-    from threadpoolctl import threadpool_limits
-
-    with threadpool_limits(limits=1):
-        yield
+pytestmark = pytest.mark.usefixtures("one_blas_thread")
 
 
 def _bundled(name: str) -> tuple[np.ndarray, np.ndarray, pd.DataFrame]:

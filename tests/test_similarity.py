@@ -31,12 +31,7 @@ from warmstart.similarity import (
 from warmstart.space import Space
 
 
-@pytest.fixture(autouse=True, scope="module")
-def _one_blas_thread():
-    from threadpoolctl import threadpool_limits
-
-    with threadpool_limits(limits=1):
-        yield
+pytestmark = pytest.mark.usefixtures("one_blas_thread")
 
 
 def _random_profiles(n: int = 40, seed: int = 0) -> pd.DataFrame:

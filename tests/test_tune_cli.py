@@ -30,13 +30,7 @@ from warmstart.objective import TrialResult
 EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
 
 
-@pytest.fixture(autouse=True, scope="module")
-def _one_thread():
-    """Reference fits run on one BLAS/OpenMP thread, like the trials."""
-    from threadpoolctl import threadpool_limits
-
-    with threadpool_limits(limits=1):
-        yield
+pytestmark = pytest.mark.usefixtures("one_blas_thread")
 
 
 @pytest.fixture()
