@@ -151,3 +151,35 @@ def test_hindsight_rates_of_a_past_task_identical_to_the_held_out_one():
         assert rates["best_past_task"] == pytest.approx(min(4, budget) / budget)
     only_reverse = prior_from_sources(SPACE, [source(1, -scores)])
     assert hindsight_rates(task, only_reverse, 4)["best_past_task"] == 0.0  # its top 4 are the 4 worst
+
+
+def test_surrogate_replay_measures_transfer_and_scores_regions(archive_path):
+    with Archive(archive_path, read_only=True) as archive:
+        tasks = replay_tasks(archive, "toy", gamma=0.1, objective="surrogate")
+        result = leave_one_task_out(archive, "toy", budget=8, repeats=6, gamma=0.1, seed=1, objective="surrogate")
+    # analytic: the target set is the top 10 % of the space under uniform sampling
+    assert all(abs(t.p - 0.1) < 0.03 for t in tasks)
+    assert result.objective == "surrogate"
+    frame = result.to_frame()
+    assert np.isfinite(frame[["bits_warm", "bits_cold", "gain"]].to_numpy()).all()
+    assert abs(result.pooled.extra["bits_random"]) < 1.0  # uniform earns about 0 bits
+    assert result.pooled.gain > 0  # the landscape moves smoothly with the setting
+    # a region can be hit by every one of B distinct configs
+    assert frame["bits_ideal_list"].to_numpy() == pytest.approx(np.log2(1.0 / frame["p"].to_numpy()))
+
+
+def test_unknown_replay_objective_is_refused(archive_path):
+    from warmstart.errors import WarmstartError
+
+    with Archive(archive_path, read_only=True) as archive:
+        with pytest.raises(WarmstartError, match="nearest, surrogate; got 'table'"):
+            replay_tasks(archive, "toy", objective="table")
+
+
+def test_gain_command_with_the_surrogate_replay(archive_path):
+    res = CliRunner().invoke(main, ["--archive", archive_path, "gain", "--learner", "toy", "--budget", "5",
+                                    "--repeats", "3", "--replay", "surrogate", "--json"])
+    assert res.exit_code == 0, res.output
+    assert json.loads(res.stdout)[0]["replay"] == "surrogate"
+    res = CliRunner().invoke(main, ["--archive", archive_path, "gain", "--learner", "toy", "--replay", "table"])
+    assert res.exit_code != 0 and "'table' is not one of 'nearest', 'surrogate'" in res.output

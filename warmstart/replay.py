@@ -36,7 +36,7 @@ from warmstart.sources import BANDWIDTH_SCALE, comparable_profiles, load_sources
 from warmstart.space import Space
 
 __all__ = ["ReplayObjective", "ReplayTask", "ReplayResult", "replay_tasks", "leave_one_task_out", "static_order",
-           "hindsight_rates", "HINDSIGHT"]
+           "hindsight_rates", "HINDSIGHT", "OBJECTIVES"]
 
 
 class ReplayObjective:
@@ -57,17 +57,33 @@ class ReplayObjective:
         self.scores = np.asarray(scores, dtype=float)
         self.maximize = maximize
 
+    #: The target set is a finite set of recorded configs.
+    continuous = False
+
+    @property
+    def reference_scores(self) -> np.ndarray:
+        """The task's scores under uniform sampling: the recorded ones."""
+        return self.scores
+
     def nearest(self, rows: np.ndarray) -> np.ndarray:
         """Index of the nearest recorded config for each encoded row."""
         return np.argmin(unit_distances(self.space, np.atleast_2d(rows), self.X), axis=1)
 
+    def values(self, rows: np.ndarray) -> np.ndarray:
+        """Scores of encoded rows: those of their nearest recorded configs."""
+        return self.scores[self.nearest(rows)]
+
     def __call__(self, config: dict) -> float:
-        return float(self.scores[self.nearest(self.space.encode([config]))[0]])
+        return float(self.values(self.space.encode([config]))[0])
+
+    def max_distinct_hits(self, threshold: float, budget: int) -> int:
+        """Most hits ``budget`` distinct recorded configs can score: ``min(|T|, B)``."""
+        return min(int(in_target(self.scores, threshold, self.maximize).sum()), budget)
 
     def uniform_hit_chance(self, threshold: float, n: int = 4096, rng: Any = 0) -> float:
         """``p``: chance that a uniform draw's nearest recorded config is a hit."""
         rows = self.space.sample_unit(n, np.random.default_rng(rng))
-        hit = in_target(self.scores[self.nearest(rows)], threshold, self.maximize)
+        hit = in_target(self.values(rows), threshold, self.maximize)
         return float(max(hit.mean(), 0.5 / (n + 1)))
 
 
@@ -85,8 +101,31 @@ class ReplayTask:
     profile: dict
 
 
-def replay_tasks(archive, learner: str, gamma: float = 0.05, min_trials: int = 20) -> list[ReplayTask]:
-    """Every task with a study of ``learner`` (its largest study) ready for replay."""
+#: Replay objectives: the nearest recorded config, or a Gaussian-process surrogate.
+OBJECTIVES = ("nearest", "surrogate")
+
+
+def replay_tasks(archive, learner: str, gamma: float = 0.05, min_trials: int = 20,
+                 objective: str = "nearest") -> list[ReplayTask]:
+    """Every task with a study of ``learner`` (its largest study) ready for replay.
+
+    Parameters
+    ----------
+    archive : Archive
+    learner : str
+    gamma : float, default 0.05
+        Size of the target set.
+    min_trials : int, default 20
+        Studies with fewer successful trials are left out.
+    objective : {"nearest", "surrogate"}, default "nearest"
+        ``nearest``: a config scores what its nearest recorded config scored;
+        the target set is the top ``gamma`` of the recorded configs.
+        ``surrogate``: a Gaussian process fitted to the recorded trials
+        (:class:`~warmstart.surrogate.SurrogateObjective`); the target set is
+        the top ``gamma`` of the space under uniform sampling.
+    """
+    if objective not in OBJECTIVES:
+        raise WarmstartError(f"replay objective must be one of {', '.join(OBJECTIVES)}; got {objective!r}")
     studies = archive.studies()
     studies = studies[(studies["learner"] == learner) & (studies["n_ok"] >= min_trials)]
     studies = studies.sort_values(["task_id", "n_ok"], ascending=[True, False]).drop_duplicates("task_id")
@@ -101,12 +140,17 @@ def replay_tasks(archive, learner: str, gamma: float = 0.05, min_trials: int = 2
         maximize = row.direction == "maximize"
         X = space.encode(list(trials["config"]))
         scores = trials["score"].to_numpy(dtype=float)
-        objective = ReplayObjective(space, X, scores, maximize)
-        threshold = target_threshold(scores, gamma, maximize)
+        if objective == "surrogate":
+            from warmstart.surrogate import SurrogateObjective
+
+            obj = SurrogateObjective(space, X, scores, maximize, seed=int(row.task_id))
+        else:
+            obj = ReplayObjective(space, X, scores, maximize)
+        threshold = target_threshold(obj.reference_scores, gamma, maximize)
         prof = archive.profile_of(int(row.task_id))
         out.append(ReplayTask(
-            int(row.task_id), str(row.task), int(row.study_id), space, objective, threshold,
-            objective.uniform_hit_chance(threshold, rng=int(row.task_id)), prof,
+            int(row.task_id), str(row.task), int(row.study_id), space, obj, threshold,
+            obj.uniform_hit_chance(threshold, rng=int(row.task_id) + 1), prof,
         ))
     return out
 
@@ -150,30 +194,30 @@ def hindsight_rates(task: ReplayTask, prior: Prior, budget: int) -> dict[str, fl
     ``best_past_task``: the top ``budget`` configs of the one past task
     whose list hits most often on the held-out task, picked after the fact
     (what a perfect choice of a single neighbor would give). ``ideal_list``:
-    every recorded target config first, ``min(|T|, B) / B`` (the most any
-    list of distinct recorded configs can reach; a search in the continuous
-    space can exceed it by returning near a hit).
+    every recorded target config first, ``min(|T|, B) / B`` under the
+    nearest-config objective (the most any list of distinct recorded configs
+    can reach; a search can exceed it by returning near a hit); 1 under the
+    surrogate, whose target set is a region.
     """
-    obj = task.objective
-    n_target = int(in_target(obj.scores, task.threshold, obj.maximize).sum())
+    n_hit = task.objective.max_distinct_hits(task.threshold, budget)
     best = 0.0
     for s in prior.sources:
         order = np.argsort(-s.quantile, kind="stable")[:budget]
         configs = [prior.space.complete(c, 0) for c in prior.space.decode(s.X[order])]
         hits, _ = _score_configs(task, configs)
         best = max(best, float(hits.sum()) / budget)
-    return {"best_past_task": best, "ideal_list": min(n_target, budget) / budget}
+    return {"best_past_task": best, "ideal_list": n_hit / budget}
 
 
 def _score_configs(task: ReplayTask, configs: Sequence[dict]) -> tuple[np.ndarray, np.ndarray]:
     """Hits and normalised best-so-far regret of a sequence of configs."""
     obj = task.objective
-    scores = obj.scores[obj.nearest(task.space.encode(configs))]
+    scores = obj.values(task.space.encode(configs))
     hits = in_target(scores, task.threshold, obj.maximize)
     sign = 1.0 if obj.maximize else -1.0
-    best, worst = np.max(sign * obj.scores), np.min(sign * obj.scores)
+    best, worst = np.max(sign * obj.reference_scores), np.min(sign * obj.reference_scores)
     span = best - worst if best > worst else 1.0
-    regret = (best - np.maximum.accumulate(sign * scores)) / span
+    regret = np.maximum(best - np.maximum.accumulate(sign * scores), 0.0) / span
     return hits, regret
 
 
@@ -221,7 +265,7 @@ def _one_task(args) -> tuple[TaskGain, dict]:
         result.extra[f"q_{label}"] = q
         result.extra[f"bits_{label}"] = math.log2(max(q, 0.5 / (budget + 1)) / task.p)
     sign = 1.0 if maximize else -1.0
-    best = float(np.max(sign * task.objective.scores))
+    best = float(np.max(sign * task.objective.reference_scores))
     gap = best - sign * task.threshold
     result.extra["target_gap"] = gap
     # rule of thumb (common practice): CV estimates on small data move by about a point
@@ -229,8 +273,14 @@ def _one_task(args) -> tuple[TaskGain, dict]:
     return result, {k: (v.hits.mean(axis=0), v.regret.mean(axis=0)) for k, v in curves.items()}
 
 
+@dataclass
 class ReplayResult(GainResult):
-    """Leave-one-task-out replay of one learner (see :class:`~warmstart.gain.GainResult`)."""
+    """Leave-one-task-out replay of one learner (see :class:`~warmstart.gain.GainResult`).
+
+    ``objective`` names how proposals were scored (see :func:`replay_tasks`).
+    """
+
+    objective: str = "nearest"
 
 
 def leave_one_task_out(
@@ -243,6 +293,7 @@ def leave_one_task_out(
     workers: int = 1,
     progress: Callable[[int, int], None] | None = None,
     tasks: Sequence[str] | None = None,
+    objective: str = "nearest",
 ) -> ReplayResult:
     """Replay every archived study of ``learner`` with the task held out.
 
@@ -262,12 +313,15 @@ def leave_one_task_out(
     progress : callable(done, total), optional
     tasks : sequence of str, optional
         Only these held-out tasks (names).
+    objective : {"nearest", "surrogate"}, default "nearest"
+        How the held-out task's recorded trials score a proposal (see
+        :func:`replay_tasks`).
 
     Returns
     -------
     ReplayResult
     """
-    all_tasks = replay_tasks(archive, learner, gamma)
+    all_tasks = replay_tasks(archive, learner, gamma, objective=objective)
     if len(all_tasks) < 2:
         raise WarmstartError(
             f"replay needs studies of {learner!r} on at least 2 tasks with >= 20 successful trials; "
@@ -293,4 +347,4 @@ def leave_one_task_out(
             np.mean([r[1][label][0] for r in results], axis=0),
             np.mean([r[1][label][1] for r in results], axis=0),
         )
-    return ReplayResult(learner, budget, repeats, gamma, gains, pool(gains, rng=seed), curves)
+    return ReplayResult(learner, budget, repeats, gamma, gains, pool(gains, rng=seed), curves, objective)

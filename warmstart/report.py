@@ -122,7 +122,10 @@ def write_report(results, path: str | Path, title: str = "warmstart: transfer ga
         "over runs (per task) or over tasks (pooled). * marks a task where a search never hit and its rate was "
         "smoothed. Columns bits_best_past_task and bits_ideal_list are hindsight figures, not searches: the best list a "
         "single past task offered, picked after seeing the held-out scores, and a list of every target config first "
-        "(the most any list of distinct recorded configs can reach). share_hurt_outside_noise counts only tasks whose "
+        "(the most any list of distinct recorded configs can reach; 1 under the surrogate replay, whose target set is a "
+        "region). Replay 'nearest': a proposal scores what the held-out task's nearest recorded config scored. Replay "
+        "'surrogate': a Gaussian process fitted to the held-out task's recorded trials scores it. "
+        "share_hurt_outside_noise counts only tasks whose "
         "target set stands out of cross-validation noise.</p>",
     ]
     parts.extend(f"<p class='note'>{html.escape(n)}</p>" for n in notes)
@@ -132,13 +135,16 @@ def write_report(results, path: str | Path, title: str = "warmstart: transfer ga
         d["learner"] = r.learner
         d["budget"] = r.budget
         d["repeats"] = r.repeats
+        d["replay"] = getattr(r, "objective", "live")
         summary.append(d)
-    cols = ["learner", "budget", "repeats", "n_tasks", "bits_warm", "bits_cold", "gain", "gain_low", "gain_high",
+    cols = ["learner", "budget", "replay", "repeats", "n_tasks", "bits_warm", "bits_cold", "gain", "gain_low", "gain_high",
             "wilcoxon_p", "share_hurt", "share_hurt_outside_noise"]
     cols += sorted({k for d in summary for k in d if k.startswith("bits_") and k not in cols})
     parts.append("<h2>Pooled over tasks</h2>" + _table(summary, cols))
     for r in results:
-        parts.append(f"<h2>{html.escape(r.learner)} — budget {r.budget}, {r.repeats} runs per search</h2>")
+        replay = getattr(r, "objective", None)
+        how = f", replay {html.escape(replay)}" if replay else ""
+        parts.append(f"<h2>{html.escape(r.learner)} — budget {r.budget}{how}, {r.repeats} runs per search</h2>")
         parts.append(_img(plot_gain_per_task(r), "gain per task"))
         parts.append(_img(plot_curves(r), "hit rate and regret curves"))
         rows = [t.to_dict() for t in sorted(r.tasks, key=lambda t: -t.gain)]
