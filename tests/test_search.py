@@ -323,14 +323,17 @@ def test_correct_prior_gains_bits_and_misleading_prior_costs_little():
     assert math.log2(q_wrong / q_cold) >= -0.5
 
 
-def test_seeds_come_first_then_the_design():
+def test_seeds_come_first_then_one_design_point_then_the_model():
     seeds = [valley_optimum(0.2), valley_optimum(0.25)]
     prior = KDEPrior(VALLEY, seeds, 5.0, seeds=seeds)
     search = DensitySearch(VALLEY, prior=prior, seed=0)
     got = search.propose(4)
     assert got[0] == VALLEY.normalize(seeds[0]) and got[1] == VALLEY.normalize(seeds[1])
-    assert [search._pending[VALLEY.canonical_json(c)][1] for c in got] == ["seed", "seed", "design", "design"]
-    limited = DensitySearch(VALLEY, prior=prior, seed=0, n_seeds=1)
+    assert [search._pending[VALLEY.canonical_json(c)][1] for c in got] == ["seed", "seed", "design", "model"]
+    designed = DensitySearch(VALLEY, prior=prior, seed=0, n_startup=2)
+    kinds = [designed._pending[VALLEY.canonical_json(c)][1] for c in designed.propose(4)]
+    assert kinds == ["seed", "seed", "design", "design"]
+    limited = DensitySearch(VALLEY, prior=prior, seed=0, n_seeds=1, n_startup=1)
     assert [limited._pending[VALLEY.canonical_json(c)][1] for c in limited.propose(2)] == ["seed", "design"]
 
 
