@@ -70,7 +70,7 @@ class DensitySearch(SearchStrategy):
         after the seeds (see Notes).
     n_candidates : int, default 24
         Candidates drawn from ``l`` per proposal.
-    n_seeds : int, default 5
+    n_seeds : int, default 10
         Most configs a warm search takes from the prior's ranked seeds before
         its model takes over. The seeds are re-ranked after every result
         (``prior.reweight``), so the search learns which past tasks to trust;
@@ -131,11 +131,11 @@ class DensitySearch(SearchStrategy):
     found (on the starter history, leave-one-task-out, the per-query hit
     rate fell from 0.38 at the fifth seed to 0.11 over the next two
     queries). Hence the warm defaults: a quarter of the trials in the good
-    set, a sharper good-set kernel, five seeds and one design point after
-    them. That one point lets the guard see a config of low prior density
-    early: with none, a prior centred on the worst region cost up to 0.75
-    bits against cold on the synthetic valley of the tests; with one it
-    cost at most 0.28; two cost the replay a further 0.2 bits.
+    set, a sharper good-set kernel, and one design point after the seeds.
+    That one point lets the guard see a config of low prior density early:
+    with none, a prior centred on the worst region cost up to 0.75 bits
+    against cold on the synthetic valley of the tests; with one it cost at
+    most 0.28; two cost the replay about 0.2 bits more.
 
     A warm search first proposes up to ``n_seeds`` of the prior's seeds,
     re-ranked after every result, then ``n_startup`` points of a Sobol
@@ -161,7 +161,7 @@ class DensitySearch(SearchStrategy):
         gamma: float | None = None,
         n_startup: int | None = None,
         n_candidates: int = 24,
-        n_seeds: int = 5,
+        n_seeds: int = 10,
         min_trust: float = 0.5,
         seed_radius: float = 0.2,
         floor: float = 0.1,
