@@ -105,8 +105,43 @@ class ReplayTask:
 OBJECTIVES = ("nearest", "surrogate")
 
 
+def _replay_specs(archive, learner: str, min_trials: int) -> list[tuple]:
+    """Each task's largest study of ``learner``: (task_id, task, study_id, space, X, scores, maximize)."""
+    studies = archive.studies()
+    studies = studies[(studies["learner"] == learner) & (studies["n_ok"] >= min_trials)]
+    studies = studies.sort_values(["task_id", "n_ok"], ascending=[True, False]).drop_duplicates("task_id")
+    profiles = archive.profiles()
+    out = []
+    for row in studies.itertuples(index=False):
+        if row.task_id not in profiles.index:
+            continue
+        trials = archive.trials(int(row.study_id))
+        trials = trials[trials["status"] == "ok"]
+        space = archive.space(int(row.space_id))
+        out.append((int(row.task_id), str(row.task), int(row.study_id), space,
+                    space.encode(list(trials["config"])), trials["score"].to_numpy(dtype=float),
+                    row.direction == "maximize"))
+    return out
+
+
+def _build_objective(args):
+    """The replay objective of one study (module level, so worker processes can run it)."""
+    objective, space, X, scores, maximize, seed = args
+    if objective == "surrogate":
+        from threadpoolctl import threadpool_limits
+
+        from warmstart.surrogate import SurrogateObjective
+
+        # small matrices: one BLAS thread per process is faster than two processes fighting over cores
+        with threadpool_limits(limits=1):
+            return SurrogateObjective(space, X, scores, maximize, seed=seed)
+    return ReplayObjective(space, X, scores, maximize)
+
+
 def replay_tasks(archive, learner: str, gamma: float = 0.05, min_trials: int = 20,
-                 objective: str = "nearest") -> list[ReplayTask]:
+                 objective: str = "nearest", only: Sequence[str] | None = None, workers: int = 1,
+                 progress: Callable[[int, int], None] | None = None,
+                 total: int | None = None) -> list[ReplayTask]:
     """Every task with a study of ``learner`` (its largest study) ready for replay.
 
     Parameters
@@ -123,34 +158,29 @@ def replay_tasks(archive, learner: str, gamma: float = 0.05, min_trials: int = 2
         ``surrogate``: a Gaussian process fitted to the recorded trials
         (:class:`~warmstart.surrogate.SurrogateObjective`); the target set is
         the top ``gamma`` of the space under uniform sampling.
+    only : sequence of str, optional
+        Only these tasks (names).
+    workers : int, default 1
+        Processes fitting surrogates in parallel.
+    progress : callable(done, total), optional
+        Called after each surrogate is fitted (not for ``nearest``, which is quick).
+    total : int, optional
+        Total passed to ``progress`` when the fits are part of larger work.
     """
     if objective not in OBJECTIVES:
         raise WarmstartError(f"replay objective must be one of {', '.join(OBJECTIVES)}; got {objective!r}")
-    studies = archive.studies()
-    studies = studies[(studies["learner"] == learner) & (studies["n_ok"] >= min_trials)]
-    studies = studies.sort_values(["task_id", "n_ok"], ascending=[True, False]).drop_duplicates("task_id")
-    profiles = archive.profiles()
+    specs = _replay_specs(archive, learner, min_trials)
+    if only is not None:
+        specs = [sp for sp in specs if sp[1] in set(only)]
+    surrogate = objective == "surrogate"
+    objectives = map_jobs(_build_objective, [(objective, sp[3], sp[4], sp[5], sp[6], sp[0]) for sp in specs],
+                          workers if surrogate else 1, progress if surrogate else None, total=total)
     out = []
-    for row in studies.itertuples(index=False):
-        if row.task_id not in profiles.index:
-            continue
-        trials = archive.trials(int(row.study_id))
-        trials = trials[trials["status"] == "ok"]
-        space = archive.space(int(row.space_id))
-        maximize = row.direction == "maximize"
-        X = space.encode(list(trials["config"]))
-        scores = trials["score"].to_numpy(dtype=float)
-        if objective == "surrogate":
-            from warmstart.surrogate import SurrogateObjective
-
-            obj = SurrogateObjective(space, X, scores, maximize, seed=int(row.task_id))
-        else:
-            obj = ReplayObjective(space, X, scores, maximize)
+    for (task_id, task, study_id, space, _, _, maximize), obj in zip(specs, objectives):
         threshold = target_threshold(obj.reference_scores, gamma, maximize)
-        prof = archive.profile_of(int(row.task_id))
         out.append(ReplayTask(
-            int(row.task_id), str(row.task), int(row.study_id), space, obj, threshold,
-            obj.uniform_hit_chance(threshold, rng=int(row.task_id) + 1), prof,
+            task_id, task, study_id, space, obj, threshold,
+            obj.uniform_hit_chance(threshold, rng=task_id + 1), archive.profile_of(task_id),
         ))
     return out
 
@@ -245,9 +275,15 @@ def _uniform_runs(task: ReplayTask, budget: int, repeats: int, seed: int) -> Run
 
 
 def _one_task(args) -> tuple[TaskGain, dict]:
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(limits=1):  # small matrices: see _build_objective
+        return _replay_one_task(*args)
+
+
+def _replay_one_task(task: ReplayTask, prior: Prior, budget: int, repeats: int, seed: int) -> tuple[TaskGain, dict]:
     from warmstart.search import DensitySearch
 
-    task, prior, budget, repeats, seed = args
     maximize = task.objective.maximize
     warm = _run(task, lambda s: DensitySearch(task.space, prior=prior, seed=s, maximize=maximize), budget, repeats, seed)
     cold = _run(task, lambda s: DensitySearch(task.space, prior=None, seed=s, maximize=maximize), budget, repeats, seed)
@@ -321,13 +357,20 @@ def leave_one_task_out(
     -------
     ReplayResult
     """
-    all_tasks = replay_tasks(archive, learner, gamma, objective=objective)
-    if len(all_tasks) < 2:
+    if objective not in OBJECTIVES:
+        raise WarmstartError(f"replay objective must be one of {', '.join(OBJECTIVES)}; got {objective!r}")
+    names = [sp[1] for sp in _replay_specs(archive, learner, 20)]
+    if len(names) < 2:
         raise WarmstartError(
             f"replay needs studies of {learner!r} on at least 2 tasks with >= 20 successful trials; "
-            f"found {len(all_tasks)}"
+            f"found {len(names)}"
         )
-    chosen = all_tasks if tasks is None else [t for t in all_tasks if t.task in set(tasks)]
+    if tasks is not None:
+        names = [n for n in names if n in set(tasks)]
+    # a surrogate fit counts as one unit of work, as does replaying a task
+    fits = len(names) if objective == "surrogate" else 0
+    chosen = replay_tasks(archive, learner, gamma, objective=objective, only=names, workers=workers,
+                          progress=progress, total=fits + len(names))
     cache: dict[str, list[Source]] = {}
     jobs = []
     for t in chosen:
@@ -339,7 +382,7 @@ def leave_one_task_out(
                                   bandwidth_scale=BANDWIDTH_SCALE)
         prior = prior_from_sources(t.space, weighted, provenance={"learner": learner, "held_out": t.task})
         jobs.append((t, prior, budget, repeats, seed))
-    results = map_jobs(_one_task, jobs, workers, progress)
+    results = map_jobs(_one_task, jobs, workers, progress, done_before=fits, total=fits + len(jobs))
     gains = [r[0] for r in results]
     curves = {}
     for label in results[0][1]:
