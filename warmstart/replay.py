@@ -57,9 +57,6 @@ class ReplayObjective:
         self.scores = np.asarray(scores, dtype=float)
         self.maximize = maximize
 
-    #: The target set is a finite set of recorded configs.
-    continuous = False
-
     @property
     def reference_scores(self) -> np.ndarray:
         """The task's scores under uniform sampling: the recorded ones."""

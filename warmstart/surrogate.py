@@ -91,9 +91,6 @@ class SurrogateObjective:
         The recorded scores the surrogate was fitted to.
     """
 
-    #: A list of distinct proposals can hit every time: the target set is a region.
-    continuous = True
-
     def __init__(self, space: Space, X: np.ndarray, scores: np.ndarray, maximize: bool = True,
                  seed: int = 0, n_reference: int = 4096):
         self.space = space
