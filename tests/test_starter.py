@@ -116,7 +116,8 @@ def test_recorded_scores_match_cv_objective_and_cross_val_score(history):
     """Re-evaluate a few recorded configs, classification and regression."""
     from sklearn.model_selection import KFold, StratifiedKFold, cross_val_score
 
-    for name, learner, n in (("MASS/crabs", "svm", 3), ("MASS/crabs", "knn", 2), ("ISLR/Hitters", "svm", 2)):
+    for name, learner, n in (("MASS/crabs", "svm", 3), ("MASS/crabs", "knn", 2), ("ISLR/Hitters", "svm", 2),
+                             ("MASS/crabs", "gbt", 2), ("ISLR/Hitters", "gbt", 2)):
         task, frame = _recipe(history, name)
         metric = history.metric(task["kind"])
         rows = history.trials[(history.trials["task"] == name) & (history.trials["learner"] == learner)]
@@ -192,7 +193,7 @@ def test_stale_profiles_are_computed_again(history, tmp_path):
     directory = _small_copy(history, tmp_path, ["MASS/crabs", "sklearn/iris"], profile_version="stale")
     with Archive(tmp_path / "a.duckdb") as archive:
         result = load_starter(archive, path=directory)
-        assert result.profiles_computed == 2 and result.studies_added == 4
+        assert result.profiles_computed == 2 and result.studies_added == 2 * len(history.learners)
         profiles = archive.profiles()
         assert set(profiles["profile_version"]) == {PROFILE_VERSION}
         task_id = archive.task_id("MASS/crabs")
@@ -207,10 +208,10 @@ def test_learner_filter_then_the_rest(history, tmp_path):
         first = load_starter(archive, learners=["knn"], path=directory)
         assert set(archive.studies()["learner"]) == {"knn"} and first.studies_added == 1
         second = load_starter(archive, path=directory)
-        assert (second.studies_added, second.studies_present, second.tasks_added, second.tasks_reused) == (1, 1, 0, 1)
-        assert sorted(archive.studies()["learner"]) == ["knn", "svm"]
-        with pytest.raises(StarterError, match=r"no learner\(s\) \['gbt'\]; it has knn, svm"):
-            load_starter(archive, learners=["gbt"], path=directory)
+        assert (second.studies_added, second.studies_present, second.tasks_added, second.tasks_reused) == (2, 1, 0, 1)
+        assert sorted(archive.studies()["learner"]) == ["gbt", "knn", "svm"]
+        with pytest.raises(StarterError, match=r"no learner\(s\) \['mlp'\]; it has gbt, knn, svm"):
+            load_starter(archive, learners=["mlp"], path=directory)
 
 
 def test_changed_data_and_name_clash_are_skipped(history, tmp_path, small_frame):
@@ -263,9 +264,9 @@ def test_cli_init_starter(history, tmp_path, monkeypatch):
     result = runner.invoke(main, ["--archive", path, "init", "--starter"])
     assert result.exit_code == 0, result.output
     n = int(history.trials["task"].isin(["MASS/crabs", "sklearn/iris"]).sum())
-    assert f"starter history: 4 studies with {n} trials on 2 new tasks" in result.stdout
+    assert f"starter history: 6 studies with {n} trials on 2 new tasks" in result.stdout
     assert "archive ready" in result.stdout and "loading the starter history" in result.stderr
     again = runner.invoke(main, ["--archive", path, "init", "--starter"])
-    assert again.exit_code == 0 and "0 studies with 0 trials on 0 new tasks (2 tasks and 4 studies" in again.stdout
-    bad = runner.invoke(main, ["--archive", path, "init", "--starter-learner", "gbt"])
-    assert bad.exit_code == 1 and "no learner(s) ['gbt']" in bad.stderr
+    assert again.exit_code == 0 and "0 studies with 0 trials on 0 new tasks (2 tasks and 6 studies" in again.stdout
+    bad = runner.invoke(main, ["--archive", path, "init", "--starter-learner", "mlp"])
+    assert bad.exit_code == 1 and "no learner(s) ['mlp']" in bad.stderr

@@ -10,6 +10,8 @@ from warmstart.archive import Archive
 from warmstart.replay import leave_one_task_out
 from warmstart.starter import load_starter
 
+LEARNERS = ("svm", "knn", "gbt")  # every learner of the shipped history
+
 
 @pytest.fixture(scope="module")
 def replays(tmp_path_factory):
@@ -17,10 +19,10 @@ def replays(tmp_path_factory):
     with Archive(str(path)) as archive:
         load_starter(archive)
         return {learner: leave_one_task_out(archive, learner, budget=10, repeats=6, seed=3, workers=2)
-                for learner in ("svm", "knn")}
+                for learner in LEARNERS}
 
 
-@pytest.mark.parametrize("learner", ["svm", "knn"])
+@pytest.mark.parametrize("learner", LEARNERS)
 def test_warm_beats_both_static_baselines_and_cold(replays, learner):
     pooled = replays[learner].pooled
     assert pooled.n_tasks >= 30
@@ -42,7 +44,7 @@ def test_tasks_whose_target_lies_within_noise_are_flagged(replays):
     assert all("within_noise" in t.extra for r in replays.values() for t in r.tasks)
 
 
-@pytest.mark.parametrize("learner", ["svm", "knn"])
+@pytest.mark.parametrize("learner", LEARNERS)
 def test_hindsight_lists_bound_the_static_lists(replays, learner):
     # the starter's studies of one learner share one design, so every static list is a list of distinct
     # recorded configs, which cannot beat the list of every target config first (analytic bound)
