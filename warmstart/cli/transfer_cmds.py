@@ -78,10 +78,16 @@ def prior(ctx, data, target, learner, space_path, output, as_json):
               show_default=True,
               help="How the held-out task scores a proposal: its nearest recorded config, or a Gaussian-process "
                    "surrogate fitted to its recorded trials.")
+@click.option("--data", "data", type=click.Path(dir_okay=False),
+              help="Live instead of replay: run warm and cold searches on this dataset (needs --target, one --learner).")
+@click.option("--target", help="With --data: the target column.")
+@click.option("--metric", help="With --data: a built-in metric (default accuracy or r2).")
+@click.option("--cv", default=5, show_default=True, type=click.IntRange(min=2), help="With --data: cross-validation folds.")
 @click.option("--report", "report_path", type=click.Path(dir_okay=False), help="Write an HTML report with plots here.")
 @json_option
 @click.pass_context
-def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, only_tasks, objective, report_path, as_json):
+def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, only_tasks, objective, data, target, metric, cv,
+         report_path, as_json):
     """Measure, in bits, whether warm starts beat cold ones on your history.
 
     Leave-one-task-out replay: each archived study is held out in turn and its
@@ -90,11 +96,23 @@ def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, only_tasks, 
     recorded config scored, so the target set is a few recorded configs; with
     --replay surrogate a Gaussian process fitted to the recorded trials scores
     it, and the target set is a region of the space, as in a live search.
+
+    With --data FILE --target COL --learner L the comparison is live instead:
+    a 64-config Sobol sample of the space defines the target set, then warm and
+    cold searches train and cross-validate L on FILE, --repeats times each
+    (every model is trained for real: start with --repeats 5).
     """
     from warmstart.replay import HINDSIGHT, leave_one_task_out
 
     budgets = _budgets(budget_text)
     archive = get_archive(ctx, write=False)
+    if data or target:
+        results = _live(archive, data, target, learners, only_tasks, metric, cv, budgets, repeats, gamma, seed,
+                        workers, as_json)
+        _show(results, gamma, report_path, as_json, HINDSIGHT)
+        return
+    if metric:
+        fail("--metric is for a live comparison (--data FILE --target COL); a replay scores with each study's own metric")
     studies = archive.studies()
     if not learners:
         counts = studies.groupby("learner")["task_id"].nunique()
@@ -113,20 +131,77 @@ def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, only_tasks, 
                 archive, learner, budget=budget, repeats=repeats, gamma=gamma, seed=seed, workers=workers,
                 progress=bar, tasks=list(only_tasks) or None, objective=objective,
             ))
+    _show(results, gamma, report_path, as_json, HINDSIGHT)
+
+
+def _live(archive, data, target, learners, only_tasks, metric, cv, budgets, repeats, gamma, seed, workers, as_json):
+    """Warm and cold searches side by side on DATA (``gain --data``)."""
+    from pathlib import Path
+
+    from warmstart.archive.store import fingerprint
+    from warmstart.learners import cv_objective
+    from warmstart.live import live_gain
+    from warmstart.profile import detect_kind, profile
+    from warmstart.tables import read_table
+
+    if not data or not target:
+        fail("a live comparison needs both --data FILE and --target COL")
+    if len(learners) != 1:
+        fail(f"a live comparison needs exactly one --learner (got {len(learners)}); "
+             "it trains that learner on --data")
+    if only_tasks:
+        fail("--task picks held-out tasks of a replay; it has no meaning with --data")
+    learner = learners[0]
+    frame = read_table(data)
+    if target not in frame.columns:
+        fail(f"{data}: target column {target!r} not found; columns are {list(frame.columns)}")
+    kind = detect_kind(frame[target])
+    objective = cv_objective(frame, target, learner, metric=metric, kind=kind, cv=cv, seed=seed)
+    tasks = archive.tasks()
+    same = tasks.loc[tasks["fingerprint"] == fingerprint(frame, target), "task_id"].tolist()
+    prior = archive.build_prior(profile(frame, target=target), learner=learner, space=objective.space,
+                                exclude_tasks=same)
+    if not as_json:
+        click.echo(f"live: {learner} on {Path(data).name} ({kind}), {cv}-fold {objective.metric}; "
+                   + prior.summary(n=3).splitlines()[0]
+                   + ("; the archive's own studies of this dataset were left out" if same else ""))
+    results = []
+    for budget in budgets:
+        results.append(live_gain(
+            objective.space, objective, prior, budget=budget, repeats=repeats, gamma=gamma,
+            maximize=objective.maximize, seed=seed, workers=workers, task=Path(data).name, learner=learner,
+            progress=Progress(f"{learner} live, budget {budget}", enabled=not as_json),
+        ))
+    return results
+
+
+def _show(results, gamma, report_path, as_json, hindsight) -> None:
+    """Print (table or JSON) and optionally report gain results of a replay or a live run."""
     if report_path:
         from warmstart.report import write_report
 
         write_report(results, report_path, notes=_noise_notes(results))
     if as_json:
-        print_json([{"learner": r.learner, "budget": r.budget, "replay": r.objective, "pooled": r.pooled.to_dict(),
+        print_json([{"learner": r.learner, "budget": r.budget, "replay": getattr(r, "objective", "live"),
+                     "pooled": r.pooled.to_dict(),
                      "tasks": r.to_frame().to_dict(orient="records")} for r in results])
         return
     for r in results:
         frame = r.to_frame()
         cols = ["task", "bits_warm", "bits_cold", "gain", "gain_low", "gain_high", "verdict"]
-        click.echo(f"\n{r.learner}, budget {r.budget}, {r.repeats} runs each (target: top {gamma:.0%}; "
-                   f"replay: {_REPLAY_WORDS[r.objective]}):")
+        if hasattr(r, "objective"):
+            how = f"top {gamma:.0%}; replay: {_REPLAY_WORDS[r.objective]}"
+        else:
+            how = f"top {gamma:.0%} of a {len(r.reference_scores)}-config Sobol sample; live"
+        click.echo(f"\n{r.learner}, budget {r.budget}, {r.repeats} runs each (target: {how}):")
         print_table(frame.sort_values("gain", ascending=False)[cols])
+        if not hasattr(r, "objective"):
+            t = r.tasks[0]
+            click.echo(f"warm {t.bits_warm:+.2f} bits, cold {t.bits_cold:+.2f} bits over uniform; gain {t.gain:+.2f} bits "
+                       f"(95% {t.gain_low:+.2f} to {t.gain_high:+.2f}; {t.verdict})"
+                       + (" [a search never hit: smoothed]" if t.smoothed else "")
+                       + f"; median queries to the first hit: warm {t.first_hit_warm:g}, cold {t.first_hit_cold:g}")
+            continue
         p = r.pooled
         hurt = f"transfer hurt on {p.share_hurt:.0%} of tasks"
         if p.share_hurt_outside_noise == p.share_hurt_outside_noise:  # not NaN
@@ -136,8 +211,8 @@ def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, only_tasks, 
             f"gain {p.gain:+.2f} bits (95% {p.gain_low:+.2f} to {p.gain_high:+.2f}); Wilcoxon p = {p.wilcoxon_p:.3g}; "
             + hurt
         )
-        base = {k[5:]: v for k, v in p.extra.items() if k[5:] not in HINDSIGHT}
-        seen = {k[5:]: v for k, v in p.extra.items() if k[5:] in HINDSIGHT}
+        base = {k[5:]: v for k, v in p.extra.items() if k[5:] not in hindsight}
+        seen = {k[5:]: v for k, v in p.extra.items() if k[5:] in hindsight}
         if base:
             click.echo("baselines, bits over uniform: " + "  ".join(f"{k} {v:+.2f}" for k, v in base.items()))
         if seen:

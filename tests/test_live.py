@@ -1,0 +1,110 @@
+"""Live protocol: warm and cold searches run side by side on a real objective.
+
+Library checks use the Branin-Hoo function (Dixon & Szegő 1978) as the
+objective; the command checks train knn on scikit-learn's bundled iris and
+wine tables (real DuckDB files in tmp_path)."""
+
+import json
+import math
+
+import numpy as np
+import pandas as pd
+import pytest
+from click.testing import CliRunner
+from sklearn.datasets import load_iris, load_wine
+
+from warmstart.archive import Archive
+from warmstart.cli import main
+from warmstart.learners import cv_objective
+from warmstart.live import live_gain
+from warmstart.prior import Source, prior_from_sources, within_study_quantiles
+from warmstart.testfunctions import branin
+
+
+def _branin_prior(f, n=512):
+    """A prior from one past study of the very same function (a perfect neighbor), 512 configs:
+    its ten best lie in the top 2 % of the function, inside the target set."""
+    configs = f.space.sobol(n, 1)
+    scores = np.array([f(c) for c in configs])
+    source = Source(study_id=1, task_id=1, task="same function", X=f.space.encode(configs),
+                    quantile=within_study_quantiles(scores, maximize=False), numbers=np.arange(1, n + 1),
+                    clipped=np.zeros(n, dtype=bool))
+    return prior_from_sources(f.space, [source])
+
+
+def test_live_gain_on_branin_with_a_perfect_past_study():
+    f = branin()
+    result = live_gain(f.space, f, _branin_prior(f), budget=10, repeats=4, gamma=0.05, maximize=False, seed=2)
+    t = result.tasks[0]
+    # target set: the top 5 % of the 64-config reference sample, so p = its share of that sample
+    assert t.p == pytest.approx(np.mean(result.reference_scores <= np.quantile(result.reference_scores, 0.05)),
+                                abs=1.5 / 64)
+    # the definitions of DESIGN §7: bits over uniform = log2(q / p), gain = log2(q_warm / q_cold)
+    assert t.bits_warm == pytest.approx(math.log2(t.q_warm / t.p))
+    assert t.gain == pytest.approx(math.log2(t.q_warm / t.q_cold))
+    # a prior from the same function knows where Branin's minima are: warm hits far more often
+    assert t.gain_low > 0 and t.verdict == "helped"
+    assert t.first_hit_warm <= t.first_hit_cold
+
+
+@pytest.fixture(scope="module")
+def knn_archive(tmp_path_factory):
+    """knn studies on wine (a real table that ships with scikit-learn), 16 Sobol configs."""
+    path = tmp_path_factory.mktemp("live") / "history.duckdb"
+    wine = load_wine(as_frame=True).frame
+    objective = cv_objective(wine, "target", "knn", cv=3, seed=0)
+    configs = objective.space.sobol(16, 0)
+    trials = pd.DataFrame(configs)
+    trials["score"] = [objective(c).score for c in configs]
+    with Archive(str(path)) as archive:
+        archive.ingest(trials, task="wine", data=wine, target="target", learner="knn", space=objective.space,
+                       metric="accuracy")
+    return str(path)
+
+
+@pytest.fixture(scope="module")
+def iris_csv(tmp_path_factory):
+    path = tmp_path_factory.mktemp("data") / "iris.csv"
+    frame = load_iris(as_frame=True).frame
+    frame.columns = ["sepal length", "sepal width", "petal length", "petal width", "species"]
+    frame.to_csv(path, index=False)
+    return str(path)
+
+
+def test_gain_live_command_table_and_json(knn_archive, iris_csv, tmp_path):
+    runner = CliRunner()
+    report = tmp_path / "live.html"
+    res = runner.invoke(main, ["--archive", knn_archive, "gain", "--data", iris_csv, "--target", "species",
+                               "--learner", "knn", "--budget", "4", "--repeats", "2", "--cv", "3",
+                               "--report", str(report)])
+    assert res.exit_code == 0, res.output
+    assert "live: knn on iris.csv (classification), 3-fold accuracy; prior over 3 parameter(s) from 1 past studies" \
+        in res.stdout
+    assert "knn, budget 4, 2 runs each (target: top 5% of a 64-config Sobol sample; live)" in res.stdout
+    assert "median queries to the first hit" in res.stdout and report.exists()
+    res = runner.invoke(main, ["--archive", knn_archive, "gain", "--data", iris_csv, "--target", "species",
+                               "--learner", "knn", "--budget", "4", "--repeats", "2", "--cv", "3", "--json"])
+    assert res.exit_code == 0, res.output
+    (only,) = json.loads(res.stdout)
+    assert only["replay"] == "live" and only["budget"] == 4
+    (task,) = only["tasks"]
+    assert 1 / 64 <= task["p"] <= 1 and 0 <= task["q_warm"] <= 1 and 0 <= task["q_cold"] <= 1
+    if not task["smoothed"]:
+        assert task["bits_cold"] == pytest.approx(math.log2(task["q_cold"] / task["p"]))
+
+
+@pytest.mark.parametrize("args, message", [
+    (["--data", "IRIS", "--learner", "knn"], "needs both --data FILE and --target COL"),
+    (["--data", "IRIS", "--target", "species"], "needs exactly one --learner (got 0)"),
+    (["--data", "IRIS", "--target", "species", "--learner", "knn", "--learner", "svm"], "exactly one --learner (got 2)"),
+    (["--data", "IRIS", "--target", "kind", "--learner", "knn"], "target column 'kind' not found"),
+    (["--data", "IRIS", "--target", "species", "--learner", "knn", "--task", "wine"], "--task picks held-out tasks"),
+    (["--data", "IRIS", "--target", "species", "--learner", "knn", "--metric", "auc"], "auc"),
+    (["--learner", "knn", "--metric", "accuracy"], "--metric is for a live comparison"),
+])
+def test_gain_live_bad_input(knn_archive, iris_csv, args, message):
+    args = [iris_csv if a == "IRIS" else a for a in args]
+    res = CliRunner().invoke(main, ["--archive", knn_archive, "gain"] + args)
+    assert res.exit_code != 0
+    assert message in res.output
+    assert "Traceback" not in res.output
