@@ -40,6 +40,11 @@ def default_n_startup(dim: int) -> int:
     return min(10, max(5, dim + 1))
 
 
+#: Seeds a warm search takes from its prior by default (DEVELOPERS.md, "Start", has the
+#: measurements behind ten and the bolder five).
+DEFAULT_N_SEEDS = 10
+
+
 class DensitySearch(SearchStrategy):
     """Density (Parzen-estimator) search over a space, cold or warm.
 
@@ -161,7 +166,7 @@ class DensitySearch(SearchStrategy):
         gamma: float | None = None,
         n_startup: int | None = None,
         n_candidates: int = 24,
-        n_seeds: int = 10,
+        n_seeds: int = DEFAULT_N_SEEDS,
         min_trust: float = 0.5,
         seed_radius: float = 0.2,
         floor: float = 0.1,

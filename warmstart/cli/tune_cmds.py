@@ -17,7 +17,7 @@ from warmstart.cli.main import main
 from warmstart.learners import LEARNERS, TASK_KINDS, cv_objective, default_space, metric_direction, METRICS
 from warmstart.objective import CommandObjective, local_pool, score_function, stop_pool
 from warmstart.profile import detect_kind
-from warmstart.search import DensitySearch, run_search
+from warmstart.search import DEFAULT_N_SEEDS as DEFAULT_SEEDS, DensitySearch, run_search
 from warmstart.space import Space
 from warmstart.tables import read_table
 
@@ -37,12 +37,15 @@ def _cluster_executor(address: str):
     return client, client.get_executor(pure=False), sum(client.nthreads().values())
 
 
-def _start_search(archive, task_id: int, learner: str, space: Space, maximize: bool, seed: int, cold: bool):
+def _start_search(archive, task_id: int, learner: str, space: Space, maximize: bool, seed: int, cold: bool,
+                  n_seeds: int = DEFAULT_SEEDS):
     """The search a study starts with, its origin, the prior's provenance and a
     note for the user.
 
     Warm by default: a prior from the archive's studies of the same learner on
     other tasks. Cold when ``cold`` is set or when there is nothing to learn from.
+    ``n_seeds`` past configs are tried first; the provenance records it, so
+    ``propose`` rebuilds the same search.
     """
     from warmstart.prior import PriorError
 
@@ -54,7 +57,8 @@ def _start_search(archive, task_id: int, learner: str, space: Space, maximize: b
             "cold start: this task has no profile to compare"
     prof = archive.profile_of(task_id)
     try:
-        prior = archive.build_prior(prof, learner=learner, space=space, exclude_tasks=[task_id])
+        prior = archive.build_prior(prof, learner=learner, space=space, exclude_tasks=[task_id],
+                                    n_seeds=max(n_seeds, 1))
     except PriorError as exc:
         return DensitySearch(space, prior=None, seed=seed, maximize=maximize), "cold", None, \
             f"cold start: {exc}"
@@ -62,7 +66,10 @@ def _start_search(archive, task_id: int, learner: str, space: Space, maximize: b
     used = ", ".join(f"{n['task']!r} (study {n['study_id']}, weight {n['weight']:.2f})" for n in heaviest)
     note = (f"warm start from {len(prior.sources)} past studies of {learner!r}; heaviest: {used}; "
             f"prior strength n0 = {prior.strength:.1f}")
-    return DensitySearch(space, prior=prior, seed=seed, maximize=maximize), "warm", prior.provenance, note
+    if n_seeds != DEFAULT_SEEDS:
+        note += f"; {n_seeds} past config(s) first"
+    search = DensitySearch(space, prior=prior, seed=seed, maximize=maximize, n_seeds=n_seeds)
+    return search, "warm", {**prior.provenance, "n_seeds": n_seeds}, note
 
 
 def _stamp(unix: float | None) -> datetime | None:
@@ -117,6 +124,9 @@ def _objective_and_space(data, target, learner, kind, space_path, metric, minimi
 @click.option("--workers", type=click.IntRange(min=1), help="Trials evaluated at once (local processes).")
 @click.option("--cluster", metavar="ADDRESS", help="Evaluate on a Dask cluster (needs warmstart[cluster]).")
 @click.option("--cold", is_flag=True, help="Force a cold start (no prior).")
+@click.option("--seeds", "n_seeds", default=DEFAULT_SEEDS, show_default=True, type=click.IntRange(0, DEFAULT_SEEDS),
+              help="Warm start: past configs tried before the search's own model takes over (fewer is bolder: "
+                   "more gain on average, more tasks where it loses to a cold start).")
 @click.option("--command", help="Evaluate each config by running this command (no shell); see DEVELOPERS.md.")
 @click.option("--minimize", is_flag=True, help="With --command: lower scores are better.")
 @click.option("--cv", default=5, show_default=True, type=click.IntRange(min=2), help="Cross-validation folds.")
@@ -126,7 +136,7 @@ def _objective_and_space(data, target, learner, kind, space_path, metric, minimi
 @click.option("--kind", type=click.Choice(TASK_KINDS), help="Kind of task (default: from the target).")
 @json_option
 @click.pass_context
-def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, cluster, cold, command,
+def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, cluster, cold, n_seeds, command,
          minimize, cv, time_limit, task_name, kind, as_json):
     """Tune LEARNER on DATA and record every trial in the archive as it finishes.
 
@@ -147,7 +157,7 @@ def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, 
         n_workers = workers or max(1, cores)
     archive = get_archive(ctx, write=True)
     task_id = archive.add_task(task_name or Path(data).stem, frame, target, kind=kind, source=str(data))
-    search, origin, provenance, note = _start_search(archive, task_id, learner, space, maximize, seed, cold)
+    search, origin, provenance, note = _start_search(archive, task_id, learner, space, maximize, seed, cold, n_seeds)
     study = archive.add_study(task_id, learner, space, metric=metric, maximize=maximize, origin=origin,
                               prior=provenance)
     click.echo(f"study {study}: {learner} on {Path(data).name} ({kind}), {metric} "
@@ -230,13 +240,14 @@ def _rebuilt_search(archive, study: int, seed: int):
     info = archive.study(study)
     trials = archive.trials(study)
     rng = np.random.default_rng([seed, study, len(trials)])
-    prior, note = None, "cold start"
+    prior, note, n_seeds = None, "cold start", DEFAULT_SEEDS
     if info["origin"] == "warm":
+        n_seeds = int((info["prior"] or {}).get("n_seeds", DEFAULT_SEEDS))
         fresh, _, _, note = _start_search(archive, int(info["task_id"]), info["learner"], info["space"],
-                                          info["maximize"], 0, cold=False)
+                                          info["maximize"], 0, cold=False, n_seeds=n_seeds)
         prior = fresh.prior
     info["note"] = note
-    search = DensitySearch(info["space"], prior=prior, seed=rng, maximize=info["maximize"])
+    search = DensitySearch(info["space"], prior=prior, seed=rng, maximize=info["maximize"], n_seeds=n_seeds)
     for config, score, status in zip(trials["config"], trials["score"], trials["status"]):
         search.record(config, None if status == "failed" else float(score), status)
     return info, search
