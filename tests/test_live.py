@@ -101,6 +101,8 @@ def test_gain_live_command_table_and_json(knn_archive, iris_csv, tmp_path):
     (["--data", "IRIS", "--target", "species", "--learner", "knn", "--task", "wine"], "--task picks held-out tasks"),
     (["--data", "IRIS", "--target", "species", "--learner", "knn", "--metric", "auc"], "auc"),
     (["--learner", "knn", "--metric", "accuracy"], "--metric is for a live comparison"),
+    (["--data", "IRIS", "--target", "species", "--learner", "knn", "--replay", "surrogate"],
+     "with --data the searches train on the data itself"),
 ])
 def test_gain_live_bad_input(knn_archive, iris_csv, args, message):
     args = [iris_csv if a == "IRIS" else a for a in args]

@@ -107,6 +107,10 @@ def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, only_tasks, 
     budgets = _budgets(budget_text)
     archive = get_archive(ctx, write=False)
     if data or target:
+        from click.core import ParameterSource
+
+        if ctx.get_parameter_source("objective") is not ParameterSource.DEFAULT:
+            fail("--replay picks how a replay scores proposals; with --data the searches train on the data itself")
         results = _live(archive, data, target, learners, only_tasks, metric, cv, budgets, repeats, gamma, seed,
                         workers, as_json)
         _show(results, gamma, report_path, as_json, HINDSIGHT)
