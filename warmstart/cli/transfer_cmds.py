@@ -102,7 +102,7 @@ def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, only_tasks, 
     cold searches train and cross-validate L on FILE, --repeats times each
     (every model is trained for real: start with --repeats 5).
     """
-    from warmstart.replay import HINDSIGHT, leave_one_task_out
+    from warmstart.replay import leave_one_task_out
 
     budgets = _budgets(budget_text)
     archive = get_archive(ctx, write=False)
@@ -113,7 +113,7 @@ def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, only_tasks, 
             fail("--replay picks how a replay scores proposals; with --data the searches train on the data itself")
         results = _live(archive, data, target, learners, only_tasks, metric, cv, budgets, repeats, gamma, seed,
                         workers, as_json)
-        _show(results, gamma, report_path, as_json, HINDSIGHT)
+        _show(results, gamma, report_path, as_json)
         return
     if metric:
         fail("--metric is for a live comparison (--data FILE --target COL); a replay scores with each study's own metric")
@@ -135,7 +135,7 @@ def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, only_tasks, 
                 archive, learner, budget=budget, repeats=repeats, gamma=gamma, seed=seed, workers=workers,
                 progress=bar, tasks=list(only_tasks) or None, objective=objective,
             ))
-    _show(results, gamma, report_path, as_json, HINDSIGHT)
+    _show(results, gamma, report_path, as_json)
 
 
 def _live(archive, data, target, learners, only_tasks, metric, cv, budgets, repeats, gamma, seed, workers, as_json):
@@ -179,8 +179,10 @@ def _live(archive, data, target, learners, only_tasks, metric, cv, budgets, repe
     return results
 
 
-def _show(results, gamma, report_path, as_json, hindsight) -> None:
+def _show(results, gamma, report_path, as_json) -> None:
     """Print (table or JSON) and optionally report gain results of a replay or a live run."""
+    from warmstart.replay import HINDSIGHT
+
     if report_path:
         from warmstart.report import write_report
 
@@ -193,13 +195,14 @@ def _show(results, gamma, report_path, as_json, hindsight) -> None:
     for r in results:
         frame = r.to_frame()
         cols = ["task", "bits_warm", "bits_cold", "gain", "gain_low", "gain_high", "verdict"]
-        if hasattr(r, "objective"):
-            how = f"top {gamma:.0%}; replay: {_REPLAY_WORDS[r.objective]}"
-        else:
+        live = not hasattr(r, "objective")
+        if live:
             how = f"top {gamma:.0%} of a {len(r.reference_scores)}-config Sobol sample; live"
+        else:
+            how = f"top {gamma:.0%}; replay: {_REPLAY_WORDS[r.objective]}"
         click.echo(f"\n{r.learner}, budget {r.budget}, {r.repeats} runs each (target: {how}):")
         print_table(frame.sort_values("gain", ascending=False)[cols])
-        if not hasattr(r, "objective"):
+        if live:
             t = r.tasks[0]
             click.echo(f"warm {t.bits_warm:+.2f} bits, cold {t.bits_cold:+.2f} bits over uniform; gain {t.gain:+.2f} bits "
                        f"(95% {t.gain_low:+.2f} to {t.gain_high:+.2f}; {t.verdict})"
@@ -215,8 +218,8 @@ def _show(results, gamma, report_path, as_json, hindsight) -> None:
             f"gain {p.gain:+.2f} bits (95% {p.gain_low:+.2f} to {p.gain_high:+.2f}); Wilcoxon p = {p.wilcoxon_p:.3g}; "
             + hurt
         )
-        base = {k[5:]: v for k, v in p.extra.items() if k[5:] not in hindsight}
-        seen = {k[5:]: v for k, v in p.extra.items() if k[5:] in hindsight}
+        base = {k[5:]: v for k, v in p.extra.items() if k[5:] not in HINDSIGHT}
+        seen = {k[5:]: v for k, v in p.extra.items() if k[5:] in HINDSIGHT}
         if base:
             click.echo("baselines, bits over uniform: " + "  ".join(f"{k} {v:+.2f}" for k, v in base.items()))
         if seen:

@@ -57,6 +57,8 @@ def _start_search(archive, task_id: int, learner: str, space: Space, maximize: b
             "cold start: this task has no profile to compare"
     prof = archive.profile_of(task_id)
     try:
+        # the prior lists exactly n_seeds configs: a search rebuilt by `propose` from recorded trials
+        # skips the listed configs already tried, so the list's length is what bounds the seed phase
         prior = archive.build_prior(prof, learner=learner, space=space, exclude_tasks=[task_id],
                                     n_seeds=max(n_seeds, 1))
     except PriorError as exc:
