@@ -103,7 +103,7 @@ def test_check_passes_a_sound_archive(tmp_path):
     assert result.exit_code == 0, result.output
     assert "archive is sound" in result.stdout
     report = json.loads(cli(path, "curate", "check", "--json").stdout)
-    assert report["ok"] and report["notes"]["trials"] == 10 and len(report["findings"]) == 15
+    assert report["ok"] and report["notes"]["trials"] == 10 and len(report["findings"]) == 16
 
 
 def _inject_every_problem(path: Path) -> dict:
@@ -112,6 +112,7 @@ def _inject_every_problem(path: Path) -> dict:
         a = add_study(archive, "churn", 1, make_trials(1, 10))
         add_study(archive, "churn", 1, make_trials(1, 10))  # 10 exact duplicates of study a
         b = add_study(archive, "stores", 2, make_trials(3, 6))
+        scored = add_study(archive, "stores", 2, make_trials(7, 3), metric="accuracy")
         empty_task = archive.add_task("returns", make_data(3), "y", profile={"log_rows": 1.0})
         archive.add_study(empty_task, "svm", SPACE)  # a study with no trials
         no_profile = archive.add_task("footfall", make_data(4), "y", profile={"log_rows": 1.0})
@@ -129,6 +130,7 @@ def _inject_every_problem(path: Path) -> dict:
         con.execute("UPDATE trials SET score = 'inf'::DOUBLE WHERE study_id = ? AND number = 1", [b])
         con.execute("UPDATE trials SET status = 'failed' WHERE study_id = ? AND number = 2", [b])
         con.execute("UPDATE trials SET content_key = 'stale' WHERE study_id = ? AND number = 3", [b])
+        con.execute("UPDATE trials SET score = 1.5 WHERE study_id = ? AND number = 1", [scored])  # accuracy > 1
         con.execute("UPDATE trials SET number = 4 WHERE study_id = ? AND number = 5", [b])
         bad_config = json.dumps({"C": 5000.0, "depth": 3, "kernel": "rbf", "n_trees": 10, "tol": 0.1})
         con.execute("UPDATE trials SET config = ? WHERE study_id = ? AND number = 6", [bad_config, b])
@@ -141,7 +143,7 @@ def _inject_every_problem(path: Path) -> dict:
 EXPECTED = {  # check -> (count, fixable)
     "orphan_profiles": (1, True), "orphan_trials": (2, True), "studies_without_task": (1, False),
     "studies_without_space": (0, False), "unreadable_spaces": (1, False), "stale_space_hashes": (1, True),
-    "trials_outside_space": (1, False), "nonfinite_scores_ok": (1, True), "failed_with_score": (1, True),
+    "trials_outside_space": (1, False), "nonfinite_scores_ok": (1, True), "scores_out_of_range": (1, False), "failed_with_score": (1, True),
     "stale_content_keys": (2, True),  # the one set to 'stale' and the one whose config was edited
     "repeated_trial_numbers": (1, True), "duplicate_trials": (10, True),
     "profile_version_mismatch": (1, False), "studies_without_trials": (1, True), "tasks_without_profiles": (1, False),

@@ -31,6 +31,7 @@ from typing import Any, Callable, Iterable, Mapping
 
 import pandas as pd
 
+from warmstart.archive.ingest import SCORE_BOUNDS
 from warmstart.archive.store import Archive
 from warmstart.errors import ArchiveError, SpaceError
 from warmstart.space import Space
@@ -238,6 +239,16 @@ def check_archive(archive: Archive, progress: Callable[[int, int], None] | None 
     add("nonfinite_scores_ok", True, "trials marked ok whose score is missing, NaN or infinite (become failed)",
         "SELECT study_id, number, score FROM trials WHERE status = 'ok' AND (score IS NULL OR NOT isfinite(score)) "
         "ORDER BY study_id, number", lambda r: f"study {r[0]} trial {r[1]} (score {r[2]})")
+    # Valid ranges of the built-in metrics: scikit-learn's metric definitions (see SCORE_BOUNDS).
+    bounds = [(m, lo, hi) for m, (lo, hi) in SCORE_BOUNDS.items()]
+    add("scores_out_of_range", False,
+        "ok trials whose score is impossible for their built-in metric, e.g. accuracy above 1 (prune or fix by hand)",
+        "SELECT t.study_id, t.number, s.metric, t.score FROM trials t JOIN studies s USING (study_id) "
+        "JOIN (VALUES " + ", ".join(["(?, CAST(? AS DOUBLE), CAST(? AS DOUBLE))"] * len(bounds)) + ") "
+        "AS b(metric, lo, hi) ON b.metric = s.metric "
+        "WHERE t.status = 'ok' AND isfinite(t.score) AND (t.score < b.lo OR t.score > b.hi) "
+        "ORDER BY t.study_id, t.number",
+        lambda r: f"study {r[0]} trial {r[1]} ({r[2]} {r[3]})", [v for row in bounds for v in row])
     add("failed_with_score", True, "failed trials that carry a score (the score moves into the error text)",
         "SELECT study_id, number, score FROM trials WHERE status = 'failed' AND score IS NOT NULL "
         "ORDER BY study_id, number", lambda r: f"study {r[0]} trial {r[1]} (score {r[2]})")

@@ -19,10 +19,94 @@ import pandas as pd
 from warmstart.errors import IngestError
 from warmstart.space import Param, Space
 
-__all__ = ["prepare_trials", "EXTRA_COLUMNS", "param_columns"]
+__all__ = ["prepare_trials", "EXTRA_COLUMNS", "param_columns", "metric_bounds", "study_direction", "SCORE_BOUNDS"]
 
 EXTRA_COLUMNS = ("score", "status", "cost_s", "started_at", "finished_at", "error")
 _STATUS = ("ok", "failed")
+
+#: Range of values each built-in metric (``warmstart.learners.METRICS``) can
+#: take, as (low, high); None = unbounded on that side. Source: the metric
+#: definitions in scikit-learn's documentation (User Guide, "Metrics and
+#: scoring"): accuracy, balanced accuracy, ROC AUC and F1 are shares in
+#: [0, 1]; R² is at most 1 (arbitrarily negative for a bad model); log loss,
+#: RMSE and MAE are non-negative. Scores are stored in natural units (an
+#: error is positive), as :class:`warmstart.learners.CVObjective` reports them.
+SCORE_BOUNDS: dict[str, tuple[float | None, float | None]] = {
+    "accuracy": (0.0, 1.0),
+    "balanced_accuracy": (0.0, 1.0),
+    "roc_auc": (0.0, 1.0),
+    "f1_macro": (0.0, 1.0),
+    "r2": (None, 1.0),
+    "log_loss": (0.0, None),
+    "rmse": (0.0, None),
+    "mae": (0.0, None),
+}
+
+
+def metric_bounds(metric: str | None) -> tuple[float, float] | None:
+    """Valid score range of a built-in metric, or None for a custom metric name.
+
+    Parameters
+    ----------
+    metric : str or None
+        Metric name as stored with a study.
+
+    Returns
+    -------
+    (float, float) or None
+        ``(low, high)``, with ``-inf``/``inf`` on an unbounded side (see
+        :data:`SCORE_BOUNDS`).
+    """
+    if metric not in SCORE_BOUNDS:
+        return None
+    low, high = SCORE_BOUNDS[metric]
+    return (-np.inf if low is None else low, np.inf if high is None else high)
+
+
+def _describe_range(low: float, high: float) -> str:
+    if np.isinf(low):
+        return f"at most {high:g}"
+    if np.isinf(high):
+        return f"at least {low:g}"
+    return f"between {low:g} and {high:g}"
+
+
+def study_direction(metric: str, minimize: bool | None) -> bool:
+    """Whether a new study of ``metric`` maximises its score.
+
+    A built-in metric (``warmstart.learners.METRICS``) knows its direction; a
+    flag that contradicts it is refused. A custom metric name follows the
+    flag (default: higher is better).
+
+    Parameters
+    ----------
+    metric : str
+        Metric name.
+    minimize : bool or None
+        True for ``--minimize``, False for ``--maximize``, None when neither was given.
+
+    Returns
+    -------
+    bool
+        True when higher scores are better.
+
+    Raises
+    ------
+    IngestError
+        When ``minimize`` contradicts a built-in metric's direction.
+    """
+    from warmstart.learners import METRICS, metric_direction
+
+    if metric not in METRICS:
+        return True if minimize is None else not minimize
+    maximize = metric_direction(metric)
+    if minimize is not None and minimize == maximize:
+        natural, given = ("higher", "--minimize") if maximize else ("lower", "--maximize")
+        raise IngestError(
+            f"metric {metric!r} is built in and {natural} is better ({'maximize' if maximize else 'minimize'}); "
+            f"{given} contradicts it: drop the flag, or name the metric differently if your scores are another quantity"
+        )
+    return maximize
 
 
 def param_columns(space: Space) -> list[str]:
@@ -124,7 +208,7 @@ def _parse_text(text: str) -> list:
     return out
 
 
-def prepare_trials(space: Space, frame: pd.DataFrame, where: str = "trials") -> pd.DataFrame:
+def prepare_trials(space: Space, frame: pd.DataFrame, where: str = "trials", metric: str | None = None) -> pd.DataFrame:
     """Validate a table of trials against a space and prepare it for insert.
 
     Parameters
@@ -138,6 +222,10 @@ def prepare_trials(space: Space, frame: pd.DataFrame, where: str = "trials") -> 
         value of an active parameter is an error.
     where : str
         Name of the source used in error messages (a file name).
+    metric : str, optional
+        The study's metric: successful scores of a built-in metric must lie
+        in its range (:func:`metric_bounds`); None or a custom name checks
+        nothing.
 
     Returns
     -------
@@ -152,7 +240,8 @@ def prepare_trials(space: Space, frame: pd.DataFrame, where: str = "trials") -> 
     ------
     IngestError
         Unknown or missing columns, values outside the space, wrong types,
-        bad statuses or times, or an empty table.
+        bad statuses or times, scores outside a built-in metric's range,
+        or an empty table.
     """
     if not isinstance(frame, pd.DataFrame):
         raise IngestError(f"{where}: expected a table (DataFrame), got {type(frame).__name__}")
@@ -245,6 +334,14 @@ def prepare_trials(space: Space, frame: pd.DataFrame, where: str = "trials") -> 
         failed = (status == "failed").to_numpy() | ~finite
     else:
         failed = ~finite
+    bounds = metric_bounds(metric)
+    if bounds is not None:
+        outside = ~failed & ((score < bounds[0]) | (score > bounds[1]))
+        if outside.any():
+            row = int(_rows(outside)[0])
+            raise _fail(where, row, "score", frame["score"].iloc[row],
+                        f"is impossible for metric {metric!r}: its scores are {_describe_range(*bounds)} "
+                        "(scikit-learn's metric definitions)")
     out["score"] = np.where(failed, np.nan, score)
     out["status"] = pd.Categorical.from_codes(failed.astype(np.int8), categories=list(_STATUS))
 

@@ -460,6 +460,10 @@ class Archive:
         space_id, fp, learner = rows[0]
         return self.space(int(space_id)), fp, learner
 
+    def _study_metric(self, study: int) -> str:
+        """The study's metric name (scores of a built-in metric are range-checked)."""
+        return self._q("SELECT metric FROM studies WHERE study_id = ?", [int(study)])[0][0]
+
     def add_trials(self, study: int, frame: pd.DataFrame, where: str = "trials") -> int:
         """Validate and add a table of trials to a study in one transaction.
 
@@ -479,7 +483,7 @@ class Archive:
             Number of trials added.
         """
         space, fp, learner = self._study_keys(study)
-        prepared = prepare_trials(space, frame, where=where)
+        prepared = prepare_trials(space, frame, where=where, metric=self._study_metric(study))
         with self.transaction():
             self._insert_trials(int(study), space, fp, learner, prepared)
         return len(prepared)
@@ -506,7 +510,8 @@ class Archive:
             score=[np.nan if score is None else score], status=[status], cost_s=[cost_s],
             started_at=[started_at], finished_at=[finished_at or _now()], error=[error],
         )
-        prepared = prepare_trials(space, pd.DataFrame(row), where=f"trial of study {study}")
+        prepared = prepare_trials(space, pd.DataFrame(row), where=f"trial of study {study}",
+                                  metric=self._study_metric(study))
         with self.transaction():
             return self._insert_trials(int(study), space, fp, learner, prepared)
 
@@ -593,7 +598,7 @@ class Archive:
         from warmstart.profile import PROFILE_VERSION, detect_kind
         from warmstart.profile import profile as compute_profile
 
-        prepared = prepare_trials(space, trials, where=where)  # fail before any work or write
+        prepared = prepare_trials(space, trials, where=where, metric=metric)  # fail before any work or write
         if target not in data.columns:
             raise ArchiveError(f"{source or 'data'}: target column {target!r} not found; columns are {list(data.columns)}")
         kind = detect_kind(data[target])

@@ -70,8 +70,12 @@ def _load_space(space_path: str | None, learner: str, data: pd.DataFrame, target
 @click.option("--target", required=True, help="Target column of the dataset.")
 @click.option("--learner", required=True, help="Learner key, e.g. svm, gbt, or your own label.")
 @click.option("--space", "space_path", type=click.Path(dir_okay=False), help="Space file (.json/.toml); built-in learners have a default.")
-@click.option("--metric", default="score", show_default=True, help="Name of the metric the scores are in.")
-@click.option("--minimize", is_flag=True, help="Lower scores are better (default: higher is better).")
+@click.option("--metric", default="score", show_default=True,
+              help="Name of the metric the scores are in. A built-in metric (accuracy, rmse ...) fixes the "
+                   "direction and the valid range of the scores.")
+@click.option("--minimize/--maximize", default=None,
+              help="Lower (or higher) scores are better; for your own metric names (default: higher is "
+                   "better). A built-in metric knows its direction: a contradicting flag is refused.")
 @click.option("--owner", help="Who ran the study.")
 @click.option("--tag", "tags", multiple=True, metavar="KEY=VALUE", help="Tag the study (repeatable).")
 @json_option
@@ -80,8 +84,12 @@ def ingest(ctx, trials, task, data_path, target, learner, space_path, metric, mi
     """Add past TRIALS (one column per parameter plus 'score') as a study.
 
     The whole file goes in as one transaction: on any error nothing is written.
+    Scores of a built-in metric outside its range (e.g. accuracy above 1) are refused.
     """
+    from warmstart.archive.ingest import study_direction
+
     tag_map = _parse_tags(tags)
+    maximize = study_direction(metric, minimize)
     trial_frame = read_table(trials)
     data = read_table(data_path)
     if target not in data.columns:
@@ -90,7 +98,7 @@ def ingest(ctx, trials, task, data_path, target, learner, space_path, metric, mi
     archive = get_archive(ctx, write=True)
     task_id, study_id, n = archive.ingest(
         trial_frame, task=task, data=data, target=target, learner=learner, space=space, metric=metric,
-        maximize=not minimize, where=str(trials), source=str(data_path), owner=owner, tags=tag_map,
+        maximize=maximize, where=str(trials), source=str(data_path), owner=owner, tags=tag_map,
     )
     row = archive.study(study_id)
     summary = {
@@ -116,7 +124,7 @@ def ingest(ctx, trials, task, data_path, target, learner, space_path, metric, mi
 def studies(ctx, learner, task, owner, tags, as_json):
     """List studies: task, learner, metric, trial count, best score."""
     archive = get_archive(ctx, write=False) if Path(ctx.find_root().obj["archive_path"]).exists() else get_archive(ctx)
-    frame = archive.studies()
+    frame = everything = archive.studies()
     if learner:
         frame = frame[frame["learner"] == learner]
     if task:
@@ -126,12 +134,17 @@ def studies(ctx, learner, task, owner, tags, as_json):
 
         frame = filter_studies(frame, owner=owner, tags=_parse_tags(tags))
     cols = ["study_id", "task", "learner", "metric", "direction", "origin", "trial_count", "best_score", "owner", "tags", "created_at"]
-    print_table(frame[cols], as_json, empty="no studies yet: add some with `warmstart ingest` or `warmstart tune`")
+    filtered = bool(learner or task or owner is not None or tags)
+    empty = ("no study matches these filters (`warmstart studies` without filters lists them all)"
+             if filtered and len(everything) else
+             "no studies yet: add some with `warmstart ingest` or `warmstart tune`")
+    print_table(frame[cols], as_json, empty=empty)
 
 
 @main.command()
 @click.argument("study", type=int)
-@click.option("--top", default=10, show_default=True, help="How many best trials to list (0 = all).")
+@click.option("--top", default=10, show_default=True, type=click.IntRange(min=0),
+              help="How many best trials to list (0 = all).")
 @json_option
 @click.pass_context
 def show(ctx, study, top, as_json):
