@@ -183,3 +183,10 @@ def test_gain_command_with_the_surrogate_replay(archive_path):
     assert json.loads(res.stdout)[0]["replay"] == "surrogate"
     res = CliRunner().invoke(main, ["--archive", archive_path, "gain", "--learner", "toy", "--replay", "table"])
     assert res.exit_code != 0 and "'table' is not one of 'nearest', 'surrogate'" in res.output
+
+
+def test_gain_names_the_tasks_it_knows_when_asked_for_an_unknown_one(archive_path):
+    res = CliRunner().invoke(main, ["--archive", archive_path, "gain", "--learner", "toy", "--task", "nope",
+                                    "--budget", "5", "--repeats", "2"])
+    assert res.exit_code == 1 and "Traceback" not in res.output
+    assert "'nope'" in res.output and "'family task 0'" in res.output

@@ -28,6 +28,7 @@ import click
 import numpy as np
 import pandas as pd
 
+from warmstart.gain import interval_text, queries_text
 from warmstart.parallel import map_jobs
 from warmstart.progress import Progress
 
@@ -225,9 +226,10 @@ def run_demo(
                      task=new.name, learner=f"{learner} (live, {new.name})", progress=Progress("  live"))
     t = live.tasks[0]
     echo(f"   warm: {t.bits_warm:+.2f} bits over uniform, cold: {t.bits_cold:+.2f} bits")
-    echo(f"   gain of warm over cold: {t.gain:+.2f} bits (95% interval {t.gain_low:+.2f} to {t.gain_high:+.2f}; "
+    echo(f"   gain of warm over cold: {t.gain:+.2f} bits ({interval_text(t.gain_low, t.gain_high)}; "
          f"{t.verdict}){' [a search never hit: smoothed]' if t.smoothed else ''}")
-    echo(f"   median queries to the first hit: warm {t.first_hit_warm:g}, cold {t.first_hit_cold:g}")
+    echo(f"   median queries to the first hit: warm {queries_text(t.first_hit_warm)}, "
+         f"cold {queries_text(t.first_hit_cold)}")
 
     echo(f"\n6. Does transfer help across the whole history? Leave-one-store-out replay, budget {budget}:")
     replay = leave_one_task_out(archive, learner, budget=budget, repeats=10, seed=seed, workers=workers,

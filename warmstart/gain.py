@@ -40,10 +40,17 @@ __all__ = [
     "compare",
     "pool",
     "N_BOOT",
+    "MIN_RUNS",
+    "interval_text",
+    "queries_text",
 ]
 
 #: Bootstrap resamples for intervals (common practice: 1,000-10,000).
 N_BOOT = 2000
+#: Fewest runs per search for a per-task interval and verdict: a bootstrap over
+#: fewer runs has so few distinct resamples that its interval collapses
+#: (common practice: a handful of runs at the least).
+MIN_RUNS = 5
 
 
 class GainError(WarmstartError, ValueError):
@@ -199,7 +206,9 @@ class TaskGain(_FlatFigures):
     first_hit_warm, first_hit_cold : float
         Median queries to the first hit (``inf`` when most runs never hit).
     verdict : str
-        ``helped`` (interval above 0), ``hurt`` (below 0) or ``no evidence``.
+        ``helped`` (interval above 0), ``hurt`` (below 0), ``no evidence``,
+        or ``too few runs`` (fewer than :data:`MIN_RUNS` per search; the
+        interval is then NaN).
     """
 
     task: str
@@ -257,6 +266,9 @@ def compare(
     lo, hi = (float(v) for v in np.percentile(g, [2.5, 97.5]))
     gain = math.log2(qw / qc)
     verdict = "helped" if lo > 0 else "hurt" if hi < 0 else "no evidence"
+    if min(warm.n_runs, cold.n_runs) < MIN_RUNS:
+        lo = hi = float("nan")
+        verdict = "too few runs"
     extra: dict = {}
     smoothed = sw or sc
     for label, runs in (others or {}).items():
@@ -315,6 +327,18 @@ class PooledGain(_FlatFigures):
     share_hurt_outside_noise: float = float("nan")
     extra: dict = field(default_factory=dict)
 
+
+
+def interval_text(low: float, high: float) -> str:
+    """``95% +a to +b``, or why there is no interval (NaN bounds)."""
+    if not (math.isfinite(low) and math.isfinite(high)):
+        return f"no interval: fewer than {MIN_RUNS} runs per search"
+    return f"95% {low:+.2f} to {high:+.2f}"
+
+
+def queries_text(value: float) -> str:
+    """A median count of queries, or ``never`` when most runs never hit."""
+    return f"{value:g}" if math.isfinite(value) else "never"
 
 
 def pool(results: Sequence[TaskGain], rng: Any = 0, n_boot: int = N_BOOT) -> PooledGain:

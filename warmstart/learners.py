@@ -418,6 +418,11 @@ def _check_metric(metric: str | None, kind: str) -> str:
     return metric
 
 
+def _plain(value):
+    """A numpy scalar as the plain Python value (for messages)."""
+    return value.item() if isinstance(value, np.generic) else value
+
+
 class CVObjective:
     """Cross-validated score of a built-in learner on a table (picklable).
 
@@ -461,9 +466,27 @@ class CVObjective:
 
         if self.kind == "classification":
             self.y = y.astype(str).to_numpy(dtype=object) if not ptypes.is_numeric_dtype(y) else y.to_numpy()
-            classes = np.unique(self.y)
+            if ptypes.is_float_dtype(y) and not np.all(np.mod(self.y, 1) == 0):
+                raise ObjectiveError(
+                    f"target {target!r} holds non-integer numbers ({y.nunique()} distinct values), which are not "
+                    "class labels; tune it as a regression task (leave out --kind classification)"
+                )
+            classes, counts = np.unique(self.y, return_counts=True)
             if len(classes) < 2:
-                raise ObjectiveError(f"target {target!r} has a single class ({classes[0]!r}); a classifier needs two or more")
+                raise ObjectiveError(
+                    f"target {target!r} has a single class ({_plain(classes[0])!r}); a classifier needs two or more")
+            if counts.max() < cv:
+                raise ObjectiveError(
+                    f"target {target!r} has {len(classes)} classes in {n} rows and none has {cv} rows, so "
+                    f"{cv}-fold cross-validation cannot keep a class in every fold; is it an identifier? "
+                    "Pick a target with repeated labels (or a regression target)"
+                )
+            if counts.min() < 2:
+                rare = [_plain(c) for c in classes[counts < 2][:5]]
+                raise ObjectiveError(
+                    f"target {target!r}: class(es) {rare} have a single row, which cross-validation cannot both "
+                    "train and score on; drop or merge those rows"
+                )
             splitter = StratifiedKFold(n_splits=int(cv), shuffle=True, random_state=seed)
         else:
             if not ptypes.is_numeric_dtype(y) or ptypes.is_bool_dtype(y):

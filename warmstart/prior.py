@@ -404,9 +404,15 @@ class Prior:
         return cls.from_dict(d, where=where)
 
     def save(self, path: str) -> None:
-        """Write the prior as JSON."""
-        with open(path, "w", encoding="utf-8") as fh:
-            fh.write(self.to_json())
+        """Write the prior as JSON (missing parent folders are created, as for reports)."""
+        from pathlib import Path
+
+        try:
+            Path(path).parent.mkdir(parents=True, exist_ok=True)
+            with open(path, "w", encoding="utf-8") as fh:
+                fh.write(self.to_json())
+        except OSError as exc:
+            raise PriorError(f"{path}: cannot write the prior ({exc.strerror})") from None
 
     @classmethod
     def load(cls, path: str) -> "Prior":

@@ -363,6 +363,13 @@ def leave_one_task_out(
             f"found {len(names)}"
         )
     if tasks is not None:
+        unknown = sorted(set(tasks) - set(names))
+        if len(unknown) == len(set(tasks)):
+            shown = ", ".join(repr(n) for n in sorted(names)[:12]) + (" ..." if len(names) > 12 else "")
+            raise WarmstartError(
+                f"no replayable study of {learner!r} on task(s) {', '.join(map(repr, unknown))}; "
+                f"tasks with one: {shown}"
+            )
         names = [n for n in names if n in set(tasks)]
     # a surrogate fit counts as one unit of work, as does replaying a task
     fits = len(names) if objective == "surrogate" else 0

@@ -101,6 +101,14 @@ class Archive:
                 raise ArchiveError(f"{self.path}: no archive here; create one with `warmstart init`")
             if not read_only:
                 p.parent.mkdir(parents=True, exist_ok=True)
+            if p.is_file() and p.stat().st_size >= 12:
+                with open(p, "rb") as fh:
+                    head = fh.read(12)
+                if head[8:12] != b"DUCK":  # DuckDB's file magic sits at bytes 8-11 of the header
+                    raise ArchiveError(
+                        f"{self.path}: not a warmstart archive (the file is not a DuckDB database); "
+                        "give another --archive path or move this file away"
+                    )
         try:
             self.con = duckdb.connect(self.path, read_only=read_only)
         except duckdb.IOException as exc:
@@ -281,7 +289,7 @@ class Archive:
         if found:
             raise ArchiveError(
                 f"task {name!r} already exists in {self.path} with different data "
-                f"(fingerprint {found[0][1][:12]} vs {fp[:12]}); choose another task name"
+                f"(fingerprint {found[0][1][:12]} vs {fp[:12]}); choose another task name (tune and ingest take --task)"
             )
         kind = kind or detect_kind(frame[target])
         prof = dict(profile) if profile is not None else compute_profile(frame, target=target, kind=kind)

@@ -6,6 +6,7 @@ import click
 
 from warmstart.cli.common import fail, get_archive, json_option, print_json, print_table
 from warmstart.cli.main import main
+from warmstart.gain import interval_text, queries_text
 from warmstart.progress import Progress
 
 
@@ -205,9 +206,10 @@ def _show(results, gamma, report_path, as_json) -> None:
         if live:
             t = r.tasks[0]
             click.echo(f"warm {t.bits_warm:+.2f} bits, cold {t.bits_cold:+.2f} bits over uniform; gain {t.gain:+.2f} bits "
-                       f"(95% {t.gain_low:+.2f} to {t.gain_high:+.2f}; {t.verdict})"
+                       f"({interval_text(t.gain_low, t.gain_high)}; {t.verdict})"
                        + (" [a search never hit: smoothed]" if t.smoothed else "")
-                       + f"; median queries to the first hit: warm {t.first_hit_warm:g}, cold {t.first_hit_cold:g}")
+                       + f"; median queries to the first hit: warm {queries_text(t.first_hit_warm)}, "
+                       f"cold {queries_text(t.first_hit_cold)}")
             continue
         p = r.pooled
         hurt = f"transfer hurt on {p.share_hurt:.0%} of tasks"

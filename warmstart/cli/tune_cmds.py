@@ -6,10 +6,12 @@ from __future__ import annotations
 import json
 import math
 import sys
+from collections import Counter
 from datetime import datetime, timezone
 from pathlib import Path
 
 import click
+import duckdb
 import numpy as np
 
 from warmstart.cli.common import fail, get_archive, json_option, print_json
@@ -171,6 +173,7 @@ def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, 
     else:
         evaluate = score_function(objective)
     counts = {"ok": 0, "failed": 0}
+    errors: Counter = Counter()
     interrupted = False
     with click.progressbar(length=budget, label="tuning", file=sys.stderr,
                            show_pos=True, show_eta=True, item_show_func=lambda s: s) as bar:
@@ -182,13 +185,19 @@ def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, 
                                  started_at=_stamp(trial.started_at), finished_at=_stamp(trial.finished_at),
                                  error=error)
             counts[trial.status] += 1
+            if trial.status == "failed":
+                errors[error or "no error text"] += 1
             best = search.best
             bar.update(1, f"best {_fmt(best.score if best else None)}, {counts['failed']} failed")
 
         try:
             if budget:
                 run_search(search, evaluate, budget, callback=keep, n_workers=n_workers, executor=executor)
-        except KeyboardInterrupt:
+        except (KeyboardInterrupt, RuntimeError, duckdb.Error) as exc:
+            # Ctrl-C may land inside a DuckDB query, which then raises its own
+            # "interrupted" error instead of KeyboardInterrupt
+            if not isinstance(exc, KeyboardInterrupt) and "interrupt" not in str(exc).lower():
+                raise
             interrupted = True
             if pool is not None:
                 stop_pool(pool)
@@ -200,12 +209,12 @@ def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, 
                 client.close()
     if not interrupted:
         archive.finish_study(study)
-    _report(archive, study, search, counts, interrupted, as_json, budget)
+    _report(archive, study, search, counts, interrupted, as_json, budget, errors)
     if interrupted:
         ctx.exit(130)
 
 
-def _report(archive, study, search, counts, interrupted, as_json, budget) -> None:
+def _report(archive, study, search, counts, interrupted, as_json, budget, errors=None) -> None:
     row = archive.study(study)
     best = search.best
     summary = {
@@ -214,6 +223,7 @@ def _report(archive, study, search, counts, interrupted, as_json, budget) -> Non
         "trial_count": counts["ok"] + counts["failed"], "n_failed": counts["failed"],
         "best_score": None if best is None else best.score,
         "best_config": None if best is None else best.config, "interrupted": interrupted,
+        "failures": dict((errors or Counter()).most_common()),
     }
     if as_json:
         print_json(summary)
@@ -221,6 +231,8 @@ def _report(archive, study, search, counts, interrupted, as_json, budget) -> Non
     state = "interrupted: " if interrupted else ""
     click.echo(f"{state}study {study} ({row['learner']} on task {row['task']!r}): "
                f"{summary['trial_count']} trials, {summary['n_failed']} failed")
+    for text, n in (errors or Counter()).most_common(2):
+        click.echo(f"  {n} failed with: {text}")
     if best is None:
         hint = ("evaluate configs with `warmstart propose --study "
                 f"{study}` and `warmstart record`") if budget == 0 else "no trial succeeded"

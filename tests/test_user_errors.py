@@ -1,0 +1,88 @@
+"""Mistakes a new user makes, answered with a message instead of a traceback.
+
+Data: scikit-learn's bundled iris (Fisher 1936), wine (UCI) and diabetes
+(Efron et al. 2004) tables, with columns changed as the comment at each test says.
+"""
+
+import math
+
+import numpy as np
+import pandas as pd
+import pytest
+from click.testing import CliRunner
+from sklearn.datasets import load_diabetes, load_iris, load_wine
+
+from warmstart.archive import Archive
+from warmstart.cli import main
+from warmstart.errors import WarmstartError
+from warmstart.gain import MIN_RUNS, Runs, compare, interval_text, queries_text
+from warmstart.learners import cv_objective
+from warmstart.space import Space
+
+
+def _iris() -> pd.DataFrame:
+    return load_iris(as_frame=True).frame
+
+
+def test_a_continuous_target_tuned_as_classification_is_refused_with_the_reason():
+    frame = load_diabetes(as_frame=True).frame  # column 'bmi': continuous (scaled body-mass index)
+    with pytest.raises(WarmstartError, match=r"'bmi' holds non-integer numbers .*regression"):
+        cv_objective(frame, "bmi", "svm", kind="classification")
+
+
+def test_an_identifier_as_target_is_refused():
+    frame = _iris().assign(row_id=lambda f: [f"r{i}" for i in range(len(f))])  # one label per row
+    with pytest.raises(WarmstartError, match=r"'row_id' has 150 classes in 150 rows .*identifier"):
+        cv_objective(frame, "row_id", "knn")
+
+
+def test_a_class_with_a_single_row_is_named():
+    frame = _iris()
+    frame["kind"] = frame["target"].map({0: "setosa", 1: "versicolor", 2: "virginica"})
+    frame.loc[0, "kind"] = "lone"  # invented label on one row
+    with pytest.raises(WarmstartError, match=r"\['lone'\] have a single row"):
+        cv_objective(frame.drop(columns="target"), "kind", "knn")
+
+
+def test_tune_says_why_its_trials_failed(tmp_path):
+    # two rows relabelled into a rare class: svm's probability calibration (used for roc_auc)
+    # cannot split so few rows, so every trial fails; the summary must say why
+    frame = _iris()
+    frame.loc[[0, 1], "target"] = 3
+    data = tmp_path / "iris_rare.csv"
+    frame.to_csv(data, index=False)
+    res = CliRunner().invoke(main, ["--archive", str(tmp_path / "a.duckdb"), "tune", str(data), "--target", "target",
+                                    "--learner", "svm", "--metric", "roc_auc", "--budget", "2", "--cold"])
+    assert res.exit_code == 0, res.output
+    assert "2 failed" in res.output and "2 failed with: ValueError" in res.output
+
+
+def test_too_few_runs_give_no_interval_and_say_so():
+    # analytic: warm always hits, cold never; 2 runs each cannot support a bootstrap interval
+    warm, cold = Runs(np.ones((2, 5), bool)), Runs(np.zeros((2, 5), bool))
+    t = compare("t", warm, cold, p=0.05, rng=0)
+    assert t.verdict == "too few runs" and math.isnan(t.gain_low) and math.isnan(t.gain_high)
+    assert interval_text(t.gain_low, t.gain_high) == f"no interval: fewer than {MIN_RUNS} runs per search"
+    enough = compare("t", Runs(np.ones((MIN_RUNS, 5), bool)), Runs(np.zeros((MIN_RUNS, 5), bool)), p=0.05, rng=0)
+    assert enough.verdict == "helped" and interval_text(enough.gain_low, enough.gain_high).startswith("95% +")
+    assert queries_text(float("inf")) == "never" and queries_text(3.0) == "3"
+
+
+def test_prior_output_into_a_new_folder_and_a_csv_given_as_archive(tmp_path):
+    frame = _iris()
+    data = tmp_path / "iris.csv"
+    frame.to_csv(data, index=False)
+    archive_path = tmp_path / "a.duckdb"
+    with Archive(str(archive_path)) as archive:
+        trials = pd.DataFrame({"n_neighbors": [1, 5, 15, 40], "score": [0.9, 0.95, 0.96, 0.9]})
+        wine = load_wine(as_frame=True).frame  # a past task on other data (the new one's own studies are left out)
+        archive.ingest(trials, task="wine past", data=wine, target="target", learner="knn",
+                       space=Space.from_dict({"params": {"n_neighbors": {"type": "integer", "low": 1, "high": 50}}}),
+                       metric="accuracy")
+    out = tmp_path / "new" / "folder" / "prior.json"
+    res = CliRunner().invoke(main, ["--archive", str(archive_path), "prior", str(data), "--target", "target",
+                                    "--learner", "knn", "-o", str(out)])
+    assert res.exit_code == 0, res.output
+    assert out.is_file()
+    res = CliRunner().invoke(main, ["--archive", str(data), "studies"])
+    assert res.exit_code == 1 and "not a warmstart archive" in res.output and "Traceback" not in res.output
