@@ -86,3 +86,24 @@ def test_prior_output_into_a_new_folder_and_a_csv_given_as_archive(tmp_path):
     assert out.is_file()
     res = CliRunner().invoke(main, ["--archive", str(data), "studies"])
     assert res.exit_code == 1 and "not a warmstart archive" in res.output and "Traceback" not in res.output
+
+
+def test_defaults_rank_each_kind_of_task_apart(tmp_path):
+    # svm's regression space has 'epsilon', its classification space does not: one list must not mix them
+    archive_path = str(tmp_path / "a.duckdb")
+    clf = Space.from_dict({"params": {"C": {"type": "real", "low": 0.01, "high": 100.0, "log": True}}})
+    reg = Space.from_dict({"params": {"C": {"type": "real", "low": 0.01, "high": 100.0, "log": True},
+                                      "epsilon": {"type": "real", "low": 0.001, "high": 1.0, "log": True}}})
+    with Archive(archive_path) as archive:
+        archive.ingest(pd.DataFrame({"C": [0.1, 1.0, 10.0], "score": [0.8, 0.9, 0.95]}), task="iris", data=_iris(),
+                       target="target", learner="svm", space=clf, metric="accuracy")
+        archive.ingest(pd.DataFrame({"C": [0.1, 1.0], "epsilon": [0.01, 0.1], "score": [0.3, 0.4]}), task="diabetes",
+                       data=load_diabetes(as_frame=True).frame, target="target", learner="svm", space=reg,
+                       metric="r2")
+    res = CliRunner().invoke(main, ["--archive", archive_path, "defaults", "--learner", "svm"])
+    assert res.exit_code == 0, res.output
+    clf_part, reg_part = res.output.split("regression tasks:")
+    assert clf_part.startswith("classification tasks:") and "epsilon" not in clf_part
+    assert "epsilon" in reg_part
+    res = CliRunner().invoke(main, ["--archive", archive_path, "defaults", "--learner", "svm", "--kind", "regression"])
+    assert res.exit_code == 0 and "epsilon" in res.output and "tasks:" not in res.output

@@ -317,6 +317,7 @@ def defaults(
     n: int = 10,
     weights: Mapping[str, float] | None = None,
     version: str = PROFILE_VERSION,
+    kind: str | None = None,
 ) -> pd.DataFrame:
     """Configs of ``learner`` that ranked well across many past tasks.
 
@@ -341,6 +342,9 @@ def defaults(
         Feature weights for the similarity (with ``near``).
     version : str, default PROFILE_VERSION
         Profile version of ``near``.
+    kind : {"classification", "regression"}, optional
+        Only tasks of this kind (a learner's parameters can differ by kind,
+        e.g. svm's ``epsilon`` exists for regression only).
 
     Returns
     -------
@@ -378,6 +382,7 @@ def defaults(
                        CASE WHEN s.direction = 'maximize' THEN r.score ELSE -r.score END AS v
                 FROM trials r JOIN studies s USING (study_id)
                 WHERE s.learner = ? AND r.status = 'ok' AND r.score IS NOT NULL AND isfinite(r.score)
+                  AND (CAST(? AS VARCHAR) IS NULL OR s.task_id IN (SELECT task_id FROM tasks WHERE kind = ?))
             ), q AS (
                 SELECT task_id, config,
                        (rank() OVER (PARTITION BY study_id ORDER BY v) - 1
@@ -405,7 +410,7 @@ def defaults(
             ORDER BY shrunk_quantile DESC, n_tasks DESC, config
             LIMIT ?
             """,
-            [learner, weighted, PSEUDO_TASKS, PSEUDO_TASKS, n],
+            [learner, kind, kind, weighted, PSEUDO_TASKS, PSEUDO_TASKS, n],
         ).df()
     finally:
         con.unregister(view)

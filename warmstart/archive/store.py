@@ -631,11 +631,12 @@ class Archive:
 
         return neighbors(self, prof, learner=learner, k=k)
 
-    def defaults(self, learner: str, near: Mapping[str, float] | None = None, n: int = 10) -> pd.DataFrame:
-        """Configs that rank well across many past tasks of ``learner``."""
+    def defaults(self, learner: str, near: Mapping[str, float] | None = None, n: int = 10,
+                 kind: str | None = None) -> pd.DataFrame:
+        """Configs that rank well across many past tasks of ``learner`` (optionally of one ``kind``)."""
         from warmstart.archive.queries import defaults
 
-        return defaults(self, learner, near=near, n=n)
+        return defaults(self, learner, near=near, n=n, kind=kind)
 
     def build_prior(self, prof: Mapping[str, float], learner: str, space: Space, **options: Any):
         """Build a :class:`~warmstart.prior.Prior` for ``learner`` over ``space``

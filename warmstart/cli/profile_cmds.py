@@ -98,9 +98,30 @@ def defaults_command(ctx, learner, near, target, n, kind, as_json):
     if target and not near:
         raise click.UsageError("--target goes with --near DATA; give both or neither")
     archive = get_archive(ctx, write=False)
-    prof = _profile_file(near, target, kind)[0] if near else None
-    frame = archive.defaults(learner, near=prof, n=n)
-    _echo_notes(frame)
-    if not as_json:
-        frame = frame.assign(config=[json.dumps(c, sort_keys=True) for c in frame["config"]])
-    print_table(frame, as_json, empty=f"no successful trials of {learner!r} in the archive")
+    empty = f"no successful trials of {learner!r} in the archive"
+    if near:
+        frame = archive.defaults(learner, near=_profile_file(near, target, kind)[0], n=n)
+        _echo_notes(frame)
+        if not as_json:
+            frame = frame.assign(config=[json.dumps(c, sort_keys=True) for c in frame["config"]])
+        print_table(frame, as_json, empty=empty)
+        return
+    # without --near, rank each kind of task apart: a learner's parameters can differ by kind
+    studies = archive.studies()
+    tasks = archive.tasks()
+    kinds = [kind] if kind else sorted(tasks.loc[tasks["task_id"].isin(
+        studies.loc[studies["learner"] == learner, "task_id"]), "kind"].unique())
+    frames = []
+    for k in kinds or [None]:
+        frame = archive.defaults(learner, n=n, kind=k)
+        _echo_notes(frame)
+        frames.append(frame.assign(kind=k) if k else frame)
+    if as_json:
+        print_table(pd.concat(frames, ignore_index=True), True, empty=empty)
+        return
+    for k, frame in zip(kinds or [None], frames):
+        if k and len(kinds) > 1:
+            click.echo(f"{k} tasks:")
+        frame = frame.drop(columns=["kind"], errors="ignore")
+        print_table(frame.assign(config=[json.dumps(c, sort_keys=True) for c in frame["config"]]), False,
+                    empty=f"no successful trials of {learner!r} on {k} tasks" if k else empty)
