@@ -107,3 +107,12 @@ def test_defaults_rank_each_kind_of_task_apart(tmp_path):
     assert "epsilon" in reg_part
     res = CliRunner().invoke(main, ["--archive", archive_path, "defaults", "--learner", "svm", "--kind", "regression"])
     assert res.exit_code == 0 and "epsilon" in res.output and "tasks:" not in res.output
+
+
+def test_profile_warns_when_the_target_looks_like_an_identifier(tmp_path):
+    data = tmp_path / "iris_ids.csv"
+    _iris().assign(row_id=[f"r{i}" for i in range(150)]).to_csv(data, index=False)
+    res = CliRunner().invoke(main, ["profile", str(data), "--target", "row_id"])
+    assert res.exit_code == 0 and "has 150 classes in 150 rows; is it an identifier" in res.stderr
+    res = CliRunner().invoke(main, ["profile", str(data), "--target", "target"])
+    assert res.exit_code == 0 and "identifier" not in res.stderr

@@ -29,6 +29,7 @@ def _profile_file(path: str, target: str, kind: str | None) -> tuple[dict[str, f
     if target not in frame.columns:
         raise click.ClickException(f"{path}: target column {target!r} not found; columns are {list(frame.columns)}")
     kind = kind or detect_kind(frame[target])
+    _warn_odd_target(frame[target], target, kind)
     cells = frame.shape[0] * frame.shape[1]
     if cells < PROGRESS_CELLS:
         return profile(frame, target=target, kind=kind), kind
@@ -39,6 +40,17 @@ def _profile_file(path: str, target: str, kind: str | None) -> tuple[dict[str, f
         prof = profile(frame, target=target, kind=kind, progress=lambda group: bar.update(1))
     click.echo(f"profiled in {time.perf_counter() - start:.1f} s", err=True)
     return prof, kind
+
+
+def _warn_odd_target(y: pd.Series, target: str, kind: str) -> None:
+    """Warn (stderr) about a classification target that looks like an identifier or a measurement."""
+    if kind != "classification":
+        return
+    y = y.dropna()
+    n_classes = y.nunique()
+    if len(y) and n_classes > max(20, len(y) // 2):
+        click.echo(f"note: target {target!r} has {n_classes} classes in {len(y)} rows; is it an identifier "
+                   "or a measurement? (a regression target is profiled with --kind regression)", err=True)
 
 
 def _echo_notes(frame: pd.DataFrame) -> None:
