@@ -1,7 +1,7 @@
 """`curate check [--fix]`, `curate dedupe`, `curate prune`, `tag` and the
 `studies` filters, on real DuckDB files in tmp_path.
 
-Outside references: pandas' ``drop_duplicates(keep="first")`` for which
+Outside references: pandas' ``groupby(...).transform("first")`` for which
 duplicate survives; Python's ``hashlib.sha256`` for recomputed content keys;
 an independent canonical dump of every table made with DuckDB itself
 (``dump_tables`` in conftest) to prove that declined or failed commands change
@@ -169,7 +169,7 @@ def test_check_finds_every_kind_of_problem_and_fix_repairs_the_safe_ones(tmp_pat
 
     result = cli(path, "curate", "check", "--fix")
     assert result.exit_code == 1  # unfixable problems remain, and say so
-    assert "fixed: deleted exact duplicate trials (kept the earliest of each): 10" in result.stdout
+    assert "fixed: deleted trials repeating an earlier study's (kept the earliest study's copies): 10" in result.stdout
     assert "fixed: deleted orphan trials (their study does not exist): 2" in result.stdout
     with Archive(path, read_only=True) as archive:
         after = {f.check: f.count for f in check_archive(archive).findings}
@@ -194,7 +194,7 @@ def test_check_finds_every_kind_of_problem_and_fix_repairs_the_safe_ones(tmp_pat
     ),
     st.sampled_from([("score", "score", "score"), ("score", "loss", "score")]),
 )
-def test_dedupe_keeps_what_pandas_drop_duplicates_keeps(rows, metrics):
+def test_dedupe_keeps_what_a_pandas_groupby_keeps(rows, metrics):
     """Random trials over a pool of 5 configs and 3 scores, spread over 3 studies."""
     pool = SPACE.sample(5, rng=0)
     with Archive(":memory:") as archive:
@@ -207,9 +207,12 @@ def test_dedupe_keeps_what_pandas_drop_duplicates_keeps(rows, metrics):
         table = archive.con.execute(
             "SELECT t.study_id, t.number, t.content_key, s.metric, s.direction, t.status, t.score, s.created_at "
             "FROM trials t JOIN studies s USING (study_id)").df()
-        # reference: pandas drop_duplicates keeps the first of each group in the documented order
-        expected = (table.sort_values(["created_at", "study_id", "number"])
-                    .drop_duplicates(["content_key", "metric", "direction", "status", "score"], keep="first"))
+        # reference: pandas' groupby(...).transform("first") names the earliest study of each group of
+        # identical trials in the documented order; that study keeps all its copies, later studies' copies go
+        ordered = table.sort_values(["created_at", "study_id", "number"])
+        keeper = ordered.groupby(["content_key", "metric", "direction", "status", "score"], dropna=False,
+                                 sort=False)["study_id"].transform("first")
+        expected = ordered[ordered["study_id"] == keeper]
         assert count_duplicates(archive) == len(table) - len(expected)
         removed, _ = dedupe_trials(archive)
         assert removed == len(table) - len(expected)

@@ -10,9 +10,16 @@ Rules written down here (DEVELOPERS.md "Curation" repeats them):
 
 - **Exact duplicate trial**: same content key (task fingerprint, learner,
   canonical config), same metric and direction of its study, same status and
-  same score. A repeated evaluation with another score is information (noise)
-  and is kept. Of each group of exact duplicates the *earliest* is kept:
-  ordered by the study's ``created_at``, then study id, then trial number.
+  same score *as a trial of an earlier study* (ordered by the study's
+  ``created_at``, then study id): the same result imported twice. The
+  earliest study holding it keeps every copy it has. Repeats *within one
+  study* are repeated evaluations (e.g. design points that snap to the same
+  integer values), not duplicates: kept, and only counted as a note. A
+  repeated evaluation with another score is information (noise) and is kept.
+- **Labels follow the trials**: when a study goes because all its trials
+  duplicate an earlier study's, its tags are merged into the study that keeps
+  those trials (the kept study's value wins on a shared key) and its owner is
+  carried over when the kept study has none.
 - **Safe repairs** (``check --fix``) change nothing a query can use that is
   not wrong: orphan profiles and trials (nothing can reach them), non-finite
   scores marked ``ok`` (become ``failed``), scores on failed trials (moved
@@ -43,6 +50,7 @@ __all__ = [
     "fix_archive",
     "dedupe_trials",
     "count_duplicates",
+    "copies_elsewhere",
     "PrunePlan",
     "plan_prune",
     "apply_prune",
@@ -55,12 +63,19 @@ __all__ = [
 ARCHIVE_TABLES = ("schema_version", "archive_info", "tasks", "profiles", "spaces", "studies", "trials")
 _EXAMPLES = 5  # how many culprits a finding names
 
-# Rank of each trial among its exact duplicates (1 = the earliest, kept).
+# For each trial, the earliest study holding an exact copy of it (its ``keeper``):
+# a trial whose study is not its keeper is a duplicate; copies inside the keeper
+# study are repeated evaluations and stay.
 _DUPLICATE_RANK = (
-    "SELECT t.rowid AS rid, row_number() OVER ("
+    "SELECT t.rowid AS rid, first_value(t.study_id) OVER ("
     "PARTITION BY t.content_key, s.metric, s.direction, t.status, t.score "
-    "ORDER BY s.created_at, t.study_id, t.number, t.rowid) AS k, t.study_id, t.number "
+    "ORDER BY s.created_at, t.study_id, t.number, t.rowid) AS keeper, t.study_id, t.number "
     "FROM trials t JOIN studies s USING (study_id)"
+)
+# Trials repeating an identical trial (same content key, status and score) of their own study.
+_REPEATS_IN_STUDY = (
+    "SELECT coalesce(sum(n - 1), 0) FROM (SELECT count(*) AS n FROM trials "
+    "GROUP BY study_id, content_key, status, score HAVING count(*) > 1)"
 )
 _KEY_SQL = "sha256(k.fingerprint || '|' || s.learner || '|' || t.config)"
 _STALE_KEYS = (
@@ -187,8 +202,33 @@ def _outside_space(archive: Archive, spaces: dict[int, Space], progress: Callabl
 
 
 def count_duplicates(archive: Archive) -> int:
-    """Number of exact duplicate trials (those dedupe would drop)."""
-    return int(_q(archive, f"SELECT count(*) FROM ({_DUPLICATE_RANK}) WHERE k > 1")[0][0])
+    """Number of exact duplicate trials (those dedupe would drop): copies of
+    a trial of an earlier study; repeats within one study are not counted."""
+    return int(_q(archive, f"SELECT count(*) FROM ({_DUPLICATE_RANK}) WHERE study_id <> keeper")[0][0])
+
+
+def copies_elsewhere(archive: Archive, study: int) -> tuple[int, list[int]]:
+    """How many trials of ``study`` have an exact copy in another study.
+
+    Exact copy: same content key (task data, learner, config), metric,
+    direction, status and score, the duplicate rule of :func:`dedupe_trials`.
+
+    Returns
+    -------
+    (int, list of int)
+        Trials of ``study`` with a copy elsewhere, and the other studies' ids.
+    """
+    n, others = _q(
+        archive,
+        "SELECT count(DISTINCT t.number), array_sort(list(DISTINCT o.study_id)) "
+        "FROM trials t JOIN studies s USING (study_id) "
+        "JOIN trials o ON o.content_key = t.content_key AND o.study_id <> t.study_id AND o.status = t.status "
+        "AND o.score IS NOT DISTINCT FROM t.score "
+        "JOIN studies os ON os.study_id = o.study_id AND os.metric = s.metric AND os.direction = s.direction "
+        "WHERE t.study_id = ?",
+        [int(study)],
+    )[0]
+    return int(n), [int(x) for x in (others or [])]
 
 
 def check_archive(archive: Archive, progress: Callable[[int, int], None] | None = None) -> CheckReport:
@@ -258,8 +298,9 @@ def check_archive(archive: Archive, progress: Callable[[int, int], None] | None 
         "SELECT study_id, number, count(*) AS n FROM trials GROUP BY study_id, number HAVING count(*) > 1 "
         "ORDER BY study_id, number", lambda r: f"study {r[0]} trial {r[1]} ({r[2]} times)")
     add("duplicate_trials", True,
-        "exact duplicate trials (same task data, learner, config, metric and result; the earliest is kept)",
-        f"SELECT study_id, number FROM ({_DUPLICATE_RANK}) WHERE k > 1 ORDER BY study_id, number",
+        "trials repeating a trial of an earlier study (same task data, learner, config, metric and result; "
+        "the earliest study keeps its copies)",
+        f"SELECT study_id, number FROM ({_DUPLICATE_RANK}) WHERE study_id <> keeper ORDER BY study_id, number",
         lambda r: f"study {r[0]} trial {r[1]}")
     add("profile_version_mismatch", False,
         f"tasks whose profile is not version {PROFILE_VERSION} (needs the dataset: ingest it again to re-profile)",
@@ -282,6 +323,7 @@ def check_archive(archive: Archive, progress: Callable[[int, int], None] | None 
             "SELECT count(*) FROM (SELECT t.content_key, s.metric FROM trials t JOIN studies s USING (study_id) "
             "GROUP BY t.content_key, s.metric HAVING count(DISTINCT (t.status, t.score)) > 1)",
         )[0][0],
+        "repeated_evaluations_same_result": _q(archive, _REPEATS_IN_STUDY)[0][0],
         "spaces_without_studies": _q(
             archive, "SELECT count(*) FROM spaces WHERE space_id NOT IN (SELECT space_id FROM studies)"
         )[0][0],
@@ -295,15 +337,51 @@ def _changed(archive: Archive, sql: str, params: Any = None) -> int:
     return int(rows[0][0]) if rows else 0
 
 
+_EMPTIED = (
+    f"SELECT study_id, array_sort(list(DISTINCT keeper)) AS keepers FROM ({_DUPLICATE_RANK}) "
+    "GROUP BY study_id HAVING bool_and(study_id <> keeper)"
+)
+
+
+def _carry_labels(archive: Archive, emptied: list[tuple[int, list[int]]]) -> None:
+    """Merge the tags (and the owner, where the kept study has none) of each
+    emptied study into the studies that keep its trials; earliest study first."""
+    ids = sorted({s for s, _ in emptied} | {k for _, keepers in emptied for k in keepers})
+    if not ids:
+        return
+    rows = _q(archive, f"SELECT study_id, owner, tags FROM studies WHERE study_id IN ({', '.join('?' * len(ids))}) "
+                       "ORDER BY created_at, study_id", ids)
+    labels = {int(r[0]): [r[1], json.loads(r[2]) if r[2] else {}] for r in rows}
+    order = {study: i for i, study in enumerate(labels)}
+    changed = set()
+    for study, keepers in sorted(emptied, key=lambda e: order.get(e[0], 0)):
+        owner, tags = labels[int(study)]
+        for keeper in keepers:
+            kept = labels[int(keeper)]
+            if kept[0] is None and owner is not None:
+                kept[0] = owner
+                changed.add(int(keeper))
+            new = {k: v for k, v in tags.items() if k not in kept[1]}
+            if new:
+                kept[1].update(new)
+                changed.add(int(keeper))
+    for keeper in sorted(changed):
+        owner, tags = labels[keeper]
+        archive.con.execute("UPDATE studies SET owner = ?, tags = ? WHERE study_id = ?",
+                            [owner, json.dumps(tags, sort_keys=True), keeper])
+
+
 def _delete_duplicates(archive: Archive) -> tuple[int, int]:
-    """Delete exact duplicates (keeping the earliest) and the studies that
-    held nothing else; returns (trials, studies) removed. Call inside a
-    transaction."""
+    """Delete exact duplicates (copies of an earlier study's trials) and the
+    studies that held nothing else, whose labels go to the studies that keep
+    their trials; returns (trials, studies) removed. Call inside a transaction."""
     # The ranking joins studies, so find the studies to empty before deleting anything.
-    emptied = [r[0] for r in _q(
-        archive, f"SELECT study_id FROM ({_DUPLICATE_RANK}) GROUP BY study_id HAVING min(k) > 1"
-    )]
-    trials = _changed(archive, f"DELETE FROM trials WHERE rowid IN (SELECT rid FROM ({_DUPLICATE_RANK}) WHERE k > 1)")
+    found = _q(archive, _EMPTIED)
+    _carry_labels(archive, [(int(s), [int(k) for k in keepers]) for s, keepers in found])
+    emptied = [int(r[0]) for r in found]
+    trials = _changed(
+        archive, f"DELETE FROM trials WHERE rowid IN (SELECT rid FROM ({_DUPLICATE_RANK}) WHERE study_id <> keeper)"
+    )
     studies = 0
     for start in range(0, len(emptied), 1000):
         chunk = emptied[start:start + 1000]
@@ -360,7 +438,7 @@ def fix_archive(archive: Archive) -> list[tuple[str, int]]:
                 done.append((what, n))
         trials, emptied = _delete_duplicates(archive)
         if trials:
-            done.append(("deleted exact duplicate trials (kept the earliest of each)", trials))
+            done.append(("deleted trials repeating an earlier study's (kept the earliest study's copies)", trials))
         n = _changed(archive, "DELETE FROM studies WHERE study_id NOT IN (SELECT study_id FROM trials)") + emptied
         if n:
             done.append(("deleted studies with no trials", n))
@@ -368,7 +446,11 @@ def fix_archive(archive: Archive) -> list[tuple[str, int]]:
 
 
 def dedupe_trials(archive: Archive, dry_run: bool = False) -> tuple[int, int]:
-    """Drop exact duplicate trials, keeping the earliest of each, in one transaction.
+    """Drop trials that repeat a trial of an earlier study, in one transaction.
+
+    Repeats within one study (repeated evaluations) stay. A study all of whose
+    trials repeat earlier studies' goes; its tags and owner move to the
+    studies that keep its trials (see the module's rules).
 
     Parameters
     ----------
@@ -381,12 +463,12 @@ def dedupe_trials(archive: Archive, dry_run: bool = False) -> tuple[int, int]:
     -------
     (int, int)
         Trials removed (or that would be), and studies removed because every
-        one of their trials was a duplicate of an earlier one.
+        one of their trials was a duplicate of an earlier study's.
     """
     if dry_run:
         emptied = _q(
             archive,
-            f"SELECT count(*) FROM (SELECT study_id FROM ({_DUPLICATE_RANK}) GROUP BY study_id HAVING min(k) > 1)",
+            f"SELECT count(*) FROM ({_EMPTIED})",
         )[0][0]
         return count_duplicates(archive), int(emptied)
     with archive.transaction():

@@ -101,6 +101,14 @@ def ingest(ctx, trials, task, data_path, target, learner, space_path, metric, mi
         maximize=maximize, where=str(trials), source=str(data_path), owner=owner, tags=tag_map,
     )
     row = archive.study(study_id)
+    from warmstart.archive.curate import copies_elsewhere
+
+    copies, others = copies_elsewhere(archive, study_id)
+    if copies:
+        shown = ", ".join(map(str, others[:5])) + (" ..." if len(others) > 5 else "")
+        click.echo(f"warning: {copies} of the {n} trials just ingested are identical to trials of study(ies) {shown} "
+                   "(same task data, learner, config and score): was this file ingested before? "
+                   "`warmstart curate dedupe` removes the copies and keeps the labels", err=True)
     summary = {
         "task_id": task_id, "task": task, "study_id": study_id, "trials": n,
         "failed": int(row["trial_count"] - row["n_ok"]), "best_score": row["best_score"],

@@ -61,8 +61,11 @@ def check(ctx, fix, as_json):
     """Check the archive's integrity; exit status 1 when anything is wrong.
 
     Looks for orphan rows, trials outside their study's space, non-finite
-    scores marked ok, exact duplicate trials, profile-version mismatches,
+    scores marked ok, scores impossible for a built-in metric, duplicate
+    trials (copies of an earlier study's), profile-version mismatches,
     studies without trials and tasks without profiles (and a few more).
+    Identical repeats within one study are repeated evaluations: a note, not
+    a problem.
     """
     archive = get_archive(ctx, write=fix)
     if as_json:
@@ -98,6 +101,9 @@ def check(ctx, fix, as_json):
         if notes["repeated_configs_other_result"]:
             click.echo(f"note: {notes['repeated_configs_other_result']} config(s) were evaluated more than once "
                        "with different results (kept: repeated evaluations are information)")
+        if notes["repeated_evaluations_same_result"]:
+            click.echo(f"note: {notes['repeated_evaluations_same_result']} trial(s) repeat a config of their own "
+                       "study with the same result (kept: repeated evaluations, not duplicates)")
         if notes["spaces_without_studies"]:
             click.echo(f"note: {notes['spaces_without_studies']} space(s) are used by no study")
         if report.ok:
@@ -115,10 +121,14 @@ def check(ctx, fix, as_json):
 @json_option
 @click.pass_context
 def dedupe(ctx, dry_run, as_json):
-    """Drop exact duplicate trials, keeping the earliest of each.
+    """Drop trials that repeat an earlier study's trials (the same file imported twice).
 
-    Exact duplicates share task data, learner, config, metric, status and
-    score; a repeated evaluation with another score is kept.
+    A duplicate shares task data, learner, config, metric, status and score
+    with a trial of an earlier study (by creation time, then id); that study
+    keeps its copies. Repeats within one study are repeated evaluations and
+    stay, as does a repeated evaluation with another score. A study left with
+    no trials goes, and its tags (and owner, if the kept study has none) move
+    to the study that keeps its trials.
     """
     archive = get_archive(ctx, write=not dry_run)
     trials, studies = dedupe_trials(archive, dry_run=dry_run)
@@ -126,7 +136,7 @@ def dedupe(ctx, dry_run, as_json):
         print_json({"dry_run": dry_run, "trials_removed": trials, "studies_removed": studies})
         return
     verb = "would remove" if dry_run else "removed"
-    click.echo(f"{verb} {trials} duplicate trial(s), keeping the earliest of each"
+    click.echo(f"{verb} {trials} duplicate trial(s), keeping the earliest study's copies"
                + (f"; {verb} {studies} study(ies) that held only duplicates" if studies else ""))
 
 
