@@ -152,3 +152,25 @@ def test_show_refuses_a_negative_top(files):
     result = run(files, "show", 1, "--top", -2)
     assert result.exit_code == 2 and "--top" in result.stderr and "-2" in result.stderr
     assert run(files, "show", 1, "--top", 0).exit_code == 0  # 0 = all, as the help says
+
+
+# -- 5. why no past study feeds a prior ----------------------------------------------------
+def test_prior_names_why_each_study_was_left_out(files, small_frame):
+    # study 1: only 2 trials (a prior needs >= 3 successful trials per study, load_sources' min_trials)
+    (files / "two.csv").write_text(TRIALS.format(a=0.8, b=0.7, c="").rsplit("\n", 2)[0] + "\n")
+    assert ingest_file(files, "two.csv", "ferry delays").exit_code == 0
+    # study 2: 3 trials, but on the very data the prior is asked for (its task is excluded)
+    new_data = small_frame.assign(f1=small_frame["f1"] * 2)
+    new_data.to_csv(files / "new.csv", index=False)
+    (files / "three.csv").write_text(TRIALS.format(a=0.8, b=0.7, c=0.6))
+    assert ingest_file(files, "three.csv", "harbour queue", data="new.csv").exit_code == 0
+    result = run(files, "prior", files / "new.csv", "--target", "y", "--learner", "svm", "--space", files / "space.json")
+    assert result.exit_code == 1 and "Traceback" not in result.stderr
+    assert "of its 2 study(ies), 1 have fewer than 3 successful trials" in result.stderr
+    assert "1 are of an excluded task" in result.stderr
+    assert "another kind of task" not in result.stderr  # a reason that excluded nothing is not named
+
+
+def ingest_file(root, name, task, data="data.csv"):
+    return run(root, "ingest", root / name, "--task", task, "--data", root / data, "--target", "y",
+               "--learner", "svm", "--space", root / "space.json")

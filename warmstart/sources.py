@@ -148,9 +148,21 @@ def build_prior(
     profiles = comparable_profiles(archive, prof)
     weighted = weight_sources(sources, profiles, prof, exclude_tasks, bandwidth_scale)
     if not weighted:
+        min_trials = 3  # load_sources' default, used above
+        of_learner = archive.studies()
+        of_learner = of_learner[of_learner["learner"] == learner]
+        loaded = {s.study_id for s in sources}
+        excluded = set(int(t) for t in exclude_tasks)
+        reasons = {
+            f"have fewer than {min_trials} successful trials (a study needs at least {min_trials})":
+                int((~of_learner["study_id"].isin(loaded)).sum()),
+            "are of an excluded task": sum(s.task_id in excluded for s in sources),
+            f"are of another kind of task or lack a version-{PROFILE_VERSION} profile":
+                sum(s.task_id not in excluded and s.task_id not in profiles.index for s in sources),
+        }
+        why = "; ".join(f"{n} {reason}" for reason, n in reasons.items() if n)
         raise PriorError(
-            f"no usable past study of learner {learner!r}: none is of the same kind of task with a "
-            f"version-{PROFILE_VERSION} profile and successful trials outside the excluded tasks"
+            f"no usable past study of learner {learner!r}: of its {len(of_learner)} study(ies), {why}"
         )
     info = {"learner": learner, "profile_version": PROFILE_VERSION, "bandwidth_scale": bandwidth_scale}
     return prior_from_sources(space, weighted, top_fraction=top_fraction, provenance=info, n_seeds=n_seeds)
