@@ -67,7 +67,7 @@ def archive_file(tmp_path_factory) -> str:
                     a.add_trials(study, pd.DataFrame(GRID).assign(score=_scores(group, rng)))
                     if group == "A":
                         loss = a.add_study(task, "gbt", SPACE, metric="log_loss", maximize=False)
-                        a.add_trials(loss, pd.DataFrame(GRID).assign(score=-_scores(group, rng)))
+                        a.add_trials(loss, pd.DataFrame(GRID).assign(score=1 - _scores(group, rng)))  # a log loss is >= 0
         frame, target = _dataset("diabetes")
         task = a.add_task("diabetes", frame, target)
         a.add_trials(a.add_study(task, "svm", SPACE, metric="r2"), pd.DataFrame(GRID).assign(score=rng.random(6)))

@@ -32,7 +32,7 @@ def test_prior_over_a_changed_space_is_valid_and_reports_what_was_dropped(tmp_pa
         for i in range(4):
             frame = iris.sample(frac=1.0, replace=True, random_state=i).reset_index(drop=True)
             task = archive.add_task(f"iris resample {i}", frame, "target")
-            study = archive.add_study(task, "svm", OLD, metric="accuracy")
+            study = archive.add_study(task, "svm", OLD, metric="score")  # an invented score, not an accuracy
             configs = OLD.sample(40, rng)
             trials = pd.DataFrame(configs)
             trials["score"] = [-abs(np.log10(c["C"]) - 1.5) + (0.3 if c["kernel"] == "sigmoid" else 0) for c in configs]

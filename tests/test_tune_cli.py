@@ -152,7 +152,7 @@ def test_propose_record_round_trip(tmp_path, iris_csv):
     assert again.stdout == first.stdout  # proposals are not stored: same history, same proposals
     for config in configs:
         assert 2.0**-5 <= config["C"] <= 2.0**15 and 2.0**-15 <= config["gamma"] <= 2.0**3
-        score = -abs(np.log10(config["C"]) - 1)  # an invented external score
+        score = 1 / (1 + abs(np.log10(config["C"]) - 1))  # an invented external accuracy, in (0, 1]
         out = _run(tmp_path, "record", "--study", 1, "--config", json.dumps(config), "--score", score, "--cost", 1.5)
         assert out.exit_code == 0, out.stderr
         assert out.stdout.startswith("recorded trial")
