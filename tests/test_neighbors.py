@@ -289,8 +289,11 @@ def test_cli_neighbors(archive_file, tmp_path):
 def test_cli_defaults(archive_file, tmp_path):
     result = _run("--archive", archive_file, "defaults", "--learner", "svm", "-n", "3")
     assert result.exit_code == 0, result.output
-    assert result.stdout.splitlines()[0].split()[:3] == ["config", "shrunk_quantile", "mean_quantile"]
-    assert len(result.stdout.splitlines()) == 5
+    lines = result.stdout.splitlines()
+    # the archive holds classification and regression tasks: one list per kind, each under a heading
+    assert lines[0] == "classification tasks:" and "regression tasks:" in lines
+    assert lines[1].split()[:3] == ["config", "shrunk_quantile", "mean_quantile"]
+    assert len(lines) == 2 * (1 + 2 + 3)  # heading, header, rule and three configs per kind
     path, target = _csv(tmp_path, "iris")
     result = _run("--archive", archive_file, "defaults", "--learner", "svm", "--near", path, "--target", target, "--json")
     records = json.loads(result.stdout)
