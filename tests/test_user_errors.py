@@ -116,3 +116,10 @@ def test_profile_warns_when_the_target_looks_like_an_identifier(tmp_path):
     assert res.exit_code == 0 and "has 150 classes in 150 rows; is it an identifier" in res.stderr
     res = CliRunner().invoke(main, ["profile", str(data), "--target", "target"])
     assert res.exit_code == 0 and "identifier" not in res.stderr
+
+
+def test_studies_on_a_mistyped_path_creates_nothing(tmp_path):
+    missing = tmp_path / "typo" / "sub" / "a.duckdb"
+    res = CliRunner().invoke(main, ["--archive", str(missing), "studies"])
+    assert res.exit_code == 0 and res.stdout.startswith("no studies yet: there is no archive at")
+    assert not (tmp_path / "typo").exists()

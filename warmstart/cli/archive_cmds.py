@@ -131,7 +131,15 @@ def ingest(ctx, trials, task, data_path, target, learner, space_path, metric, mi
 @click.pass_context
 def studies(ctx, learner, task, owner, tags, as_json):
     """List studies: task, learner, metric, trial count, best score."""
-    archive = get_archive(ctx, write=False) if Path(ctx.find_root().obj["archive_path"]).exists() else get_archive(ctx)
+    path = ctx.find_root().obj["archive_path"]
+    if not Path(path).exists():  # a listing never creates an archive (a mistyped path stays a mistake)
+        if as_json:
+            print_json([])
+        else:
+            click.echo(f"no studies yet: there is no archive at {path}; `warmstart init` creates one, "
+                       "and `warmstart ingest` or `warmstart tune` fill it")
+        return
+    archive = get_archive(ctx, write=False)
     frame = everything = archive.studies()
     if learner:
         frame = frame[frame["learner"] == learner]
