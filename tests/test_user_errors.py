@@ -123,3 +123,17 @@ def test_studies_on_a_mistyped_path_creates_nothing(tmp_path):
     res = CliRunner().invoke(main, ["--archive", str(missing), "studies"])
     assert res.exit_code == 0 and res.stdout.startswith("no studies yet: there is no archive at")
     assert not (tmp_path / "typo").exists()
+
+
+def test_ingest_from_python_takes_a_built_in_metrics_direction(tmp_path):
+    # rmse is an error: lower is better (scikit-learn's metric definitions)
+    trials = pd.DataFrame({"C": [0.1, 1.0, 10.0], "score": [60.0, 55.0, 58.0]})
+    space = Space.from_dict({"params": {"C": {"type": "real", "low": 0.01, "high": 100.0, "log": True}}})
+    data = load_diabetes(as_frame=True).frame
+    with Archive(str(tmp_path / "a.duckdb")) as archive:
+        _, study, _ = archive.ingest(trials, task="diabetes", data=data, target="target", learner="svm", space=space,
+                                     metric="rmse")
+        assert archive.study(study)["direction"] == "minimize"
+        with pytest.raises(WarmstartError, match="'rmse' is built in and lower is better"):
+            archive.ingest(trials, task="diabetes", data=data, target="target", learner="svm", space=space,
+                           metric="rmse", maximize=True)

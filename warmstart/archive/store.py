@@ -588,7 +588,7 @@ class Archive:
         learner: str,
         space: Space,
         metric: str = "score",
-        maximize: bool = True,
+        maximize: bool | None = None,
         where: str = "trials",
         source: str | None = None,
         owner: str | None = None,
@@ -597,7 +597,9 @@ class Archive:
         """Ingest a table of past trials as a new study, all in one transaction.
 
         The trials are validated before anything is written; the task is
-        reused when its name and data match.
+        reused when its name and data match. ``maximize`` left as None takes
+        a built-in metric's direction (higher is better for a custom metric
+        name); a value that contradicts a built-in metric is refused.
 
         Returns
         -------
@@ -606,6 +608,9 @@ class Archive:
         from warmstart.profile import PROFILE_VERSION, detect_kind
         from warmstart.profile import profile as compute_profile
 
+        from warmstart.archive.ingest import study_direction
+
+        maximize = study_direction(metric, None if maximize is None else not maximize)
         prepared = prepare_trials(space, trials, where=where, metric=metric)  # fail before any work or write
         if target not in data.columns:
             raise ArchiveError(f"{source or 'data'}: target column {target!r} not found; columns are {list(data.columns)}")
