@@ -260,6 +260,15 @@ def test_wide_data_and_features_beyond_rows():
 
 
 # -- errors ------------------------------------------------------------------------
+def test_missing_target_suggests_a_close_name():
+    # invented ferry data; the CLI's --target is often typed in another case
+    frame = pd.DataFrame({"wind_ms": [1.0, 2.0, 3.0, 4.0], "Delayed": ["yes", "no", "yes", "no"]})
+    with pytest.raises(
+        ProfileError, match=r"target column 'delayed' not found; columns are \['wind_ms', 'Delayed'\]; did you mean 'Delayed'\?"
+    ):
+        profile(frame, "delayed")
+
+
 def test_errors_are_clear():
     frame = pd.DataFrame({"x": [1.0, 2.0, 3.0], "y": ["a", "a", "a"]})
     with pytest.raises(ProfileError, match=r"target column 'z' not found; columns are \['x', 'y'\]"):

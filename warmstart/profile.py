@@ -34,6 +34,7 @@ import pandas as pd
 from pandas.api import types as ptypes
 
 from warmstart.errors import ProfileError
+from warmstart.tables import column_not_found
 
 __all__ = [
     "PROFILE_VERSION",
@@ -214,7 +215,7 @@ def _check_input(frame: pd.DataFrame, target: str) -> tuple[pd.Series, list[int]
         raise ProfileError(f"the table is empty ({frame.shape[0]} rows, {frame.shape[1]} columns); nothing to profile")
     hits = [j for j, c in enumerate(frame.columns) if c == target]
     if not hits:
-        raise ProfileError(f"target column {target!r} not found; columns are {[str(c) for c in frame.columns]}")
+        raise ProfileError(column_not_found(target, frame.columns))
     if len(hits) > 1:
         raise ProfileError(f"target column {target!r} appears {len(hits)} times; rename the duplicates")
     features = [j for j in range(frame.shape[1]) if j != hits[0]]

@@ -1,17 +1,32 @@
-"""Reading tables from files: CSV, TSV, Parquet and JSON lines, by extension."""
+"""Reading tables from files: CSV, TSV, Parquet and JSON, by extension.
+
+Text tables are read the way people write them: the delimiter (comma,
+semicolon, tab or pipe) is found from the first lines, a semicolon-separated
+file with decimal commas ("3,5") reads as numbers, common missing-value
+markers become missing, and a column of numbers with thousands separators
+("6,571") becomes numeric.
+"""
 
 from __future__ import annotations
 
+import bz2
+import csv
+import difflib
+import gzip
+import io
 import lzma
+import re
 import warnings
+import zipfile
 import zlib
 from pathlib import Path
 
 import pandas as pd
+from pandas.api import types as ptypes
 
 from warmstart.errors import WarmstartError
 
-__all__ = ["read_table", "TableError", "TABLE_SUFFIXES"]
+__all__ = ["DELIMITERS", "MISSING_MARKERS", "TABLE_SUFFIXES", "TableError", "column_not_found", "read_table"]
 
 TABLE_SUFFIXES = {
     ".csv": "CSV",
@@ -21,8 +36,17 @@ TABLE_SUFFIXES = {
     ".pq": "Parquet",
     ".jsonl": "JSON lines",
     ".ndjson": "JSON lines",
-    ".json": "JSON lines",
+    ".json": "JSON",
 }
+#: delimiters a CSV/TSV file may use, and their names in messages
+DELIMITERS = {",": "comma", ";": "semicolon", "\t": "tab", "|": "pipe"}
+#: read as missing in CSV/TSV, besides pandas' own markers ("", "NA", "N/A", "null", "NaN", "None" ...);
+#: not "none": it is a level of built-in choices (``class_weight``) and of everyday categories
+MISSING_MARKERS = ("?", "-", "n/a", "N/A", "NA", "na", "null", "NULL", "")
+_SAMPLE_BYTES = 1 << 16  # decompressed text read to find the delimiter and the header
+_SAMPLE_ROWS = 50
+_COMPRESSIONS = (".gz", ".zip", ".bz2", ".xz", ".zst")
+_UNNAMED = re.compile(r"Unnamed: \d+")
 
 
 class TableError(WarmstartError, ValueError):
@@ -31,7 +55,7 @@ class TableError(WarmstartError, ValueError):
 
 def _kind(path: Path) -> str:
     suffixes = [s.lower() for s in path.suffixes]
-    if suffixes and suffixes[-1] in (".gz", ".zip", ".bz2", ".xz", ".zst"):
+    if suffixes and suffixes[-1] in _COMPRESSIONS:
         suffixes = suffixes[:-1]
     suffix = suffixes[-1] if suffixes else ""
     if suffix not in TABLE_SUFFIXES:
@@ -41,24 +65,49 @@ def _kind(path: Path) -> str:
 
 
 def read_table(path: str | Path) -> pd.DataFrame:
-    """Read a table from a file, choosing the reader by extension.
+    r"""Read a table from a file, choosing the reader by extension.
 
     Parameters
     ----------
     path : str or Path
-        ``.csv``, ``.tsv``/``.txt`` (tab-separated), ``.parquet``/``.pq`` or
-        ``.jsonl``/``.ndjson``/``.json`` (one JSON object per line); CSV/TSV
-        and JSON lines may be compressed (``.gz`` ...).
+        ``.csv``, ``.tsv``/``.txt``, ``.parquet``/``.pq``,
+        ``.jsonl``/``.ndjson`` (one JSON object per line) or ``.json`` (a JSON
+        array of objects, or JSON lines); CSV/TSV and JSON may be compressed
+        (``.gz``, ``.bz2``, ``.xz``, ``.zip``, ``.zst``).
 
     Returns
     -------
     pandas.DataFrame
+        Column names are text. ``attrs["notes"]`` lists what was guessed
+        (a delimiter other than the extension's, decimal commas, columns
+        dropped or converted), for a command line to print.
 
     Raises
     ------
     TableError
-        When the file is missing, empty, malformed or of unknown format; the
-        message names the file and what went wrong.
+        When the file is missing, empty, malformed or of unknown format, or
+        names a column twice; the message names the file and what went wrong.
+
+    Notes
+    -----
+    CSV and TSV files (by either extension) may use a comma, semicolon, tab
+    or pipe between fields: the delimiter is the one that splits the header
+    into two or more fields and the first rows into as many, preferring the
+    extension's own (comma for ``.csv``, tab for ``.tsv``/``.txt``). A
+    semicolon-separated file whose first lines hold a decimal comma ("3,5") is
+    read with decimal commas. ``MISSING_MARKERS`` ("?", "-", "na" ...) and
+    pandas' own markers become missing. A text column whose every value is a
+    number with thousands separators ("6,571", "1,234.5"; "1.234,5" in a
+    decimal-comma file) or a plain number becomes numeric. Columns without a
+    header name ("Unnamed: 5" in pandas) that hold no value are dropped.
+
+    Examples
+    --------
+    >>> import pathlib, tempfile
+    >>> folder = pathlib.Path(tempfile.mkdtemp())
+    >>> _ = (folder / "fares.csv").write_text("route;fare;seats\nnorth;3,5;120\nsouth;?;80\n")
+    >>> read_table(folder / "fares.csv")["fare"].tolist()
+    [3.5, nan]
     """
     path = Path(path)
     kind = _kind(path)
@@ -68,30 +117,42 @@ def read_table(path: str | Path) -> pd.DataFrame:
         raise TableError(f"{path}: is a directory, expected a {kind} file")
     if path.stat().st_size == 0:
         raise TableError(f"{path}: the file is empty")
+    notes: list[str] = []
     try:
         with warnings.catch_warnings():
             # A row with more fields than the header would silently become the
             # index (shifting every value one column left): refuse it instead.
             warnings.simplefilter("error", pd.errors.ParserWarning)
             if kind in ("CSV", "TSV"):
-                frame = pd.read_csv(path, sep="," if kind == "CSV" else "\t", index_col=False, low_memory=False)
+                frame = _read_text_table(path, kind, notes)
             elif kind == "Parquet":
                 frame = pd.read_parquet(path)
             else:
                 # JSON types as written: exact floats, keys such as "1" kept as text, no guessing
                 # (the default guesser would turn [3, true] into [3, 1] and date-like text into times)
-                frame = pd.read_json(path, lines=True, convert_axes=False, dtype=False, precise_float=True)
+                array = kind == "JSON" and _sample_text(path)[0].lstrip().startswith("[")
+                frame = pd.read_json(path, lines=not array, convert_axes=False, dtype=False, precise_float=True)
+    except TableError:
+        raise
     except pd.errors.ParserWarning as exc:
         raise TableError(f"{path}: not a valid {kind} file (a row has more fields than the header: {exc})") from None
-    except (ValueError, pd.errors.ParserError, UnicodeDecodeError, OSError, EOFError, zlib.error, lzma.LZMAError) as exc:
+    except (ValueError, pd.errors.ParserError, UnicodeDecodeError, OSError, EOFError, zlib.error, lzma.LZMAError,
+            zipfile.BadZipFile, csv.Error) as exc:
         first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
         raise TableError(f"{path}: not a valid {kind} file ({first})") from None
+    except ImportError as exc:  # .zst needs the zstandard package
+        raise TableError(f"{path}: cannot decompress the file ({exc})") from None
     except Exception as exc:  # pyarrow raises its own types for broken Parquet
         if type(exc).__module__.startswith("pyarrow"):
             raise TableError(f"{path}: not a valid {kind} file ({exc})") from None
         raise
-    if kind == "JSON lines" and not all(isinstance(c, str) for c in frame.columns):
-        # JSON object keys are always strings; other labels mean a line was an array or a bare value.
+    if kind.startswith("JSON") and not all(isinstance(c, str) for c in frame.columns):
+        # JSON object keys are always strings; other labels mean a row was an array or a bare value.
+        if kind == "JSON":
+            raise TableError(
+                f"{path}: not a valid JSON file: every row must be a JSON object, e.g. "
+                '[{"C": 0.5, "score": 0.91}, ...] or one such object per line (arrays or bare values will not do)'
+            )
         raise TableError(
             f"{path}: not a valid JSON lines file: every line must be one JSON object, "
             'e.g. {"C": 0.5, "score": 0.91} (a JSON array or bare values will not do)'
@@ -99,4 +160,183 @@ def read_table(path: str | Path) -> pd.DataFrame:
     if frame.shape[0] == 0:
         raise TableError(f"{path}: the table has a header but no rows")
     frame.columns = [str(c) for c in frame.columns]
+    if notes:
+        frame.attrs["notes"] = notes
     return frame
+
+
+def column_not_found(name: str, columns, what: str = "target column") -> str:
+    """Message for a column that a table lacks, with the closest name when one is near.
+
+    Parameters
+    ----------
+    name : str
+        The column asked for.
+    columns : iterable
+        The table's column names.
+    what : str, default "target column"
+        What the column is, as the message should call it.
+
+    Returns
+    -------
+    str
+        ``"target column 'Price' not found; columns are [...]"``, followed by
+        ``"; did you mean 'price'?"`` when a column differs only in case or
+        surrounding spaces, or is a close spelling (``difflib``).
+
+    Examples
+    --------
+    >>> column_not_found("Fare", ["route", "fare"])
+    "target column 'Fare' not found; columns are ['route', 'fare']; did you mean 'fare'?"
+    """
+    names = [str(c) for c in columns]
+    message = f"{what} {name!r} not found; columns are {names}"
+    folded: dict[str, str] = {}
+    for c in names:
+        folded.setdefault(c.strip().casefold(), c)
+    key = str(name).strip().casefold()
+    close = difflib.get_close_matches(key, list(folded), n=1, cutoff=0.7)
+    match = folded.get(key) or (folded[close[0]] if close else None)
+    return f"{message}; did you mean {match!r}?" if match is not None else message
+
+
+# -- CSV and TSV ------------------------------------------------------------
+def _read_text_table(path: Path, kind: str, notes: list[str]) -> pd.DataFrame:
+    text, more = _sample_text(path)
+    default = "," if kind == "CSV" else "\t"
+    sep, header = _sniff(text, more, default)
+    decimal = "," if sep == ";" and re.search(r"\d,\d", text) else "."
+    if sep != default or decimal != ".":
+        notes.append(f"read as {DELIMITERS[sep]}-separated ({sep!r})" + (" with decimal commas" if decimal == "," else ""))
+    _refuse_repeated_names(path, header)
+    frame = pd.read_csv(
+        path, sep=sep, decimal=decimal, na_values=list(MISSING_MARKERS), index_col=False, low_memory=False
+    )
+    if frame.shape[1] == 1:
+        _refuse_one_wrong_column(path, kind, str(frame.columns[0]), text, sep)
+    empty = [c for c in frame.columns if isinstance(c, str) and _UNNAMED.fullmatch(c) and frame[c].isna().all()]
+    if empty and len(empty) < frame.shape[1]:
+        frame = frame.drop(columns=empty)
+        notes.append(f"dropped {len(empty)} empty column(s) without a header name")
+    converted = _numbers_with_separators(frame, decimal)
+    if converted:
+        notes.append(f"read column(s) {converted} as numbers with thousands separators")
+    return frame
+
+
+def _sample_text(path: Path) -> tuple[str, bool]:
+    """The first ``_SAMPLE_BYTES`` of the decompressed file as text, and
+    whether more follows ("" when the compression cannot be opened here)."""
+    compression = path.suffix.lower()
+    if compression == ".zip":
+        with zipfile.ZipFile(path) as archive:
+            names = archive.namelist()
+            if len(names) != 1:  # pandas refuses these with its own message
+                return "", False
+            with archive.open(names[0]) as handle:
+                raw = handle.read(_SAMPLE_BYTES + 1)
+    else:
+        if compression == ".zst":
+            try:
+                import zstandard
+            except ImportError:
+                return "", False
+            opener = zstandard.open
+        else:
+            opener = {".gz": gzip.open, ".bz2": bz2.open, ".xz": lzma.open}.get(compression, open)
+        with opener(path, "rb") as handle:
+            raw = handle.read(_SAMPLE_BYTES + 1)
+    more = len(raw) > _SAMPLE_BYTES
+    # undecodable bytes are pandas' to report; a character cut at the end is harmless here
+    return raw[:_SAMPLE_BYTES].decode("utf-8", errors="replace").removeprefix("\ufeff"), more
+
+
+def _rows(text: str, delimiter: str) -> list[list[str]]:
+    """The first non-blank rows of the sample, split as a CSV reader would."""
+    reader = csv.reader(io.StringIO(text), delimiter=delimiter)
+    rows = []
+    try:
+        for row in reader:
+            if row and any(row):
+                rows.append(row)
+                if len(rows) > _SAMPLE_ROWS:
+                    break
+    except csv.Error:  # an odd sample is pandas' to judge
+        pass
+    return rows
+
+
+def _sniff(text: str, more: bool, default: str) -> tuple[str, list[str]]:
+    """Delimiter of a text table and its header fields.
+
+    A candidate must split the header into two or more fields; among those,
+    the one that splits the most rows into as many fields wins, then the
+    extension's own, then the one with the most fields.
+    """
+    if more:  # the last line of the sample may be cut short
+        text = text[: text.rfind("\n") + 1]
+    best, best_rank, header = default, None, []
+    for delimiter in DELIMITERS:
+        rows = _rows(text, delimiter)
+        if not rows or len(rows[0]) < 2:
+            continue
+        width = len(rows[0])
+        share = sum(len(r) == width for r in rows[1:]) / (len(rows) - 1) if len(rows) > 1 else 1.0
+        rank = (share, delimiter == default, width)
+        if best_rank is None or rank > best_rank:
+            best, best_rank, header = delimiter, rank, rows[0]
+    return best, header
+
+
+def _refuse_repeated_names(path: Path, header: list[str]) -> None:
+    named = [h for h in header if h != ""]
+    repeated = sorted({h for h in named if named.count(h) > 1})
+    if repeated:
+        raise TableError(
+            f"{path}: the header names column(s) {repeated} more than once; "
+            f"give every column its own name (pandas would rename the second to {repeated[0] + '.1'!r})"
+        )
+
+
+def _refuse_one_wrong_column(path: Path, kind: str, name: str, text: str, sep: str) -> None:
+    """A single column whose name holds another delimiter: the file was split wrongly."""
+    first = next((line for line in text.splitlines() if line.strip()), name)
+    if first.lstrip().startswith('"'):
+        return  # a quoted name may hold any character
+    for delimiter, label in DELIMITERS.items():
+        if delimiter != sep and delimiter in name:
+            raise TableError(
+                f"{path}: not a valid {kind} file: it reads as one column named {name!r}, which looks "
+                f"{label}-separated ({delimiter!r}); check that every row has as many {label}s as the header"
+            )
+
+
+def _numbers_with_separators(frame: pd.DataFrame, decimal: str) -> list[str]:
+    """Turn text columns of numbers written with thousands separators into
+    numbers, in place; returns the names of the columns converted.
+
+    A column converts only when every value is such a number or a plain
+    number, and at least one has a separator: the thousands separator is
+    "," when the decimal mark is "." and "." when it is ",".
+    """
+    thousands = "," if decimal == "." else "."
+    t, d = re.escape(thousands), re.escape(decimal)
+    grouped = rf"[+-]?\d{{1,3}}(?:{t}\d{{3}})+(?:{d}\d+)?"
+    plain = rf"[+-]?(?:\d+(?:{d}\d*)?|{d}\d+)"
+    number = f"(?:{grouped}|{plain})"
+    converted = []
+    for name in frame.columns:
+        column = frame[name]
+        if not (ptypes.is_string_dtype(column) or ptypes.is_object_dtype(column)):
+            continue
+        values = column.dropna()
+        # a quick look at the first values spares a full scan of every text column
+        if values.empty or not values.iloc[:1000].str.strip().str.fullmatch(number, na=False).all():
+            continue
+        values = values.str.strip()
+        if not values.str.fullmatch(number, na=False).all() or not values.str.fullmatch(grouped, na=False).any():
+            continue
+        numbers = pd.to_numeric(values.str.replace(thousands, "", regex=False).str.replace(decimal, ".", regex=False))
+        frame[name] = numbers.reindex(column.index)
+        converted.append(name)
+    return converted
