@@ -137,3 +137,18 @@ def test_ingest_from_python_takes_a_built_in_metrics_direction(tmp_path):
         with pytest.raises(WarmstartError, match="'rmse' is built in and lower is better"):
             archive.ingest(trials, task="diabetes", data=data, target="target", learner="svm", space=space,
                            metric="rmse", maximize=True)
+
+
+def test_commands_print_what_reading_guessed_and_suggest_the_close_column(tmp_path):
+    # iris written the way a spreadsheet set to a continental locale writes it: ';' and decimal commas
+    data = tmp_path / "iris_semicolon.csv"
+    _iris().rename(columns={"target": "Species_Code"}).to_csv(data, sep=";", decimal=",", index=False)
+    res = CliRunner().invoke(main, ["profile", str(data), "--target", "species_code"])
+    assert res.exit_code == 1 and "did you mean 'Species_Code'?" in res.output
+    assert "read as semicolon-separated (';') with decimal commas" in res.stderr
+    res = CliRunner().invoke(main, ["profile", str(data), "--target", "Species_Code", "--json"])
+    assert res.exit_code == 0
+    import json
+
+    prof = json.loads(res.stdout)["profile"]
+    assert prof["frac_categorical"] == 0.0  # the four measurements were read as numbers, not text

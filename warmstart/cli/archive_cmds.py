@@ -9,7 +9,7 @@ import click
 import pandas as pd
 
 from warmstart.archive.store import Archive
-from warmstart.cli.common import fail, get_archive, json_option, print_json, print_table
+from warmstart.cli.common import fail, get_archive, json_option, print_json, print_table, read_data
 from warmstart.cli.main import main
 from warmstart.space import Space
 from warmstart.tables import read_table
@@ -91,9 +91,7 @@ def ingest(ctx, trials, task, data_path, target, learner, space_path, metric, mi
     tag_map = _parse_tags(tags)
     maximize = study_direction(metric, minimize)
     trial_frame = read_table(trials)
-    data = read_table(data_path)
-    if target not in data.columns:
-        fail(f"{data_path}: target column {target!r} not found; columns are {list(data.columns)}")
+    data = read_data(data_path, target)
     space = _load_space(space_path, learner, data, target)
     archive = get_archive(ctx, write=True)
     task_id, study_id, n = archive.ingest(

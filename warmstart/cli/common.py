@@ -102,3 +102,18 @@ def print_table(frame: pd.DataFrame, as_json: bool = False, empty: str = "(nothi
     click.echo("  ".join("-" * w for w in widths))
     for row in cells:
         click.echo(line(row))
+
+
+def read_data(path: str, target: str | None = None, echo_notes: bool = True):
+    """Read a data table for a command: what reading guessed (delimiter, decimal
+    commas, dropped or converted columns) goes to stderr as notes, and a missing
+    ``target`` stops the command with the closest column name suggested."""
+    from warmstart.tables import column_not_found, read_table
+
+    frame = read_table(path)
+    if echo_notes:
+        for note in frame.attrs.get("notes", []):
+            click.echo(f"note: {path}: {note}", err=True)
+    if target is not None and target not in frame.columns:
+        fail(f"{path}: {column_not_found(target, frame.columns)}")
+    return frame

@@ -9,10 +9,9 @@ import time
 import click
 import pandas as pd
 
-from warmstart.cli.common import get_archive, json_option, print_json, print_table
+from warmstart.cli.common import get_archive, json_option, print_json, print_table, read_data
 from warmstart.cli.main import main
 from warmstart.profile import FEATURE_GROUPS, PROFILE_VERSION, detect_kind, profile
-from warmstart.tables import read_table
 
 PROGRESS_CELLS = 200_000  # show progress on stderr when the table has at least this many cells
 
@@ -25,9 +24,7 @@ _kind_option = click.option(
 
 def _profile_file(path: str, target: str, kind: str | None) -> tuple[dict[str, float], str]:
     """Read a table and profile it, with progress on stderr for big tables."""
-    frame = read_table(path)
-    if target not in frame.columns:
-        raise click.ClickException(f"{path}: target column {target!r} not found; columns are {list(frame.columns)}")
+    frame = read_data(path, target)
     kind = kind or detect_kind(frame[target])
     _warn_odd_target(frame[target], target, kind)
     cells = frame.shape[0] * frame.shape[1]

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from warmstart.cli.common import fail, get_archive, json_option, print_json, print_table
+from warmstart.cli.common import fail, get_archive, json_option, print_json, print_table, read_data
 from warmstart.cli.main import main
 from warmstart.gain import interval_text, queries_text
 from warmstart.progress import Progress
@@ -43,11 +43,8 @@ def prior(ctx, data, target, learner, space_path, output, as_json):
     """Build a prior for a new dataset DATA from similar past studies."""
     from warmstart.archive.store import fingerprint
     from warmstart.profile import detect_kind, profile
-    from warmstart.tables import read_table
 
-    frame = read_table(data)
-    if target not in frame.columns:
-        fail(f"{data}: target column {target!r} not found; columns are {list(frame.columns)}")
+    frame = read_data(data, target)
     archive = get_archive(ctx, write=False)
     kind = detect_kind(frame[target])
     space = resolve_space(space_path, learner, kind)
@@ -147,7 +144,6 @@ def _live(archive, data, target, learners, only_tasks, metric, cv, budgets, repe
     from warmstart.learners import cv_objective
     from warmstart.live import live_gain
     from warmstart.profile import detect_kind, profile
-    from warmstart.tables import read_table
 
     if not data or not target:
         fail("a live comparison needs both --data FILE and --target COL")
@@ -157,9 +153,7 @@ def _live(archive, data, target, learners, only_tasks, metric, cv, budgets, repe
     if only_tasks:
         fail("--task picks held-out tasks of a replay; it has no meaning with --data")
     learner = learners[0]
-    frame = read_table(data)
-    if target not in frame.columns:
-        fail(f"{data}: target column {target!r} not found; columns are {list(frame.columns)}")
+    frame = read_data(data, target)
     kind = detect_kind(frame[target])
     objective = cv_objective(frame, target, learner, metric=metric, kind=kind, cv=cv, seed=seed)
     tasks = archive.tasks()

@@ -14,14 +14,13 @@ import click
 import duckdb
 import numpy as np
 
-from warmstart.cli.common import fail, get_archive, json_option, print_json
+from warmstart.cli.common import fail, get_archive, json_option, print_json, read_data
 from warmstart.cli.main import main
 from warmstart.learners import LEARNERS, TASK_KINDS, cv_objective, default_space, metric_direction, METRICS
 from warmstart.objective import CommandObjective, local_pool, score_function, stop_pool
 from warmstart.profile import detect_kind
 from warmstart.search import DEFAULT_N_SEEDS as DEFAULT_SEEDS, DensitySearch, run_search
 from warmstart.space import Space
-from warmstart.tables import read_table
 
 
 
@@ -146,9 +145,7 @@ def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, 
 
     The study keeps what it finished if the search is interrupted (Ctrl-C).
     """
-    frame = read_table(data)
-    if target not in frame.columns:
-        fail(f"{data}: target column {target!r} not found; columns are {list(map(str, frame.columns))}")
+    frame = read_data(data, target)
     kind = kind or detect_kind(frame[target])
     n_workers = workers or 1
     objective, space, metric, maximize = _objective_and_space(
