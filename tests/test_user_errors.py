@@ -55,6 +55,8 @@ def test_tune_says_why_its_trials_failed(tmp_path):
                                     "--learner", "svm", "--metric", "roc_auc", "--budget", "2", "--cold"])
     assert res.exit_code == 0, res.output
     assert "2 failed" in res.output and "2 failed with: ValueError" in res.output
+    shown = CliRunner().invoke(main, ["--archive", str(tmp_path / "a.duckdb"), "show", "1"])
+    assert shown.exit_code == 0 and "failure   2 x ValueError" in shown.output
 
 
 def test_too_few_runs_give_no_interval_and_say_so():

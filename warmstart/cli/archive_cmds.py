@@ -178,6 +178,9 @@ def show(ctx, study, top, as_json):
     click.echo(f"study {row['study_id']}: {row['learner']} on task {row['task']!r} ({row['origin']})")
     click.echo(f"  metric    {row['metric']} ({row['direction']})")
     click.echo(f"  trials    {row['trial_count']} ({row['trial_count'] - row['n_ok']} failed)")
+    failed = table.loc[table["status"] == "failed", "error"].fillna("no error text")
+    for text, n in failed.value_counts().head(2).items():  # why trials failed, most common first
+        click.echo(f"  failure   {n} x {text}")
     best = row["best_score"]
     click.echo(f"  best      {best:.4g}" if pd.notna(best) else "  best      -")
     if row["owner"]:
