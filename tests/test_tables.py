@@ -284,3 +284,22 @@ def test_column_not_found_suggests_a_close_name():
         "target column 'captain' not found; columns are ['route', 'Fare_EUR', 'passengers']"
     )
     assert column_not_found("x", ["a"], what="column").startswith("column 'x' not found")
+
+
+def test_suspect_columns_flags_identifiers_and_text_dates_but_not_real_features():
+    # scikit-learn's bundled wine table (UCI) with three invented columns added
+    from sklearn.datasets import load_wine
+
+    from warmstart.tables import suspect_columns
+
+    frame = load_wine(as_frame=True).frame
+    n = len(frame)
+    frame["row_no"] = np.random.default_rng(0).permutation(n) + 1  # a shuffled row number
+    frame["booking"] = [f"BK-{1000 + 7 * i}" for i in range(n)]  # text, one value per row
+    frame["day"] = pd.date_range("2025-01-01", periods=n).strftime("%Y-%m-%d")  # dates as text
+    frame["ticket"] = 1000 + 7 * np.arange(n)  # whole numbers rising on every row
+    found = suspect_columns(frame, exclude=["target"])
+    assert set(found) == {"row_no", "booking", "day", "ticket"}
+    assert "row number" in found["row_no"] and "dates" in found["day"]
+    # the 13 measured wine features (several all distinct, e.g. 'proline' has repeats, none rising) pass
+    assert not suspect_columns(load_wine(as_frame=True).frame, exclude=["target"])

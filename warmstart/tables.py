@@ -26,7 +26,10 @@ from pandas.api import types as ptypes
 
 from warmstart.errors import WarmstartError
 
-__all__ = ["DELIMITERS", "MISSING_MARKERS", "TABLE_SUFFIXES", "TableError", "column_not_found", "read_table"]
+__all__ = [
+    "DELIMITERS", "MISSING_MARKERS", "TABLE_SUFFIXES", "TableError", "column_not_found", "read_table",
+    "suspect_columns",
+]
 
 TABLE_SUFFIXES = {
     ".csv": "CSV",
@@ -198,6 +201,58 @@ def column_not_found(name: str, columns, what: str = "target column") -> str:
     close = difflib.get_close_matches(key, list(folded), n=1, cutoff=0.7)
     match = folded.get(key) or (folded[close[0]] if close else None)
     return f"{message}; did you mean {match!r}?" if match is not None else message
+
+
+def suspect_columns(frame: pd.DataFrame, exclude=(), min_rows: int = 20) -> dict[str, str]:
+    """Feature columns that are probably not features: row identifiers and
+    dates stored as text.
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame
+    exclude : iterable of str
+        Columns not to look at (the target).
+    min_rows : int, default 20
+        Below this many non-missing values nothing is flagged (in a tiny table
+        every column can look like an identifier).
+
+    Returns
+    -------
+    dict
+        ``{column: reason}``. An identifier is a text column whose values are
+        all distinct, or whole numbers that are all distinct and consecutive
+        (a row number) or rising on every row; a date column is text that parses as dates
+        (``pandas.to_datetime``) on every value of a sample of 50.
+    """
+    out: dict[str, str] = {}
+    skip = set(exclude)
+    for name in frame.columns:
+        if name in skip:
+            continue
+        col = frame[name].dropna()
+        n = len(col)
+        if n < min_rows:
+            continue
+        if ptypes.is_bool_dtype(col) or ptypes.is_float_dtype(col) and not (col % 1 == 0).all():
+            continue
+        if ptypes.is_numeric_dtype(col):
+            if col.is_unique and col.max() - col.min() + 1 == n:
+                out[str(name)] = "consecutive whole numbers, all distinct: a row number?"
+            elif col.is_unique and col.is_monotonic_increasing:
+                out[str(name)] = "whole numbers rising on every row: an identifier?"
+            continue
+        if ptypes.is_datetime64_any_dtype(col):
+            continue
+        text = col.astype(str)
+        sample = text.head(50)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            parsed = pd.to_datetime(sample, errors="coerce", format="mixed")
+        if parsed.notna().all() and sample.str.contains(r"\d{1,4}[-/.]\d{1,2}", regex=True).all():
+            out[str(name)] = "dates written as text (read as categories)"
+        elif text.is_unique:
+            out[str(name)] = "text with a different value on every row: an identifier?"
+    return out
 
 
 # -- CSV and TSV ------------------------------------------------------------

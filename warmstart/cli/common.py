@@ -106,9 +106,10 @@ def print_table(frame: pd.DataFrame, as_json: bool = False, empty: str = "(nothi
 
 def read_data(path: str, target: str | None = None, echo_notes: bool = True):
     """Read a data table for a command: what reading guessed (delimiter, decimal
-    commas, dropped or converted columns) goes to stderr as notes, and a missing
-    ``target`` stops the command with the closest column name suggested."""
-    from warmstart.tables import column_not_found, read_table
+    commas, dropped or converted columns) and feature columns that look like
+    identifiers or dates go to stderr as notes, and a missing ``target`` stops
+    the command with the closest column name suggested."""
+    from warmstart.tables import column_not_found, read_table, suspect_columns
 
     frame = read_table(path)
     if echo_notes:
@@ -116,4 +117,8 @@ def read_data(path: str, target: str | None = None, echo_notes: bool = True):
             click.echo(f"note: {path}: {note}", err=True)
     if target is not None and target not in frame.columns:
         fail(f"{path}: {column_not_found(target, frame.columns)}")
+    if echo_notes and target is not None:
+        for name, why in suspect_columns(frame, exclude=[target]).items():
+            click.echo(f"note: {path}: column {name!r} is used as a feature but looks like {why} "
+                       "(drop it from the file if it is not a feature)", err=True)
     return frame
