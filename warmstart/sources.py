@@ -22,7 +22,11 @@ __all__ = ["load_sources", "weight_sources", "build_prior", "comparable_profiles
 BANDWIDTH_SCALE = 0.5
 
 
-def load_sources(archive, learner: str, space: Space, min_trials: int = 3) -> list[Source]:
+#: Fewest successful trials a past study needs to be a source.
+MIN_SOURCE_TRIALS = 3
+
+
+def load_sources(archive, learner: str, space: Space, min_trials: int = MIN_SOURCE_TRIALS) -> list[Source]:
     """Every study of ``learner`` with at least ``min_trials`` successful trials,
     aligned onto ``space`` (one :class:`Source` each, similarity 1)."""
     studies = archive.studies()
@@ -148,7 +152,7 @@ def build_prior(
     profiles = comparable_profiles(archive, prof)
     weighted = weight_sources(sources, profiles, prof, exclude_tasks, bandwidth_scale)
     if not weighted:
-        min_trials = 3  # load_sources' default, used above
+        min_trials = MIN_SOURCE_TRIALS  # what load_sources used above
         of_learner = archive.studies()
         of_learner = of_learner[of_learner["learner"] == learner]
         loaded = {s.study_id for s in sources}
