@@ -287,19 +287,22 @@ def test_column_not_found_suggests_a_close_name():
 
 
 def test_suspect_columns_flags_identifiers_and_text_dates_but_not_real_features():
-    # scikit-learn's bundled wine table (UCI) with three invented columns added
+    # scikit-learn's bundled wine table (UCI) with invented columns added
     from sklearn.datasets import load_wine
 
     from warmstart.tables import suspect_columns
 
     frame = load_wine(as_frame=True).frame
     n = len(frame)
-    frame["row_no"] = np.random.default_rng(0).permutation(n) + 1  # a shuffled row number
+    frame["row_no"] = np.random.default_rng(0).permutation(n) + 1  # a shuffled row number, named as one
     frame["booking"] = [f"BK-{1000 + 7 * i}" for i in range(n)]  # text, one value per row
     frame["day"] = pd.date_range("2025-01-01", periods=n).strftime("%Y-%m-%d")  # dates as text
-    frame["ticket"] = 1000 + 7 * np.arange(n)  # whole numbers rising on every row
+    frame["ticket_no"] = 1000 + 7 * np.arange(n)  # whole numbers rising on every row, an identifier's name
+    frame["line"] = np.arange(1, n + 1)  # 1, 2, 3 ... in row order: a row number whatever its name
+    frame["year"] = 1800 + np.arange(n)  # rising whole numbers under a feature's name: kept
+    frame["rank"] = np.random.default_rng(1).permutation(n) + 1  # a shuffled 1..n without an id's name: kept
     found = suspect_columns(frame, exclude=["target"])
-    assert set(found) == {"row_no", "booking", "day", "ticket"}
-    assert "row number" in found["row_no"] and "dates" in found["day"]
+    assert set(found) == {"row_no", "booking", "day", "ticket_no", "line"}
+    assert "row number" in found["line"] and "identifier" in found["row_no"] and "dates" in found["day"]
     # the 13 measured wine features (several all distinct, e.g. 'proline' has repeats, none rising) pass
     assert not suspect_columns(load_wine(as_frame=True).frame, exclude=["target"])
