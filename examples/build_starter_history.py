@@ -21,6 +21,7 @@ Run (about an hour and a half with 2 workers)::
     python examples/build_starter_history.py               # everything
     python examples/build_starter_history.py --learner gbt     # (re)build one learner's studies, keep the rest
     python examples/build_starter_history.py --profiles-only   # only recompute profiles
+    python examples/build_starter_history.py --redo openintro/email  # re-evaluate one task's studies, keep the rest
 
 Writes ``tasks.parquet``, ``trials.parquet``, ``spaces.json`` and
 ``README.md`` into ``--out`` (default ``archive/starter``).
@@ -43,6 +44,7 @@ import pandas as pd
 from warmstart.learners import build_estimator, default_space, prepare_features
 from warmstart.profile import PROFILE_VERSION, detect_kind, profile
 from warmstart.starter import PROFILE_PREFIX, load_dataset
+from warmstart.tables import feature_frame
 
 ROOT = Path(__file__).resolve().parent.parent
 # svm and knn are cheap and their hyperparameters matter a lot; gbt has the largest default
@@ -185,7 +187,8 @@ def folds_and_data(recipe: Recipe):
 
     frame = load(recipe)
     y = frame[recipe.target]
-    X = prepare_features(frame.drop(columns=[recipe.target]))
+    features = feature_frame(frame, recipe.target).frame  # identifiers out, text dates as days, as cv_objective does
+    X = prepare_features(features.drop(columns=[recipe.target]))
     if recipe.kind == C:
         y = y.astype(str).to_numpy(dtype=object) if not ptypes.is_numeric_dtype(y) else y.to_numpy()
         splitter = StratifiedKFold(n_splits=CV_FOLDS, shuffle=True, random_state=CV_SEED)
@@ -435,9 +438,18 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--learner", action="append", default=None, choices=LEARNERS,
                         help="evaluate only this learner's studies (repeatable); the other learners' "
                              "trials already in --out are kept")
+    parser.add_argument("--redo", action="append", default=None, metavar="TASK",
+                        help="re-evaluate this task's studies (repeatable; every learner, or those of --learner) "
+                             "with the designs already in --out, and keep every other trial; every profile is "
+                             "recomputed (after a change to the features learners see)")
     args = parser.parse_args(argv)
-    if args.profiles_only and (args.only or args.learner):
-        parser.error("--profiles-only recomputes every task's profile and no trial; leave out --only and --learner")
+    if args.profiles_only and (args.only or args.learner or args.redo):
+        parser.error("--profiles-only recomputes every task's profile and no trial; leave out --only, --learner, --redo")
+    if args.redo and args.only:
+        parser.error("--redo keeps every other task; --only builds a history of some tasks alone: pick one")
+    unknown = sorted(set(args.redo or ()) - {r.name for r in RECIPES})
+    if unknown:
+        parser.error(f"--redo: no task named {unknown}; tasks are {[r.name for r in RECIPES]}")
     out = Path(args.out)
     out.mkdir(parents=True, exist_ok=True)
     recipes = [r for r in RECIPES if args.only is None or r.name in args.only]
@@ -447,13 +459,30 @@ def main(argv: list[str] | None = None) -> None:
     minutes = last.get("build_minutes") or {}
     if not isinstance(minutes, dict):  # builds before per-learner timing recorded one figure for svm and knn
         minutes = {"svm+knn": float(minutes)}
-    if args.profiles_only or args.learner:
+    if args.profiles_only or args.learner or args.redo:
         kept = pd.read_parquet(out / "trials.parquet")
         sizes = {k: int(v) for k, v in kept.groupby("learner")["number"].max().items()}
     if args.profiles_only:
         trials = kept
         sizes = {learner: sizes[learner] for learner in LEARNERS if learner in sizes}
         args.time_limit = last["time_limit_s"]
+    elif args.redo:  # the same designs (sizes and seeds) on the tasks named, every other trial kept
+        chosen = tuple(args.learner or [learner for learner in LEARNERS if learner in sizes])
+        plan = designs({learner: sizes[learner] for learner in chosen})
+        jobs = [(evaluate, (r, learner, plan[learner][r.kind], last["time_limit_s"]), 1.0, f"{r.name} {learner}")
+                for learner in chosen for r in RECIPES if r.name in args.redo]
+        fresh = pd.DataFrame([row for rows in run_jobs(jobs, args.jobs, "trials") for row in rows])
+        stale = kept["task"].isin(args.redo) & kept["learner"].isin(chosen)
+        trials = pd.concat([kept[~stale], fresh], ignore_index=True)
+        order = {r.name: i for i, r in enumerate(RECIPES)}
+        learner_order = {learner: i for i, learner in enumerate(LEARNERS)}
+        trials = trials.sort_values(
+            ["task", "learner", "number"],
+            key=lambda s: s.map(order) if s.name == "task" else s.map(learner_order) if s.name == "learner" else s)
+        trials = trials.reset_index(drop=True)
+        sizes = {learner: sizes[learner] for learner in LEARNERS if learner in sizes}
+        args.time_limit = last["time_limit_s"]
+        trials.to_parquet(out / "trials.parquet", index=False, compression="zstd")
     else:
         chosen = tuple(args.learner or LEARNERS)
         new_sizes = {learner: args.configs or CONFIGS[learner] for learner in chosen}

@@ -30,6 +30,7 @@ from pandas.api import types as ptypes
 from warmstart.objective import ObjectiveError, TrialResult, _check_limit, _error_text, _now
 from warmstart.profile import detect_kind
 from warmstart.space import Space
+from warmstart.tables import TableError, feature_frame
 
 __all__ = [
     "Learner",
@@ -439,14 +440,31 @@ class CVObjective:
     by a cap on libsvm iterations). For a hard wall-clock limit, run the
     training as a command (:class:`~warmstart.objective.CommandObjective`).
     Warnings (convergence and others) are silenced inside a trial.
+
+    The features are the table's other columns as
+    :func:`warmstart.tables.feature_frame` gives them (identifier columns
+    left out, dates written as text as days since 1970-01-01), the same
+    columns a profile of the table uses; ``feature_notes`` says what was
+    done per column.
     """
 
     def __init__(self, frame, target, learner, metric=None, kind=None, cv=5, seed=0,
-                 time_limit=None, space=None, threads=1):
+                 time_limit=None, space=None, threads=1, keep_columns=()):
         if not isinstance(frame, pd.DataFrame):
             raise ObjectiveError(f"the data must be a pandas DataFrame, got {type(frame).__name__}")
         if target not in frame.columns:
             raise ObjectiveError(f"target column {target!r} not found; columns are: {', '.join(map(str, frame.columns))}")
+        original = [c for c in frame.columns if c != target]
+        try:  # on the table as given, before rows go: the same columns as its profile
+            frame, self.feature_notes = feature_frame(frame, target, keep=keep_columns)
+        except TableError as exc:
+            raise ObjectiveError(str(exc)) from None
+        if original and frame.shape[1] == 1:
+            raise ObjectiveError(
+                "every feature column was left out: "
+                + "; ".join(f"{c!r} {why}" for c, why in self.feature_notes.items())
+                + "; pass the ones that are features with keep_columns (--keep-column on the command line)"
+            )
         frame = frame[frame[target].notna()]
         y = frame[target]
         self.kind = _check_kind(kind) if kind is not None else detect_kind(y)
@@ -572,13 +590,15 @@ class _thread_limit:
 
 def cv_objective(frame: pd.DataFrame, target: str, learner: str, metric: str | None = None,
                  kind: str | None = None, cv: int = 5, seed: int = 0, time_limit: float | None = None,
-                 space: Space | None = None, threads: int | None = 1) -> CVObjective:
+                 space: Space | None = None, threads: int | None = 1, keep_columns=()) -> CVObjective:
     """Cross-validated objective of a built-in learner.
 
     Parameters
     ----------
     frame : DataFrame
         Features and target; rows with a missing target are left out.
+        Identifier columns are left out and dates written as text become
+        days, as in a profile (:func:`warmstart.tables.feature_frame`).
     target : str
         Target column.
     learner : str
@@ -605,6 +625,10 @@ def cv_objective(frame: pd.DataFrame, target: str, learner: str, metric: str | N
         the default: parallelism comes from running trials in parallel
         workers, and OpenMP threads competing for busy cores can slow a
         small fit down tenfold. ``None`` leaves the libraries' own default.
+    keep_columns : iterable of str, default ()
+        Columns to use as features exactly as they are, even when they look
+        like identifiers or dates written as text (see
+        :func:`warmstart.tables.feature_frame`).
 
     Returns
     -------
@@ -621,4 +645,4 @@ def cv_objective(frame: pd.DataFrame, target: str, learner: str, metric: str | N
     ('ok', True)
     """
     return CVObjective(frame, target, learner, metric=metric, kind=kind, cv=cv, seed=seed,
-                       time_limit=time_limit, space=space, threads=threads)
+                       time_limit=time_limit, space=space, threads=threads, keep_columns=keep_columns)

@@ -34,7 +34,7 @@ import pandas as pd
 from pandas.api import types as ptypes
 
 from warmstart.errors import ProfileError
-from warmstart.tables import column_not_found
+from warmstart.tables import TableError, column_not_found, feature_frame
 
 __all__ = [
     "PROFILE_VERSION",
@@ -45,7 +45,7 @@ __all__ = [
     "detect_kind",
 ]
 
-PROFILE_VERSION = "1"
+PROFILE_VERSION = "2"  # 2: identifier columns left out, dates written as text as days (tables.feature_frame)
 SUBSAMPLE_ROWS = 3000  # rows for the statistical, information and landmarking groups
 MAX_COLUMNS = 100  # feature columns used by those groups (a seeded choice when more)
 N_BINS = 10  # equal-frequency bins for information measures (common practice)
@@ -119,13 +119,17 @@ def profile(
     kind: str | None = None,
     seed: int = 0,
     progress: Callable[[str], None] | None = None,
+    keep_columns=(),
 ) -> dict[str, float]:
     """Meta-features of a task (section 5 of the design).
 
     Parameters
     ----------
     frame : pandas.DataFrame
-        The dataset, target column included; every other column is a feature.
+        The dataset, target column included. The features are the other
+        columns as :func:`warmstart.tables.feature_frame` gives them:
+        identifier columns left out, dates written as text as days since
+        1970-01-01.
     target : str
         Name of the target column. Rows where it is missing are left out.
     kind : {"classification", "regression"}, optional
@@ -134,6 +138,9 @@ def profile(
         Seed of the subsample and of the cross-validation folds.
     progress : callable, optional
         Called with the name of each group before it is computed.
+    keep_columns : iterable of str, default ()
+        Columns to use as features exactly as they are, even when they look
+        like identifiers or dates written as text.
 
     Returns
     -------
@@ -144,8 +151,9 @@ def profile(
     Raises
     ------
     ProfileError
-        Not a DataFrame, empty frame, no feature column, missing target
-        column, target all missing, a single class (or a constant regression
+        Not a DataFrame, empty frame, no feature column (or every one left
+        out as an identifier), missing target column or column to keep,
+        target all missing, a single class (or a constant regression
         target), a non-numeric regression target, or an unknown kind.
 
     Examples
@@ -158,8 +166,25 @@ def profile(
     """
     from threadpoolctl import threadpool_limits  # installed with scikit-learn
 
+    frame = _features(frame, target, keep_columns)
     with threadpool_limits(limits=1):  # small matrices: one BLAS thread is faster and steadier
         return _profile(frame, target, kind, seed, progress or (lambda name: None))
+
+
+def _features(frame: pd.DataFrame, target: str, keep_columns) -> pd.DataFrame:
+    """The table as :func:`warmstart.tables.feature_frame` gives it, with
+    profile errors for what it refuses."""
+    _check_input(frame, target)  # type, emptiness, target column: the messages of the table as given
+    try:
+        table, notes = feature_frame(frame, target, keep=keep_columns)
+    except TableError as exc:
+        raise ProfileError(str(exc)) from None
+    if table.shape[1] == 1:
+        raise ProfileError(
+            f"every feature column was left out: {'; '.join(f'{c!r} {why}' for c, why in notes.items())}; "
+            "pass the ones that are features with keep_columns (--keep-column on the command line)"
+        )
+    return table
 
 
 def _profile(frame, target, kind, seed, step) -> dict[str, float]:

@@ -296,10 +296,11 @@ def _judge(name: str, col: pd.Series, min_rows: int) -> tuple[str, str] | None:
         if not (np.all(np.isfinite(numbers)) and np.all(numbers == np.round(numbers))):
             return None  # fractions (or infinities) are measurements, never identifiers
         if _looks_like_id_name(name) and values.is_unique:
-            return "identifier", "an identifier (a different whole number on every row, and an identifier's name)"
-        if n == len(col) and numbers[0] in (0.0, 1.0) and _last_word(name) not in TIME_WORDS:
-            if np.array_equal(numbers, numbers[0] + np.arange(n)):
-                return "identifier", f"a row number ({numbers[0]:.0f}, {numbers[0] + 1:.0f}, ... {numbers[-1]:.0f} in row order)"
+            return "identifier", "an identifier (a different whole number on every row, under an identifier's name)"
+        first = numbers[0]
+        if n == len(col) and first in (0.0, 1.0) and _last_word(name) not in TIME_WORDS:
+            if np.array_equal(numbers, first + np.arange(n)):
+                return "identifier", f"a row number ({first:.0f}, {first + 1:.0f}, ... {numbers[-1]:.0f} in row order)"
         return None
     if not _is_text(values):
         return None
@@ -326,7 +327,8 @@ def _to_days(text: pd.Series) -> tuple[pd.Series, str]:
     text = text.astype(str).str.strip()
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # pandas warns when it falls back to parsing value by value
-        if pd.to_datetime(_spread_sample(text, _DATE_SAMPLE), errors="coerce", format="ISO8601", utc=True).notna().any():
+        sample = _spread_sample(text, _DATE_SAMPLE)
+        if pd.to_datetime(sample, errors="coerce", format="ISO8601", utc=True).notna().any():
             parsed = pd.to_datetime(text, errors="coerce", format="ISO8601", utc=True)
             rest = parsed.isna()
             if not rest.any():
@@ -389,26 +391,29 @@ def suspect_columns(frame: pd.DataFrame, exclude=(), min_rows: int = 20) -> dict
         ``{column: reason}``, the reason starting with "a row number",
         "an identifier" or "dates written as text". The rules:
 
-        - a *row number*: whole numbers, each once, running from 0 or 1
-          without a gap (in any order, so a shuffled row number counts);
+        - a *row number*: whole numbers 0, 1, 2 ... or 1, 2, 3 ... in row
+          order with none missing, unless the name's last word is a unit of
+          time or order (:data:`TIME_WORDS`: ``t``, ``day_of_year``,
+          ``age`` ...: a time index is a feature);
         - an *identifier*: text with a different value on every row, or
-          whole numbers with a different value on every row in a column
-          whose name says so (its last word is one of :data:`ID_WORDS`,
-          e.g. ``booking_id``, ``customerID``, ``order_no``, or it is
-          ``row``/``rownames``/``Unnamed: 0``);
+          whole numbers with a different value on every row (in any order)
+          under an identifier's name: its last word is one of
+          :data:`ID_WORDS` (``booking_id``, ``customerID``, ``order_no``,
+          ``case``), or it is ``row``/``rownames``/``Unnamed: 0``;
         - *dates written as text*: text where each of 50 values spread over
-          the column looks like a date (2024-03-05, 5/3/2024, 5 Mar 2024 ...,
-          optionally with a time) and parses as one.
+          the column looks like a date (2024-03-05, 5/3/2024, 5 Mar 2024,
+          2024 Q1 ..., optionally with a time) and parses as one.
 
-        Whole numbers rising on every row are not flagged by that alone: a
-        ``year`` column of a time series is a feature. Numbers with a
-        fractional part, booleans and datetime columns are never flagged.
+        So whole numbers rising on every row are kept (a ``year`` column
+        of a time series is a feature), and so is a shuffled 1..n under
+        another name (ranks are features). Numbers with a fractional part,
+        booleans and datetime columns are never flagged.
 
     Examples
     --------
-    >>> frame = pd.DataFrame({"row": range(1, 31), "year": range(1951, 1981), "y": [0, 1] * 15})
+    >>> frame = pd.DataFrame({"line": range(1, 31), "year": range(1951, 1981), "y": [0, 1] * 15})
     >>> suspect_columns(frame, exclude=["y"])
-    {'row': 'a row number (whole numbers 1 to 30, each once)'}
+    {'line': 'a row number (1, 2, ... 30 in row order)'}
     """
     out: dict[str, str] = {}
     skip = set(exclude)
@@ -463,7 +468,7 @@ def feature_frame(frame: pd.DataFrame, target: str, keep=(), min_rows: int = 20)
     >>> list(table.columns), float(table["day"].iloc[0])
     (['day', 'nights', 'late'], 19787.0)
     >>> print(notes["booking_id"])
-    left out: looks like an identifier (an identifier's name, a different whole number on every row)
+    left out: looks like an identifier (a different whole number on every row, under an identifier's name)
     """
     labels = list(frame.columns)
     if target not in labels:
