@@ -161,5 +161,6 @@ def test_commands_note_feature_columns_that_look_like_identifiers(tmp_path):
     _iris().assign(sample_code=[f"S{i:04d}" for i in range(150)]).to_csv(data, index=False)  # invented codes
     res = CliRunner().invoke(main, ["profile", str(data), "--target", "target"])
     assert res.exit_code == 0
-    assert "column 'sample_code' is used as a feature but looks like text with a different value" in res.stderr
+    assert ("column 'sample_code' left out: looks like an identifier (text with a different value on every row); "
+            "pass --keep-column sample_code to use it") in res.stderr
     assert "sepal" not in res.stderr  # the measurements are features, no note

@@ -295,12 +295,12 @@ def _judge(name: str, col: pd.Series, min_rows: int) -> tuple[str, str] | None:
         numbers = values.to_numpy(dtype=float)
         if not (np.all(np.isfinite(numbers)) and np.all(numbers == np.round(numbers))):
             return None  # fractions (or infinities) are measurements, never identifiers
-        if _looks_like_id_name(name) and values.is_unique:
-            return "identifier", "an identifier (a different whole number on every row, under an identifier's name)"
         first = numbers[0]
         if n == len(col) and first in (0.0, 1.0) and _last_word(name) not in TIME_WORDS:
             if np.array_equal(numbers, first + np.arange(n)):
                 return "identifier", f"a row number ({first:.0f}, {first + 1:.0f}, ... {numbers[-1]:.0f} in row order)"
+        if _looks_like_id_name(name) and values.is_unique:
+            return "identifier", "an identifier (a different whole number on every row, under an identifier's name)"
         return None
     if not _is_text(values):
         return None

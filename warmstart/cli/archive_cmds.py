@@ -9,7 +9,7 @@ import click
 import pandas as pd
 
 from warmstart.archive.store import Archive
-from warmstart.cli.common import fail, get_archive, json_option, print_json, print_table, read_data
+from warmstart.cli.common import fail, get_archive, json_option, keep_column_option, print_json, print_table, read_data
 from warmstart.cli.main import main
 from warmstart.space import Space
 from warmstart.tables import read_table
@@ -78,9 +78,11 @@ def _load_space(space_path: str | None, learner: str, data: pd.DataFrame, target
                    "better). A built-in metric knows its direction: a contradicting flag is refused.")
 @click.option("--owner", help="Who ran the study.")
 @click.option("--tag", "tags", multiple=True, metavar="KEY=VALUE", help="Tag the study (repeatable).")
+@keep_column_option
 @json_option
 @click.pass_context
-def ingest(ctx, trials, task, data_path, target, learner, space_path, metric, minimize, owner, tags, as_json):
+def ingest(ctx, trials, task, data_path, target, learner, space_path, metric, minimize, owner, tags, keep_columns,
+           as_json):
     """Add past TRIALS (one column per parameter plus 'score') as a study.
 
     The whole file goes in as one transaction: on any error nothing is written.
@@ -91,13 +93,19 @@ def ingest(ctx, trials, task, data_path, target, learner, space_path, metric, mi
     tag_map = _parse_tags(tags)
     maximize = study_direction(metric, minimize)
     trial_frame = read_table(trials)
-    data = read_data(data_path, target)
+    data = read_data(data_path, target, keep_columns=keep_columns)
     space = _load_space(space_path, learner, data, target)
     archive = get_archive(ctx, write=True)
-    task_id, study_id, n = archive.ingest(
-        trial_frame, task=task, data=data, target=target, learner=learner, space=space, metric=metric,
-        maximize=maximize, where=str(trials), source=str(data_path), owner=owner, tags=tag_map,
-    )
+    with archive.transaction():  # one transaction: a refused trials file leaves no task behind either
+        if keep_columns:  # the task's profile with the kept columns; ingest then finds the task current
+            from warmstart.profile import profile
+
+            archive.add_task(task, data, target, source=str(data_path),
+                             profile=profile(data, target=target, keep_columns=keep_columns))
+        task_id, study_id, n = archive.ingest(
+            trial_frame, task=task, data=data, target=target, learner=learner, space=space, metric=metric,
+            maximize=maximize, where=str(trials), source=str(data_path), owner=owner, tags=tag_map,
+        )
     row = archive.study(study_id)
     from warmstart.archive.curate import copies_elsewhere
 

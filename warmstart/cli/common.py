@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import math
+import shlex
 from typing import Any
 
 import click
@@ -12,9 +13,17 @@ import pandas as pd
 
 from warmstart.archive.store import Archive
 
-__all__ = ["get_archive", "print_table", "print_json", "fail", "json_option", "to_jsonable"]
+__all__ = [
+    "get_archive", "print_table", "print_json", "fail", "json_option", "keep_column_option", "read_data", "to_jsonable",
+]
 
 json_option = click.option("--json", "as_json", is_flag=True, help="Print JSON instead of a table.")
+#: the data file's columns to use as features as written (passed on as ``keep_columns``)
+keep_column_option = click.option(
+    "--keep-column", "keep_columns", multiple=True, metavar="NAME",
+    help="Use this column of the data as a feature as it is written, even if it looks like a row "
+         "identifier (left out) or dates written as text (turned into days); repeatable.",
+)
 
 
 def get_archive(ctx: click.Context, write: bool = True) -> Archive:
@@ -104,12 +113,19 @@ def print_table(frame: pd.DataFrame, as_json: bool = False, empty: str = "(nothi
         click.echo(line(row))
 
 
-def read_data(path: str, target: str | None = None, echo_notes: bool = True):
-    """Read a data table for a command: what reading guessed (delimiter, decimal
-    commas, dropped or converted columns) and feature columns that look like
-    identifiers or dates go to stderr as notes, and a missing ``target`` stops
-    the command with the closest column name suggested."""
-    from warmstart.tables import column_not_found, read_table, suspect_columns
+def read_data(path: str, target: str | None = None, echo_notes: bool = True, keep_columns=()):
+    """Read a data table for a command.
+
+    What reading guessed (delimiter, decimal commas, dropped or converted
+    columns) goes to stderr as notes; a missing ``target`` or a
+    ``--keep-column`` name the table lacks stops the command with the
+    closest column name suggested. With a target, every feature column that
+    profiles and learners will leave out or convert
+    (:func:`warmstart.tables.feature_frame`) gets a note saying so and how
+    to keep it. The table is returned as read: the task's fingerprint is
+    computed on it.
+    """
+    from warmstart.tables import column_not_found, feature_frame, read_table
 
     frame = read_table(path)
     if echo_notes:
@@ -117,8 +133,12 @@ def read_data(path: str, target: str | None = None, echo_notes: bool = True):
             click.echo(f"note: {path}: {note}", err=True)
     if target is not None and target not in frame.columns:
         fail(f"{path}: {column_not_found(target, frame.columns)}")
+    for name in keep_columns:
+        if name not in frame.columns:
+            fail(f"{path}: {column_not_found(name, frame.columns, what='--keep-column')}")
     if echo_notes and target is not None:
-        for name, why in suspect_columns(frame, exclude=[target]).items():
-            click.echo(f"note: {path}: column {name!r} is used as a feature but looks like {why} "
-                       "(drop it from the file if it is not a feature)", err=True)
+        for name, done in feature_frame(frame, target, keep=keep_columns).notes.items():
+            verb = "use it" if done.startswith("left out") else "use it as written"
+            click.echo(f"note: {path}: column {name!r} {done}; pass --keep-column {shlex.quote(name)} to {verb}",
+                       err=True)
     return frame

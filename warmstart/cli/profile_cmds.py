@@ -9,7 +9,7 @@ import time
 import click
 import pandas as pd
 
-from warmstart.cli.common import get_archive, json_option, print_json, print_table, read_data
+from warmstart.cli.common import get_archive, json_option, keep_column_option, print_json, print_table, read_data
 from warmstart.cli.main import main
 from warmstart.profile import FEATURE_GROUPS, PROFILE_VERSION, detect_kind, profile
 
@@ -22,19 +22,20 @@ _kind_option = click.option(
 )
 
 
-def _profile_file(path: str, target: str, kind: str | None) -> tuple[dict[str, float], str]:
+def _profile_file(path: str, target: str, kind: str | None, keep_columns=()) -> tuple[dict[str, float], str]:
     """Read a table and profile it, with progress on stderr for big tables."""
-    frame = read_data(path, target)
+    frame = read_data(path, target, keep_columns=keep_columns)
     kind = kind or detect_kind(frame[target])
     _warn_odd_target(frame[target], target, kind)
     cells = frame.shape[0] * frame.shape[1]
     if cells < PROGRESS_CELLS:
-        return profile(frame, target=target, kind=kind), kind
+        return profile(frame, target=target, kind=kind, keep_columns=keep_columns), kind
     start = time.perf_counter()
     label = f"profiling {path} ({frame.shape[0]:,} rows x {frame.shape[1]} columns)"
     steps = 5 if kind == "regression" else 4  # groups reported by profile(progress=...)
     with click.progressbar(length=steps, label=label, file=sys.stderr, show_eta=False) as bar:
-        prof = profile(frame, target=target, kind=kind, progress=lambda group: bar.update(1))
+        prof = profile(frame, target=target, kind=kind, progress=lambda group: bar.update(1),
+                       keep_columns=keep_columns)
     click.echo(f"profiled in {time.perf_counter() - start:.1f} s", err=True)
     return prof, kind
 
@@ -59,10 +60,15 @@ def _echo_notes(frame: pd.DataFrame) -> None:
 @click.argument("data", type=click.Path(dir_okay=False))
 @click.option("--target", required=True, help="Target column of the table.")
 @_kind_option
+@keep_column_option
 @json_option
-def profile_command(data, target, kind, as_json):
-    """Print the meta-features of DATA (CSV, TSV, Parquet or JSON lines)."""
-    prof, kind = _profile_file(data, target, kind)
+def profile_command(data, target, kind, keep_columns, as_json):
+    """Print the meta-features of DATA (CSV, TSV, Parquet or JSON lines).
+
+    Columns that look like row identifiers are left out and dates written as
+    text count as days (a note on stderr names each); --keep-column keeps one.
+    """
+    prof, kind = _profile_file(data, target, kind, keep_columns)
     if as_json:
         print_json({"data": data, "target": target, "kind": kind, "profile_version": PROFILE_VERSION, "profile": prof})
         return
@@ -79,12 +85,13 @@ def profile_command(data, target, kind, as_json):
 @click.option("--learner", required=True, help="Only past tasks with studies of this learner.")
 @click.option("-k", "k", default=5, show_default=True, type=click.IntRange(min=1), help="How many neighbors.")
 @_kind_option
+@keep_column_option
 @json_option
 @click.pass_context
-def neighbors_command(ctx, data, target, learner, k, kind, as_json):
+def neighbors_command(ctx, data, target, learner, k, kind, keep_columns, as_json):
     """List the past tasks most similar to DATA that have studies of a learner."""
     archive = get_archive(ctx, write=False)
-    prof, _ = _profile_file(data, target, kind)
+    prof, _ = _profile_file(data, target, kind, keep_columns)
     frame = archive.neighbors(prof, learner=learner, k=k)
     _echo_notes(frame)
     if not as_json:
@@ -98,18 +105,21 @@ def neighbors_command(ctx, data, target, learner, k, kind, as_json):
 @click.option("--target", help="Target column of the --near table.")
 @click.option("-n", "n", default=10, show_default=True, type=click.IntRange(min=1), help="How many configs.")
 @_kind_option
+@keep_column_option
 @json_option
 @click.pass_context
-def defaults_command(ctx, learner, near, target, n, kind, as_json):
+def defaults_command(ctx, learner, near, target, n, kind, keep_columns, as_json):
     """List configs of a learner that ranked well across many past tasks."""
     if near and not target:
         raise click.UsageError("--near needs --target (the target column of that table)")
     if target and not near:
         raise click.UsageError("--target goes with --near DATA; give both or neither")
+    if keep_columns and not near:
+        raise click.UsageError("--keep-column names a column of the --near table; give --near DATA --target COL")
     archive = get_archive(ctx, write=False)
     empty = f"no successful trials of {learner!r} in the archive"
     if near:
-        frame = archive.defaults(learner, near=_profile_file(near, target, kind)[0], n=n)
+        frame = archive.defaults(learner, near=_profile_file(near, target, kind, keep_columns)[0], n=n)
         _echo_notes(frame)
         if not as_json:
             frame = frame.assign(config=[json.dumps(c, sort_keys=True) for c in frame["config"]])

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from warmstart.cli.common import fail, get_archive, json_option, print_json, print_table, read_data
+from warmstart.cli.common import fail, get_archive, json_option, keep_column_option, print_json, print_table, read_data
 from warmstart.cli.main import main
 from warmstart.gain import interval_text, queries_text
 from warmstart.progress import Progress
@@ -37,18 +37,19 @@ def resolve_space(space_path, learner: str, kind: str):
 @click.option("--learner", required=True, help="Learner whose past studies feed the prior.")
 @click.option("--space", "space_path", type=click.Path(dir_okay=False), help="Space of the new search (default: the learner's built-in space).")
 @click.option("-o", "--output", type=click.Path(dir_okay=False), help="Write the prior as JSON here.")
+@keep_column_option
 @json_option
 @click.pass_context
-def prior(ctx, data, target, learner, space_path, output, as_json):
+def prior(ctx, data, target, learner, space_path, output, keep_columns, as_json):
     """Build a prior for a new dataset DATA from similar past studies."""
     from warmstart.archive.store import fingerprint
     from warmstart.profile import detect_kind, profile
 
-    frame = read_data(data, target)
+    frame = read_data(data, target, keep_columns=keep_columns)
     archive = get_archive(ctx, write=False)
     kind = detect_kind(frame[target])
     space = resolve_space(space_path, learner, kind)
-    prof = profile(frame, target=target)
+    prof = profile(frame, target=target, keep_columns=keep_columns)
     tasks = archive.tasks()
     same = tasks.loc[tasks["fingerprint"] == fingerprint(frame, target), "task_id"].tolist()
     built = archive.build_prior(prof, learner=learner, space=space, exclude_tasks=same)
@@ -82,10 +83,11 @@ def prior(ctx, data, target, learner, space_path, output, as_json):
 @click.option("--metric", help="With --data: a built-in metric (default accuracy or r2).")
 @click.option("--cv", default=5, show_default=True, type=click.IntRange(min=2), help="With --data: cross-validation folds.")
 @click.option("--report", "report_path", type=click.Path(dir_okay=False), help="Write an HTML report with plots here.")
+@keep_column_option
 @json_option
 @click.pass_context
 def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, only_tasks, objective, data, target, metric, cv,
-         report_path, as_json):
+         report_path, keep_columns, as_json):
     """Measure, in bits, whether warm starts beat cold ones on your history.
 
     Leave-one-task-out replay: each archived study is held out in turn and its
@@ -110,9 +112,11 @@ def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, only_tasks, 
         if ctx.get_parameter_source("objective") is not ParameterSource.DEFAULT:
             fail("--replay picks how a replay scores proposals; with --data the searches train on the data itself")
         results = _live(archive, data, target, learners, only_tasks, metric, cv, budgets, repeats, gamma, seed,
-                        workers, as_json)
+                        workers, as_json, keep_columns)
         _show(results, gamma, report_path, as_json)
         return
+    if keep_columns:
+        fail("--keep-column names a column of --data FILE; a replay uses the archived studies, not a data file")
     if metric:
         fail("--metric is for a live comparison (--data FILE --target COL); a replay scores with each study's own metric")
     studies = archive.studies()
@@ -136,7 +140,8 @@ def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, only_tasks, 
     _show(results, gamma, report_path, as_json)
 
 
-def _live(archive, data, target, learners, only_tasks, metric, cv, budgets, repeats, gamma, seed, workers, as_json):
+def _live(archive, data, target, learners, only_tasks, metric, cv, budgets, repeats, gamma, seed, workers, as_json,
+          keep_columns=()):
     """Warm and cold searches side by side on DATA (``gain --data``)."""
     from pathlib import Path
 
@@ -153,13 +158,14 @@ def _live(archive, data, target, learners, only_tasks, metric, cv, budgets, repe
     if only_tasks:
         fail("--task picks held-out tasks of a replay; it has no meaning with --data")
     learner = learners[0]
-    frame = read_data(data, target)
+    frame = read_data(data, target, keep_columns=keep_columns)
     kind = detect_kind(frame[target])
-    objective = cv_objective(frame, target, learner, metric=metric, kind=kind, cv=cv, seed=seed)
+    objective = cv_objective(frame, target, learner, metric=metric, kind=kind, cv=cv, seed=seed,
+                             keep_columns=keep_columns)
     tasks = archive.tasks()
     same = tasks.loc[tasks["fingerprint"] == fingerprint(frame, target), "task_id"].tolist()
-    prior = archive.build_prior(profile(frame, target=target), learner=learner, space=objective.space,
-                                exclude_tasks=same)
+    prior = archive.build_prior(profile(frame, target=target, keep_columns=keep_columns), learner=learner,
+                                space=objective.space, exclude_tasks=same)
     if not as_json:
         click.echo(f"live: {learner} on {Path(data).name} ({kind}), {cv}-fold {objective.metric}; "
                    + prior.summary(n=3).splitlines()[0]

@@ -14,11 +14,11 @@ import click
 import duckdb
 import numpy as np
 
-from warmstart.cli.common import fail, get_archive, json_option, print_json, read_data
+from warmstart.cli.common import fail, get_archive, json_option, keep_column_option, print_json, read_data
 from warmstart.cli.main import main
 from warmstart.learners import LEARNERS, TASK_KINDS, cv_objective, default_space, metric_direction, METRICS
 from warmstart.objective import CommandObjective, local_pool, score_function, stop_pool
-from warmstart.profile import detect_kind
+from warmstart.profile import detect_kind, profile
 from warmstart.search import DEFAULT_N_SEEDS as DEFAULT_SEEDS, DensitySearch, run_search
 from warmstart.space import Space
 
@@ -85,7 +85,7 @@ def _fmt(score) -> str:
 
 # -- tune -----------------------------------------------------------------------
 def _objective_and_space(data, target, learner, kind, space_path, metric, minimize, command,
-                         cv, seed, time_limit, threads):
+                         cv, seed, time_limit, threads, keep_columns=()):
     """Check every input and build (objective, space, metric, maximize) before
     anything is written to the archive."""
     builtin = learner in LEARNERS
@@ -109,7 +109,7 @@ def _objective_and_space(data, target, learner, kind, space_path, metric, minimi
     if minimize:
         fail("--minimize is for --command objectives; a built-in metric knows its direction")
     objective = cv_objective(data, target, learner, metric=metric, kind=kind, cv=cv, seed=seed,
-                             time_limit=time_limit, space=space, threads=threads)
+                             time_limit=time_limit, space=space, threads=threads, keep_columns=keep_columns)
     return objective, objective.space, objective.metric, objective.maximize
 
 
@@ -137,27 +137,33 @@ def _objective_and_space(data, target, learner, kind, space_path, metric, minimi
               help="Per-trial limit; a trial over it is recorded as failed.")
 @click.option("--task", "task_name", help="Task name in the archive (default: DATA's file name).")
 @click.option("--kind", type=click.Choice(TASK_KINDS), help="Kind of task (default: from the target).")
+@keep_column_option
 @json_option
 @click.pass_context
 def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, cluster, cold, n_seeds, command,
-         minimize, cv, time_limit, task_name, kind, as_json):
+         minimize, cv, time_limit, task_name, kind, keep_columns, as_json):
     """Tune LEARNER on DATA and record every trial in the archive as it finishes.
 
     The study keeps what it finished if the search is interrupted (Ctrl-C).
+    Columns that look like row identifiers are left out of the features and
+    dates written as text count as days (a note names each); --keep-column
+    keeps one as it is.
     """
-    frame = read_data(data, target)
+    frame = read_data(data, target, keep_columns=keep_columns)
     kind = kind or detect_kind(frame[target])
     n_workers = workers or 1
     objective, space, metric, maximize = _objective_and_space(
         frame, target, learner, kind, space_path, metric, minimize, command, cv, seed, time_limit,
-        threads=1,
+        threads=1, keep_columns=keep_columns,
     )
     client = executor = None
     if cluster and budget:
         client, executor, cores = _cluster_executor(cluster)
         n_workers = workers or max(1, cores)
     archive = get_archive(ctx, write=True)
-    task_id = archive.add_task(task_name or Path(data).stem, frame, target, kind=kind, source=str(data))
+    # the task (its fingerprint) is the table as read; its profile sees the features the learner sees
+    prof = profile(frame, target=target, kind=kind, keep_columns=keep_columns) if keep_columns else None
+    task_id = archive.add_task(task_name or Path(data).stem, frame, target, kind=kind, source=str(data), profile=prof)
     search, origin, provenance, note = _start_search(archive, task_id, learner, space, maximize, seed, cold, n_seeds)
     study = archive.add_study(task_id, learner, space, metric=metric, maximize=maximize, origin=origin,
                               prior=provenance)
