@@ -9,17 +9,25 @@ Merge rules (DEVELOPERS.md "Curation" repeats them):
   the summary says so. A matched task whose profile here is missing or of an
   older version takes the source's current-version profile.
 - **Spaces** are matched by (learner, content hash).
-- **Trials**: an incoming trial is *already here* when a trial with the same
-  content key, metric, direction, status and score exists here (the exact
-  duplicate rule of :mod:`warmstart.archive.curate`); exact duplicates inside
-  the source come in once (the earliest).
+- **Same study**: a source study is the same study as one here when task
+  fingerprint, learner, space hash, metric, direction and creation time are
+  equal (an earlier merge of it); equals are paired one to one in id order.
+- **Trials** follow the duplicate rule of :mod:`warmstart.archive.curate`: a
+  copy of *another* study's trial (same content key, metric, direction,
+  status and score) is a duplicate; identical repeats *inside one study* are
+  repeated evaluations and all of them count. So, per trial identity:
+  when a study here holds it, only the earliest such study here (its keeper)
+  can receive more copies, and only from the source study that is the same
+  study, as many as that source study has beyond the keeper's count (a study
+  grown since the last merge); when no study here holds it, every copy in the
+  earliest source study holding it comes in and copies in later source
+  studies do not. Everything else is *already here*. A merge thus adds no
+  duplicate trials, and merging the same archive twice adds nothing.
 - **Studies**: a source study none of whose trials is new is *already here*.
-  A source study with new trials extends the study here that has the same task
-  fingerprint, learner, space hash, metric, direction and creation time (that
-  is an earlier merge of the same study, grown since: its new trials are
-  numbered after the last one here); otherwise it comes in as a new study with
-  ``source_archive`` = the source's archive id, ``merged_at`` = now, and its
-  own trial numbers. Hence merging the same archive twice adds nothing.
+  A source study with new trials extends the same study here (its new trials
+  are numbered after the last one here); otherwise it comes in as a new study
+  with ``source_archive`` = the source's archive id, ``merged_at`` = now, and
+  its own trial numbers.
 
 All of it runs in one transaction on the archive, with DuckDB's ``ATTACH``
 (read-only) of the other file or Parquet scans, and bulk ``INSERT ... SELECT``
@@ -51,8 +59,21 @@ _ORDER = {"tasks": "task_id", "profiles": "task_id, feature", "spaces": "space_i
 _ALIAS = "_warmstart_src"  # catalog name of the attached archive
 MERGE_STEPS = ("tasks", "profiles", "spaces", "trials", "studies", "insert")
 _TRIAL_COLS = "study_id, number, config, score, status, cost_s, started_at, finished_at, error, content_key"
-_IDENTITY = ("e.content_key = i.content_key AND e.metric = i.metric AND e.direction = i.direction "
-             "AND e.status = i.status AND e.score IS NOT DISTINCT FROM i.score")
+_IDENTITY_COLS = "content_key, metric, direction, status, score"  # a trial's identity (with its study's metric)
+_STUDY_IDENTITY = "fingerprint, learner, content_hash, metric, direction, created_at"  # "the same study"
+
+
+def _same_trial(a: str, b: str) -> str:
+    """Join condition: trials ``a`` and ``b`` (relation aliases) are identical."""
+    return (f"{a}.content_key = {b}.content_key AND {a}.metric = {b}.metric AND {a}.direction = {b}.direction "
+            f"AND {a}.status = {b}.status AND {a}.score IS NOT DISTINCT FROM {b}.score")
+
+
+def _studies_with_identity(studies: str, tasks: str, spaces: str) -> str:
+    """Studies with what makes two of them the same study, ranked among equals by id."""
+    return (f"SELECT *, row_number() OVER (PARTITION BY {_STUDY_IDENTITY} ORDER BY study_id) AS nth FROM ("
+            f"SELECT s.study_id, k.fingerprint, s.learner, p.content_hash, s.metric, s.direction, s.created_at "
+            f"FROM {studies} s JOIN {tasks} k ON k.task_id = s.task_id JOIN {spaces} p ON p.space_id = s.space_id)")
 
 
 def _now() -> datetime:
@@ -252,24 +273,51 @@ def _merge(archive: Archive, src: _Source, progress: Callable[[str], None] | Non
             )
 
             step("trials")
-            # Valid source trials (their study, task and space exist there), less
-            # those already here, then exact duplicates among them (earliest kept).
-            # Anti-join first: the window then sorts only what is new.
+            # Valid source trials: their study, task and space exist there.
             con.execute(
                 "CREATE OR REPLACE TEMP TABLE _ws_valid AS SELECT s.study_id, s.metric, s.direction, s.created_at "
                 f"FROM {src.studies} s WHERE s.task_id IN (SELECT task_id FROM {src.tasks}) "
                 f"AND s.space_id IN (SELECT space_id FROM {src.spaces})"
             )
+            # The same study here (an earlier merge of it): equal task fingerprint, learner, space
+            # hash, metric, direction and creation time; equals are paired in id order, one to one.
+            con.execute(
+                "CREATE OR REPLACE TEMP TABLE _ws_same AS "
+                f"SELECT t.study_id AS src_id, h.study_id AS here_id "
+                f"FROM ({_studies_with_identity(src.studies, src.tasks, src.spaces)}) t "
+                f"JOIN ({_studies_with_identity('studies', 'tasks', 'spaces')}) h "
+                f"USING ({_STUDY_IDENTITY}, nth)"
+            )
+            # What comes in (the duplicate rule of curate.py: a copy of another study's trial is a
+            # duplicate, repeats inside one study are repeated evaluations and all stay):
+            # - identities held nowhere here (anti-join first, so the window sorts only those):
+            #   every copy in the earliest source study holding it, none from later ones;
+            # - identities held here: only into the study here that holds them first (the
+            #   keeper), from the source study that is that same study, the copies beyond the
+            #   number the keeper already has (a study grown since the last merge).
             con.execute(
                 "CREATE OR REPLACE TEMP TABLE _ws_incoming AS "
                 f"WITH i AS (SELECT t.study_id, t.number, t.config, t.score, t.status, t.cost_s, t.started_at, "
-                f"t.finished_at, t.error, t.content_key, v.metric, v.direction, v.created_at FROM {src.trials} t "
-                "JOIN _ws_valid v ON v.study_id = t.study_id), "
-                "e AS (SELECT h.content_key, hs.metric, hs.direction, h.status, h.score FROM trials h "
-                "JOIN studies hs ON hs.study_id = h.study_id), "
-                f"n AS (SELECT i.* FROM i ANTI JOIN e ON {_IDENTITY}) "
-                "SELECT * EXCLUDE (created_at) FROM n QUALIFY row_number() OVER "
-                "(PARTITION BY content_key, metric, direction, status, score ORDER BY created_at, study_id, number) = 1"
+                f"t.finished_at, t.error, t.content_key, v.metric, v.direction, v.created_at, m.here_id AS same_id "
+                f"FROM {src.trials} t JOIN _ws_valid v ON v.study_id = t.study_id "
+                "LEFT JOIN _ws_same m ON m.src_id = t.study_id), "
+                "e AS (SELECT h.study_id, hs.created_at, h.content_key, hs.metric, hs.direction, h.status, h.score "
+                "FROM trials h JOIN studies hs ON hs.study_id = h.study_id), "
+                f"fresh AS (SELECT i.* FROM i ANTI JOIN e ON {_same_trial('e', 'i')} "
+                f"QUALIFY study_id = first_value(study_id) OVER (PARTITION BY {_IDENTITY_COLS} "
+                "ORDER BY created_at, study_id)), "
+                "m AS (SELECT * FROM i WHERE same_id IS NOT NULL), "
+                "keeper AS (SELECT e.content_key, e.metric, e.direction, e.status, e.score, e.study_id, "
+                f"count(*) AS have FROM e SEMI JOIN m ON {_same_trial('e', 'm')} "
+                "GROUP BY e.content_key, e.metric, e.direction, e.status, e.score, e.study_id, e.created_at "
+                "QUALIFY row_number() OVER (PARTITION BY e.content_key, e.metric, e.direction, e.status, e.score "
+                "ORDER BY e.created_at, e.study_id) = 1), "
+                f"grown AS (SELECT m.*, k.have FROM m JOIN keeper k ON {_same_trial('k', 'm')} "
+                "AND k.study_id = m.same_id "
+                "QUALIFY row_number() OVER (PARTITION BY m.study_id, m.content_key, m.metric, m.direction, "
+                "m.status, m.score ORDER BY m.number) > k.have) "
+                "SELECT * EXCLUDE (created_at, same_id) FROM fresh "
+                "UNION ALL SELECT * EXCLUDE (created_at, same_id, have) FROM grown"
             )
             n_valid, n_all = _rows(
                 con,
@@ -281,20 +329,12 @@ def _merge(archive: Archive, src: _Source, progress: Callable[[str], None] | Non
             study_map = con.execute(
                 "WITH inc AS (SELECT study_id, count(*) AS n_new FROM _ws_incoming GROUP BY study_id), "
                 f"cnt AS (SELECT study_id, count(*) AS n FROM {src.trials} GROUP BY study_id), "
-                "here AS (SELECT s.study_id, k.fingerprint, s.learner, p.content_hash, s.metric, s.direction, "
-                "s.created_at FROM studies s JOIN tasks k ON k.task_id = s.task_id "
-                "JOIN spaces p ON p.space_id = s.space_id), "
-                "top AS (SELECT study_id, max(number) AS top FROM trials GROUP BY study_id), "
-                "same AS (SELECT s.study_id AS src_id, min(h.study_id) AS here_id "
-                f"FROM {src.studies} s JOIN {src.tasks} k ON k.task_id = s.task_id "
-                f"JOIN {src.spaces} p ON p.space_id = s.space_id JOIN here h ON h.fingerprint = k.fingerprint "
-                "AND h.learner = s.learner AND h.content_hash = p.content_hash AND h.metric = s.metric "
-                "AND h.direction = s.direction AND h.created_at = s.created_at GROUP BY s.study_id) "
+                "top AS (SELECT study_id, max(number) AS top FROM trials GROUP BY study_id) "
                 "SELECT s.study_id AS src_id, coalesce(inc.n_new, 0) AS n_new, coalesce(cnt.n, 0) AS trial_count, "
                 "s.study_id IN (SELECT study_id FROM _ws_valid) AS valid, same.here_id, "
                 "coalesce(top.top, 0) AS base "
                 f"FROM {src.studies} s LEFT JOIN inc ON inc.study_id = s.study_id "
-                "LEFT JOIN cnt ON cnt.study_id = s.study_id LEFT JOIN same ON same.src_id = s.study_id "
+                "LEFT JOIN cnt ON cnt.study_id = s.study_id LEFT JOIN _ws_same same ON same.src_id = s.study_id "
                 "LEFT JOIN top ON top.study_id = same.here_id ORDER BY s.study_id"
             ).df()
             coming = study_map[study_map["valid"] & (study_map["n_new"] > 0)].copy()
@@ -339,6 +379,7 @@ def _merge(archive: Archive, src: _Source, progress: Callable[[str], None] | Non
             trials_new = _rows(con, "SELECT count(*) FROM _ws_incoming")[0][0]
             con.execute("DROP TABLE _ws_incoming")
             con.execute("DROP TABLE _ws_valid")
+            con.execute("DROP TABLE _ws_same")
     except duckdb.Error as exc:
         raise ArchiveError(f"{src.label}: cannot merge ({_first_line(exc)}); nothing was changed") from None
     finally:
