@@ -25,7 +25,7 @@ import duckdb
 import pandas as pd
 import pyarrow.parquet as pq
 import pytest
-from hypothesis import HealthCheck, given, settings
+from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 from test_curate import NASTY_LEARNER, NASTY_TASK, SPACE, add_study, cli, make_data, make_trials
 
@@ -222,14 +222,14 @@ def repeats_inside_studies(multisets) -> int:
     return sum(n - 1 for c in multisets for n in c.values() if n > 1)
 
 
-_trial = st.tuples(st.integers(0, 4), st.sampled_from(SCORES))  # (config of a pool of 5, score)
+_trial = st.tuples(st.integers(0, 7), st.sampled_from(SCORES))  # (config of a pool of 8, score)
 _study = st.fixed_dictionaries({
-    "task": st.integers(0, 2),  # tasks 0-2 hold the same data in both archives
+    "task": st.integers(0, 3),  # tasks 0-3 hold the same data in both archives
     "start": st.integers(0, 3),  # equal start and task: the same study (two sessions' equal keys collide)
     "copy_start": st.integers(0, 7),  # where "copy": the other archive's copy is a separate study
     "where": st.sampled_from(["ours", "theirs", "both", "copy"]),
     "common": st.lists(_trial, max_size=5),
-    "again": st.integers(0, 2),  # the first `again` common trials are evaluated a second time
+    "again": st.integers(0, 3),  # the first `again` common trials are evaluated a second time
     "ours": st.lists(_trial, max_size=3),
     "theirs": st.lists(_trial, max_size=3),
 })
@@ -255,7 +255,7 @@ def _build(archive: Archive, specs: list, side: str, pool: list) -> None:
 @settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(st.lists(_study, max_size=6), st.booleans())
 def test_merge_keeps_repeated_evaluations_and_follows_the_duplicate_rule(specs, via_export):
-    pool = SPACE.sample(5, rng=3)
+    pool = SPACE.sample(8, rng=3)
     with tempfile.TemporaryDirectory() as folder:
         a, b = Path(folder) / "a.duckdb", Path(folder) / "b.duckdb"
         with Archive(b) as other:
@@ -280,6 +280,11 @@ def test_merge_keeps_repeated_evaluations_and_follows_the_duplicate_rule(specs, 
                 sum(c.values()) for _, c in want_new)
             assert summary.trials_new == added and summary.trials_already_here == len(theirs[1]) - added
             assert (summary.studies_new, summary.studies_grown) == (len(want_new), grown)
+            # what the example exercised (pytest --hypothesis-show-statistics)
+            event(f"same studies grown: {min(grown, 1)}")
+            brought = repeats_inside_studies(got.values()) - repeats_inside_studies(per_study(here).values())
+            event(f"repeated evaluations brought in: {min(brought, 1)}")
+            event(f"copies of trials here skipped: {min(summary.trials_already_here, 1)}")
             # curate's own duplicate count is unchanged: a merge adds no copy of another study's trial
             assert count_duplicates(archive) == duplicates_before
             notes = check_archive(archive).notes

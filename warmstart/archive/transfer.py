@@ -289,35 +289,48 @@ def _merge(archive: Archive, src: _Source, progress: Callable[[str], None] | Non
                 f"USING ({_STUDY_IDENTITY}, nth)"
             )
             # What comes in (the duplicate rule of curate.py: a copy of another study's trial is a
-            # duplicate, repeats inside one study are repeated evaluations and all stay):
-            # - identities held nowhere here (anti-join first, so the window sorts only those):
-            #   every copy in the earliest source study holding it, none from later ones;
-            # - identities held here: only into the study here that holds them first (the
-            #   keeper), from the source study that is that same study, the copies beyond the
-            #   number the keeper already has (a study grown since the last merge).
+            # duplicate, repeats inside one study are repeated evaluations and all stay).
+            # 1. Identities held nowhere here (anti-join first, so the window sorts only those):
+            #    every copy in the earliest source study holding it, none from later ones.
             con.execute(
                 "CREATE OR REPLACE TEMP TABLE _ws_incoming AS "
                 f"WITH i AS (SELECT t.study_id, t.number, t.config, t.score, t.status, t.cost_s, t.started_at, "
-                f"t.finished_at, t.error, t.content_key, v.metric, v.direction, v.created_at, m.here_id AS same_id "
-                f"FROM {src.trials} t JOIN _ws_valid v ON v.study_id = t.study_id "
-                "LEFT JOIN _ws_same m ON m.src_id = t.study_id), "
-                "e AS (SELECT h.study_id, hs.created_at, h.content_key, hs.metric, hs.direction, h.status, h.score "
-                "FROM trials h JOIN studies hs ON hs.study_id = h.study_id), "
-                f"fresh AS (SELECT i.* FROM i ANTI JOIN e ON {_same_trial('e', 'i')} "
+                f"t.finished_at, t.error, t.content_key, v.metric, v.direction, v.created_at FROM {src.trials} t "
+                "JOIN _ws_valid v ON v.study_id = t.study_id), "
+                "e AS (SELECT h.content_key, hs.metric, hs.direction, h.status, h.score FROM trials h "
+                "JOIN studies hs ON hs.study_id = h.study_id) "
+                f"SELECT * EXCLUDE (created_at) FROM i ANTI JOIN e ON {_same_trial('e', 'i')} "
                 f"QUALIFY study_id = first_value(study_id) OVER (PARTITION BY {_IDENTITY_COLS} "
-                "ORDER BY created_at, study_id)), "
-                "m AS (SELECT * FROM i WHERE same_id IS NOT NULL), "
-                "keeper AS (SELECT e.content_key, e.metric, e.direction, e.status, e.score, e.study_id, "
-                f"count(*) AS have FROM e SEMI JOIN m ON {_same_trial('e', 'm')} "
-                "GROUP BY e.content_key, e.metric, e.direction, e.status, e.score, e.study_id, e.created_at "
-                "QUALIFY row_number() OVER (PARTITION BY e.content_key, e.metric, e.direction, e.status, e.score "
-                "ORDER BY e.created_at, e.study_id) = 1), "
-                f"grown AS (SELECT m.*, k.have FROM m JOIN keeper k ON {_same_trial('k', 'm')} "
-                "AND k.study_id = m.same_id "
+                "ORDER BY created_at, study_id)"
+            )
+            # 2. Identities held here: only the study here holding them first (the keeper) gains
+            #    copies, from the source study that is that same study, those beyond the number it
+            #    has (a study grown since the last merge). Counts are compared first, so only the
+            #    few identities with more copies there than here are looked at trial by trial.
+            con.execute(
+                "INSERT INTO _ws_incoming "
+                f"WITH m AS NOT MATERIALIZED (SELECT t.study_id, t.number, t.config, t.score, t.status, t.cost_s, "
+                "t.started_at, t.finished_at, t.error, t.content_key, v.metric, v.direction, p.here_id AS same_id "
+                f"FROM {src.trials} t JOIN _ws_valid v ON v.study_id = t.study_id "
+                "JOIN _ws_same p ON p.src_id = t.study_id), "
+                "e AS NOT MATERIALIZED (SELECT h.study_id, hs.created_at, h.content_key, hs.metric, hs.direction, "
+                "h.status, h.score FROM trials h JOIN studies hs ON hs.study_id = h.study_id), "
+                f"there AS (SELECT study_id, same_id, {_IDENTITY_COLS}, count(*) AS n FROM m "
+                f"GROUP BY study_id, same_id, {_IDENTITY_COLS}), "
+                f"here AS (SELECT study_id, {_IDENTITY_COLS}, count(*) AS have FROM e "
+                f"WHERE study_id IN (SELECT here_id FROM _ws_same) GROUP BY study_id, {_IDENTITY_COLS}), "
+                "more AS (SELECT there.*, here.have, s.created_at FROM there JOIN here "
+                f"ON here.study_id = there.same_id AND {_same_trial('here', 'there')} "
+                "JOIN studies s ON s.study_id = there.same_id WHERE there.n > here.have), "
+                "earlier AS (SELECT DISTINCT more.study_id, more.content_key, more.metric, more.direction, "
+                f"more.status, more.score FROM more JOIN e ON {_same_trial('e', 'more')} "
+                "AND (e.created_at < more.created_at OR (e.created_at = more.created_at AND e.study_id < more.same_id))), "
+                f"kept AS (SELECT * FROM more ANTI JOIN earlier ON earlier.study_id = more.study_id "
+                f"AND {_same_trial('earlier', 'more')}) "
+                "SELECT m.* EXCLUDE (same_id) FROM m JOIN kept k ON k.study_id = m.study_id "
+                f"AND {_same_trial('k', 'm')} "
                 "QUALIFY row_number() OVER (PARTITION BY m.study_id, m.content_key, m.metric, m.direction, "
-                "m.status, m.score ORDER BY m.number) > k.have) "
-                "SELECT * EXCLUDE (created_at, same_id) FROM fresh "
-                "UNION ALL SELECT * EXCLUDE (created_at, same_id, have) FROM grown"
+                "m.status, m.score ORDER BY m.number) > k.have"
             )
             n_valid, n_all = _rows(
                 con,
