@@ -324,7 +324,7 @@ def _merge(archive: Archive, src: _Source, progress: Callable[[str], None] | Non
                 "JOIN studies s ON s.study_id = there.same_id WHERE there.n > here.have), "
                 "earlier AS (SELECT DISTINCT more.study_id, more.content_key, more.metric, more.direction, "
                 f"more.status, more.score FROM more JOIN e ON {_same_trial('e', 'more')} "
-                "AND (e.created_at < more.created_at OR (e.created_at = more.created_at AND e.study_id < more.same_id))), "
+                "AND (e.created_at, e.study_id) < (more.created_at, more.same_id)), "
                 f"kept AS (SELECT * FROM more ANTI JOIN earlier ON earlier.study_id = more.study_id "
                 f"AND {_same_trial('earlier', 'more')}) "
                 "SELECT m.* EXCLUDE (same_id) FROM m JOIN kept k ON k.study_id = m.study_id "
