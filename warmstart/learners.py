@@ -17,6 +17,7 @@ from memory). They are starting points: pass a space file to change them.
 
 from __future__ import annotations
 
+import copy
 import math
 import time
 import warnings
@@ -27,6 +28,7 @@ import numpy as np
 import pandas as pd
 from pandas.api import types as ptypes
 
+from warmstart.deadline import StoppableRunner
 from warmstart.objective import ObjectiveError, TrialResult, _check_limit, _error_text, _now
 from warmstart.profile import detect_kind
 from warmstart.space import Space
@@ -433,12 +435,13 @@ class CVObjective:
     in the metric's natural units (``rmse`` is a positive error; see
     :func:`metric_direction`).
 
-    The time limit is checked after every fold: once the elapsed time passes
-    it, the remaining folds are skipped and the trial is failed. A single
-    fold is never interrupted, so a trial overruns its limit by at most one
-    fold (iterative estimators are bounded: ``mlp`` by ``max_iter``, ``svm``
-    by a cap on libsvm iterations). For a hard wall-clock limit, run the
-    training as a command (:class:`~warmstart.objective.CommandObjective`).
+    With a time limit, each trial runs in a child process (see
+    :mod:`warmstart.deadline`) that is stopped when the limit passes, even in
+    the middle of a fit; the trial is then failed with an error naming the
+    limit and the fold it was stopped in, and the scores of folds already
+    finished are not used. The child receives the objective once and serves
+    the following trials; a stopped one is replaced at the next trial.
+    :meth:`close` stops it. Without a time limit trials run in this process.
     Warnings (convergence and others) are silenced inside a trial.
 
     The features are the table's other columns as
@@ -523,6 +526,7 @@ class CVObjective:
         self.seed = seed
         self.time_limit = _check_limit(time_limit)
         self.threads = threads
+        self._runner: StoppableRunner | None = None
 
     def __call__(self, config: Mapping) -> TrialResult:
         started_at, started = _now(), time.perf_counter()
@@ -530,24 +534,76 @@ class CVObjective:
             config = self.space.normalize(config)
         except Exception as exc:
             return TrialResult.failed(_error_text(exc), started, started_at)
+        if self.time_limit is not None:
+            return self._call_limited(config)
+        try:
+            scores = self.fold_scores(config)
+        except Exception as exc:  # a failed trial; the search goes on
+            return TrialResult.failed(_error_text(exc), started, started_at)
+        cost = time.perf_counter() - started
+        return TrialResult(float(np.mean(scores)), "ok", cost, None, started_at, _now(), tuple(scores))
+
+    def fold_scores(self, config: dict, report: Callable[[int], None] | None = None) -> list[float]:
+        """The per-fold scores of a normalized config, in this process.
+
+        Parameters
+        ----------
+        config : dict
+            A config already normalized by the space (``space.normalize``).
+        report : callable, optional
+            Called with the fold's index (from 0) before each fold.
+
+        Raises
+        ------
+        Exception
+            Whatever the fit or the scorer raises; ObjectiveError for a
+            non-finite fold score.
+        """
         scores: list[float] = []
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            try:
-                with _thread_limit(self.threads):
-                    for k, (train, test) in enumerate(self.folds):
-                        scores.append(self._fold(config, train, test, k))
-                        elapsed = time.perf_counter() - started
-                        if self.time_limit is not None and elapsed > self.time_limit:
-                            return TrialResult.failed(
-                                f"trial exceeded its time limit of {self.time_limit:g} s "
-                                f"({elapsed:.1f} s after {k + 1} of {len(self.folds)} folds)",
-                                started, started_at,
-                            )
-            except Exception as exc:  # a failed trial; the search goes on
-                return TrialResult.failed(_error_text(exc), started, started_at)
-        cost = time.perf_counter() - started
-        return TrialResult(float(np.mean(scores)), "ok", cost, None, started_at, _now(), tuple(scores))
+            with _thread_limit(self.threads):
+                for k, (train, test) in enumerate(self.folds):
+                    if report is not None:
+                        report(k)
+                    scores.append(self._fold(config, train, test, k))
+        return scores
+
+    def _call_limited(self, config: dict) -> TrialResult:
+        """Evaluate in a child process that is stopped when the time limit passes."""
+        if self._runner is None:
+            # the job is a copy without the runner (same arrays), so no cycle keeps the runner alive
+            self._runner = StoppableRunner(copy.copy(self).fold_scores)
+        outcome = self._runner.run(config, self.time_limit)
+        n_folds = len(self.folds)
+        where = ("before its first fold" if outcome.stage is None
+                 else f"during fold {outcome.stage + 1} of {n_folds}")
+        if outcome.status == "done":
+            scores = outcome.value
+            cost = time.perf_counter() - outcome.started
+            return TrialResult(float(np.mean(scores)), "ok", cost, None, outcome.started_at, _now(), tuple(scores))
+        if outcome.status == "timeout":
+            error = f"trial exceeded its time limit of {self.time_limit:g} s (stopped {where})"
+        elif outcome.status == "ended" and outcome.stage is not None:
+            error = f"{outcome.error} ({where})"
+        else:
+            error = outcome.error
+        return TrialResult.failed(error, outcome.started, outcome.started_at)
+
+    def close(self) -> None:
+        """Stop the child process that evaluates trials under a time limit (if any).
+
+        It also stops when the objective is garbage-collected or the
+        interpreter exits; a later call starts a new one.
+        """
+        if self._runner is not None:
+            self._runner.close()
+            self._runner = None
+
+    def __getstate__(self) -> dict:
+        state = self.__dict__.copy()
+        state["_runner"] = None  # processes stay with their owner; a copy starts its own
+        return state
 
     def _fold(self, config: dict, train: np.ndarray, test: np.ndarray, k: int) -> float:
         from sklearn.metrics import get_scorer
@@ -616,7 +672,9 @@ def cv_objective(frame: pd.DataFrame, target: str, learner: str, metric: str | N
     seed : int, default 0
         Seed of the folds and of the estimators.
     time_limit : float, optional
-        Seconds per trial, checked between folds (see :class:`CVObjective`).
+        Seconds per trial. A trial still running when the limit passes is
+        stopped (its child process is terminated) and recorded as failed
+        (see :class:`CVObjective`).
     space : Space, optional
         The space configs come from; default the learner's default space.
         Its parameter names must be tunable parameters of the learner.

@@ -23,7 +23,6 @@ from __future__ import annotations
 import concurrent.futures as cf
 import json
 import math
-import multiprocessing
 import os
 import shlex
 import shutil
@@ -35,6 +34,7 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any, Callable, Mapping, Sequence
 
+from warmstart.deadline import STOP_WAIT_S, child_context
 from warmstart.errors import WarmstartError
 
 __all__ = [
@@ -379,8 +379,6 @@ def _kill(proc: subprocess.Popen) -> None:
 
 # -- local worker processes ------------------------------------------------------
 _INSTALLED: Any = None  # the objective inside a worker process
-_PRELOAD = ["warmstart.learners", "sklearn.ensemble", "sklearn.svm", "sklearn.neighbors",
-            "sklearn.linear_model", "sklearn.neural_network", "sklearn.pipeline", "sklearn.compose"]
 
 
 def _install(objective: Any) -> None:
@@ -389,11 +387,16 @@ def _install(objective: Any) -> None:
     _INSTALLED = objective
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     # stop_pool terminates workers: end the running trial as an exception so a
-    # command objective kills its command instead of leaving it behind
+    # command objective kills its command and a time limit's trial process stops
     signal.signal(signal.SIGTERM, _exit_on_term)
 
 
+_TERMINATED = False  # set in a worker by SIGTERM
+
+
 def _exit_on_term(signum: int, frame: Any) -> None:
+    global _TERMINATED
+    _TERMINATED = True
     raise SystemExit(128 + signum)
 
 
@@ -401,7 +404,19 @@ class _Installed:
     """Picklable stand-in for the objective installed in each worker."""
 
     def __call__(self, config: Mapping) -> Any:
-        return _INSTALLED(config)
+        try:
+            return _INSTALLED(config)
+        finally:
+            if _TERMINATED:
+                # concurrent.futures catches the SystemExit of a task and would keep this
+                # worker waiting for work, an orphan if the parent is gone: exit once the
+                # trial has cleaned up
+                try:
+                    close = getattr(_INSTALLED, "close", None)
+                    if close is not None:
+                        close()
+                finally:
+                    os._exit(128 + signal.SIGTERM)
 
 
 def local_pool(n_workers: int, objective: Callable) -> tuple[cf.ProcessPoolExecutor, Callable]:
@@ -413,12 +428,12 @@ def local_pool(n_workers: int, objective: Callable) -> tuple[cf.ProcessPoolExecu
     none) that has imported scikit-learn once: forking this process, which
     may have run OpenMP code already, could hang the children. Workers
     ignore Ctrl-C, which the parent handles (see :func:`stop_pool`).
+
+    The workers are not daemonic, so an objective with a time limit can
+    start its trial process inside them (:mod:`warmstart.deadline`); a
+    worker stops that process when it is terminated or exits.
     """
-    if "forkserver" in multiprocessing.get_all_start_methods():
-        context = multiprocessing.get_context("forkserver")
-        context.set_forkserver_preload(_PRELOAD)
-    else:  # pragma: no cover - platforms without fork
-        context = multiprocessing.get_context("spawn")
+    context = child_context()
     pool = cf.ProcessPoolExecutor(
         max_workers=n_workers,
         mp_context=context,
@@ -429,8 +444,20 @@ def local_pool(n_workers: int, objective: Callable) -> tuple[cf.ProcessPoolExecu
 
 
 def stop_pool(pool: cf.ProcessPoolExecutor) -> None:
-    """Drop queued work and stop the workers of a :func:`local_pool` now."""
+    """Drop queued work and stop the workers of a :func:`local_pool` now.
+
+    Each worker is terminated (its running trial ends, and with it a
+    command or a trial process it started), then joined; one that has not
+    exited after a few seconds is killed.
+    """
+    # concurrent.futures has no public way to end running tasks before 3.14; take the
+    # workers before shutdown(), which drops the executor's reference to them
+    workers = list((getattr(pool, "_processes", None) or {}).values())
     pool.shutdown(wait=False, cancel_futures=True)
-    # concurrent.futures has no public way to end running tasks before 3.14
-    for proc in list((getattr(pool, "_processes", None) or {}).values()):
+    for proc in workers:
         proc.terminate()
+    for proc in workers:  # a worker stops its trial process (up to STOP_WAIT_S) before it exits
+        proc.join(2 * STOP_WAIT_S + 1.0)
+        if proc.is_alive():
+            proc.kill()
+            proc.join()

@@ -210,6 +210,8 @@ def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, 
                 pool.shutdown(wait=True)
             if client is not None:
                 client.close()
+            if hasattr(objective, "close"):  # the trial process of a time limit (learners.CVObjective)
+                objective.close()
     if not interrupted:
         archive.finish_study(study)
     _report(archive, study, search, counts, interrupted, as_json, budget, errors)
