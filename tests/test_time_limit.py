@@ -155,6 +155,13 @@ def test_ctrl_c_during_a_run_stops_the_child_and_passes_through():
         runner.close()
 
 
+def test_a_job_that_cannot_be_sent_is_a_failed_run_not_a_crash():
+    runner = StoppableRunner(lambda payload, report: 1)  # a lambda does not pickle
+    outcome = runner.run({}, limit=60)
+    assert outcome.status == "ended" and outcome.error.startswith("the trial process could not start: ")
+    assert "pickle" in outcome.error.lower()
+
+
 def _runner_in_daemon() -> tuple:
     runner = StoppableRunner(_job)
     outcome = runner.run({}, limit=60)

@@ -146,6 +146,10 @@ class _Child:
         self.owner = os.getpid()
         try:
             self.proc.start()
+        except BaseException:
+            self.conn.close()
+            self.alive.close()
+            raise
         finally:  # only the child keeps these ends, so its death reads as EOF here
             child_conn.close()
             alive_r.close()
@@ -233,7 +237,10 @@ class StoppableRunner:
             return ("a time limit needs a child process, and this process is daemonic (a "
                     "multiprocessing.Pool worker), which cannot start one; run trials in "
                     "concurrent.futures.ProcessPoolExecutor workers or without a time limit")
-        child = _Child(self.context, self.job)
+        try:
+            child = _Child(self.context, self.job)
+        except Exception as exc:  # e.g. a job that cannot be pickled
+            return f"the trial process could not start: {_error_text(exc)}"
         try:
             why = child.wait_ready(START_TIMEOUT_S)
         except BaseException:  # Ctrl-C while it starts
