@@ -475,12 +475,12 @@ def test_a_merge_interrupted_at_any_step_leaves_the_archive_as_it_was(pair, fail
         assert merge_archive(archive, b).trials_new == 18  # the connection is still usable
 
 
-def test_an_import_failing_in_its_last_statement_leaves_the_archive_as_it_was(pair, varied, tmp_path):
+def test_an_import_with_a_value_the_archive_refuses_names_file_column_and_value(pair, varied, tmp_path):
     out = tmp_path / "store"
     with Archive(varied, read_only=True) as archive:
         export_archive(archive, out)
-    # a trial file edited by hand: one status the archive refuses (its CHECK constraint),
-    # found only when the trials are inserted, after tasks, spaces and studies
+    # a trial file edited by hand: one status the archive's CHECK constraint refuses; it is named
+    # before anything is inserted (rollback at every later step: the interrupted-merge test above)
     part = sorted((out / "trials").rglob("*.parquet"))[0]
     con = duckdb.connect()
     con.execute("COPY (SELECT * REPLACE (CASE WHEN number = 1 THEN 'lost' ELSE status END AS status) "
@@ -491,6 +491,27 @@ def test_an_import_failing_in_its_last_statement_leaves_the_archive_as_it_was(pa
     a, _ = pair
     with Archive(a) as archive:
         before = archive_digest(archive)
-        with pytest.raises(ArchiveError, match=r"store: cannot merge \(.*CHECK.*\); nothing was changed"):
+        with pytest.raises(ArchiveError, match=r"trials: column 'status' holds 'lost' on 1 row\(s\); valid values "
+                                               r"are \['ok', 'failed'\]; nothing was changed"):
+            import_export(archive, out)
+        assert archive_digest(archive) == before
+
+
+def test_an_import_with_a_required_value_missing_names_file_and_column(pair, varied, tmp_path):
+    # the schema (schema_v1.sql) makes a study's metric NOT NULL; an edited export without it is
+    # refused by name before anything is inserted
+    out = tmp_path / "store"
+    with Archive(varied, read_only=True) as archive:
+        export_archive(archive, out)
+    con = duckdb.connect()
+    con.execute("COPY (SELECT * REPLACE (CAST(NULL AS VARCHAR) AS metric) FROM read_parquet(?)) TO ? (FORMAT parquet)",
+                [str(out / "studies.parquet"), str(tmp_path / "edited.parquet")])
+    con.close()
+    shutil.move(tmp_path / "edited.parquet", out / "studies.parquet")
+    a, _ = pair
+    with Archive(a) as archive:
+        before = archive_digest(archive)
+        with pytest.raises(ArchiveError, match=r"studies.parquet: column 'metric' is empty on \d+ row\(s\); "
+                                               r"every study needs it; nothing was changed"):
             import_export(archive, out)
         assert archive_digest(archive) == before

@@ -652,6 +652,43 @@ def _columns(con: duckdb.DuckDBPyConnection, table: str) -> list[str]:
     return [d[0] for d in con.execute(f"SELECT * FROM {table} LIMIT 0").description]
 
 
+# values the schema's CHECK constraints allow (schema_v1.sql)
+_ALLOWED = {
+    ("tasks", "kind"): ("classification", "regression"),
+    ("studies", "direction"): ("maximize", "minimize"),
+    ("studies", "origin"): ("cold", "warm", "imported"),
+    ("trials", "status"): ("ok", "failed"),
+}
+
+
+_ROW_NAME = {"tasks": "task", "profiles": "profile value", "spaces": "space", "studies": "study", "trials": "trial"}
+
+
+def _check_rows(con: duckdb.DuckDBPyConnection, table: str, name: str, where: Path) -> None:
+    """Refuse, naming the file, column and value, what the archive's constraints
+    would refuse only when the rows are inserted (missing required values and
+    values outside a CHECK list); ``table`` is one of ours, ``name`` a
+    registered relation."""
+    required = [r[0] for r in con.execute(
+        "SELECT column_name FROM information_schema.columns WHERE table_name = ? AND is_nullable = 'NO' "
+        "AND table_schema = current_schema() ORDER BY ordinal_position", [table]).fetchall()]
+    for column in required:
+        n = con.execute(f'SELECT count(*) FROM {name} WHERE "{column}" IS NULL').fetchall()[0][0]
+        if n:
+            raise ArchiveError(f"{where}: column {column!r} is empty on {n} row(s); every {_ROW_NAME.get(table, 'row')} needs it; "
+                               "nothing was changed")
+    for (tab, column), allowed in _ALLOWED.items():
+        if tab != table:
+            continue
+        bad = con.execute(
+            f'SELECT "{column}", count(*) FROM {name} WHERE "{column}" IS NOT NULL '
+            f'AND NOT list_contains(?, "{column}") GROUP BY 1 ORDER BY 2 DESC LIMIT 1', [list(allowed)]).fetchall()
+        if bad:
+            bad = bad[0]
+            raise ArchiveError(f"{where}: column {column!r} holds {bad[0]!r} on {bad[1]} row(s); valid values are "
+                               f"{list(allowed)}; nothing was changed")
+
+
 def import_export(archive: Archive, directory: str | Path, progress: Callable[[str], None] | None = None) -> MergeSummary:
     """Import a store written by :func:`export_archive`: a merge, same rules.
 
@@ -708,6 +745,7 @@ def import_export(archive: Archive, directory: str | Path, progress: Callable[[s
             con.register(name, rel)
             registered.append(name)
             relations[table] = name
+            _check_rows(con, table, name, where)
         src = _Source(relations, manifest["archive_id"], str(d))
         return _merge(archive, src, progress)
     finally:

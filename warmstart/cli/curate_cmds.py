@@ -155,9 +155,10 @@ def _summary(summary, as_json: bool) -> None:
 def merge(ctx, other, as_json):
     """Merge the archive file OTHER (a teammate's) into this one.
 
-    Tasks are matched by dataset fingerprint, spaces by learner and content,
-    trials and studies deduplicated; one transaction; OTHER is only read.
-    Merging the same archive twice adds nothing.
+    Tasks are matched by dataset fingerprint, spaces by learner and content.
+    A trial that copies a study's trial here is skipped; repeated evaluations
+    inside one study are kept. One transaction; OTHER is only read. Merging
+    the same archive twice adds nothing.
     """
     archive = get_archive(ctx, write=True)
     with _steps("merging", not as_json) as progress:
