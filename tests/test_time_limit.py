@@ -12,11 +12,13 @@ in its first fold. No test asserts how long anything took.
 
 from __future__ import annotations
 
+import concurrent.futures as cf
 import contextlib
 import json
 import multiprocessing
 import os
 import signal
+import threading
 import time
 from concurrent.futures.process import BrokenProcessPool
 from pathlib import Path
@@ -150,6 +152,26 @@ def test_ctrl_c_during_a_run_stops_the_child_and_passes_through():
         pid = runner.run({}, limit=60).value
         with pytest.raises(KeyboardInterrupt):
             runner.run({"interrupt": os.getpid(), "sleep": 600}, limit=600)
+        assert _gone(pid)
+    finally:
+        runner.close()
+
+
+def test_ctrl_c_caught_by_another_thread_still_stops_the_run():
+    # A terminal's Ctrl-C is a process-wide signal; the kernel may hand it to any thread (DuckDB,
+    # BLAS and pool threads run beside the main one). Python raises KeyboardInterrupt in the main
+    # thread only when that thread next runs Python code, so a run must not block in one long
+    # wait: here the signal goes to a helper thread while the run waits on a 60 s limit.
+    runner = StoppableRunner(_job)
+    try:
+        pid = runner.run({}, limit=60).value
+        timer = threading.Timer(0.5, lambda: signal.pthread_kill(threading.get_ident(), signal.SIGINT))
+        started = time.perf_counter()
+        timer.start()
+        with pytest.raises(KeyboardInterrupt):
+            runner.run({"sleep": 600}, limit=60)
+        timer.join()
+        assert time.perf_counter() - started < 30, "Ctrl-C waited for the time limit"
         assert _gone(pid)
     finally:
         runner.close()
@@ -381,3 +403,22 @@ def test_ctrl_c_during_a_limited_trial_keeps_the_finished_ones(tmp_path, iris, m
     with Archive(tmp_path / "a.duckdb", read_only=True) as archive:
         assert len(archive.trials(1)) == 2
         assert pd.isna(archive.study(1)["finished_at"])
+
+
+def _sleep_then(value):
+    time.sleep(value)
+    return value
+
+
+def test_waiting_on_workers_notices_a_ctrl_c_caught_by_another_thread():
+    # the same for the loop that waits on worker processes (run_search and map_jobs use wait_first)
+    from warmstart.parallel import wait_first
+
+    with cf.ThreadPoolExecutor(1) as pool:
+        future = pool.submit(_sleep_then, 3)
+        timer = threading.Timer(0.3, lambda: signal.pthread_kill(threading.get_ident(), signal.SIGINT))
+        timer.start()
+        with pytest.raises(KeyboardInterrupt):
+            wait_first({future})
+        timer.join()
+        assert not future.done(), "Ctrl-C waited for the job to end"

@@ -35,6 +35,21 @@ __all__ = ["RunOutcome", "StoppableRunner", "child_context"]
 START_TIMEOUT_S = 120.0
 #: seconds a terminated child gets to exit before it is killed
 STOP_WAIT_S = 2.0
+#: longest single wait on a child: Ctrl-C may reach another thread of this process, and Python
+#: runs its handler (KeyboardInterrupt) only when the main thread next runs Python code
+_TICK_S = 0.2
+
+
+def _wait(objects: list, timeout: float) -> list:
+    """``multiprocessing.connection.wait`` in slices of at most ``_TICK_S``, so a
+    pending Ctrl-C is raised within a fraction of a second."""
+    deadline = time.perf_counter() + timeout
+    while True:
+        remaining = deadline - time.perf_counter()
+        ready = mpc.wait(objects, max(0.0, min(remaining, _TICK_S)))
+        if ready or remaining <= _TICK_S:
+            return ready
+
 
 # imported once by the fork server, so children start without importing them
 _PRELOAD = ["warmstart.learners", "sklearn.ensemble", "sklearn.svm", "sklearn.neighbors",
@@ -156,7 +171,7 @@ class _Child:
 
     def wait_ready(self, timeout: float) -> str | None:
         """None once the child is ready; otherwise why it is not (and it is stopped)."""
-        ready = mpc.wait([self.conn, self.proc.sentinel], timeout)
+        ready = _wait([self.conn, self.proc.sentinel], timeout)
         if self.conn in ready:
             try:
                 kind, _ = self.conn.recv()
@@ -278,7 +293,9 @@ class StoppableRunner:
                 remaining = deadline - time.perf_counter()
                 if remaining <= 0:
                     return RunOutcome("timeout", stage=stage, started=started, started_at=started_at)
-                ready = mpc.wait([child.conn, child.proc.sentinel], remaining)
+                ready = mpc.wait([child.conn, child.proc.sentinel], min(remaining, _TICK_S))
+                if not ready:
+                    continue
                 if child.conn in ready:  # messages first: the child may have answered, then ended
                     try:
                         kind, value = child.conn.recv()

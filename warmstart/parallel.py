@@ -5,7 +5,24 @@ from __future__ import annotations
 import concurrent.futures as cf
 from typing import Any, Callable, Sequence
 
-__all__ = ["map_jobs"]
+__all__ = ["map_jobs", "wait_first"]
+
+#: longest single wait on futures: Ctrl-C may reach another thread of this process (the pool's
+#: own threads), and Python raises KeyboardInterrupt only when the main thread next runs
+_TICK_S = 0.2
+
+
+def wait_first(futures) -> set:
+    """The futures of ``futures`` that are done, waiting until at least one is.
+
+    ``concurrent.futures.wait(..., FIRST_COMPLETED)`` in slices of at most
+    0.2 s, so a Ctrl-C that reached another thread is raised within a
+    fraction of a second rather than when a job ends.
+    """
+    while True:
+        finished, _ = cf.wait(futures, timeout=_TICK_S, return_when=cf.FIRST_COMPLETED)
+        if finished or not futures:
+            return finished
 
 
 def map_jobs(
@@ -42,11 +59,14 @@ def map_jobs(
     if workers > 1 and len(jobs) > 1:
         with cf.ProcessPoolExecutor(max_workers=workers) as pool:
             futures = {pool.submit(fn, job): i for i, job in enumerate(jobs)}
-            for fut in cf.as_completed(futures):
-                results[futures[fut]] = fut.result()
-                done += 1
-                if progress:
-                    progress(done, total)
+            pending = set(futures)
+            while pending:
+                for fut in wait_first(pending):
+                    pending.discard(fut)
+                    results[futures[fut]] = fut.result()
+                    done += 1
+                    if progress:
+                        progress(done, total)
         return results
     for i, job in enumerate(jobs):
         results[i] = fn(job)

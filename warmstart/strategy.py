@@ -22,6 +22,7 @@ import numpy as np
 import pandas as pd
 
 from warmstart.errors import WarmstartError
+from warmstart.parallel import wait_first
 from warmstart.space import Space
 
 __all__ = ["SearchError", "Trial", "SearchStrategy", "SearchResult", "run_search"]
@@ -433,7 +434,7 @@ def run_search(
                 for config in strategy.propose(free):
                     running[pool.submit(_evaluate, objective, config)] = (submitted, config)
                     submitted += 1
-            finished, _ = cf.wait(running, return_when=cf.FIRST_COMPLETED)
+            finished = wait_first(running)
             for fut in sorted(finished, key=lambda f: running[f][0]):
                 _, config = running.pop(fut)
                 finish(config, fut.result())
