@@ -16,7 +16,7 @@ re-evaluates recorded configs with ``warmstart.learners.cv_objective`` (the
 full pipeline) and finds the same scores. Metric: balanced accuracy for
 classification, R² for regression; both are maximised.
 
-Run (about an hour and a half with 2 workers)::
+Run (about two and a half hours with 2 workers; see archive/starter/README.md per learner)::
 
     python examples/build_starter_history.py               # everything
     python examples/build_starter_history.py --learner gbt     # (re)build one learner's studies, keep the rest
@@ -48,10 +48,11 @@ from warmstart.tables import feature_frame
 
 ROOT = Path(__file__).resolve().parent.parent
 # svm and knn are cheap and their hyperparameters matter a lot; gbt has the largest default
-# space (six parameters), where a cold search has the most ground to cover in ten queries
-LEARNERS = ("svm", "knn", "gbt")
-CONFIGS = {"svm": 96, "knn": 128, "gbt": 64}  # configs per study (gbt fits cost the most, so it gets fewest)
-DESIGN_SEED = {"svm": 20260301, "knn": 20260302, "gbt": 20260303}
+# space (six parameters), where a cold search has the most ground to cover in ten queries; forest
+# (random forest, five parameters) is the model teams reach for first
+LEARNERS = ("svm", "knn", "gbt", "forest")
+CONFIGS = {"svm": 96, "knn": 128, "gbt": 64, "forest": 64}  # configs per study (tree ensembles cost the most)
+DESIGN_SEED = {"svm": 20260301, "knn": 20260302, "gbt": 20260303, "forest": 20260304}
 METRICS = {"classification": "balanced_accuracy", "regression": "r2"}
 CV_FOLDS, CV_SEED = 5, 0
 MAX_ROWS, SUBSAMPLE_SEED = 800, 0  # keeps the slowest SVR configs to seconds
@@ -328,6 +329,8 @@ def _weight(recipe: Recipe, learner: str, n_rows: int, n_configs: int, n_feature
     if learner == "gbt":  # trees: linear in rows and features, one tree per class and round
         classes = n_classes if n_classes and n_classes > 2 else 1
         return 40.0 * n_configs * n_rows * math.sqrt(max(n_features, 1)) * classes
+    if learner == "forest":  # up to 300 deep trees on bootstrap samples, all classes in one tree
+        return 60.0 * n_configs * n_rows * math.sqrt(max(n_features, 1))
     factor = {("svm", R): 5.0, ("svm", C): 1.5}.get((learner, recipe.kind), 1.0)
     return factor * n_configs * n_rows**1.5
 
@@ -451,6 +454,10 @@ def main(argv: list[str] | None = None) -> None:
     if unknown:
         parser.error(f"--redo: no task named {unknown}; tasks are {[r.name for r in RECIPES]}")
     out = Path(args.out)
+    if (args.profiles_only or args.learner) and not (out / "trials.parquet").exists():
+        parser.error(f"{'--profiles-only' if args.profiles_only else '--learner'} keeps the trials already in "
+                     f"{out / 'trials.parquet'}, which does not exist; build everything first (no --learner) "
+                     "or copy a starter history into --out")
     out.mkdir(parents=True, exist_ok=True)
     recipes = [r for r in RECIPES if args.only is None or r.name in args.only]
     started = time.perf_counter()

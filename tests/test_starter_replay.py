@@ -10,7 +10,7 @@ from warmstart.archive import Archive
 from warmstart.replay import leave_one_task_out
 from warmstart.starter import load_starter
 
-LEARNERS = ("svm", "knn", "gbt")  # every learner of the shipped history
+LEARNERS = ("svm", "knn", "gbt", "forest")  # every learner of the shipped history
 
 
 @pytest.fixture(scope="module")
