@@ -74,6 +74,16 @@ log = true
 """
 
 
+@pytest.fixture(autouse=True)
+def ctrl_c_raises():
+    """Python's own Ctrl-C handler for each test: a shell that starts a command in the background
+    (``cmd &`` without job control) makes it ignore SIGINT, and Python then installs no handler,
+    so the Ctrl-C tests here would wait for their trials instead of seeing KeyboardInterrupt."""
+    previous = signal.signal(signal.SIGINT, signal.default_int_handler)
+    yield
+    signal.signal(signal.SIGINT, previous)
+
+
 @pytest.fixture(scope="module")
 def slow_frame() -> pd.DataFrame:
     X, y = make_classification(n_samples=5000, n_features=20, flip_y=0.2, random_state=0)
