@@ -427,6 +427,16 @@ def settings(sizes: dict[str, int], time_limit: float, minutes: dict[str, float]
     }
 
 
+def _in_recipe_order(trials: pd.DataFrame) -> pd.DataFrame:
+    """Trials sorted by task (order of ``RECIPES``), learner (order of ``LEARNERS``) and number."""
+    order = {r.name: i for i, r in enumerate(RECIPES)}
+    learner_order = {learner: i for i, learner in enumerate(LEARNERS)}
+    trials = trials.sort_values(
+        ["task", "learner", "number"],
+        key=lambda s: s.map(order) if s.name == "task" else s.map(learner_order) if s.name == "learner" else s)
+    return trials.reset_index(drop=True)
+
+
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--out", default=str(ROOT / "archive" / "starter"), help="output directory")
@@ -481,12 +491,7 @@ def main(argv: list[str] | None = None) -> None:
         fresh = pd.DataFrame([row for rows in run_jobs(jobs, args.jobs, "trials") for row in rows])
         stale = kept["task"].isin(args.redo) & kept["learner"].isin(chosen)
         trials = pd.concat([kept[~stale], fresh], ignore_index=True)
-        order = {r.name: i for i, r in enumerate(RECIPES)}
-        learner_order = {learner: i for i, learner in enumerate(LEARNERS)}
-        trials = trials.sort_values(
-            ["task", "learner", "number"],
-            key=lambda s: s.map(order) if s.name == "task" else s.map(learner_order) if s.name == "learner" else s)
-        trials = trials.reset_index(drop=True)
+        trials = _in_recipe_order(trials)
         sizes = {learner: sizes[learner] for learner in LEARNERS if learner in sizes}
         args.time_limit = last["time_limit_s"]
         trials.to_parquet(out / "trials.parquet", index=False, compression="zstd")
@@ -510,12 +515,7 @@ def main(argv: list[str] | None = None) -> None:
             minutes = {k: v for k, v in minutes.items() if k not in chosen}
         else:
             sizes, minutes = new_sizes, {}
-        order = {r.name: i for i, r in enumerate(RECIPES)}
-        learner_order = {learner: i for i, learner in enumerate(LEARNERS)}
-        trials = trials.sort_values(
-            ["task", "learner", "number"],
-            key=lambda s: s.map(order) if s.name == "task" else s.map(learner_order) if s.name == "learner" else s)
-        trials = trials.reset_index(drop=True)
+        trials = _in_recipe_order(trials)
         minutes["+".join(chosen)] = (time.perf_counter() - started) / 60
         trials.to_parquet(out / "trials.parquet", index=False, compression="zstd")
     tasks.to_parquet(out / "tasks.parquet", index=False, compression="zstd")

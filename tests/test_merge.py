@@ -475,43 +475,40 @@ def test_a_merge_interrupted_at_any_step_leaves_the_archive_as_it_was(pair, fail
         assert merge_archive(archive, b).trials_new == 18  # the connection is still usable
 
 
-def test_an_import_with_a_value_the_archive_refuses_names_file_column_and_value(pair, varied, tmp_path):
+def _import_edited(pair, varied, tmp_path, file_of, select: str, message: str) -> None:
+    """Export ``varied``, rewrite one of its Parquet files through ``select`` (on ``read_parquet``),
+    and check that importing it into the first archive of ``pair`` fails with ``message`` and
+    changes nothing."""
     out = tmp_path / "store"
     with Archive(varied, read_only=True) as archive:
         export_archive(archive, out)
-    # a trial file edited by hand: one status the archive's CHECK constraint refuses; it is named
-    # before anything is inserted (rollback at every later step: the interrupted-merge test above)
-    part = sorted((out / "trials").rglob("*.parquet"))[0]
+    part = file_of(out)
     con = duckdb.connect()
-    con.execute("COPY (SELECT * REPLACE (CASE WHEN number = 1 THEN 'lost' ELSE status END AS status) "
-                "FROM read_parquet(?, hive_partitioning = false)) TO ? (FORMAT parquet)",
+    con.execute(f"COPY ({select} FROM read_parquet(?, hive_partitioning = false)) TO ? (FORMAT parquet)",
                 [str(part), str(tmp_path / "edited.parquet")])
     con.close()
     shutil.move(tmp_path / "edited.parquet", part)
     a, _ = pair
     with Archive(a) as archive:
         before = archive_digest(archive)
-        with pytest.raises(ArchiveError, match=r"trials: column 'status' holds 'lost' on 1 row\(s\); valid values "
-                                               r"are \['ok', 'failed'\]; nothing was changed"):
+        with pytest.raises(ArchiveError, match=message):
             import_export(archive, out)
         assert archive_digest(archive) == before
+
+
+def test_an_import_with_a_value_the_archive_refuses_names_file_column_and_value(pair, varied, tmp_path):
+    # a trial file edited by hand: one status the archive's CHECK constraint refuses; it is named
+    # before anything is inserted (rollback at every later step: the interrupted-merge test above)
+    _import_edited(pair, varied, tmp_path, lambda out: sorted((out / "trials").rglob("*.parquet"))[0],
+                   "SELECT * REPLACE (CASE WHEN number = 1 THEN 'lost' ELSE status END AS status)",
+                   r"trials: column 'status' holds 'lost' on 1 row\(s\); valid values are \['ok', 'failed'\]; "
+                   r"nothing was changed")
 
 
 def test_an_import_with_a_required_value_missing_names_file_and_column(pair, varied, tmp_path):
     # the schema (schema_v1.sql) makes a study's metric NOT NULL; an edited export without it is
     # refused by name before anything is inserted
-    out = tmp_path / "store"
-    with Archive(varied, read_only=True) as archive:
-        export_archive(archive, out)
-    con = duckdb.connect()
-    con.execute("COPY (SELECT * REPLACE (CAST(NULL AS VARCHAR) AS metric) FROM read_parquet(?)) TO ? (FORMAT parquet)",
-                [str(out / "studies.parquet"), str(tmp_path / "edited.parquet")])
-    con.close()
-    shutil.move(tmp_path / "edited.parquet", out / "studies.parquet")
-    a, _ = pair
-    with Archive(a) as archive:
-        before = archive_digest(archive)
-        with pytest.raises(ArchiveError, match=r"studies.parquet: column 'metric' is empty on \d+ row\(s\); "
-                                               r"every study needs it; nothing was changed"):
-            import_export(archive, out)
-        assert archive_digest(archive) == before
+    _import_edited(pair, varied, tmp_path, lambda out: out / "studies.parquet",
+                   "SELECT * REPLACE (CAST(NULL AS VARCHAR) AS metric)",
+                   r"studies.parquet: column 'metric' is empty on \d+ row\(s\); every study needs it; "
+                   r"nothing was changed")
