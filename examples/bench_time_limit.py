@@ -42,9 +42,9 @@ def _timed(objective, configs) -> tuple[float, list]:
     return time.perf_counter() - started, results
 
 
-def overhead(n_trials: int, repeats: int) -> None:
+def overhead(trial_count: int, repeats: int) -> None:
     iris = load_iris(as_frame=True).frame
-    configs = default_space("knn", "classification").sample(n_trials, rng=np.random.default_rng(0))
+    configs = default_space("knn", "classification").sample(trial_count, rng=np.random.default_rng(0))
     plain = cv_objective(iris, "target", "knn", cv=5, seed=0)
     limited = cv_objective(iris, "target", "knn", cv=5, seed=0, time_limit=300)
     plain(configs[0])  # imports and first-call costs out of the figures
@@ -64,11 +64,11 @@ def overhead(n_trials: int, repeats: int) -> None:
     restart_s = time.perf_counter() - started
     limited.close()
     a, b = statistics.median(without), statistics.median(with_limit)
-    print(f"{n_trials} knn trials on iris (5-fold CV), median of {repeats} runs")
-    _row("without a limit (this process)", f"{a:7.3f} s  {1000 * a / n_trials:7.2f} ms/trial")
-    _row("with a limit (child process)", f"{b:7.3f} s  {1000 * b / n_trials:7.2f} ms/trial")
+    print(f"{trial_count} knn trials on iris (5-fold CV), median of {repeats} runs")
+    _row("without a limit (this process)", f"{a:7.3f} s  {1000 * a / trial_count:7.2f} ms/trial")
+    _row("with a limit (child process)", f"{b:7.3f} s  {1000 * b / trial_count:7.2f} ms/trial")
     _row("ratio with/without", f"{b / a:7.2f}")
-    _row("extra per trial", f"{1000 * (b - a) / n_trials:7.2f} ms")
+    _row("extra per trial", f"{1000 * (b - a) / trial_count:7.2f} ms")
     _row("first trial: fork server and child process start", f"{start_s:7.3f} s")
     _row("first trial after a stop: a new child process", f"{restart_s:7.3f} s")
     _row("same scores with and without", str(same))
