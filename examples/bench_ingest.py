@@ -41,7 +41,7 @@ import pandas as pd
 from warmstart.archive import Archive
 from warmstart.archive.ingest import prepare_trials
 from warmstart.space import Space
-from warmstart.tables import read_table
+from warmstart.data.read import read_table
 
 SPACE = Space.from_dict({"params": {
     "learning_rate": {"type": "real", "low": 1e-3, "high": 0.5, "log": True},

@@ -30,11 +30,11 @@ import time
 
 import numpy as np
 
-from warmstart.baselines import GPSearch, NelderMeadSearch, RandomSearch, SobolSearch
+from warmstart.search.baselines import GPSearch, NelderMeadSearch, RandomSearch, SobolSearch
 from warmstart.progress import Progress
-from warmstart.search import DensitySearch, run_search
+from warmstart.search.density import DensitySearch, run_search
 from warmstart.space import Space
-from warmstart.testfunctions import benchmark_functions
+from warmstart.search.testfunctions import benchmark_functions
 
 METHODS = {
     "density": DensitySearch,
@@ -63,8 +63,8 @@ def problem(name: str):
             import pandas as pd
             from sklearn import datasets
 
-            from warmstart.learners import cv_objective
-            from warmstart.objective import score_function
+            from warmstart.evaluate.learners import cv_objective
+            from warmstart.evaluate.objective import score_function
 
             loader, learner, metric = REAL[name]
             data = getattr(datasets, loader)(as_frame=True)

@@ -1,7 +1,7 @@
 """Benchmark: what a per-trial time limit costs, and how promptly it stops a trial.
 
 A time limit makes the cross-validated objective run each trial in a child
-process that can be stopped (``warmstart.deadline``). This prints
+process that can be stopped (``warmstart.evaluate.deadline``). This prints
 
 1. the time of the same 20 knn configs (5-fold CV on scikit-learn's bundled
    iris data) without a limit (in this process) and with a generous limit
@@ -26,7 +26,7 @@ import numpy as np
 import pandas as pd
 from sklearn.datasets import load_iris, make_classification
 
-from warmstart.learners import cv_objective, default_space
+from warmstart.evaluate.learners import cv_objective, default_space
 
 SLOW_MLP = {"n_layers": 2, "width_1": 256, "width_2": 256, "activation": "relu", "alpha": 1e-6,
             "learning_rate_init": 1e-3}

@@ -9,10 +9,10 @@ and ship inside packages, offline: scikit-learn's bundled loaders and the
 ``MAX_ROWS`` rows with a fixed seed.
 
 Scores are the mean over folds of scikit-learn's scorers (``get_scorer``) on
-the pipeline of ``warmstart.learners.build_estimator``, fold by fold as
+the pipeline of ``warmstart.evaluate.learners.build_estimator``, fold by fold as
 scikit-learn's ``cross_val_score`` does; the preprocessing step, which does
 not depend on the config, is fitted once per fold. tests/test_starter.py
-re-evaluates recorded configs with ``warmstart.learners.cv_objective`` (the
+re-evaluates recorded configs with ``warmstart.evaluate.learners.cv_objective`` (the
 full pipeline) and finds the same scores. Metric: balanced accuracy for
 classification, R² for regression; both are maximised.
 
@@ -41,10 +41,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from warmstart.learners import build_estimator, default_space, prepare_features
+from warmstart.evaluate.learners import build_estimator, default_space, prepare_features
 from warmstart.profile import PROFILE_VERSION, detect_kind, profile
 from warmstart.starter import PROFILE_PREFIX, load_dataset
-from warmstart.tables import feature_frame
+from warmstart.data.features import feature_frame
 
 ROOT = Path(__file__).resolve().parent.parent
 # svm and knn are cheap and their hyperparameters matter a lot; gbt has the largest default
@@ -182,7 +182,7 @@ def load(recipe: Recipe) -> pd.DataFrame:
 
 
 def folds_and_data(recipe: Recipe):
-    """Features, target and the task's fixed folds, as warmstart.learners.cv_objective makes them."""
+    """Features, target and the task's fixed folds, as warmstart.evaluate.learners.cv_objective makes them."""
     from pandas.api import types as ptypes
     from sklearn.model_selection import KFold, StratifiedKFold
 
@@ -213,7 +213,7 @@ def prepared_folds(recipe: Recipe, learner: str):
     on the config, so it is fitted once per fold instead of once per config
     and fold; the model step then sees exactly what the full pipeline feeds
     it. tests/test_starter.py checks recorded scores against the full
-    pipeline of warmstart.learners.cv_objective.
+    pipeline of warmstart.evaluate.learners.cv_objective.
     """
     from sklearn.base import clone
 
@@ -233,7 +233,7 @@ def prepared_folds(recipe: Recipe, learner: str):
 def evaluate(recipe: Recipe, learner: str, configs: list[dict], time_limit: float) -> list[dict]:
     """Cross-validated scores of every config on one task (one worker).
 
-    Like warmstart.learners.cv_objective, a trial that has run longer than
+    Like warmstart.evaluate.learners.cv_objective, a trial that has run longer than
     ``time_limit`` seconds after a fold stops there and is recorded as failed.
     """
     from sklearn.metrics import get_scorer
@@ -351,7 +351,7 @@ def write_readme(out: Path, tasks: pd.DataFrame, trials: pd.DataFrame, sizes: di
         "",
         f"- {len(tasks)} tasks ({int((tasks['kind'] == C).sum())} classification, "
         f"{int((tasks['kind'] == R).sum())} regression), each studied with every learner below.",
-        f"- Learners: {', '.join(sizes)} (built-in learners of `warmstart.learners`, default spaces, "
+        f"- Learners: {', '.join(sizes)} (built-in learners of `warmstart.evaluate.learners`, default spaces, "
         "recorded in `spaces.json`).",
         f"- Configs per study: {', '.join(f'{k} {v}' for k, v in sizes.items())}; one scrambled Sobol design per learner (`scipy.stats.qmc.Sobol`, "
         "seeds in `spaces.json`), the same configs on every task of that learner. For `svm` the design",

@@ -16,7 +16,6 @@ from __future__ import annotations
 
 import json
 
-import pandas as pd
 import pytest
 from click.testing import CliRunner
 from conftest import dump_tables
@@ -24,7 +23,7 @@ from conftest import dump_tables
 from warmstart.archive import Archive
 from warmstart.archive.ingest import SCORE_BOUNDS, metric_bounds
 from warmstart.cli import main
-from warmstart.learners import METRICS
+from warmstart.evaluate.learners import METRICS
 
 TRIALS = (
     "C,tol,n_trees,depth,kernel,degree,score\n"

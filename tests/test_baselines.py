@@ -10,14 +10,14 @@ from scipy import integrate, optimize, stats
 from scipy.stats import qmc
 from threadpoolctl import threadpool_limits
 
-from warmstart.baselines import (
+from warmstart.search.baselines import (
     GPSearch,
     NelderMeadSearch,
     RandomSearch,
     SobolSearch,
     expected_improvement,
 )
-from warmstart.search import SearchError, run_search
+from warmstart.search.density import SearchError, run_search
 from warmstart.space import Space
 
 UNIT2 = Space.from_dict({"params": {"a": {"type": "real", "low": 0.0, "high": 1.0},

@@ -1,5 +1,5 @@
 """Identifier columns and dates written as text in the features a profile and a
-learner see (``warmstart.tables.feature_frame``), through the library and the
+learner see (``warmstart.data.read.feature_frame``), through the library and the
 commands (``--keep-column``).
 
 Data: scikit-learn's bundled wine (UCI wine recognition) and diabetes tables,
@@ -23,10 +23,11 @@ from sklearn.datasets import load_diabetes, load_wine
 from warmstart.archive.store import Archive, fingerprint
 from warmstart.cli import main
 from warmstart.errors import ProfileError
-from warmstart.learners import cv_objective
-from warmstart.objective import ObjectiveError
+from warmstart.evaluate.learners import cv_objective
+from warmstart.evaluate.objective import ObjectiveError
 from warmstart.profile import profile
-from warmstart.tables import EPOCH, TableError, feature_frame, read_table, suspect_columns
+from warmstart.data.features import EPOCH, feature_frame, suspect_columns
+from warmstart.data.read import TableError, read_table
 
 KNN = {"n_neighbors": 7, "weights": "uniform", "p": 2}
 

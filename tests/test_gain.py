@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 from scipy.stats import wilcoxon
 
-from warmstart.gain import (
+from warmstart.gain.bits import (
     GainError,
     Runs,
     bits,

@@ -15,7 +15,7 @@ from warmstart.archive import Archive
 from warmstart.archive.ingest import prepare_trials
 from warmstart.errors import IngestError, WarmstartError
 from warmstart.space import Space
-from warmstart.tables import read_table
+from warmstart.data.read import read_table
 
 HEADER = "C,tol,n_trees,depth,kernel,degree,score"
 GOOD = ["1.0,0.1,100,3,rbf,,0.8", "0.5,0.2,50,2,poly,3,0.7", "20,0.3,10,8,linear,,0.6"]

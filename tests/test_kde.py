@@ -1,4 +1,4 @@
-"""Tests of warmstart.kde against SciPy and scikit-learn references."""
+"""Tests of warmstart.search.kde against SciPy and scikit-learn references."""
 
 import math
 
@@ -10,7 +10,7 @@ from scipy import integrate, stats
 from scipy.special import logsumexp
 from sklearn.neighbors import KernelDensity
 
-from warmstart.kde import KDEError, MixedKDE, log_sum_exp, uniform_logpdf
+from warmstart.search.kde import KDEError, MixedKDE, log_sum_exp, uniform_logpdf
 from warmstart.space import Space
 
 

@@ -22,7 +22,7 @@ from sklearn.neural_network import MLPClassifier
 from sklearn.pipeline import make_pipeline
 from sklearn.preprocessing import StandardScaler
 
-from warmstart.learners import (
+from warmstart.evaluate.learners import (
     LEARNERS,
     METRICS,
     build_estimator,
@@ -33,7 +33,7 @@ from warmstart.learners import (
     metric_direction,
     prepare_features,
 )
-from warmstart.objective import ObjectiveError
+from warmstart.evaluate.objective import ObjectiveError
 from warmstart.space import Space
 
 

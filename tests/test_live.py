@@ -15,10 +15,10 @@ from sklearn.datasets import load_iris, load_wine
 
 from warmstart.archive import Archive
 from warmstart.cli import main
-from warmstart.learners import cv_objective
-from warmstart.live import live_gain
+from warmstart.evaluate.learners import cv_objective
+from warmstart.gain.live import live_gain
 from warmstart.prior import Source, prior_from_sources, within_study_quantiles
-from warmstart.testfunctions import branin
+from warmstart.search.testfunctions import branin
 
 
 def _branin_prior(f, n=512):

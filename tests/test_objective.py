@@ -16,7 +16,7 @@ from pathlib import Path
 
 import pytest
 
-from warmstart.objective import (
+from warmstart.evaluate.objective import (
     CallableObjective,
     CommandObjective,
     ObjectiveError,

@@ -5,12 +5,11 @@ import json
 import math
 
 import numpy as np
-import pandas as pd
 import pytest
 
-from warmstart.gain import in_target, target_threshold
+from warmstart.gain.bits import in_target, target_threshold
 from warmstart.prior import Prior, PriorError, Source, prior_from_sources, within_study_quantiles
-from warmstart.search import DensitySearch
+from warmstart.search.density import DensitySearch
 from warmstart.space import Space
 
 SPACE = Space.from_dict({"params": {

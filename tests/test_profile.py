@@ -37,7 +37,7 @@ from warmstart.profile import (
     entropy_and_mutual_info,
     profile,
 )
-from warmstart.tables import suspect_columns
+from warmstart.data.features import suspect_columns
 
 BUNDLED = ["iris", "wine", "breast_cancer", "digits"]
 

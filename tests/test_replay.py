@@ -11,7 +11,7 @@ from click.testing import CliRunner
 from warmstart.archive import Archive
 from warmstart.cli import main
 from warmstart.prior import Prior
-from warmstart.replay import ReplayObjective, leave_one_task_out, replay_tasks
+from warmstart.gain.replay import ReplayObjective, leave_one_task_out, replay_tasks
 from warmstart.space import Space
 
 SPACE = Space.from_dict({"params": {
@@ -127,9 +127,9 @@ def test_gain_bad_input(archive_path, args, message):
 
 
 def test_hindsight_rates_of_a_past_task_identical_to_the_held_out_one():
-    from warmstart.gain import target_threshold
+    from warmstart.gain.bits import target_threshold
     from warmstart.prior import Source, prior_from_sources, within_study_quantiles
-    from warmstart.replay import ReplayTask, hindsight_rates
+    from warmstart.gain.replay import ReplayTask, hindsight_rates
 
     configs = SPACE.sobol(40, 3)
     X = SPACE.encode(configs)

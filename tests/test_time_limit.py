@@ -32,9 +32,9 @@ from sklearn.model_selection import cross_val_score
 
 from warmstart.archive.store import Archive
 from warmstart.cli import main
-from warmstart.deadline import StoppableRunner, child_context
-from warmstart.learners import CVObjective, build_estimator, cv_objective
-from warmstart.objective import local_pool, stop_pool
+from warmstart.evaluate.deadline import StoppableRunner, child_context
+from warmstart.evaluate.learners import CVObjective, build_estimator, cv_objective
+from warmstart.evaluate.objective import local_pool, stop_pool
 
 pytestmark = pytest.mark.usefixtures("one_blas_thread")
 
@@ -422,7 +422,7 @@ def _sleep_then(value):
 
 def test_waiting_on_workers_notices_a_ctrl_c_caught_by_another_thread():
     # the same for the loop that waits on worker processes (run_search and map_jobs use wait_first)
-    from warmstart.parallel import wait_first
+    from warmstart.evaluate.workers import wait_first
 
     with cf.ThreadPoolExecutor(1) as pool:
         future = pool.submit(_sleep_then, 3)

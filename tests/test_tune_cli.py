@@ -25,7 +25,7 @@ from sklearn.preprocessing import StandardScaler
 
 from warmstart.archive import Archive
 from warmstart.cli import main
-from warmstart.objective import TrialResult
+from warmstart.evaluate.objective import TrialResult
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
 

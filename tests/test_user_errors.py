@@ -15,8 +15,8 @@ from sklearn.datasets import load_diabetes, load_iris, load_wine
 from warmstart.archive import Archive
 from warmstart.cli import main
 from warmstart.errors import WarmstartError
-from warmstart.gain import MIN_RUNS, Runs, compare, interval_text, queries_text
-from warmstart.learners import cv_objective
+from warmstart.gain.bits import MIN_RUNS, Runs, compare, interval_text, queries_text
+from warmstart.evaluate.learners import cv_objective
 from warmstart.space import Space
 
 

@@ -2,7 +2,6 @@
 
 import json
 
-import pandas as pd
 from click.testing import CliRunner
 from sklearn.datasets import load_breast_cancer, load_iris, load_wine
 

@@ -36,7 +36,7 @@ from warmstart.similarity import ProfileIndex, rank_agreement  # noqa: E402
 
 __all__ += ["PROFILE_VERSION", "ProfileIndex", "detect_kind", "profile", "rank_agreement"]
 
-from warmstart.learners import (  # noqa: E402
+from warmstart.evaluate.learners import (  # noqa: E402
     LEARNERS,
     METRICS,
     CVObjective,
@@ -48,7 +48,7 @@ from warmstart.learners import (  # noqa: E402
     get_learner,
     metric_direction,
 )
-from warmstart.objective import (  # noqa: E402
+from warmstart.evaluate.objective import (  # noqa: E402
     CallableObjective,
     CommandObjective,
     ObjectiveError,
@@ -67,17 +67,17 @@ from warmstart.starter import StarterError, StarterLoad, load_starter, read_star
 
 __all__ += ["StarterError", "StarterLoad", "load_starter", "read_starter"]
 
-from warmstart.baselines import (  # noqa: E402
+from warmstart.search.baselines import (  # noqa: E402
     GPSearch,
     NelderMeadSearch,
     RandomSearch,
     SobolSearch,
     expected_improvement,
 )
-from warmstart.kde import KDEError, MixedKDE  # noqa: E402
-from warmstart.search import DensitySearch  # noqa: E402
-from warmstart.strategy import SearchError, SearchResult, SearchStrategy, Trial, run_search  # noqa: E402
-from warmstart.testfunctions import (  # noqa: E402
+from warmstart.search.kde import KDEError, MixedKDE  # noqa: E402
+from warmstart.search.density import DensitySearch  # noqa: E402
+from warmstart.search.strategy import SearchError, SearchResult, SearchStrategy, Trial, run_search  # noqa: E402
+from warmstart.search.testfunctions import (  # noqa: E402
     BenchmarkFunction,
     benchmark_functions,
     branin,
@@ -102,11 +102,11 @@ __all__ += [
 ]
 
 from warmstart.archive import Archive  # noqa: E402
-from warmstart.gain import PooledGain, Runs, TaskGain, bits, bits_interval, compare, pool, target_threshold  # noqa: E402
-from warmstart.live import LiveResult, live_gain  # noqa: E402
+from warmstart.gain.bits import PooledGain, Runs, TaskGain, bits, bits_interval, compare, pool, target_threshold  # noqa: E402
+from warmstart.gain.live import LiveResult, live_gain  # noqa: E402
 from warmstart.prior import Prior, PriorError, Source, prior_from_sources  # noqa: E402
-from warmstart.replay import ReplayObjective, ReplayResult, leave_one_task_out  # noqa: E402
-from warmstart.sources import build_prior, load_sources  # noqa: E402
+from warmstart.gain.replay import ReplayObjective, ReplayResult, leave_one_task_out  # noqa: E402
+from warmstart.archive.sources import build_prior, load_sources  # noqa: E402
 
 __all__ += [
     "Archive", "LiveResult", "PooledGain", "Prior", "PriorError", "ReplayObjective", "ReplayResult", "Runs",

@@ -28,8 +28,8 @@ import click
 import numpy as np
 import pandas as pd
 
-from warmstart.gain import interval_text, queries_text
-from warmstart.parallel import map_jobs
+from warmstart.gain.bits import interval_text, queries_text
+from warmstart.evaluate.workers import map_jobs
 from warmstart.progress import Progress
 
 __all__ = ["StoreTraits", "store_traits", "store_table", "demo_space", "run_demo", "ORGANISATION"]
@@ -112,7 +112,7 @@ def store_table(traits: StoreTraits, seed: int = 7) -> pd.DataFrame:
 def demo_space(learner: str = "svm"):
     """The space the demo tunes: the learner's default space, except for
     ``svm``, whose C range stops at 2**10 so no demo config trains for long."""
-    from warmstart.learners import default_space
+    from warmstart.evaluate.learners import default_space
     from warmstart.space import Space
 
     space = default_space(learner, "classification")
@@ -125,7 +125,7 @@ def demo_space(learner: str = "svm"):
 
 def _history_study(args):
     """Evaluate a Sobol design of the learner on one store (runs in a worker)."""
-    from warmstart.learners import cv_objective
+    from warmstart.evaluate.learners import cv_objective
 
     frame, learner, configs, seed = args
     objective = cv_objective(frame, "lapsed", learner, metric="balanced_accuracy", cv=3, seed=seed)
@@ -173,11 +173,11 @@ def run_demo(
         The figures printed: live gain, replay pooled gain, paths.
     """
     from warmstart.archive import Archive
-    from warmstart.learners import cv_objective
-    from warmstart.live import live_gain
+    from warmstart.evaluate.learners import cv_objective
+    from warmstart.gain.live import live_gain
     from warmstart.profile import profile
-    from warmstart.replay import leave_one_task_out
-    from warmstart.report import write_report
+    from warmstart.gain.replay import leave_one_task_out
+    from warmstart.gain.report import write_report
 
     started = time.monotonic()
     out = Path(out_dir)

@@ -11,7 +11,7 @@ How a prior is built (DESIGN §6):
    contribute: with no clearly closer task the prior tends to what is good
    across all tasks);
 4. the top fraction of each source become kernel centres weighted by
-   similarity x quality, in a :class:`~warmstart.kde.MixedKDE` whose
+   similarity x quality, in a :class:`~warmstart.search.kde.MixedKDE` whose
    bandwidths follow the spread of the centres;
 5. the strength ``n0`` is the effective number of sources times how much
    they agree (rank correlation of their predicted quantiles).
@@ -34,7 +34,7 @@ import numpy as np
 from scipy.stats import rankdata
 
 from warmstart.errors import WarmstartError
-from warmstart.kde import MixedKDE
+from warmstart.search.kde import MixedKDE
 from warmstart.space import Space, unit_distances
 
 __all__ = ["Prior", "PriorError", "Source", "prior_from_sources", "within_study_quantiles", "unit_distances"]

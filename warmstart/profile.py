@@ -34,7 +34,8 @@ import pandas as pd
 from pandas.api import types as ptypes
 
 from warmstart.errors import ProfileError
-from warmstart.tables import TableError, column_not_found, feature_frame
+from warmstart.data.features import feature_frame
+from warmstart.data.read import TableError, column_not_found
 
 __all__ = [
     "PROFILE_VERSION",
@@ -127,7 +128,7 @@ def profile(
     ----------
     frame : pandas.DataFrame
         The dataset, target column included. The features are the other
-        columns as :func:`warmstart.tables.feature_frame` gives them:
+        columns as :func:`warmstart.data.read.feature_frame` gives them:
         identifier columns left out, dates written as text as days since
         1970-01-01.
     target : str
@@ -172,7 +173,7 @@ def profile(
 
 
 def _features(frame: pd.DataFrame, target: str, keep_columns) -> pd.DataFrame:
-    """The table as :func:`warmstart.tables.feature_frame` gives it, with
+    """The table as :func:`warmstart.data.read.feature_frame` gives it, with
     profile errors for what it refuses."""
     _check_input(frame, target)  # type, emptiness, target column: the messages of the table as given
     try:

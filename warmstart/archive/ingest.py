@@ -24,13 +24,13 @@ __all__ = ["prepare_trials", "EXTRA_COLUMNS", "param_columns", "metric_bounds", 
 EXTRA_COLUMNS = ("score", "status", "cost_s", "started_at", "finished_at", "error")
 _STATUS = ("ok", "failed")
 
-#: Range of values each built-in metric (``warmstart.learners.METRICS``) can
+#: Range of values each built-in metric (``warmstart.evaluate.learners.METRICS``) can
 #: take, as (low, high); None = unbounded on that side. Source: the metric
 #: definitions in scikit-learn's documentation (User Guide, "Metrics and
 #: scoring"): accuracy, balanced accuracy, ROC AUC and F1 are shares in
 #: [0, 1]; R² is at most 1 (arbitrarily negative for a bad model); log loss,
 #: RMSE and MAE are non-negative. Scores are stored in natural units (an
-#: error is positive), as :class:`warmstart.learners.CVObjective` reports them.
+#: error is positive), as :class:`warmstart.evaluate.learners.CVObjective` reports them.
 SCORE_BOUNDS: dict[str, tuple[float | None, float | None]] = {
     "accuracy": (0.0, 1.0),
     "balanced_accuracy": (0.0, 1.0),
@@ -74,7 +74,7 @@ def _describe_range(low: float, high: float) -> str:
 def study_direction(metric: str, minimize: bool | None) -> bool:
     """Whether a new study of ``metric`` maximises its score.
 
-    A built-in metric (``warmstart.learners.METRICS``) knows its direction; a
+    A built-in metric (``warmstart.evaluate.learners.METRICS``) knows its direction; a
     flag that contradicts it is refused. A custom metric name follows the
     flag (default: higher is better).
 
@@ -95,7 +95,7 @@ def study_direction(metric: str, minimize: bool | None) -> bool:
     IngestError
         When ``minimize`` contradicts a built-in metric's direction.
     """
-    from warmstart.learners import METRICS, metric_direction
+    from warmstart.evaluate.learners import METRICS, metric_direction
 
     if metric not in METRICS:
         return True if minimize is None else not minimize

@@ -646,7 +646,7 @@ class Archive:
     def build_prior(self, prof: Mapping[str, float], learner: str, space: Space, **options: Any):
         """Build a :class:`~warmstart.prior.Prior` for ``learner`` over ``space``
         from the studies of tasks similar to ``prof``."""
-        from warmstart.sources import build_prior
+        from warmstart.archive.sources import build_prior
 
         return build_prior(self, prof, learner=learner, space=space, **options)
 

@@ -8,11 +8,10 @@ from pathlib import Path
 import click
 import pandas as pd
 
-from warmstart.archive.store import Archive
 from warmstart.cli.common import fail, get_archive, json_option, keep_column_option, print_json, print_table, read_data
 from warmstart.cli.main import main
 from warmstart.space import Space
-from warmstart.tables import read_table
+from warmstart.data.read import read_table
 
 
 def _parse_tags(values: tuple[str, ...]) -> dict[str, str]:
@@ -56,7 +55,7 @@ def _load_space(space_path: str | None, learner: str, data: pd.DataFrame, target
     if space_path:
         return Space.load(space_path)
     try:
-        from warmstart.learners import default_space
+        from warmstart.evaluate.learners import default_space
         from warmstart.profile import detect_kind
     except ImportError:  # pragma: no cover - learners arrive with the search issue
         fail(f"--space is required for learner {learner!r}")

@@ -121,11 +121,12 @@ def read_data(path: str, target: str | None = None, echo_notes: bool = True, kee
     ``--keep-column`` name the table lacks stops the command with the
     closest column name suggested. With a target, every feature column that
     profiles and learners will leave out or convert
-    (:func:`warmstart.tables.feature_frame`) gets a note saying so and how
+    (:func:`warmstart.data.read.feature_frame`) gets a note saying so and how
     to keep it. The table is returned as read: the task's fingerprint is
     computed on it.
     """
-    from warmstart.tables import column_not_found, feature_frame, read_table
+    from warmstart.data.features import feature_frame
+    from warmstart.data.read import column_not_found, read_table
 
     frame = read_table(path)
     if echo_notes:

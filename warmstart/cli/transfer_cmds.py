@@ -6,7 +6,7 @@ import click
 
 from warmstart.cli.common import fail, get_archive, json_option, keep_column_option, print_json, print_table, read_data
 from warmstart.cli.main import main
-from warmstart.gain import interval_text, queries_text
+from warmstart.gain.bits import interval_text, queries_text
 from warmstart.progress import Progress
 
 
@@ -26,7 +26,7 @@ def resolve_space(space_path, learner: str, kind: str):
 
     if space_path:
         return Space.load(space_path)
-    from warmstart.learners import default_space
+    from warmstart.evaluate.learners import default_space
 
     return default_space(learner, kind)
 
@@ -102,7 +102,7 @@ def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, only_tasks, 
     cold searches train and cross-validate L on FILE, --repeats times each
     (every model is trained for real: start with --repeats 5).
     """
-    from warmstart.replay import leave_one_task_out
+    from warmstart.gain.replay import leave_one_task_out
 
     budgets = _budgets(budget_text)
     archive = get_archive(ctx, write=False)
@@ -146,8 +146,8 @@ def _live(archive, data, target, learners, only_tasks, metric, cv, budgets, repe
     from pathlib import Path
 
     from warmstart.archive.store import fingerprint
-    from warmstart.learners import cv_objective
-    from warmstart.live import live_gain
+    from warmstart.evaluate.learners import cv_objective
+    from warmstart.gain.live import live_gain
     from warmstart.profile import detect_kind, profile
 
     if not data or not target:
@@ -182,10 +182,10 @@ def _live(archive, data, target, learners, only_tasks, metric, cv, budgets, repe
 
 def _show(results, gamma, report_path, as_json) -> None:
     """Print (table or JSON) and optionally report gain results of a replay or a live run."""
-    from warmstart.replay import HINDSIGHT
+    from warmstart.gain.replay import HINDSIGHT
 
     if report_path:
-        from warmstart.report import write_report
+        from warmstart.gain.report import write_report
 
         write_report(results, report_path, notes=_noise_notes(results))
     if as_json:

@@ -16,10 +16,10 @@ import numpy as np
 
 from warmstart.cli.common import fail, get_archive, json_option, keep_column_option, print_json, read_data
 from warmstart.cli.main import main
-from warmstart.learners import LEARNERS, TASK_KINDS, cv_objective, default_space, metric_direction, METRICS
-from warmstart.objective import CommandObjective, local_pool, score_function, stop_pool
+from warmstart.evaluate.learners import LEARNERS, TASK_KINDS, cv_objective, default_space, metric_direction, METRICS
+from warmstart.evaluate.objective import CommandObjective, local_pool, score_function, stop_pool
 from warmstart.profile import detect_kind, profile
-from warmstart.search import DEFAULT_N_SEEDS as DEFAULT_SEEDS, DensitySearch, run_search
+from warmstart.search.density import DEFAULT_N_SEEDS as DEFAULT_SEEDS, DensitySearch, run_search
 from warmstart.space import Space
 
 

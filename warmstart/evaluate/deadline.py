@@ -52,7 +52,7 @@ def _wait(objects: list, timeout: float) -> list:
 
 
 # imported once by the fork server, so children start without importing them
-_PRELOAD = ["warmstart.learners", "sklearn.ensemble", "sklearn.svm", "sklearn.neighbors",
+_PRELOAD = ["warmstart.evaluate.learners", "sklearn.ensemble", "sklearn.svm", "sklearn.neighbors",
             "sklearn.linear_model", "sklearn.neural_network", "sklearn.pipeline", "sklearn.compose",
             "sklearn.metrics"]
 

@@ -12,7 +12,7 @@ result type and the two external objectives:
     wraps a Python function that returns a number or a dict with ``score``.
 
 The cross-validated objective of the built-in learners lives in
-:mod:`warmstart.learners`. Every objective turns a failure (an exception, a
+:mod:`warmstart.evaluate.learners`. Every objective turns a failure (an exception, a
 non-zero exit, no score, a timeout, a non-finite score) into a *failed*
 trial with the error text, so a search goes on after a bad config.
 Only ``KeyboardInterrupt`` and ``SystemExit`` pass through.
@@ -34,7 +34,7 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any, Callable, Mapping, Sequence
 
-from warmstart.deadline import STOP_WAIT_S, child_context
+from warmstart.evaluate.deadline import STOP_WAIT_S, child_context
 from warmstart.errors import WarmstartError
 
 __all__ = [
@@ -356,7 +356,7 @@ class _ScoreFunction:
 
 
 def score_function(objective: Callable[[dict], TrialResult]) -> Callable[[dict], float]:
-    """Wrap an objective for :func:`warmstart.search.run_search`.
+    """Wrap an objective for :func:`warmstart.search.density.run_search`.
 
     The wrapper returns the score of an ok trial and raises
     :class:`TrialFailed` (with the error text) for a failed one, which the
@@ -430,7 +430,7 @@ def local_pool(n_workers: int, objective: Callable) -> tuple[cf.ProcessPoolExecu
     ignore Ctrl-C, which the parent handles (see :func:`stop_pool`).
 
     The workers are not daemonic, so an objective with a time limit can
-    start its trial process inside them (:mod:`warmstart.deadline`); a
+    start its trial process inside them (:mod:`warmstart.evaluate.deadline`); a
     worker stops that process when it is terminated or exits.
     """
     context = child_context()

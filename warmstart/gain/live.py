@@ -15,8 +15,8 @@ from typing import Any, Callable
 
 import numpy as np
 
-from warmstart.parallel import map_jobs
-from warmstart.gain import GainResult, Runs, compare, in_target, pool, target_threshold
+from warmstart.evaluate.workers import map_jobs
+from warmstart.gain.bits import GainResult, Runs, compare, in_target, pool, target_threshold
 from warmstart.space import Space
 
 __all__ = ["LiveResult", "live_gain"]
@@ -45,7 +45,7 @@ class _Cached:
 
 
 def _arm(args) -> tuple[np.ndarray, dict]:
-    from warmstart.search import DensitySearch
+    from warmstart.search.density import DensitySearch
 
     space, evaluate, prior, budget, seed, maximize = args
     cached = _Cached(space, evaluate)

@@ -1,6 +1,6 @@
 """A held-out study's recorded trials smoothed into a continuous objective.
 
-The nearest-config replay (:class:`warmstart.replay.ReplayObjective`) scores
+The nearest-config replay (:class:`warmstart.gain.replay.ReplayObjective`) scores
 a proposed config by the recorded config nearest to it. Its target set is a
 handful of recorded configs (top 5 % of 96 is 5), so no list of ``B``
 distinct proposals can hit more than ``|T| / B`` of the time, and a search
@@ -130,7 +130,7 @@ class SurrogateObjective:
 
     def uniform_hit_chance(self, threshold: float, n: int = 4096, rng: Any = 1) -> float:
         """``p``: chance that a uniform draw reaches ``threshold`` (fresh draws)."""
-        from warmstart.gain import in_target
+        from warmstart.gain.bits import in_target
 
         rows = self.space.sample_unit(n, np.random.default_rng(rng))
         hit = in_target(self.values(rows), threshold, self.maximize)

@@ -29,10 +29,10 @@ from typing import Any, Callable, Sequence
 import numpy as np
 
 from warmstart.errors import WarmstartError
-from warmstart.parallel import map_jobs
-from warmstart.gain import GainResult, Runs, TaskGain, compare, in_target, pool, target_threshold
+from warmstart.evaluate.workers import map_jobs
+from warmstart.gain.bits import GainResult, Runs, TaskGain, compare, in_target, pool, target_threshold
 from warmstart.prior import Prior, Source, prior_from_sources, unit_distances
-from warmstart.sources import BANDWIDTH_SCALE, comparable_profiles, load_sources, weight_sources
+from warmstart.archive.sources import BANDWIDTH_SCALE, comparable_profiles, load_sources, weight_sources
 from warmstart.space import Space
 
 __all__ = ["ReplayObjective", "ReplayTask", "ReplayResult", "replay_tasks", "leave_one_task_out", "static_order",
@@ -127,7 +127,7 @@ def _build_objective(args):
     if objective == "surrogate":
         from threadpoolctl import threadpool_limits
 
-        from warmstart.surrogate import SurrogateObjective
+        from warmstart.gain.objectives import SurrogateObjective
 
         # small matrices: one BLAS thread per process is faster than two processes fighting over cores
         with threadpool_limits(limits=1):
@@ -153,7 +153,7 @@ def replay_tasks(archive, learner: str, gamma: float = 0.05, min_trials: int = 2
         ``nearest``: a config scores what its nearest recorded config scored;
         the target set is the top ``gamma`` of the recorded configs.
         ``surrogate``: a Gaussian process fitted to the recorded trials
-        (:class:`~warmstart.surrogate.SurrogateObjective`); the target set is
+        (:class:`~warmstart.gain.objectives.SurrogateObjective`); the target set is
         the top ``gamma`` of the space under uniform sampling.
     only : sequence of str, optional
         Only these tasks (names).
@@ -279,7 +279,7 @@ def _one_task(args) -> tuple[TaskGain, dict]:
 
 
 def _replay_one_task(task: ReplayTask, prior: Prior, budget: int, repeats: int, seed: int) -> tuple[TaskGain, dict]:
-    from warmstart.search import DensitySearch
+    from warmstart.search.density import DensitySearch
 
     maximize = task.objective.maximize
     warm = _run(task, lambda s: DensitySearch(task.space, prior=prior, seed=s, maximize=maximize), budget, repeats, seed)
@@ -308,7 +308,7 @@ def _replay_one_task(task: ReplayTask, prior: Prior, budget: int, repeats: int, 
 
 @dataclass
 class ReplayResult(GainResult):
-    """Leave-one-task-out replay of one learner (see :class:`~warmstart.gain.GainResult`).
+    """Leave-one-task-out replay of one learner (see :class:`~warmstart.gain.bits.GainResult`).
 
     ``objective`` names how proposals were scored (see :func:`replay_tasks`).
     """

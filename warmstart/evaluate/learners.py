@@ -28,11 +28,12 @@ import numpy as np
 import pandas as pd
 from pandas.api import types as ptypes
 
-from warmstart.deadline import StoppableRunner
-from warmstart.objective import ObjectiveError, TrialResult, _check_limit, _error_text, _now
+from warmstart.evaluate.deadline import StoppableRunner
+from warmstart.evaluate.objective import ObjectiveError, TrialResult, _check_limit, _error_text, _now
 from warmstart.profile import detect_kind
 from warmstart.space import Space
-from warmstart.tables import TableError, feature_frame
+from warmstart.data.features import feature_frame
+from warmstart.data.read import TableError
 
 __all__ = [
     "Learner",
@@ -430,13 +431,13 @@ class CVObjective:
     """Cross-validated score of a built-in learner on a table (picklable).
 
     Build it with :func:`cv_objective`; call it with a config to get a
-    :class:`~warmstart.objective.TrialResult`. Every config is scored on the
+    :class:`~warmstart.evaluate.objective.TrialResult`. Every config is scored on the
     same folds (fixed at construction), as the mean of the per-fold scores,
     in the metric's natural units (``rmse`` is a positive error; see
     :func:`metric_direction`).
 
     With a time limit, each trial runs in a child process (see
-    :mod:`warmstart.deadline`) that is stopped when the limit passes, even in
+    :mod:`warmstart.evaluate.deadline`) that is stopped when the limit passes, even in
     the middle of a fit; the trial is then failed with an error naming the
     limit and the fold it was stopped in, and the scores of folds already
     finished are not used. The child receives the objective once and serves
@@ -445,7 +446,7 @@ class CVObjective:
     Warnings (convergence and others) are silenced inside a trial.
 
     The features are the table's other columns as
-    :func:`warmstart.tables.feature_frame` gives them (identifier columns
+    :func:`warmstart.data.read.feature_frame` gives them (identifier columns
     left out, dates written as text as days since 1970-01-01), the same
     columns a profile of the table uses; ``feature_notes`` says what was
     done per column.
@@ -654,7 +655,7 @@ def cv_objective(frame: pd.DataFrame, target: str, learner: str, metric: str | N
     frame : DataFrame
         Features and target; rows with a missing target are left out.
         Identifier columns are left out and dates written as text become
-        days, as in a profile (:func:`warmstart.tables.feature_frame`).
+        days, as in a profile (:func:`warmstart.data.read.feature_frame`).
     target : str
         Target column.
     learner : str
@@ -686,7 +687,7 @@ def cv_objective(frame: pd.DataFrame, target: str, learner: str, metric: str | N
     keep_columns : iterable of str, default ()
         Columns to use as features exactly as they are, even when they look
         like identifiers or dates written as text (see
-        :func:`warmstart.tables.feature_frame`).
+        :func:`warmstart.data.read.feature_frame`).
 
     Returns
     -------

@@ -1,6 +1,6 @@
 """Baseline searches the density search is compared with.
 
-All have the propose/record shape of :class:`~warmstart.strategy.SearchStrategy`
+All have the propose/record shape of :class:`~warmstart.search.strategy.SearchStrategy`
 and work on the unit-cube encoding of a :class:`~warmstart.space.Space`:
 
 * :class:`RandomSearch` — uniform draws;
@@ -29,9 +29,9 @@ from scipy.optimize import minimize
 from scipy.special import ndtr
 from scipy.stats import qmc
 
-from warmstart.search import _check_count, default_n_startup
+from warmstart.search.density import _check_count, default_n_startup
 from warmstart.space import Space
-from warmstart.strategy import SearchError, SearchStrategy, Trial, _config_key
+from warmstart.search.strategy import SearchError, SearchStrategy, Trial, _config_key
 
 __all__ = ["RandomSearch", "SobolSearch", "NelderMeadSearch", "GPSearch", "expected_improvement"]
 
@@ -223,7 +223,7 @@ class GPSearch(SearchStrategy):
     """Gaussian-process search with expected improvement.
 
     Starts with the same Sobol design as a cold
-    :class:`~warmstart.search.DensitySearch`, then fits
+    :class:`~warmstart.search.density.DensitySearch`, then fits
     :class:`sklearn.gaussian_process.GaussianProcessRegressor` (constant ×
     Matern 5/2 with one length scale per coordinate, plus white noise;
     targets normalised) to the encoded rows and proposes the candidate with

@@ -9,9 +9,9 @@ same floor); candidates are drawn from ``l`` and the one with the largest
 design; a warm search starts with the prior's seeds, alternating with a
 shorter design.
 
-Every strategy (this one and the baselines in :mod:`warmstart.baselines`)
-derives from :class:`~warmstart.strategy.SearchStrategy`, which validates
-and records results once; :func:`~warmstart.strategy.run_search` (also
+Every strategy (this one and the baselines in :mod:`warmstart.search.baselines`)
+derives from :class:`~warmstart.search.strategy.SearchStrategy`, which validates
+and records results once; :func:`~warmstart.search.strategy.run_search` (also
 importable from here) is the one loop that evaluates an objective with any
 of them.
 """
@@ -26,9 +26,9 @@ from scipy.special import ndtr
 from scipy.stats import rankdata
 
 from warmstart.errors import SpaceError
-from warmstart.kde import MixedKDE, log_sum_exp, uniform_logpdf
+from warmstart.search.kde import MixedKDE, log_sum_exp, uniform_logpdf
 from warmstart.space import Space, unit_distances
-from warmstart.strategy import SearchError, SearchResult, SearchStrategy, Trial, run_search
+from warmstart.search.strategy import SearchError, SearchResult, SearchStrategy, Trial, run_search
 
 __all__ = ["DensitySearch", "SearchError", "SearchResult", "SearchStrategy", "Trial", "run_search",
            "default_n_startup"]

@@ -22,7 +22,7 @@ import numpy as np
 import pandas as pd
 
 from warmstart.errors import WarmstartError
-from warmstart.parallel import wait_first
+from warmstart.evaluate.workers import wait_first
 from warmstart.space import Space
 
 __all__ = ["SearchError", "Trial", "SearchStrategy", "SearchResult", "run_search"]
@@ -377,7 +377,7 @@ def run_search(
     Parameters
     ----------
     strategy : SearchStrategy
-        Any strategy (:class:`~warmstart.search.DensitySearch` or a baseline).
+        Any strategy (:class:`~warmstart.search.density.DensitySearch` or a baseline).
     objective : callable
         ``objective(config) -> score``. An exception, ``None``, NaN or an
         infinite value records a failed trial (with the error text); the

@@ -1,0 +1,1 @@
+"""Evaluating configs: metrics, objectives, built-in learners, time limits, workers."""

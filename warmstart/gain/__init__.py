@@ -1,0 +1,1 @@
+"""Measuring transfer in bits: targets and intervals, replay and live protocols, reports."""

@@ -1,0 +1,1 @@
+"""Searches over a space: the one loop, the density search, baselines and fixed lists."""
