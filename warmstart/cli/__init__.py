@@ -14,5 +14,6 @@ from warmstart.cli import demo_cmds  # noqa: E402,F401  demo
 from warmstart.cli import profile_cmds  # noqa: E402,F401  profile, neighbors, defaults
 from warmstart.cli import tune_cmds  # noqa: E402,F401  tune, propose, record
 from warmstart.cli import curate_cmds  # noqa: E402,F401  curate check/dedupe/merge/prune/export/import, tag
+from warmstart.cli import serve_cmds  # noqa: E402,F401  serve
 
 __all__ = ["main"]
