@@ -73,6 +73,8 @@ def _validation_answer(exc: RequestValidationError, content_type: str) -> JSONRe
     loc = [str(p) for p in first.get("loc", ())]
     where = loc[0] if loc else "body"
     path = loc[1:] if where in ("body", "query", "path", "header", "cookie") else loc
+    if "[key]" in path:  # a bad key of a mapping: the mapping is the field, the key the value
+        path = path[:max(0, path.index("[key]") - 1)]
     field = ".".join(path) or "body"
     kind = first.get("type", "")
     if kind == "json_invalid":
