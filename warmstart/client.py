@@ -104,6 +104,14 @@ class Client:
         self.token = token if token is not None else os.environ.get("WARMSTART_TOKEN") or None
         self.timeout, self.retries, self.backoff = float(timeout), int(retries), float(backoff)
         self._local = threading.local()
+        self._open: set[http.client.HTTPConnection] = set()
+        self._open_lock = threading.Lock()
+
+    def __enter__(self) -> "Client":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
 
     def __repr__(self) -> str:
         return f"Client({self.url!r}, token={'set' if self.token else 'none'})"
@@ -115,6 +123,8 @@ class Client:
             kind = http.client.HTTPSConnection if self._scheme == "https" else http.client.HTTPConnection
             con = kind(self._host, self._port, timeout=self.timeout)
             self._local.con = con
+            with self._open_lock:
+                self._open.add(con)
         return con
 
     def _drop_connection(self) -> None:
@@ -122,10 +132,16 @@ class Client:
         if con is not None:
             con.close()
             self._local.con = None
+            with self._open_lock:
+                self._open.discard(con)
 
     def close(self) -> None:
-        """Close this thread's connection."""
-        self._drop_connection()
+        """Close every connection this client opened (one per thread that used it)."""
+        with self._open_lock:
+            for con in self._open:
+                con.close()
+            self._open.clear()
+        self._local = threading.local()
 
     def request(self, method: str, path: str, body: Any = None, query: Mapping | None = None,
                 write: bool = False, raw: bool = False) -> Any:
