@@ -117,10 +117,10 @@ class LeaseBook:
     # -- propose -----------------------------------------------------------------
     def propose(self, archive, study: int, k: int, seconds: float | None, owner: str | None) -> dict:
         """Lease ``k`` distinct configs of ``study``; returns the answer body."""
-        info = _study_or_404(archive, study)
+        _exists_or_404(archive, study)
         search = self._search(archive, study)
         expired = self._expire(archive, study, search)
-        space = info["space"]
+        space = search.space
         pending = {c for (c,) in archive.con.execute(
             "SELECT config FROM leases WHERE study_id = ? AND state = 'pending'", [study]).fetchall()}
         leased: list[tuple[str, dict]] = []
@@ -158,7 +158,7 @@ class LeaseBook:
     def record(self, archive, study: int, trial: int | None, config: dict | None, score: float | None,
                status: str, error: str | None, cost_s: float | None, owner: str | None) -> dict:
         """Record a result by lease (``trial``) or by ``config``; returns the answer body."""
-        info = _study_or_404(archive, study)
+        _exists_or_404(archive, study)
         if (trial is None) == (config is None):
             raise ServiceError(422, "give either trial (the id of a lease) or config (a config never proposed)",
                                "trial", trial)
@@ -190,7 +190,7 @@ class LeaseBook:
                 config = json.loads(key)
         else:
             try:
-                key = info["space"].canonical_json(config)
+                key = self._search(archive, study).space.canonical_json(config)
             except SpaceError as exc:
                 raise ServiceError(422, f"config: {exc}", "config", config) from None
             config = json.loads(key)
@@ -214,12 +214,12 @@ class LeaseBook:
                     "WHERE trial_id = ?", [number, status, score, now, trial],
                 )
             search.record(config, score, status)
-        row = archive.study(study)
-        best = row["best_score"]
+        search = self._search(archive, study)  # holds every recorded trial of the study, as committed
+        best = search.best
         return {
             "study_id": study, "trial": int(trial), "number": int(number), "status": status, "score": score,
-            "repeat": repeat, "trial_count": int(row["trial_count"]),
-            "best_score": None if best is None or not math.isfinite(best) else float(best),
+            "repeat": repeat, "trial_count": search.trial_count,
+            "best_score": None if best is None else float(best.score),
         }
 
 
@@ -234,7 +234,6 @@ def _result(status: str, score: Any) -> str:
     return "status failed" if status == "failed" else f"score {score!r}"
 
 
-def _study_or_404(archive, study: int) -> dict:
+def _exists_or_404(archive, study: int) -> None:
     if not archive.con.execute("SELECT 1 FROM studies WHERE study_id = ?", [study]).fetchall():
         raise ServiceError(404, f"no study with id {study}; GET /api/v1/studies lists them", "study_id", study)
-    return archive.study(study)
