@@ -15,7 +15,6 @@ from __future__ import annotations
 import contextlib
 import hashlib
 import json
-import os
 import uuid
 from datetime import datetime, timezone
 from importlib import resources
@@ -27,6 +26,7 @@ import numpy as np
 import pandas as pd
 
 from warmstart.archive.ingest import param_columns, prepare_trials
+from warmstart.archive.location import DEFAULT_ARCHIVE, default_archive_path
 from warmstart.errors import ArchiveError, ArchiveLockedError
 from warmstart.space import Space
 
@@ -34,13 +34,7 @@ __all__ = ["Archive", "SCHEMA_VERSION", "DEFAULT_ARCHIVE", "default_archive_path
 
 SCHEMA_VERSION = 1
 MIGRATIONS = {1: "schema_v1.sql"}  # version -> DDL that brings version-1 to version
-DEFAULT_ARCHIVE = "archive/warmstart.duckdb"
 _TABLES = ("schema_version", "archive_info", "tasks", "profiles", "spaces", "studies", "trials")
-
-
-def default_archive_path() -> str:
-    """``$WARMSTART_ARCHIVE`` when set, else ``./archive/warmstart.duckdb``."""
-    return os.environ.get("WARMSTART_ARCHIVE") or DEFAULT_ARCHIVE
 
 
 def _now() -> datetime:
