@@ -19,6 +19,7 @@ import re
 import warnings
 import zipfile
 import zlib
+from contextlib import contextmanager
 from pathlib import Path
 
 import pandas as pd
@@ -45,6 +46,7 @@ DELIMITERS = {",": "comma", ";": "semicolon", "\t": "tab", "|": "pipe"}
 MISSING_MARKERS = ("?", "-", "n/a", "N/A", "NA", "na", "null", "NULL", "")
 _SAMPLE_BYTES = 1 << 16  # decompressed text read to find the delimiter and the header
 _SAMPLE_ROWS = 50
+_LINES_SHOWN = 5  # line numbers a note about short rows gives
 _COMPRESSIONS = (".gz", ".zip", ".bz2", ".xz", ".zst")
 _UNNAMED = re.compile(r"Unnamed: \d+")
 
@@ -99,7 +101,11 @@ def read_table(path: str | Path) -> pd.DataFrame:
     pandas' own markers become missing. A text column whose every value is a
     number with thousands separators ("6,571", "1,234.5"; "1.234,5" in a
     decimal-comma file) or a plain number becomes numeric. Columns without a
-    header name ("Unnamed: 5" in pandas) that hold no value are dropped.
+    header name ("Unnamed: 5" in pandas) that hold no value are dropped. A
+    row with fewer fields than the header (a *short row*) reads as missing
+    in the fields it lacks, as pandas and R's ``read.csv`` read it, and a note
+    counts such rows and gives the first line numbers; a row with more fields
+    than the header is refused.
 
     Examples
     --------
@@ -215,13 +221,82 @@ def _read_text_table(path: Path, kind: str, notes: list[str]) -> pd.DataFrame:
     if frame.shape[1] == 1:
         _refuse_one_wrong_column(path, kind, str(frame.columns[0]), text, sep)
     empty = [c for c in frame.columns if isinstance(c, str) and _UNNAMED.fullmatch(c) and frame[c].isna().all()]
-    if empty and len(empty) < frame.shape[1]:
+    if len(empty) == frame.shape[1]:
+        empty = []
+    short = _short_rows_note(path, sep, frame, [c not in empty for c in frame.columns])
+    if empty:
         frame = frame.drop(columns=empty)
         notes.append(f"dropped {len(empty)} empty column(s) without a header name")
     converted = _numbers_with_separators(frame, decimal)
     if converted:
         notes.append(f"read column(s) {converted} as numbers with thousands separators")
+    if short:
+        notes.append(short)
     return frame
+
+
+def _short_rows_note(path: Path, sep: str, frame: pd.DataFrame, kept: list[bool]) -> str:
+    """A note counting the rows with fewer fields than the header ("" when none).
+
+    ``frame`` is the table as pandas read it (every header field a column)
+    and ``kept`` says which columns stay. Only a row that lacks a field of a
+    kept column counts (a row lacking only a trailing unnamed empty column
+    loses nothing). The file is read again with :mod:`csv`, as pandas does
+    not say which rows were short, and only when some row lacks the last
+    kept field.
+    """
+    if not any(kept):
+        return ""
+    needed = max(j for j, keep in enumerate(kept) if keep) + 1
+    if not frame.iloc[:, needed - 1].isna().any():
+        return ""  # a short row lacks its last fields, so that column is missing there
+    lines: list[int] = []
+    widths: list[int] = []
+    rows = 0
+    try:
+        with _open_text(path) as handle:
+            reader = csv.reader(handle, delimiter=sep)
+            header_seen, last_line = False, 0
+            for record in reader:
+                start, last_line = last_line + 1, reader.line_num
+                if not record or (len(record) == 1 and not record[0].strip()):
+                    continue  # blank lines: pandas skips them too
+                if not header_seen:
+                    header_seen = True
+                    continue
+                rows += 1
+                if len(record) < needed:
+                    lines.append(start)
+                    widths.append(len(record))
+    except (csv.Error, OSError, ValueError, EOFError, zlib.error, lzma.LZMAError, zipfile.BadZipFile):
+        return ""  # pandas read the file; a second reading that fails says nothing reliable
+    if not lines:
+        return ""
+    low, high = min(widths), max(widths)
+    fields = f"{low} field{'s' if low != 1 else ''}" if low == high else f"{low} to {high} fields"
+    shown = ", ".join(map(str, lines[:_LINES_SHOWN])) + (" ..." if len(lines) > _LINES_SHOWN else "")
+    return (f"{len(lines)} of {rows} rows have fewer fields than the header's {needed} "
+            f"({fields}; line{'s' if len(lines) > 1 else ''} {shown}): the fields they lack are read as missing")
+
+
+@contextmanager
+def _open_text(path: Path):
+    """The decompressed file as text (UTF-8, a byte-order mark dropped, newlines as written)."""
+    compression = path.suffix.lower()
+    options = {"encoding": "utf-8-sig", "errors": "replace", "newline": ""}
+    if compression == ".zip":
+        with zipfile.ZipFile(path) as archive, archive.open(archive.namelist()[0]) as raw:
+            with io.TextIOWrapper(raw, **options) as handle:
+                yield handle
+        return
+    if compression == ".zst":
+        import zstandard
+
+        opener = zstandard.open
+    else:
+        opener = {".gz": gzip.open, ".bz2": bz2.open, ".xz": lzma.open}.get(compression, open)
+    with opener(path, "rt", **options) as handle:
+        yield handle
 
 
 def _sample_text(path: Path) -> tuple[str, bool]:
