@@ -15,7 +15,6 @@ from __future__ import annotations
 import contextlib
 import hashlib
 import json
-import os
 import uuid
 from datetime import datetime, timezone
 from importlib import resources
@@ -27,6 +26,7 @@ import numpy as np
 import pandas as pd
 
 from warmstart.archive.ingest import param_columns, prepare_trials
+from warmstart.archive.location import DEFAULT_ARCHIVE, default_archive_path
 from warmstart.errors import ArchiveError, ArchiveLockedError
 from warmstart.space import Space
 
@@ -37,13 +37,7 @@ MIGRATIONS = {1: "schema_v1.sql", 2: "schema_v2.sql"}  # version -> DDL that bri
 #: oldest schema a read-only open accepts: version 2 only adds the service's tables (leases,
 #: request ids, gain reports), which no reader outside the service touches
 READABLE_FROM = 1
-DEFAULT_ARCHIVE = "archive/warmstart.duckdb"
 _TABLES = ("schema_version", "archive_info", "tasks", "profiles", "spaces", "studies", "trials")
-
-
-def default_archive_path() -> str:
-    """``$WARMSTART_ARCHIVE`` when set, else ``./archive/warmstart.duckdb``."""
-    return os.environ.get("WARMSTART_ARCHIVE") or DEFAULT_ARCHIVE
 
 
 def _now() -> datetime:

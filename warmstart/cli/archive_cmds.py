@@ -8,10 +8,11 @@ from pathlib import Path
 import click
 import pandas as pd
 
-from warmstart.cli.common import fail, get_archive, json_option, keep_column_option, print_json, print_table, read_data
+from warmstart.cli.common import (
+    fail, get_archive, json_option, keep_column_option, print_json, print_table, read_data, strict_option,
+)
 from warmstart.cli.main import main
 from warmstart.space import Space
-from warmstart.data.read import read_table
 
 
 def _parse_tags(values: tuple[str, ...]) -> dict[str, str]:
@@ -78,6 +79,7 @@ def _load_space(space_path: str | None, learner: str, data: pd.DataFrame, target
 @click.option("--owner", help="Who ran the study.")
 @click.option("--tag", "tags", multiple=True, metavar="KEY=VALUE", help="Tag the study (repeatable).")
 @keep_column_option
+@strict_option
 @json_option
 @click.pass_context
 def ingest(ctx, trials, task, data_path, target, learner, space_path, metric, minimize, owner, tags, keep_columns,
@@ -91,7 +93,7 @@ def ingest(ctx, trials, task, data_path, target, learner, space_path, metric, mi
 
     tag_map = _parse_tags(tags)
     maximize = study_direction(metric, minimize)
-    trial_frame = read_table(trials)
+    trial_frame = read_data(trials)  # its notes (a guessed delimiter, short rows) too
     data = read_data(data_path, target, keep_columns=keep_columns)
     space = _load_space(space_path, learner, data, target)
     archive = get_archive(ctx, write=True)

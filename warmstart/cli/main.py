@@ -2,17 +2,43 @@
 
 from __future__ import annotations
 
+import importlib
+
 import click
 
 from warmstart import __version__
-from warmstart.archive.store import DEFAULT_ARCHIVE
+from warmstart.archive.location import DEFAULT_ARCHIVE
 from warmstart.errors import WarmstartError
 
 __all__ = ["main"]
 
 
+#: command name -> module of ``warmstart.cli`` that defines it. A command's
+#: module is imported only when that command runs (or ``--help`` lists it), so
+#: ``warmstart --version`` or ``studies`` do not pay for SciPy or scikit-learn.
+#: A new command adds one line here (tests/test_cli_archive.py checks the table).
+COMMAND_MODULES = {
+    "init": "archive_cmds", "ingest": "archive_cmds", "studies": "archive_cmds", "show": "archive_cmds",
+    "prior": "transfer_cmds", "gain": "transfer_cmds",
+    "demo": "demo_cmds",
+    "profile": "profile_cmds", "neighbors": "profile_cmds", "defaults": "profile_cmds",
+    "tune": "tune_cmds", "propose": "tune_cmds", "record": "tune_cmds",
+    "curate": "curate_cmds", "tag": "curate_cmds",
+    "serve": "serve_cmds",
+}
+
+
 class _Group(click.Group):
-    """A group that turns library errors into clean messages (exit code 1)."""
+    """The top group: loads a command's module on first use, and turns
+    library errors into clean messages (exit code 1)."""
+
+    def get_command(self, ctx: click.Context, name: str):
+        if name not in self.commands and name in COMMAND_MODULES:
+            importlib.import_module(f"warmstart.cli.{COMMAND_MODULES[name]}")
+        return super().get_command(ctx, name)
+
+    def list_commands(self, ctx: click.Context) -> list[str]:
+        return sorted(set(self.commands) | set(COMMAND_MODULES))
 
     def invoke(self, ctx: click.Context):
         try:

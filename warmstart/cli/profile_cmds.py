@@ -9,7 +9,9 @@ import time
 import click
 import pandas as pd
 
-from warmstart.cli.common import get_archive, json_option, keep_column_option, print_json, print_table, read_data
+from warmstart.cli.common import (
+    get_archive, json_option, keep_column_option, print_json, print_table, read_data, strict_option,
+)
 from warmstart.cli.main import main
 from warmstart.profile import FEATURE_GROUPS, PROFILE_VERSION, detect_kind, profile
 
@@ -61,6 +63,7 @@ def _echo_notes(frame: pd.DataFrame) -> None:
 @click.option("--target", required=True, help="Target column of the table.")
 @_kind_option
 @keep_column_option
+@strict_option
 @json_option
 def profile_command(data, target, kind, keep_columns, as_json):
     """Print the meta-features of DATA (CSV, TSV, Parquet or JSON lines).
@@ -86,6 +89,7 @@ def profile_command(data, target, kind, keep_columns, as_json):
 @click.option("-k", "k", default=5, show_default=True, type=click.IntRange(min=1), help="How many neighbors.")
 @_kind_option
 @keep_column_option
+@strict_option
 @json_option
 @click.pass_context
 def neighbors_command(ctx, data, target, learner, k, kind, keep_columns, as_json):
@@ -106,6 +110,7 @@ def neighbors_command(ctx, data, target, learner, k, kind, keep_columns, as_json
 @click.option("-n", "n", default=10, show_default=True, type=click.IntRange(min=1), help="How many configs.")
 @_kind_option
 @keep_column_option
+@strict_option
 @json_option
 @click.pass_context
 def defaults_command(ctx, learner, near, target, n, kind, keep_columns, as_json):

@@ -4,7 +4,9 @@ from __future__ import annotations
 
 import click
 
-from warmstart.cli.common import fail, get_archive, json_option, keep_column_option, print_json, print_table, read_data
+from warmstart.cli.common import (
+    fail, get_archive, json_option, keep_column_option, print_json, print_table, read_data, strict_option,
+)
 from warmstart.cli.main import main
 from warmstart.gain.bits import interval_text, queries_text
 from warmstart.progress import Progress
@@ -38,6 +40,7 @@ def resolve_space(space_path, learner: str, kind: str):
 @click.option("--space", "space_path", type=click.Path(dir_okay=False), help="Space of the new search (default: the learner's built-in space).")
 @click.option("-o", "--output", type=click.Path(dir_okay=False), help="Write the prior as JSON here.")
 @keep_column_option
+@strict_option
 @json_option
 @click.pass_context
 def prior(ctx, data, target, learner, space_path, output, keep_columns, as_json):
@@ -84,6 +87,7 @@ def prior(ctx, data, target, learner, space_path, output, keep_columns, as_json)
 @click.option("--cv", default=5, show_default=True, type=click.IntRange(min=2), help="With --data: cross-validation folds.")
 @click.option("--report", "report_path", type=click.Path(dir_okay=False), help="Write an HTML report with plots here.")
 @keep_column_option
+@strict_option
 @json_option
 @click.pass_context
 def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, only_tasks, objective, data, target, metric, cv,

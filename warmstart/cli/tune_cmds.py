@@ -14,7 +14,7 @@ import click
 import duckdb
 import numpy as np
 
-from warmstart.cli.common import fail, get_archive, json_option, keep_column_option, print_json, read_data
+from warmstart.cli.common import fail, get_archive, json_option, keep_column_option, print_json, read_data, strict_option
 from warmstart.cli.main import main
 from warmstart.evaluate.learners import LEARNERS, TASK_KINDS, cv_objective, default_space, metric_direction, METRICS
 from warmstart.evaluate.objective import CommandObjective, local_pool, score_function, stop_pool
@@ -138,6 +138,7 @@ def _objective_and_space(data, target, learner, kind, space_path, metric, minimi
 @click.option("--task", "task_name", help="Task name in the archive (default: DATA's file name).")
 @click.option("--kind", type=click.Choice(TASK_KINDS), help="Kind of task (default: from the target).")
 @keep_column_option
+@strict_option
 @json_option
 @click.pass_context
 def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, cluster, cold, n_seeds, command,
