@@ -96,6 +96,22 @@ def ingest(ctx, trials, task, data_path, target, learner, space_path, metric, mi
     trial_frame = read_data(trials)  # its notes (a guessed delimiter, short rows) too
     data = read_data(data_path, target, keep_columns=keep_columns)
     space = _load_space(space_path, learner, data, target)
+    from warmstart.cli.remote import server_client
+
+    if (client := server_client(ctx)) is not None:  # the data stays here: its fingerprint and profile go
+        from warmstart.client import task_description
+
+        done = client.ingest(trial_frame, task_description(data, target, task, keep_columns=keep_columns,
+                                                           source=str(data_path)),
+                             learner, space=space.to_dict(), metric=metric, maximize=maximize, tags=tag_map,
+                             owner=owner)
+        if as_json:
+            print_json(done)
+        else:
+            click.echo(f"ingested {done['trials']} trials of {learner!r} on task {task!r} as study "
+                       f"{done['study_id']} on {client.url} ({done['failed']} failed; best {metric} "
+                       f"{done['best_score']:.4g})")
+        return
     archive = get_archive(ctx, write=True)
     with archive.transaction():  # one transaction: a refused trials file leaves no task behind either
         if keep_columns:  # the task's profile with the kept columns; ingest then finds the task current
@@ -138,6 +154,10 @@ def ingest(ctx, trials, task, data_path, target, learner, space_path, metric, mi
 @click.pass_context
 def studies(ctx, learner, task, owner, tags, as_json):
     """List studies: task, learner, metric, trial count, best score."""
+    from warmstart.cli.remote import print_remote_studies, server_client
+
+    if (client := server_client(ctx)) is not None:
+        return print_remote_studies(client, learner, task, owner, _parse_tags(tags), as_json)
     path = ctx.find_root().obj["archive_path"]
     if not Path(path).exists():  # a listing never creates an archive (a mistyped path stays a mistake)
         if as_json:
@@ -172,6 +192,10 @@ def studies(ctx, learner, task, owner, tags, as_json):
 @click.pass_context
 def show(ctx, study, top, as_json):
     """Show one STUDY (its id): task, space and its best trials."""
+    from warmstart.cli.remote import server_client, show_study
+
+    if (client := server_client(ctx)) is not None:
+        return show_study(client, study, top, as_json)
     archive = get_archive(ctx, write=False)
     row = archive.study(study)
     table = archive.trial_table(study)

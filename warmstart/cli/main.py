@@ -57,10 +57,19 @@ class _Group(click.Group):
     metavar="PATH",
     help="Archive file (DuckDB). Also from the environment variable WARMSTART_ARCHIVE.",
 )
+@click.option(
+    "--server",
+    envvar="WARMSTART_SERVER",
+    metavar="URL",
+    help="Talk to a team service (warmstart serve) instead of an archive file: studies, show, neighbors, "
+         "defaults, prior, ingest, tag, propose, record, tune. Also from WARMSTART_SERVER; the token from "
+         "WARMSTART_TOKEN.",
+)
 @click.version_option(__version__, prog_name="warmstart")
 @click.pass_context
-def main(ctx: click.Context, archive_path: str) -> None:
+def main(ctx: click.Context, archive_path: str, server: str | None) -> None:
     """Keep your team's tuning history, start new searches from what worked on
     similar tasks, and measure in bits whether that helped."""
     ctx.ensure_object(dict)
     ctx.obj["archive_path"] = archive_path
+    ctx.obj["server"] = server

@@ -94,7 +94,9 @@ def profile_command(data, target, kind, keep_columns, as_json):
 @click.pass_context
 def neighbors_command(ctx, data, target, learner, k, kind, keep_columns, as_json):
     """List the past tasks most similar to DATA that have studies of a learner."""
-    archive = get_archive(ctx, write=False)
+    from warmstart.cli.remote import server_client
+
+    archive = server_client(ctx) or get_archive(ctx, write=False)
     prof, _ = _profile_file(data, target, kind, keep_columns)
     frame = archive.neighbors(prof, learner=learner, k=k)
     _echo_notes(frame)
@@ -121,8 +123,17 @@ def defaults_command(ctx, learner, near, target, n, kind, keep_columns, as_json)
         raise click.UsageError("--target goes with --near DATA; give both or neither")
     if keep_columns and not near:
         raise click.UsageError("--keep-column names a column of the --near table; give --near DATA --target COL")
-    archive = get_archive(ctx, write=False)
+    from warmstart.cli.remote import server_client
+
+    client = server_client(ctx)
+    archive = client or get_archive(ctx, write=False)
     empty = f"no successful trials of {learner!r} in the archive"
+    if client is not None and not near:  # the service ranks one kind of task, or all
+        frame = client.defaults(learner, n=n, kind=kind)
+        if not as_json:
+            frame = frame.assign(config=[json.dumps(c, sort_keys=True) for c in frame["config"]])
+        print_table(frame, as_json, empty=empty)
+        return
     if near:
         frame = archive.defaults(learner, near=_profile_file(near, target, kind, keep_columns)[0], n=n)
         _echo_notes(frame)

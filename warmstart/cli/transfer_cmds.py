@@ -48,11 +48,21 @@ def prior(ctx, data, target, learner, space_path, output, keep_columns, as_json)
     from warmstart.archive.store import fingerprint
     from warmstart.profile import detect_kind, profile
 
+    from warmstart.cli.remote import server_client
+
     frame = read_data(data, target, keep_columns=keep_columns)
-    archive = get_archive(ctx, write=False)
+    client = server_client(ctx)
     kind = detect_kind(frame[target])
     space = resolve_space(space_path, learner, kind)
     prof = profile(frame, target=target, keep_columns=keep_columns)
+    if client is not None:  # built by the service from its archive; the data stays here
+        found = client.prior(prof, learner, space=space.to_dict(), kind=kind,
+                             exclude_fingerprint=fingerprint(frame, target))
+        if output:
+            fail("-o writes a prior built here; with --server use --json to keep the service's provenance")
+        print_json(found["provenance"]) if as_json else click.echo(found["summary"])
+        return
+    archive = get_archive(ctx, write=False)
     tasks = archive.tasks()
     same = tasks.loc[tasks["fingerprint"] == fingerprint(frame, target), "task_id"].tolist()
     built = archive.build_prior(prof, learner=learner, space=space, exclude_tasks=same)
