@@ -147,8 +147,6 @@ def baseline_in_process(n: int) -> float:
     folder = Path(tempfile.mkdtemp(prefix="bench-local-"))
     try:
         with Archive(folder / "local.duckdb") as archive:
-            import pandas as pd
-
             from service_support import invented_frame
 
             task = archive.add_task("local", invented_frame(5), "y")
