@@ -73,7 +73,10 @@ class Service:
         self.writer = Writer(archive, on_commit=self.leases.committed, on_failure=self.leases.abort)
         self.jobs = GainJobs(self)
         self._local = threading.local()
-        self._views: list[Archive] = []
+        #: views are made from this one (under the lock), never from the writer's connection
+        #: while the writer uses it
+        self._root = archive.reader()
+        self._views: list[Archive] = [self._root]
         self._views_lock = threading.Lock()
         self._query_view: Archive | None = None
         self.started = False
@@ -84,6 +87,11 @@ class Service:
         if not self.started:
             self.writer.start()
             self.started = True
+
+    def new_view(self) -> Archive:
+        """A read-only view for a thread of its own (e.g. a background job); close it after use."""
+        with self._views_lock:
+            return self._root.reader()
 
     def close(self) -> None:
         """Finish queued writes, stop jobs, close every view and the archive."""
@@ -100,8 +108,8 @@ class Service:
         """This thread's read-only view of the archive (a cursor of its own)."""
         view = getattr(self._local, "view", None)
         if view is None:
-            view = self.archive.reader()
             with self._views_lock:
+                view = self._root.reader()
                 self._views.append(view)
             self._local.view = view
         return view
@@ -110,8 +118,8 @@ class Service:
         """Run a neighbors/defaults/prior computation on the shared query view."""
         with self.query_lock:
             if self._query_view is None:
-                self._query_view = self.archive.reader()
                 with self._views_lock:
+                    self._query_view = self._root.reader()
                     self._views.append(self._query_view)
             return fn(self._query_view)
 

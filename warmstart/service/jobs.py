@@ -139,7 +139,7 @@ class GainJobs:
         from warmstart.gain.replay import leave_one_task_out
 
         job.state, job.started_at = "running", _now_text()
-        view = self.service.archive.reader()
+        view = self.service.new_view()
         o = job.options
         try:
             result = leave_one_task_out(
