@@ -29,7 +29,8 @@ from scipy.optimize import minimize
 from scipy.special import ndtr
 from scipy.stats import qmc
 
-from warmstart.search.density import _check_count, default_n_startup
+from warmstart._checks import check_count, check_number
+from warmstart.search.density import default_n_startup
 from warmstart.space import Space
 from warmstart.search.strategy import SearchError, SearchStrategy, Trial, _config_key
 
@@ -116,9 +117,8 @@ class NelderMeadSearch(SearchStrategy):
     def __init__(self, space: Space, seed: Any = 0, maximize: bool = True,
                  initial_step: float = 0.2, xatol: float = 1e-4, fatol: float = 1e-8):
         super().__init__(space, seed=seed, maximize=maximize)
-        if not 0 < initial_step <= 1:
-            raise SearchError(f"initial_step must be in (0, 1], got {initial_step!r}")
-        self.initial_step = float(initial_step)
+        self.initial_step = check_number("initial_step", initial_step, 0.0, 1.0, low_open=True, error=SearchError,
+                                         fix="it is the simplex's edge in unit-cube coordinates, e.g. 0.2")
         self.options = {"xatol": float(xatol), "fatol": float(fatol)}
         self._ask: queue.Queue = queue.Queue()
         self._tell: queue.Queue = queue.Queue()
@@ -256,15 +256,12 @@ class GPSearch(SearchStrategy):
                  n_restarts_optimizer: int = 1):
         super().__init__(space, seed=seed, maximize=maximize)
         n_startup = default_n_startup(space.dim) if n_startup is None else n_startup
-        _check_count("n_startup", n_startup, minimum=0)
-        _check_count("n_candidates", n_candidates, minimum=1)
-        _check_count("n_restarts_optimizer", n_restarts_optimizer, minimum=0)
-        if not math.isfinite(xi) or xi < 0:
-            raise SearchError(f"xi must be a number >= 0, got {xi!r}")
-        self.n_startup = int(n_startup)
-        self.n_candidates = int(n_candidates)
-        self.xi = float(xi)
-        self.n_restarts_optimizer = int(n_restarts_optimizer)
+        self.n_startup = check_count("n_startup", n_startup, minimum=0, error=SearchError)
+        self.n_candidates = check_count("n_candidates", n_candidates, minimum=1, error=SearchError)
+        self.xi = check_number("xi", xi, low=0.0, error=SearchError,
+                               fix="it is the exploration margin in normalised units, e.g. 0.0 or 0.01")
+        self.n_restarts_optimizer = check_count("n_restarts_optimizer", n_restarts_optimizer, minimum=0,
+                                                error=SearchError)
         self._design = space.sobol_unit(self.n_startup, self._rng) if self.n_startup else None
         self._design_used = 0
 
