@@ -83,6 +83,41 @@ def in_target(scores: np.ndarray, threshold: float, maximize: bool = True) -> np
     return hit & np.isfinite(s)
 
 
+def hits_and_regret(scores: np.ndarray, threshold: float, reference: np.ndarray,
+                    maximize: bool = True) -> tuple[np.ndarray, np.ndarray]:
+    """Hits and normalised best-so-far regret of searches' scores, query by query.
+
+    Parameters
+    ----------
+    scores : ndarray (..., B)
+        Scores of B queries in order (the last axis), e.g. (runs, budget);
+        NaN for a failed query, which never hits and finds nothing.
+    threshold : float
+        Score a query must reach to hit (:func:`target_threshold`).
+    reference : ndarray
+        Scores that span the task: the best of them is regret 0, the worst
+        regret 1 (NaN ignored).
+    maximize : bool, default True
+
+    Returns
+    -------
+    hits : ndarray (..., B) of bool
+        :func:`in_target` of each score.
+    regret : ndarray (..., B)
+        ``(best - best so far) / (best - worst)`` after each query, clipped
+        to [0, 1] (1 until the first successful query); the span is 1 when
+        every reference score is equal.
+    """
+    s = np.asarray(scores, dtype=float)
+    sign = 1.0 if maximize else -1.0
+    ref = sign * np.asarray(reference, dtype=float)
+    best, worst = np.nanmax(ref), np.nanmin(ref)
+    span = best - worst if best > worst else 1.0
+    signed = np.where(np.isnan(s), -np.inf, sign * s)
+    regret = np.clip((best - np.maximum.accumulate(signed, axis=-1)) / span, 0.0, 1.0)
+    return in_target(s, threshold, maximize), regret
+
+
 @dataclass(frozen=True)
 class Runs:
     """Hits of R independent runs of one search on one task.
@@ -403,4 +438,4 @@ def results_frame(results: Sequence[TaskGain]) -> pd.DataFrame:
     return pd.DataFrame([r.to_dict() for r in results])
 
 
-__all__ += ["GainResult", "results_frame", "in_target"]
+__all__ += ["GainResult", "results_frame", "in_target", "hits_and_regret"]

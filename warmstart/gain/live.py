@@ -16,7 +16,7 @@ from typing import Any, Callable
 import numpy as np
 
 from warmstart.evaluate.workers import map_jobs
-from warmstart.gain.bits import GainResult, Runs, compare, in_target, pool, target_threshold
+from warmstart.gain.bits import GainResult, Runs, compare, hits_and_regret, in_target, pool, target_threshold
 from warmstart.space import Space
 
 __all__ = ["LiveResult", "live_gain"]
@@ -117,13 +117,8 @@ def live_gain(
             for arm in ("warm", "cold") for r in range(repeats)]
     outputs = map_jobs(_arm, jobs, workers, progress, done_before=n_reference, total=total)
     scores = np.array([o[0] for o in outputs])
-    sign = 1.0 if maximize else -1.0
-    every = np.concatenate([ref_scores, scores.ravel()])
-    best, worst = np.nanmax(sign * every), np.nanmin(sign * every)
-    span = best - worst if best > worst else 1.0
-    signed = np.where(np.isnan(scores), -np.inf, sign * scores)
-    regret = np.clip((best - np.maximum.accumulate(signed, axis=1)) / span, 0, 1)
-    hits = in_target(scores, threshold, maximize)
+    # regret spans every score seen: the reference sample's and the searches'
+    hits, regret = hits_and_regret(scores, threshold, np.concatenate([ref_scores, scores.ravel()]), maximize)
     warm = Runs(hits[:repeats], regret[:repeats], "warm")
     cold = Runs(hits[repeats:], regret[repeats:], "cold")
     result = compare(task, warm, cold, p, rng=seed)

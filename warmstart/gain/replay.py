@@ -30,7 +30,7 @@ import numpy as np
 
 from warmstart.errors import WarmstartError
 from warmstart.evaluate.workers import map_jobs
-from warmstart.gain.bits import GainResult, Runs, TaskGain, compare, in_target, pool, target_threshold
+from warmstart.gain.bits import GainResult, Runs, TaskGain, compare, hits_and_regret, in_target, pool, target_threshold
 from warmstart.prior import Prior, Source, prior_from_sources, unit_distances
 from warmstart.archive.sources import BANDWIDTH_SCALE, comparable_profiles, load_sources, weight_sources
 from warmstart.space import Space
@@ -239,13 +239,8 @@ def hindsight_rates(task: ReplayTask, prior: Prior, budget: int) -> dict[str, fl
 def _score_configs(task: ReplayTask, configs: Sequence[dict]) -> tuple[np.ndarray, np.ndarray]:
     """Hits and normalised best-so-far regret of a sequence of configs."""
     obj = task.objective
-    scores = obj.values(task.space.encode(configs))
-    hits = in_target(scores, task.threshold, obj.maximize)
-    sign = 1.0 if obj.maximize else -1.0
-    best, worst = np.max(sign * obj.reference_scores), np.min(sign * obj.reference_scores)
-    span = best - worst if best > worst else 1.0
-    regret = np.maximum(best - np.maximum.accumulate(sign * scores), 0.0) / span
-    return hits, regret
+    return hits_and_regret(obj.values(task.space.encode(configs)), task.threshold, obj.reference_scores,
+                           obj.maximize)
 
 
 def _run(task: ReplayTask, make: Callable[[int], Any], budget: int, repeats: int, seed: int) -> Runs:
