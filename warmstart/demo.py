@@ -124,16 +124,17 @@ def demo_space(learner: str = "svm"):
 
 
 def _history_study(args):
-    """Evaluate a Sobol design of the learner on one store (runs in a worker)."""
+    """Evaluate a Sobol design of the learner on one store (runs in a worker):
+    one row per config, with its score (NaN when failed) and cost."""
     from warmstart.evaluate.learners import cv_objective
+    from warmstart.evaluate.objective import score_function
+    from warmstart.search.static import FixedListSearch
+    from warmstart.search.strategy import run_search
 
-    frame, learner, configs, seed = args
+    frame, learner, space, configs, seed = args
     objective = cv_objective(frame, "lapsed", learner, metric="balanced_accuracy", cv=3, seed=seed)
-    rows = []
-    for cfg in configs:
-        r = objective(cfg)
-        rows.append({**cfg, "score": r.score if r.status == "ok" else np.nan, "cost_s": r.cost_s})
-    return pd.DataFrame(rows)
+    result = run_search(FixedListSearch(space, configs), score_function(objective), len(configs))
+    return pd.DataFrame([{**t.config, "score": s, "cost_s": t.cost_s} for t, s in zip(result.trials, result.scores)])
 
 
 def run_demo(
@@ -197,7 +198,7 @@ def run_demo(
          f"(3-fold cross-validated balanced accuracy)")
     design = space.sobol(n_configs, np.random.default_rng(seed))
     bar = Progress("  history")
-    jobs = [(tables[i], learner, design, seed) for i in range(n_history)]
+    jobs = [(tables[i], learner, space, design, seed) for i in range(n_history)]
     results = map_jobs(_history_study, jobs, workers, bar)
     for i in range(n_history):
         archive.ingest(results[i], task=stores[i].name, data=tables[i], target="lapsed", learner=learner,

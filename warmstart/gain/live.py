@@ -17,6 +17,8 @@ import numpy as np
 
 from warmstart.evaluate.workers import map_jobs
 from warmstart.gain.bits import GainResult, Runs, compare, hits_and_regret, in_target, pool, target_threshold
+from warmstart.search.density import DensitySearch
+from warmstart.search.strategy import run_search
 from warmstart.space import Space
 
 __all__ = ["LiveResult", "live_gain"]
@@ -44,18 +46,11 @@ class _Cached:
         return self.memo[key]
 
 
-def _arm(args) -> tuple[np.ndarray, dict]:
-    from warmstart.search.density import DensitySearch
-
+def _arm(args) -> np.ndarray:
+    """Scores of one warm or cold search, query by query (NaN = failed)."""
     space, evaluate, prior, budget, seed, maximize = args
-    cached = _Cached(space, evaluate)
     search = DensitySearch(space, prior=prior, seed=seed, maximize=maximize)
-    scores = np.empty(budget)
-    for t in range(budget):
-        config = search.propose()
-        scores[t] = cached(config)
-        search.record(config, None if np.isnan(scores[t]) else scores[t])
-    return scores, cached.memo
+    return run_search(search, _Cached(space, evaluate), budget).scores
 
 
 @dataclass
@@ -116,7 +111,7 @@ def live_gain(
     jobs = [(space, evaluate, prior if arm == "warm" else None, budget, seed + r, maximize)
             for arm in ("warm", "cold") for r in range(repeats)]
     outputs = map_jobs(_arm, jobs, workers, progress, done_before=n_reference, total=total)
-    scores = np.array([o[0] for o in outputs])
+    scores = np.array(outputs)
     # regret spans every score seen: the reference sample's and the searches'
     hits, regret = hits_and_regret(scores, threshold, np.concatenate([ref_scores, scores.ravel()]), maximize)
     warm = Runs(hits[:repeats], regret[:repeats], "warm")

@@ -24,7 +24,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Any, Callable, Sequence
+from typing import Any, Callable, Iterable, Sequence
 
 import numpy as np
 
@@ -33,9 +33,13 @@ from warmstart.evaluate.workers import map_jobs
 from warmstart.gain.bits import GainResult, Runs, TaskGain, compare, hits_and_regret, in_target, pool, target_threshold
 from warmstart.prior import Prior, Source, prior_from_sources, unit_distances
 from warmstart.archive.sources import BANDWIDTH_SCALE, comparable_profiles, load_sources, weight_sources
+from warmstart.search.baselines import RandomSearch
+from warmstart.search.density import DensitySearch
+from warmstart.search.static import FixedListSearch, average_rank_list, nearest_tasks_list
+from warmstart.search.strategy import SearchStrategy, run_search
 from warmstart.space import Space
 
-__all__ = ["ReplayObjective", "ReplayTask", "ReplayResult", "replay_tasks", "leave_one_task_out", "static_order",
+__all__ = ["ReplayObjective", "ReplayTask", "ReplayResult", "replay_tasks", "leave_one_task_out",
            "hindsight_rates", "HINDSIGHT", "OBJECTIVES"]
 
 
@@ -182,34 +186,6 @@ def replay_tasks(archive, learner: str, gamma: float = 0.05, min_trials: int = 2
     return out
 
 
-def static_order(prior: Prior, flat: bool, budget: int) -> list[dict]:
-    """A fixed list of configs from the prior's candidates.
-
-    ``flat=True``: ranked by the mean quantile across all sources (average
-    rank, "learned defaults"). ``flat=False``: the best config of each source
-    in order of profile distance, then the second best of each, and so on.
-    """
-    if flat:
-        scores = prior._Q.mean(axis=1)
-        order = np.argsort(-scores, kind="stable")[:budget]
-        return prior.space.decode(prior._candidates[order])
-    by_distance = sorted(prior.sources, key=lambda s: (s.distance, s.study_id))
-    out, keys, depth = [], set(), 0
-    while len(out) < budget and depth < max(s.X.shape[0] for s in by_distance):
-        for s in by_distance:
-            order = np.argsort(-s.quantile, kind="stable")
-            if depth < len(order):
-                cfg = prior.space.complete(prior.space.decode(s.X[order[depth]][None, :])[0], 0)
-                key = prior.space.canonical_json(cfg)
-                if key not in keys:
-                    keys.add(key)
-                    out.append(cfg)
-            if len(out) >= budget:
-                break
-        depth += 1
-    return out
-
-
 #: Labels of the hindsight figures :func:`hindsight_rates` adds (they are
 #: not searches: each one peeks at the held-out task's scores).
 HINDSIGHT = ("best_past_task", "ideal_list")
@@ -227,42 +203,31 @@ def hindsight_rates(task: ReplayTask, prior: Prior, budget: int) -> dict[str, fl
     surrogate, whose target set is a region.
     """
     n_hit = task.objective.max_distinct_hits(task.threshold, budget)
+    maximize = task.objective.maximize
     best = 0.0
     for s in prior.sources:
         order = np.argsort(-s.quantile, kind="stable")[:budget]
         configs = [prior.space.complete(c, 0) for c in prior.space.decode(s.X[order])]
-        hits, _ = _score_configs(task, configs)
-        best = max(best, float(hits.sum()) / budget)
+        runs = _runs(task, [FixedListSearch(task.space, configs, maximize=maximize)], budget)
+        best = max(best, float(runs.hits.sum()) / budget)
     return {"best_past_task": best, "ideal_list": n_hit / budget}
 
 
-def _score_configs(task: ReplayTask, configs: Sequence[dict]) -> tuple[np.ndarray, np.ndarray]:
-    """Hits and normalised best-so-far regret of a sequence of configs."""
+def _runs(task: ReplayTask, searches: Iterable[SearchStrategy], budget: int) -> Runs:
+    """Run each search on the held-out task through :func:`run_search` and score its queries.
+
+    A search runs ``budget`` queries; a :class:`FixedListSearch` runs as
+    many as its list holds, and the queries it did not make count as misses
+    that find nothing (no hit, regret unchanged).
+    """
+    rows = []
+    for search in searches:
+        n = min(budget, search.remaining) if isinstance(search, FixedListSearch) else budget
+        scores = np.full(budget, np.nan)
+        scores[:n] = run_search(search, task.objective, n).scores
+        rows.append(scores)
     obj = task.objective
-    return hits_and_regret(obj.values(task.space.encode(configs)), task.threshold, obj.reference_scores,
-                           obj.maximize)
-
-
-def _run(task: ReplayTask, make: Callable[[int], Any], budget: int, repeats: int, seed: int) -> Runs:
-    hits = np.zeros((repeats, budget), dtype=bool)
-    regret = np.zeros((repeats, budget))
-    for r in range(repeats):
-        search = make(seed + r)
-        configs = []
-        for _ in range(budget):
-            config = search.propose()
-            search.record(config, task.objective(config))
-            configs.append(config)
-        hits[r], regret[r] = _score_configs(task, configs)
-    return Runs(hits, regret)
-
-
-def _uniform_runs(task: ReplayTask, budget: int, repeats: int, seed: int) -> Runs:
-    """Uniform sampling (the random baseline), R independent runs."""
-    hits = np.zeros((repeats, budget), dtype=bool)
-    regret = np.zeros((repeats, budget))
-    for r in range(repeats):
-        hits[r], regret[r] = _score_configs(task, task.space.sample(budget, np.random.default_rng(seed + r)))
+    hits, regret = hits_and_regret(np.array(rows), task.threshold, obj.reference_scores, obj.maximize)
     return Runs(hits, regret)
 
 
@@ -274,20 +239,19 @@ def _one_task(args) -> tuple[TaskGain, dict]:
 
 
 def _replay_one_task(task: ReplayTask, prior: Prior, budget: int, repeats: int, seed: int) -> tuple[TaskGain, dict]:
-    from warmstart.search.density import DensitySearch
+    space, maximize = task.space, task.objective.maximize
 
-    maximize = task.objective.maximize
-    warm = _run(task, lambda s: DensitySearch(task.space, prior=prior, seed=s, maximize=maximize), budget, repeats, seed)
-    cold = _run(task, lambda s: DensitySearch(task.space, prior=None, seed=s, maximize=maximize), budget, repeats, seed)
-    rand = _uniform_runs(task, budget, repeats, seed)
+    def repeated(make: Callable[[int], SearchStrategy]) -> Runs:
+        return _runs(task, (make(seed + r) for r in range(repeats)), budget)
+
+    warm = repeated(lambda s: DensitySearch(space, prior=prior, seed=s, maximize=maximize))
+    cold = repeated(lambda s: DensitySearch(space, prior=None, seed=s, maximize=maximize))
+    rand = repeated(lambda s: RandomSearch(space, seed=s, maximize=maximize))
     others = {"random": rand}
     curves = {"warm": warm, "cold": cold, "random": rand}
-    for label, flat in (("defaults", True), ("nearest", False)):
-        h, g = _score_configs(task, static_order(prior, flat, budget))
-        h = np.pad(h, (0, budget - len(h)))
-        g = np.pad(g, (0, budget - len(g)), constant_values=g[-1] if len(g) else 1.0)
-        others[label] = Runs(h[None, :], g[None, :])
-        curves[label] = others[label]
+    for label, configs in (("defaults", average_rank_list(prior, budget)),
+                           ("nearest", nearest_tasks_list(prior, budget))):
+        others[label] = curves[label] = _runs(task, [FixedListSearch(space, configs, maximize=maximize)], budget)
     result = compare(task.task, warm, cold, task.p, rng=seed, others=others)
     for label, q in hindsight_rates(task, prior, budget).items():
         result.extra[f"q_{label}"] = q
