@@ -21,50 +21,15 @@ recorded range and ranks exactly as the fitted normal scores rank.
 
 from __future__ import annotations
 
-import warnings
 from typing import Any
 
 import numpy as np
 from scipy.stats import norm, rankdata
-from sklearn.exceptions import ConvergenceWarning
-from sklearn.gaussian_process import GaussianProcessRegressor
-from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
 
+from warmstart.search.gp import SURROGATE_KERNEL, fit_gp, gp_features
 from warmstart.space import Space
 
-__all__ = ["SurrogateObjective", "gp_features"]
-
-
-def gp_features(space: Space, rows: np.ndarray, conditional: np.ndarray | None = None) -> np.ndarray:
-    """Regressor inputs for encoded rows.
-
-    ``real``/``integer`` coordinates keep their unit-cube value; a ``choice``
-    becomes one indicator column per level; an inactive coordinate is 0 and,
-    for the columns flagged in ``conditional``, an extra indicator says
-    whether the parameter was active.
-
-    Parameters
-    ----------
-    space : Space
-    rows : ndarray (n, d)
-        Encoded rows (NaN = inactive).
-    conditional : ndarray (d,) of bool, optional
-        Coordinates that get an "active" indicator.
-    """
-    rows = np.atleast_2d(np.asarray(rows, dtype=float))
-    if conditional is None:
-        conditional = np.zeros(space.dim, dtype=bool)
-    cols = []
-    for j, p in enumerate(space.params):
-        x = rows[:, j]
-        if p.kind == "choice":
-            for level in range(p.n_levels):
-                cols.append((x == level).astype(float))
-        else:
-            cols.append(np.nan_to_num(x, nan=0.0))
-            if conditional[j]:
-                cols.append(np.isfinite(x).astype(float))
-    return np.column_stack(cols)
+__all__ = ["SurrogateObjective"]
 
 
 class SurrogateObjective:
@@ -109,15 +74,8 @@ class SurrogateObjective:
         order = np.argsort(z, kind="stable")
         self._z_sorted = z[order]
         self._s_sorted = scores[order]
-        features = gp_features(space, X, self._conditional)
-        kernel = (ConstantKernel(1.0, (1e-2, 1e2))
-                  * Matern(length_scale=np.full(features.shape[1], 0.3), length_scale_bounds=(1e-2, 1e2), nu=2.5)
-                  + WhiteKernel(0.1, (1e-5, 1.0)))
-        self._gp = GaussianProcessRegressor(kernel, normalize_y=True, n_restarts_optimizer=2, random_state=seed)
-        with warnings.catch_warnings():
-            # a noise level or length scale at its bound is a fit, not a failure
-            warnings.simplefilter("ignore", ConvergenceWarning)
-            self._gp.fit(features, z)
+        self._gp = fit_gp(gp_features(space, X, self._conditional), z, SURROGATE_KERNEL, n_restarts=2,
+                          random_state=seed)
         self.reference_scores = self.values(space.sample_unit(n_reference, np.random.default_rng(seed)))
 
     def values(self, rows: np.ndarray) -> np.ndarray:

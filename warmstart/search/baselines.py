@@ -9,8 +9,9 @@ and work on the unit-cube encoding of a :class:`~warmstart.space.Space`:
   ``method="Nelder-Mead"`` on the unit cube, driven one point at a time, with
   restarts from a random point when it converges;
 * :class:`GPSearch` — a Gaussian-process regression
-  (:class:`sklearn.gaussian_process.GaussianProcessRegressor`, Matern kernel)
-  with expected improvement maximised over random candidates.
+  (:class:`sklearn.gaussian_process.GaussianProcessRegressor`, Matern kernel;
+  the model of :mod:`warmstart.search.gp`) with expected improvement
+  maximised over random candidates.
 
 Choice coordinates are handled by rounding (``Space.from_unit``); the same
 seed gives the same sequence.
@@ -21,7 +22,6 @@ from __future__ import annotations
 import math
 import queue
 import threading
-import warnings
 from typing import Any
 
 import numpy as np
@@ -31,6 +31,7 @@ from scipy.stats import qmc
 
 from warmstart._checks import check_count, check_number
 from warmstart.search.density import default_n_startup
+from warmstart.search.gp import SEARCH_KERNEL, conditional_columns, fit_gp, gp_features
 from warmstart.space import Space
 from warmstart.search.strategy import SearchError, SearchStrategy, Trial, _config_key
 
@@ -225,13 +226,15 @@ class GPSearch(SearchStrategy):
     Starts with the same Sobol design as a cold
     :class:`~warmstart.search.density.DensitySearch`, then fits
     :class:`sklearn.gaussian_process.GaussianProcessRegressor` (constant ×
-    Matern 5/2 with one length scale per coordinate, plus white noise;
-    targets normalised) to the encoded rows and proposes the candidate with
-    the largest expected improvement. Candidates: uniform draws plus
-    Gaussian perturbations of the best configs. Choice coordinates enter as
-    ``(level + 0.5) / k``, inactive ones as 0.5. Failed and pending configs
-    get the worst score seen (a constant liar), so the model steers away
-    from them and a batch spreads.
+    Matern 5/2 with one length scale per input, plus white noise; targets
+    normalised; :data:`~warmstart.search.gp.SEARCH_KERNEL`) to the encoded
+    rows and proposes the candidate with the largest expected improvement.
+    Candidates: uniform draws plus Gaussian perturbations of the best
+    configs. Inputs are :func:`~warmstart.search.gp.gp_features`: a choice
+    becomes one indicator per level, and a parameter with a condition gets
+    an "active" indicator (inactive values enter as 0). Failed and pending
+    configs get the worst score seen (a constant liar), so the model steers
+    away from them and a batch spreads.
 
     Parameters
     ----------
@@ -264,14 +267,11 @@ class GPSearch(SearchStrategy):
                                                 error=SearchError)
         self._design = space.sobol_unit(self.n_startup, self._rng) if self.n_startup else None
         self._design_used = 0
+        self._conditional = conditional_columns(space)
 
     def features(self, X: np.ndarray) -> np.ndarray:
-        """GP inputs of encoded rows (choices scaled into [0, 1], inactive = 0.5)."""
-        Z = np.array(X, dtype=float)
-        lev = self.space.n_levels
-        ch = self.space.is_choice
-        Z[:, ch] = (Z[:, ch] + 0.5) / lev[ch]
-        return np.nan_to_num(Z, nan=0.5)
+        """GP inputs of encoded rows (:func:`~warmstart.search.gp.gp_features`)."""
+        return gp_features(self.space, X, self._conditional)
 
     def _propose_one(self) -> tuple[dict, str]:
         if (self._design is not None and self._design_used < self.n_startup
@@ -283,20 +283,10 @@ class GPSearch(SearchStrategy):
         ok = ~np.isnan(y)
         if ok.sum() < 2:
             return self.space.decode(self.space.sample_unit(1, self._rng))[0], "random"
-        from sklearn.exceptions import ConvergenceWarning
-        from sklearn.gaussian_process import GaussianProcessRegressor
-        from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
-
-        d = self.space.dim
         worst = float(np.nanmin(y))
         X = np.vstack([self.rows(), self.pending_rows()])
         target = np.concatenate([np.where(ok, y, worst), np.full(self.n_pending, worst)])
-        kernel = (ConstantKernel(1.0, (1e-3, 1e3))
-                  * Matern(length_scale=np.full(d, 0.5), length_scale_bounds=(1e-2, 1e2), nu=2.5)
-                  + WhiteKernel(1e-4, (1e-8, 1e-1)))
-        gp = GaussianProcessRegressor(kernel=kernel, normalize_y=True,
-                                      n_restarts_optimizer=self.n_restarts_optimizer,
-                                      random_state=int(self._rng.integers(2**31 - 1)))
+        random_state = int(self._rng.integers(2**31 - 1))  # drawn before the candidates
         best_rows = self.rows()[ok][np.argsort(-y[ok])[:5]]
         n_local = self.n_candidates // 4
         local = best_rows[self._rng.integers(0, best_rows.shape[0], n_local)]
@@ -304,11 +294,8 @@ class GPSearch(SearchStrategy):
         local[:, self.space.is_choice] = np.round(local[:, self.space.is_choice])
         C = np.vstack([self.space.sample_unit(self.n_candidates - n_local, self._rng),
                        self.space.snap(local)])
-        with warnings.catch_warnings():
-            # hyperparameters at their bounds are routine for small samples
-            warnings.simplefilter("ignore", ConvergenceWarning)
-            gp.fit(self.features(X), target)
-            mean, std = gp.predict(self.features(C), return_std=True)
+        gp = fit_gp(self.features(X), target, SEARCH_KERNEL, self.n_restarts_optimizer, random_state)
+        mean, std = gp.predict(self.features(C), return_std=True)
         ei = expected_improvement(mean, std, float(np.max(target)), self.xi * float(np.std(target)))
         ei = np.where(self._known_rows(C), -np.inf, ei)
         return self.space.decode(C[int(np.argmax(ei))][None, :])[0], "model"
