@@ -105,7 +105,8 @@ from warmstart.archive import Archive  # noqa: E402
 from warmstart.gain.bits import PooledGain, Runs, TaskGain, bits, bits_interval, compare, pool, target_threshold  # noqa: E402
 from warmstart.gain.live import LiveResult, live_gain  # noqa: E402
 from warmstart.prior import Prior, PriorError, Source, prior_from_sources  # noqa: E402
-from warmstart.gain.replay import ReplayObjective, ReplayResult, leave_one_task_out  # noqa: E402
+from warmstart.gain.objectives import ReplayObjective  # noqa: E402
+from warmstart.gain.replay import ReplayResult, leave_one_task_out  # noqa: E402
 from warmstart.archive.sources import build_prior, load_sources  # noqa: E402
 
 __all__ += [

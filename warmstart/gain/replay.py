@@ -24,14 +24,16 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Any, Callable, Iterable, Sequence
+from typing import Callable, Iterable, Sequence
 
 import numpy as np
+from threadpoolctl import threadpool_limits
 
 from warmstart.errors import WarmstartError
 from warmstart.evaluate.workers import map_jobs
-from warmstart.gain.bits import GainResult, Runs, TaskGain, compare, hits_and_regret, in_target, pool, target_threshold
-from warmstart.prior import Prior, Source, prior_from_sources, unit_distances
+from warmstart.gain.bits import GainResult, Runs, TaskGain, compare, hits_and_regret, pool, target_threshold
+from warmstart.gain.objectives import HeldOutObjective, ReplayObjective, SurrogateObjective
+from warmstart.prior import Prior, Source, prior_from_sources
 from warmstart.archive.sources import BANDWIDTH_SCALE, comparable_profiles, load_sources, weight_sources
 from warmstart.search.baselines import RandomSearch
 from warmstart.search.density import DensitySearch
@@ -39,53 +41,8 @@ from warmstart.search.static import FixedListSearch, average_rank_list, nearest_
 from warmstart.search.strategy import SearchStrategy, run_search
 from warmstart.space import Space
 
-__all__ = ["ReplayObjective", "ReplayTask", "ReplayResult", "replay_tasks", "leave_one_task_out",
+__all__ = ["ReplayTask", "ReplayResult", "replay_tasks", "leave_one_task_out",
            "hindsight_rates", "HINDSIGHT", "OBJECTIVES"]
-
-
-class ReplayObjective:
-    """A held-out study's recorded trials acting as its objective.
-
-    Parameters
-    ----------
-    space : Space
-    X : ndarray (m, d)
-        Encoded recorded configs (successful trials).
-    scores : ndarray (m,)
-    maximize : bool
-    """
-
-    def __init__(self, space: Space, X: np.ndarray, scores: np.ndarray, maximize: bool = True):
-        self.space = space
-        self.X = np.asarray(X, dtype=float)
-        self.scores = np.asarray(scores, dtype=float)
-        self.maximize = maximize
-
-    @property
-    def reference_scores(self) -> np.ndarray:
-        """The task's scores under uniform sampling: the recorded ones."""
-        return self.scores
-
-    def nearest(self, rows: np.ndarray) -> np.ndarray:
-        """Index of the nearest recorded config for each encoded row."""
-        return np.argmin(unit_distances(self.space, np.atleast_2d(rows), self.X), axis=1)
-
-    def values(self, rows: np.ndarray) -> np.ndarray:
-        """Scores of encoded rows: those of their nearest recorded configs."""
-        return self.scores[self.nearest(rows)]
-
-    def __call__(self, config: dict) -> float:
-        return float(self.values(self.space.encode([config]))[0])
-
-    def max_distinct_hits(self, threshold: float, budget: int) -> int:
-        """Most hits ``budget`` distinct recorded configs can score: ``min(|T|, B)``."""
-        return min(int(in_target(self.scores, threshold, self.maximize).sum()), budget)
-
-    def uniform_hit_chance(self, threshold: float, n: int = 4096, rng: Any = 0) -> float:
-        """``p``: chance that a uniform draw's nearest recorded config is a hit."""
-        rows = self.space.sample_unit(n, np.random.default_rng(rng))
-        hit = in_target(self.values(rows), threshold, self.maximize)
-        return float(max(hit.mean(), 0.5 / (n + 1)))
 
 
 @dataclass
@@ -96,7 +53,7 @@ class ReplayTask:
     task: str
     study_id: int
     space: Space
-    objective: ReplayObjective
+    objective: HeldOutObjective
     threshold: float
     p: float
     profile: dict
@@ -129,10 +86,6 @@ def _build_objective(args):
     """The replay objective of one study (module level, so worker processes can run it)."""
     objective, space, X, scores, maximize, seed = args
     if objective == "surrogate":
-        from threadpoolctl import threadpool_limits
-
-        from warmstart.gain.objectives import SurrogateObjective
-
         # small matrices: one BLAS thread per process is faster than two processes fighting over cores
         with threadpool_limits(limits=1):
             return SurrogateObjective(space, X, scores, maximize, seed=seed)
@@ -232,8 +185,6 @@ def _runs(task: ReplayTask, searches: Iterable[SearchStrategy], budget: int) -> 
 
 
 def _one_task(args) -> tuple[TaskGain, dict]:
-    from threadpoolctl import threadpool_limits
-
     with threadpool_limits(limits=1):  # small matrices: see _build_objective
         return _replay_one_task(*args)
 
