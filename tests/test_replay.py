@@ -175,7 +175,7 @@ def test_unknown_replay_objective_is_refused(archive_path):
     from warmstart.errors import WarmstartError
 
     with Archive(archive_path, read_only=True) as archive:
-        with pytest.raises(WarmstartError, match="nearest, surrogate; got 'table'"):
+        with pytest.raises(WarmstartError, match="replay objective must be one of 'nearest', 'surrogate', got 'table'; pick one"):
             replay_tasks(archive, "toy", objective="table")
 
 

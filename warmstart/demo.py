@@ -22,7 +22,7 @@ import time
 import zlib
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Callable
+from typing import Any, Callable
 
 import click
 import numpy as np
@@ -123,17 +123,27 @@ def demo_space(learner: str = "svm"):
     return Space.from_dict(d)
 
 
-def _history_study(args):
-    """Evaluate a Sobol design of the learner on one store (runs in a worker):
+@dataclass(frozen=True, eq=False)
+class _HistoryJob:
+    """One store's history study: the learner evaluated on a fixed design."""
+
+    frame: pd.DataFrame
+    learner: str
+    space: Any
+    configs: list
+    seed: int
+
+
+def _history_study(job: _HistoryJob) -> pd.DataFrame:
+    """Evaluate the design on one store (module level, so worker processes can run it):
     one row per config, with its score (NaN when failed) and cost."""
     from warmstart.evaluate.learners import cv_objective
     from warmstart.evaluate.objective import score_function
     from warmstart.search.static import FixedListSearch
     from warmstart.search.strategy import run_search
 
-    frame, learner, space, configs, seed = args
-    objective = cv_objective(frame, "lapsed", learner, metric="balanced_accuracy", cv=3, seed=seed)
-    result = run_search(FixedListSearch(space, configs), score_function(objective), len(configs))
+    objective = cv_objective(job.frame, "lapsed", job.learner, metric="balanced_accuracy", cv=3, seed=job.seed)
+    result = run_search(FixedListSearch(job.space, job.configs), score_function(objective), len(job.configs))
     return pd.DataFrame([{**t.config, "score": s, "cost_s": t.cost_s} for t, s in zip(result.trials, result.scores)])
 
 
@@ -198,7 +208,7 @@ def run_demo(
          f"(3-fold cross-validated balanced accuracy)")
     design = space.sobol(n_configs, np.random.default_rng(seed))
     bar = Progress("  history")
-    jobs = [(tables[i], learner, space, design, seed) for i in range(n_history)]
+    jobs = [_HistoryJob(tables[i], learner, space, design, seed) for i in range(n_history)]
     results = map_jobs(_history_study, jobs, workers, bar)
     for i in range(n_history):
         archive.ingest(results[i], task=stores[i].name, data=tables[i], target="lapsed", learner=learner,

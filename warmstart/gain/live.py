@@ -46,11 +46,22 @@ class _Cached:
         return self.memo[key]
 
 
-def _arm(args) -> np.ndarray:
-    """Scores of one warm or cold search, query by query (NaN = failed)."""
-    space, evaluate, prior, budget, seed, maximize = args
-    search = DensitySearch(space, prior=prior, seed=seed, maximize=maximize)
-    return run_search(search, _Cached(space, evaluate), budget).scores
+@dataclass(frozen=True, eq=False)
+class _ArmJob:
+    """One warm (``prior`` set) or cold search on the live objective."""
+
+    space: Space
+    evaluate: Callable
+    prior: Any
+    budget: int
+    seed: int
+    maximize: bool
+
+
+def _arm(job: _ArmJob) -> np.ndarray:
+    """Scores of one search, query by query, NaN = failed (module level, so worker processes can run it)."""
+    search = DensitySearch(job.space, prior=job.prior, seed=job.seed, maximize=job.maximize)
+    return run_search(search, _Cached(job.space, job.evaluate), job.budget).scores
 
 
 @dataclass
@@ -108,7 +119,7 @@ def live_gain(
             progress(i + 1, total)
     threshold = target_threshold(ref_scores, gamma, maximize)
     p = float(in_target(ref_scores, threshold, maximize).mean())
-    jobs = [(space, evaluate, prior if arm == "warm" else None, budget, seed + r, maximize)
+    jobs = [_ArmJob(space, evaluate, prior if arm == "warm" else None, budget, seed + r, maximize)
             for arm in ("warm", "cold") for r in range(repeats)]
     outputs = map_jobs(_arm, jobs, workers, progress, done_before=n_reference, total=total)
     scores = np.array(outputs)

@@ -29,6 +29,7 @@ from typing import Callable, Iterable, Sequence
 import numpy as np
 from threadpoolctl import threadpool_limits
 
+from warmstart._checks import check_choice
 from warmstart.errors import WarmstartError
 from warmstart.evaluate.workers import map_jobs
 from warmstart.gain.bits import GainResult, Runs, TaskGain, compare, hits_and_regret, pool, target_threshold
@@ -63,8 +64,49 @@ class ReplayTask:
 OBJECTIVES = ("nearest", "surrogate")
 
 
-def _replay_specs(archive, learner: str, min_trials: int) -> list[tuple]:
-    """Each task's largest study of ``learner``: (task_id, task, study_id, space, X, scores, maximize)."""
+@dataclass(frozen=True, eq=False)
+class _Study:
+    """One task's largest study of a learner, as read for replay."""
+
+    task_id: int
+    task: str
+    study_id: int
+    space: Space
+    X: np.ndarray  # encoded configs of the successful trials
+    scores: np.ndarray
+    maximize: bool
+
+
+@dataclass(frozen=True, eq=False)
+class _ObjectiveJob:
+    """Build one held-out study's objective (in a worker process)."""
+
+    kind: str  # one of OBJECTIVES
+    study: _Study
+
+
+@dataclass(frozen=True, eq=False)
+class _TaskJob:
+    """Replay one held-out task: every search, ``repeats`` runs of ``budget`` queries."""
+
+    task: ReplayTask
+    prior: Prior
+    budget: int
+    repeats: int
+    seed: int
+
+
+@dataclass(frozen=True, eq=False)
+class _TaskOutcome:
+    """What a worker hands back for one task: its gain and its mean curves
+    (label -> (hit rate per query, regret per query))."""
+
+    gain: TaskGain
+    curves: dict
+
+
+def _replay_studies(archive, learner: str, min_trials: int) -> list[_Study]:
+    """Each task's largest study of ``learner`` with at least ``min_trials`` successful trials."""
     studies = archive.studies()
     studies = studies[(studies["learner"] == learner) & (studies["n_ok"] >= min_trials)]
     studies = studies.sort_values(["task_id", "n_ok"], ascending=[True, False]).drop_duplicates("task_id")
@@ -76,20 +118,20 @@ def _replay_specs(archive, learner: str, min_trials: int) -> list[tuple]:
         trials = archive.trials(int(row.study_id))
         trials = trials[trials["status"] == "ok"]
         space = archive.space(int(row.space_id))
-        out.append((int(row.task_id), str(row.task), int(row.study_id), space,
-                    space.encode(list(trials["config"])), trials["score"].to_numpy(dtype=float),
-                    row.direction == "maximize"))
+        out.append(_Study(int(row.task_id), str(row.task), int(row.study_id), space,
+                          space.encode(list(trials["config"])), trials["score"].to_numpy(dtype=float),
+                          row.direction == "maximize"))
     return out
 
 
-def _build_objective(args):
+def _build_objective(job: _ObjectiveJob) -> HeldOutObjective:
     """The replay objective of one study (module level, so worker processes can run it)."""
-    objective, space, X, scores, maximize, seed = args
-    if objective == "surrogate":
+    s = job.study
+    if job.kind == "surrogate":
         # small matrices: one BLAS thread per process is faster than two processes fighting over cores
         with threadpool_limits(limits=1):
-            return SurrogateObjective(space, X, scores, maximize, seed=seed)
-    return ReplayObjective(space, X, scores, maximize)
+            return SurrogateObjective(s.space, s.X, s.scores, s.maximize, seed=s.task_id)
+    return ReplayObjective(s.space, s.X, s.scores, s.maximize)
 
 
 def replay_tasks(archive, learner: str, gamma: float = 0.05, min_trials: int = 20,
@@ -121,20 +163,19 @@ def replay_tasks(archive, learner: str, gamma: float = 0.05, min_trials: int = 2
     total : int, optional
         Total passed to ``progress`` when the fits are part of larger work.
     """
-    if objective not in OBJECTIVES:
-        raise WarmstartError(f"replay objective must be one of {', '.join(OBJECTIVES)}; got {objective!r}")
-    specs = _replay_specs(archive, learner, min_trials)
+    check_choice("replay objective", objective, OBJECTIVES, error=WarmstartError)
+    studies = _replay_studies(archive, learner, min_trials)
     if only is not None:
-        specs = [sp for sp in specs if sp[1] in set(only)]
+        studies = [s for s in studies if s.task in set(only)]
     surrogate = objective == "surrogate"
-    objectives = map_jobs(_build_objective, [(objective, sp[3], sp[4], sp[5], sp[6], sp[0]) for sp in specs],
+    objectives = map_jobs(_build_objective, [_ObjectiveJob(objective, s) for s in studies],
                           workers if surrogate else 1, progress if surrogate else None, total=total)
     out = []
-    for (task_id, task, study_id, space, _, _, maximize), obj in zip(specs, objectives):
-        threshold = target_threshold(obj.reference_scores, gamma, maximize)
+    for s, obj in zip(studies, objectives):
+        threshold = target_threshold(obj.reference_scores, gamma, s.maximize)
         out.append(ReplayTask(
-            task_id, task, study_id, space, obj, threshold,
-            obj.uniform_hit_chance(threshold, rng=task_id + 1), archive.profile_of(task_id),
+            s.task_id, s.task, s.study_id, s.space, obj, threshold,
+            obj.uniform_hit_chance(threshold, rng=s.task_id + 1), archive.profile_of(s.task_id),
         ))
     return out
 
@@ -184,12 +225,13 @@ def _runs(task: ReplayTask, searches: Iterable[SearchStrategy], budget: int) -> 
     return Runs(hits, regret)
 
 
-def _one_task(args) -> tuple[TaskGain, dict]:
+def _one_task(job: _TaskJob) -> _TaskOutcome:
+    """Replay one held-out task (module level, so worker processes can run it)."""
     with threadpool_limits(limits=1):  # small matrices: see _build_objective
-        return _replay_one_task(*args)
+        return _replay_one_task(job.task, job.prior, job.budget, job.repeats, job.seed)
 
 
-def _replay_one_task(task: ReplayTask, prior: Prior, budget: int, repeats: int, seed: int) -> tuple[TaskGain, dict]:
+def _replay_one_task(task: ReplayTask, prior: Prior, budget: int, repeats: int, seed: int) -> _TaskOutcome:
     space, maximize = task.space, task.objective.maximize
 
     def repeated(make: Callable[[int], SearchStrategy]) -> Runs:
@@ -213,7 +255,7 @@ def _replay_one_task(task: ReplayTask, prior: Prior, budget: int, repeats: int, 
     result.extra["target_gap"] = gap
     # rule of thumb (common practice): CV estimates on small data move by about a point
     result.extra["within_noise"] = bool(gap < 0.01 * max(abs(best), 1e-12))
-    return result, {k: (v.hits.mean(axis=0), v.regret.mean(axis=0)) for k, v in curves.items()}
+    return _TaskOutcome(result, {k: (v.hits.mean(axis=0), v.regret.mean(axis=0)) for k, v in curves.items()})
 
 
 @dataclass
@@ -264,9 +306,8 @@ def leave_one_task_out(
     -------
     ReplayResult
     """
-    if objective not in OBJECTIVES:
-        raise WarmstartError(f"replay objective must be one of {', '.join(OBJECTIVES)}; got {objective!r}")
-    names = [sp[1] for sp in _replay_specs(archive, learner, 20)]
+    check_choice("replay objective", objective, OBJECTIVES, error=WarmstartError)
+    names = [s.task for s in _replay_studies(archive, learner, 20)]
     if len(names) < 2:
         raise WarmstartError(
             f"replay needs studies of {learner!r} on at least 2 tasks with >= 20 successful trials; "
@@ -295,13 +336,13 @@ def leave_one_task_out(
                                   exclude_tasks=[t.task_id],
                                   bandwidth_scale=BANDWIDTH_SCALE)
         prior = prior_from_sources(t.space, weighted, provenance={"learner": learner, "held_out": t.task})
-        jobs.append((t, prior, budget, repeats, seed))
+        jobs.append(_TaskJob(t, prior, budget, repeats, seed))
     results = map_jobs(_one_task, jobs, workers, progress, done_before=fits, total=fits + len(jobs))
-    gains = [r[0] for r in results]
+    gains = [r.gain for r in results]
     curves = {}
-    for label in results[0][1]:
+    for label in results[0].curves:
         curves[label] = (
-            np.mean([r[1][label][0] for r in results], axis=0),
-            np.mean([r[1][label][1] for r in results], axis=0),
+            np.mean([r.curves[label][0] for r in results], axis=0),
+            np.mean([r.curves[label][1] for r in results], axis=0),
         )
     return ReplayResult(learner, budget, repeats, gamma, gains, pool(gains, rng=seed), curves, objective)
