@@ -24,13 +24,11 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Callable
 
-import click
 import numpy as np
 import pandas as pd
 
 from warmstart.gain.bits import interval_text, queries_text
 from warmstart.evaluate.workers import map_jobs
-from warmstart.progress import Progress
 
 __all__ = ["StoreTraits", "store_traits", "store_table", "demo_space", "run_demo", "ORGANISATION"]
 
@@ -155,8 +153,9 @@ def run_demo(
     repeats: int = 5,
     workers: int = 2,
     learner: str = "svm",
-    echo: Callable[..., None] = click.echo,
+    echo: Callable[[str], None] = print,
     seed: int = 7,
+    progress: Callable[[str], Callable[[int, int], None]] | None = None,
 ) -> dict:
     """Run the whole job on the invented scenario and write a report.
 
@@ -175,8 +174,13 @@ def run_demo(
         Processes.
     learner : str
         Built-in learner to tune.
-    echo : callable
-        Printer (``click.echo`` from the command line).
+    echo : callable(text), default print
+        Where the figures go (the command line passes ``click.echo``).
+    seed : int, default 7
+        Seed of the invented stores, the design and the searches.
+    progress : callable(label) -> callable(done, total), optional
+        Makes a progress callback for each long step ("history", "live",
+        "replay"); none by default (the command line draws bars on stderr).
 
     Returns
     -------
@@ -191,6 +195,7 @@ def run_demo(
     from warmstart.gain.report import write_report
 
     started = time.monotonic()
+    bar = progress or (lambda label: None)
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     db = out / "demo.duckdb"
@@ -207,9 +212,8 @@ def run_demo(
     echo(f"1. Building a tuning history: {n_configs} configs of {learner!r} on each of {n_history} stores "
          f"(3-fold cross-validated balanced accuracy)")
     design = space.sobol(n_configs, np.random.default_rng(seed))
-    bar = Progress("  history")
     jobs = [_HistoryJob(tables[i], learner, space, design, seed) for i in range(n_history)]
-    results = map_jobs(_history_study, jobs, workers, bar)
+    results = map_jobs(_history_study, jobs, workers, bar("  history"))
     for i in range(n_history):
         archive.ingest(results[i], task=stores[i].name, data=tables[i], target="lapsed", learner=learner,
                        space=space, metric="balanced_accuracy", where=f"demo history of {stores[i].name}",
@@ -234,7 +238,7 @@ def run_demo(
          f"(target: top 5% of a 64-config reference sample)")
     objective = cv_objective(new_table, "lapsed", learner, metric="balanced_accuracy", cv=3, seed=seed)
     live = live_gain(space, objective, built, budget=budget, repeats=repeats, seed=seed, workers=workers,
-                     task=new.name, learner=f"{learner} (live, {new.name})", progress=Progress("  live"))
+                     task=new.name, learner=f"{learner} (live, {new.name})", progress=bar("  live"))
     t = live.tasks[0]
     echo(f"   warm: {t.bits_warm:+.2f} bits over uniform, cold: {t.bits_cold:+.2f} bits")
     echo(f"   gain of warm over cold: {t.gain:+.2f} bits ({interval_text(t.gain_low, t.gain_high)}; "
@@ -244,7 +248,7 @@ def run_demo(
 
     echo(f"\n6. Does transfer help across the whole history? Leave-one-store-out replay, budget {budget}:")
     replay = leave_one_task_out(archive, learner, budget=budget, repeats=10, seed=seed, workers=workers,
-                                progress=Progress("  replay"))
+                                progress=bar("  replay"))
     pg = replay.pooled
     echo(f"   pooled over {pg.n_tasks} stores: warm {pg.bits_warm:+.2f} bits, cold {pg.bits_cold:+.2f} bits; "
          f"gain {pg.gain:+.2f} bits (95% {pg.gain_low:+.2f} to {pg.gain_high:+.2f}), "

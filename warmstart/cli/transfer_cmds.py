@@ -7,7 +7,7 @@ import click
 from warmstart.cli.common import fail, get_archive, json_option, keep_column_option, print_json, print_table, read_data
 from warmstart.cli.main import main
 from warmstart.gain.bits import interval_text, queries_text
-from warmstart.progress import Progress
+from warmstart.cli.progress import Progress
 
 
 def _budgets(text: str) -> list[int]:
