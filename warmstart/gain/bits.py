@@ -34,11 +34,14 @@ __all__ = [
     "TaskGain",
     "PooledGain",
     "target_threshold",
+    "in_target",
+    "hits_and_regret",
     "hit_rate",
     "bits",
     "bits_interval",
     "compare",
     "pool",
+    "GainResult",
     "N_BOOT",
     "MIN_RUNS",
     "interval_text",
@@ -431,11 +434,3 @@ class GainResult:
         frame = pd.DataFrame([t.to_dict() for t in self.tasks])
         frame.insert(0, "learner", self.learner)
         return frame
-
-
-def results_frame(results: Sequence[TaskGain]) -> pd.DataFrame:
-    """Per-task results as a DataFrame."""
-    return pd.DataFrame([r.to_dict() for r in results])
-
-
-__all__ += ["GainResult", "results_frame", "in_target", "hits_and_regret"]

@@ -33,7 +33,7 @@ from warmstart._checks import check_count, check_number
 from warmstart.search.density import default_n_startup
 from warmstart.search.gp import SEARCH_KERNEL, conditional_columns, fit_gp, gp_features
 from warmstart.space import Space
-from warmstart.search.strategy import SearchError, SearchStrategy, Trial, _config_key
+from warmstart.search.strategy import SearchError, SearchStrategy, Trial
 
 __all__ = ["RandomSearch", "SobolSearch", "NelderMeadSearch", "GPSearch", "expected_improvement"]
 
@@ -165,7 +165,7 @@ class NelderMeadSearch(SearchStrategy):
         if kind == "error":
             raise payload
         config = self.space.decode(self.space.from_unit(payload[None, :]))[0]
-        self._waiting = _config_key(config)
+        self._waiting = self.space.canonical_json(config)
         return config, "simplex"
 
     def record(self, config, score=None, status=None) -> Trial:
@@ -174,7 +174,7 @@ class NelderMeadSearch(SearchStrategy):
             value = -trial.score if self.maximize else trial.score  # minimised
             self._worst = max(self._worst, value)
             self._best = min(self._best, value)
-        if self._waiting is not None and _config_key(trial.config) == self._waiting:
+        if self._waiting is not None and self.space.canonical_json(trial.config) == self._waiting:
             self._waiting = None
             if trial.score is None:  # failed: worse than anything seen
                 spread = self._worst - self._best if math.isfinite(self._worst) else 0.0
