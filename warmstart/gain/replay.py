@@ -11,13 +11,20 @@ estimated by pushing uniform draws through the same nearest-config map, so
 Baselines computed in the same run:
 
 ``random``
-    uniform sampling;
+    uniform sampling (:class:`~warmstart.search.baselines.RandomSearch`);
 ``defaults``
     the average-rank order of past configs across all other tasks (a
-    static list, "learned defaults");
+    static list, "learned defaults": :func:`~warmstart.search.static.average_rank_list`);
 ``nearest``
     the best configs of the nearest tasks by profile distance, nearest
-    first (the meta-feature nearest-datasets initialisation).
+    first (the meta-feature nearest-datasets initialisation:
+    :func:`~warmstart.search.static.nearest_tasks_list`).
+
+Every one of them, warm and cold included, is a strategy object run through
+:func:`~warmstart.search.strategy.run_search` on the held-out objective; the
+scores it returns give the hits and regret (:func:`~warmstart.gain.bits.hits_and_regret`).
+A static list shorter than the budget stops where it ends, and the queries it
+did not make count as misses.
 """
 
 from __future__ import annotations
