@@ -31,7 +31,7 @@ import time
 import numpy as np
 
 from warmstart.search.baselines import GPSearch, NelderMeadSearch, RandomSearch, SobolSearch
-from warmstart.progress import Progress
+from warmstart.cli.progress import Progress
 from warmstart.search.density import DensitySearch, run_search
 from warmstart.space import Space
 from warmstart.search.testfunctions import benchmark_functions

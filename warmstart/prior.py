@@ -250,6 +250,18 @@ class Prior:
         configs = [self.space.normalize(c) for c in configs]
         return self.logpdf_unit(self.space.encode(configs))
 
+    @property
+    def candidates(self) -> np.ndarray:
+        """Encoded rows of the candidate seeds: the distinct top configs of
+        every source, shape (m, d)."""
+        return self._candidates
+
+    @property
+    def candidate_quantiles(self) -> np.ndarray:
+        """The quantile each source predicts for each candidate (that of its
+        nearest recorded config), shape (m, n_sources)."""
+        return self._Q
+
     def seed_scores(self) -> np.ndarray:
         """Weighted mean quantile of every candidate seed across sources."""
         return self._Q @ self.weights

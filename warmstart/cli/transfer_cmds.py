@@ -9,7 +9,7 @@ from warmstart.cli.common import (
 )
 from warmstart.cli.main import main
 from warmstart.gain.bits import interval_text, queries_text
-from warmstart.progress import Progress
+from warmstart.cli.progress import Progress
 
 
 def _budgets(text: str) -> list[int]:

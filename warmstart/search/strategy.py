@@ -21,6 +21,7 @@ from typing import Any, Callable, Mapping
 import numpy as np
 import pandas as pd
 
+from warmstart._checks import check_count
 from warmstart.errors import WarmstartError
 from warmstart.evaluate.workers import wait_first
 from warmstart.space import Space
@@ -152,9 +153,8 @@ class SearchStrategy:
         """
         if k is None:
             return self._propose_and_hold()
-        if isinstance(k, bool) or not isinstance(k, (int, np.integer)) or k < 1:
-            raise SearchError(f"k must be a whole number >= 1, got {k!r}")
-        return [self._propose_and_hold() for _ in range(int(k))]
+        k = check_count("k", k, minimum=1, error=SearchError)
+        return [self._propose_and_hold() for _ in range(k)]
 
     def _propose_and_hold(self) -> dict:
         config, source = self._propose_one()
@@ -427,9 +427,8 @@ def run_search(
     """
     if not callable(objective):
         raise SearchError(f"objective must be callable, got {objective!r}")
-    for name, value, low in (("budget", budget, 0), ("n_workers", n_workers, 1)):
-        if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < low:
-            raise SearchError(f"{name} must be a whole number >= {low}, got {value!r}")
+    check_count("budget", budget, minimum=0, error=SearchError)
+    check_count("n_workers", n_workers, minimum=1, error=SearchError)
     done: list[Trial] = []
 
     def finish(config: dict, outcome: dict) -> None:
