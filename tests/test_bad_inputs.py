@@ -27,7 +27,7 @@ from conftest import dump_tables
 from test_curate import SPACE, cli, make_data, make_trials
 
 from warmstart.archive import Archive
-from warmstart.archive.transfer import export_archive
+from warmstart.archive.exchange import export_archive
 
 
 class Files:

@@ -14,7 +14,7 @@ from warmstart.errors import (
 )
 from warmstart.space import Alignment, Param, Space
 
-__version__ = "0.1.0"
+from warmstart._version import __version__
 
 __all__ = [
     "Alignment",
@@ -94,7 +94,8 @@ __all__ += [
 ]
 
 from warmstart.archive.curate import CheckReport, check_archive, dedupe_trials, fix_archive  # noqa: E402
-from warmstart.archive.transfer import MergeSummary, export_archive, import_export, merge_archive  # noqa: E402
+from warmstart.archive.merge import MergeSummary, merge_archive  # noqa: E402
+from warmstart.archive.exchange import export_archive, import_export  # noqa: E402
 
 __all__ += [
     "CheckReport", "check_archive", "dedupe_trials", "fix_archive",

@@ -39,7 +39,7 @@ import pandas as pd
 
 from warmstart.archive.ingest import SCORE_BOUNDS
 from warmstart.archive.labels import PrunePlan, _changed, _q, apply_prune, filter_studies, label_study, plan_prune
-from warmstart.archive.store import Archive
+from warmstart.archive.store import ARCHIVE_TABLES, Archive
 from warmstart.errors import ArchiveError, SpaceError
 from warmstart.space import Space
 
@@ -60,7 +60,6 @@ __all__ = [
     "ARCHIVE_TABLES",
 ]
 
-ARCHIVE_TABLES = ("schema_version", "archive_info", "tasks", "profiles", "spaces", "studies", "trials")
 _EXAMPLES = 5  # how many culprits a finding names
 
 # For each trial, the earliest study holding an exact copy of it (its ``keeper``):

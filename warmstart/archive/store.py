@@ -30,12 +30,18 @@ from warmstart.archive.ingest import param_columns, prepare_trials
 from warmstart.errors import ArchiveError, ArchiveLockedError
 from warmstart.space import Space
 
-__all__ = ["Archive", "SCHEMA_VERSION", "DEFAULT_ARCHIVE", "default_archive_path", "fingerprint"]
+__all__ = [
+    "Archive", "SCHEMA_VERSION", "DEFAULT_ARCHIVE", "ARCHIVE_TABLES", "DATA_TABLES", "default_archive_path",
+    "fingerprint", "utc_now",
+]
 
 SCHEMA_VERSION = 1
 MIGRATIONS = {1: "schema_v1.sql"}  # version -> DDL that brings version-1 to version
 DEFAULT_ARCHIVE = "archive/warmstart.duckdb"
-_TABLES = ("schema_version", "archive_info", "tasks", "profiles", "spaces", "studies", "trials")
+#: every table of the archive (schema_v1.sql), the allow-list of table names used in statements
+ARCHIVE_TABLES = ("schema_version", "archive_info", "tasks", "profiles", "spaces", "studies", "trials")
+#: the tables that hold history (what a merge, an export and an import carry)
+DATA_TABLES = ("tasks", "profiles", "spaces", "studies", "trials")
 
 
 def default_archive_path() -> str:
@@ -43,7 +49,8 @@ def default_archive_path() -> str:
     return os.environ.get("WARMSTART_ARCHIVE") or DEFAULT_ARCHIVE
 
 
-def _now() -> datetime:
+def utc_now() -> datetime:
+    """Now in UTC, as a naive datetime (how the archive stores times)."""
     return datetime.now(timezone.utc).replace(tzinfo=None)
 
 
@@ -225,10 +232,10 @@ class Archive:
                 for statement in _split_sql(sql):
                     con.execute(statement)
                 con.execute(
-                    "INSERT INTO schema_version VALUES (?, ?, ?)", [version, _now(), duckdb.__version__]
+                    "INSERT INTO schema_version VALUES (?, ?, ?)", [version, utc_now(), duckdb.__version__]
                 )
             if current == 0:
-                con.execute("INSERT INTO archive_info VALUES (?, ?)", [uuid.uuid4().hex, _now()])
+                con.execute("INSERT INTO archive_info VALUES (?, ?)", [uuid.uuid4().hex, utc_now()])
 
     @property
     def archive_id(self) -> str:
@@ -297,7 +304,7 @@ class Archive:
             task_id = con.execute("SELECT nextval('task_ids')").fetchall()[0][0]
             con.execute(
                 "INSERT INTO tasks VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
-                [task_id, name, fp, kind, target, int(frame.shape[0]), int(frame.shape[1] - 1), _now(), source],
+                [task_id, name, fp, kind, target, int(frame.shape[0]), int(frame.shape[1] - 1), utc_now(), source],
             )
             self._write_profile(task_id, prof, PROFILE_VERSION)
         return int(task_id)
@@ -410,7 +417,7 @@ class Archive:
                     study_id, int(task), learner, space_id, metric,
                     "maximize" if maximize else "minimize", origin,
                     None if prior is None else json.dumps(prior, sort_keys=True),
-                    _now(), owner, json.dumps(tags, sort_keys=True),
+                    utc_now(), owner, json.dumps(tags, sort_keys=True),
                 ],
             )
         return int(study_id)
@@ -418,7 +425,7 @@ class Archive:
     def finish_study(self, study: int) -> None:
         """Mark a study finished now."""
         with self.transaction() as con:
-            con.execute("UPDATE studies SET finished_at = ? WHERE study_id = ?", [_now(), int(study)])
+            con.execute("UPDATE studies SET finished_at = ? WHERE study_id = ?", [utc_now(), int(study)])
 
     def set_prior(self, study: int, prior: Mapping) -> None:
         """Record the provenance of the prior a study used."""
@@ -516,7 +523,7 @@ class Archive:
         row: dict[str, Any] = {name: [config.get(name)] for name in space.names}
         row.update(
             score=[np.nan if score is None else score], status=[status], cost_s=[cost_s],
-            started_at=[started_at], finished_at=[finished_at or _now()], error=[error],
+            started_at=[started_at], finished_at=[finished_at or utc_now()], error=[error],
         )
         prepared = prepare_trials(space, pd.DataFrame(row), where=f"trial of study {study}",
                                   metric=self._study_metric(study))

@@ -1,6 +1,6 @@
 """Commands that curate the team's history: ``curate check|dedupe|merge|prune|
 export|import`` and ``tag``. Thin: parse, call :mod:`warmstart.archive.curate`
-or :mod:`warmstart.archive.transfer`, print."""
+or :mod:`warmstart.archive.merge` / :mod:`warmstart.archive.exchange`, print."""
 
 from __future__ import annotations
 
@@ -18,7 +18,8 @@ from warmstart.archive.curate import (
     label_study,
     plan_prune,
 )
-from warmstart.archive.transfer import MERGE_STEPS, export_archive, import_export, merge_archive
+from warmstart.archive.exchange import export_archive, import_export
+from warmstart.archive.merge import MERGE_STEPS, merge_archive
 from warmstart.cli.archive_cmds import _parse_tags
 from warmstart.cli.common import get_archive, json_option, print_json, print_table
 from warmstart.cli.main import main

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from warmstart import __version__
+from warmstart._version import __version__
 from warmstart.archive.store import DEFAULT_ARCHIVE
 from warmstart.errors import WarmstartError
 
