@@ -12,6 +12,7 @@ __all__ = [
     "SpaceError",
     "ArchiveError",
     "ArchiveLockedError",
+    "ArchiveDamagedError",
     "IngestError",
     "ProfileError",
 ]
@@ -31,6 +32,14 @@ class ArchiveError(WarmstartError):
 
 class ArchiveLockedError(ArchiveError):
     """Another process holds the archive for writing."""
+
+
+class ArchiveDamagedError(ArchiveError):
+    """The archive file is damaged: cut short, or a block fails its checksum.
+
+    The message names the file and says what to do (``warmstart curate
+    salvage`` copies what can still be read into a new archive).
+    """
 
 
 class IngestError(WarmstartError, ValueError):

@@ -18,7 +18,7 @@ from typing import Callable
 import duckdb
 
 from warmstart._version import __version__
-from warmstart.archive.faults import first_line
+from warmstart.archive.faults import DAMAGED, damaged_error, damaged_file, fault_of, first_line
 from warmstart.archive.merge import MergeSource, MergeSummary, merge_from
 from warmstart.archive.store import DATA_TABLES, SCHEMA_VERSION, Archive, utc_now
 from warmstart.errors import ArchiveError
@@ -112,6 +112,9 @@ def export_archive(archive: Archive, directory: str | Path) -> dict:
     except BaseException as exc:
         shutil.rmtree(staging, ignore_errors=True)
         if isinstance(exc, duckdb.Error):
+            if fault_of(exc) == DAMAGED:
+                raise damaged_error(damaged_file(exc) or archive.path,
+                                    f"DuckDB: {first_line(exc)}; nothing was exported") from None
             raise ArchiveError(f"{target}: export failed ({first_line(exc)}); nothing was written there") from None
         if isinstance(exc, OSError):
             raise ArchiveError(f"{target}: export failed ({exc.strerror or exc}); nothing was written there") from None

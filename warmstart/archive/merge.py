@@ -50,9 +50,9 @@ from typing import Callable
 import duckdb
 import pandas as pd
 
-from warmstart.archive.faults import first_line
+from warmstart.archive.faults import DAMAGED, archive_error, damaged_error, damaged_file, fault_of, first_line
 from warmstart.archive.store import DATA_TABLES, SCHEMA_VERSION, Archive, utc_now
-from warmstart.errors import ArchiveError, ArchiveLockedError
+from warmstart.errors import ArchiveDamagedError, ArchiveError
 
 __all__ = ["MergeSummary", "MergeSource", "merge_archive", "merge_from", "MERGE_STEPS"]
 
@@ -296,6 +296,8 @@ def merge_from(archive: Archive, src: MergeSource, progress: Callable[[str], Non
             step("insert")
             trials_new = _insert_studies_and_trials(con, src, now)
     except duckdb.Error as exc:
+        if fault_of(exc) == DAMAGED:
+            raise _damaged_during_merge(exc, src, archive) from None
         raise ArchiveError(f"{src.label}: cannot merge ({first_line(exc)}); nothing was changed") from None
     valid = study_map["valid"]
     return MergeSummary(
@@ -314,6 +316,19 @@ def merge_from(archive: Archive, src: MergeSource, progress: Callable[[str], Non
         trials_new=int(trials_new),
         trials_already_here=int(n_valid - trials_new),
         trials_skipped=int(n_all - n_valid),
+    )
+
+
+
+def _damaged_during_merge(exc: duckdb.Error, src: MergeSource, archive: Archive) -> ArchiveError:
+    """A damaged block met while merging: name the file when DuckDB does, else both."""
+    named = damaged_file(exc)
+    if named is not None:
+        return damaged_error(named, f"DuckDB: {first_line(exc)}; nothing was changed")
+    return ArchiveDamagedError(
+        f"{src.label} or {archive.path}: a block of one of them is damaged (DuckDB: {first_line(exc)}); nothing "
+        "was changed. `warmstart --archive FILE curate check` on each tells which, and `warmstart curate salvage` "
+        "copies what can still be read from it into a new archive"
     )
 
 
@@ -520,18 +535,8 @@ def _attach(con: duckdb.DuckDBPyConnection, other: Path) -> None:
     try:
         con.execute(f"ATTACH ? AS {_ALIAS} (READ_ONLY)", [str(other)])
     except duckdb.Error as exc:
-        text = first_line(exc)
-        if "lock" in text.lower():
-            raise ArchiveLockedError(
-                f"{other}: another process is writing to that archive, so it cannot be read now; wait for it "
-                "to finish (or close it there), then merge again; nothing was changed"
-            ) from None
-        if "not a valid DuckDB database" in text:
-            raise ArchiveError(
-                f"{other}: not a warmstart archive (the file is not a DuckDB database); give the path of "
-                "another warmstart archive file"
-            ) from None
-        raise ArchiveError(f"{other}: cannot open it as an archive ({text}); nothing was changed") from None
+        raise archive_error(exc, other, source=True) or ArchiveError(
+            f"{other}: cannot open it as an archive ({first_line(exc)}); nothing was changed") from None
 
 
 def _source_archive_id(con: duckdb.DuckDBPyConnection, label: str, tables: set[str], versions: list, ids: list) -> str:
@@ -608,7 +613,8 @@ def merge_archive(archive: Archive, other: str | Path, progress: Callable[[str],
             ids = [r[0] for r in _rows(con, f"SELECT archive_id FROM {_ALIAS}.main.archive_info")] \
                 if "archive_info" in tables else []
         except duckdb.Error as exc:
-            raise ArchiveError(f"{other}: cannot read it as a warmstart archive ({first_line(exc)})") from None
+            raise archive_error(exc, other, source=True) or ArchiveError(
+                f"{other}: cannot read it as a warmstart archive ({first_line(exc)})") from None
         source_id = _source_archive_id(con, str(other), tables, versions, ids)
         src = MergeSource({t: f"{_ALIAS}.main.{t}" for t in DATA_TABLES}, source_id, str(other))
         return merge_from(archive, src, progress)

@@ -27,7 +27,8 @@ import numpy as np
 import pandas as pd
 
 from warmstart.archive.ingest import param_columns, prepare_trials
-from warmstart.errors import ArchiveError, ArchiveLockedError
+from warmstart.archive.faults import archive_error, first_line, translated
+from warmstart.errors import ArchiveError
 from warmstart.space import Space
 
 __all__ = [
@@ -118,26 +119,14 @@ class Archive:
                     )
         try:
             self.con = duckdb.connect(self.path, read_only=read_only)
-        except duckdb.IOException as exc:
-            text = str(exc)
-            if "lock" in text.lower():
-                raise ArchiveLockedError(
-                    f"{self.path}: another process is writing to this archive ({_pid_hint(text)}). "
-                    "DuckDB allows one writing process at a time: wait for it to finish, then run the "
-                    "command again; nothing was changed."
-                ) from None
-            if "not a valid DuckDB database" in text or "not a valid" in text:
-                raise ArchiveError(
-                    f"{self.path}: not a warmstart archive (the file is not a DuckDB database); "
-                    "give another --archive path or move this file away"
-                ) from None
-            raise ArchiveError(f"{self.path}: cannot open the archive: {text}") from None
         except duckdb.Error as exc:
-            raise ArchiveError(f"{self.path}: cannot open the archive: {exc}") from None
+            raise archive_error(exc, self.path) or ArchiveError(
+                f"{self.path}: cannot open the archive: {first_line(exc)}") from None
         try:
-            # DuckDB's own progress bar prints to stdout on long queries and would corrupt --json output.
-            self.con.execute("SET enable_progress_bar = false")
-            self._check_schema()
+            with translated(self.path):
+                # DuckDB's own progress bar prints to stdout on long queries and would corrupt --json output.
+                self.con.execute("SET enable_progress_bar = false")
+                self._check_schema()
         except BaseException:
             self.con.close()
             raise
@@ -183,10 +172,12 @@ class Archive:
         self.con.commit()
 
     def _q(self, sql: str, params: Any = None) -> list[tuple]:
-        return self.con.execute(sql, params or []).fetchall()
+        with translated(self.path):
+            return self.con.execute(sql, params or []).fetchall()
 
     def _df(self, sql: str, params: Any = None) -> pd.DataFrame:
-        return self.con.execute(sql, params or []).df()
+        with translated(self.path):
+            return self.con.execute(sql, params or []).df()
 
     # -- schema ------------------------------------------------------------
     def _existing_tables(self) -> set[str]:
@@ -671,12 +662,4 @@ def _insert_frame(con: duckdb.DuckDBPyConnection, table: str, frame: pd.DataFram
 def _split_sql(sql: str) -> list[str]:
     lines = [line for line in sql.splitlines() if not line.strip().startswith("--")]
     return [s.strip() for s in "\n".join(lines).split(";") if s.strip()]
-
-
-def _pid_hint(text: str) -> str:
-    marker = "PID "
-    if marker in text:
-        pid = text.split(marker, 1)[1].split(")")[0]
-        return f"held by process {pid}"
-    return "the file is locked"
 
