@@ -14,6 +14,7 @@ __all__ = [
     "ArchiveLockedError",
     "ArchiveDamagedError",
     "IngestError",
+    "ObjectiveError",
     "ProfileError",
 ]
 
@@ -40,6 +41,10 @@ class ArchiveDamagedError(ArchiveError):
     The message names the file and says what to do (``warmstart curate
     salvage`` copies what can still be read into a new archive).
     """
+
+
+class ObjectiveError(WarmstartError, ValueError):
+    """An objective cannot be set up as asked (unknown command, bad metric ...)."""
 
 
 class IngestError(WarmstartError, ValueError):

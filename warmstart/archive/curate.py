@@ -37,10 +37,10 @@ from typing import Callable, Iterable, Mapping
 
 import pandas as pd
 
-from warmstart.archive.ingest import SCORE_BOUNDS
 from warmstart.archive.labels import PrunePlan, _changed, _q, apply_prune, filter_studies, label_study, plan_prune
 from warmstart.archive.store import ARCHIVE_TABLES, Archive
 from warmstart.errors import ArchiveError, SpaceError
+from warmstart.evaluate.metrics import SCORE_BOUNDS
 from warmstart.space import Space
 
 __all__ = [

@@ -17,51 +17,13 @@ import numpy as np
 import pandas as pd
 
 from warmstart.errors import IngestError
+from warmstart.evaluate.metrics import METRICS, metric_bounds, metric_direction
 from warmstart.space import Param, Space
 
-__all__ = ["prepare_trials", "EXTRA_COLUMNS", "param_columns", "metric_bounds", "study_direction", "SCORE_BOUNDS"]
+__all__ = ["prepare_trials", "EXTRA_COLUMNS", "param_columns", "study_direction"]
 
 EXTRA_COLUMNS = ("score", "status", "cost_s", "started_at", "finished_at", "error")
 _STATUS = ("ok", "failed")
-
-#: Range of values each built-in metric (``warmstart.evaluate.learners.METRICS``) can
-#: take, as (low, high); None = unbounded on that side. Source: the metric
-#: definitions in scikit-learn's documentation (User Guide, "Metrics and
-#: scoring"): accuracy, balanced accuracy, ROC AUC and F1 are shares in
-#: [0, 1]; R² is at most 1 (arbitrarily negative for a bad model); log loss,
-#: RMSE and MAE are non-negative. Scores are stored in natural units (an
-#: error is positive), as :class:`warmstart.evaluate.learners.CVObjective` reports them.
-SCORE_BOUNDS: dict[str, tuple[float | None, float | None]] = {
-    "accuracy": (0.0, 1.0),
-    "balanced_accuracy": (0.0, 1.0),
-    "roc_auc": (0.0, 1.0),
-    "f1_macro": (0.0, 1.0),
-    "r2": (None, 1.0),
-    "log_loss": (0.0, None),
-    "rmse": (0.0, None),
-    "mae": (0.0, None),
-}
-
-
-def metric_bounds(metric: str | None) -> tuple[float, float] | None:
-    """Valid score range of a built-in metric, or None for a custom metric name.
-
-    Parameters
-    ----------
-    metric : str or None
-        Metric name as stored with a study.
-
-    Returns
-    -------
-    (float, float) or None
-        ``(low, high)``, with ``-inf``/``inf`` on an unbounded side (see
-        :data:`SCORE_BOUNDS`).
-    """
-    if metric not in SCORE_BOUNDS:
-        return None
-    low, high = SCORE_BOUNDS[metric]
-    return (-np.inf if low is None else low, np.inf if high is None else high)
-
 
 def _describe_range(low: float, high: float) -> str:
     if np.isinf(low):
@@ -74,7 +36,7 @@ def _describe_range(low: float, high: float) -> str:
 def study_direction(metric: str, minimize: bool | None) -> bool:
     """Whether a new study of ``metric`` maximises its score.
 
-    A built-in metric (``warmstart.evaluate.learners.METRICS``) knows its direction; a
+    A built-in metric (:data:`warmstart.evaluate.metrics.METRICS`) knows its direction; a
     flag that contradicts it is refused. A custom metric name follows the
     flag (default: higher is better).
 
@@ -95,8 +57,6 @@ def study_direction(metric: str, minimize: bool | None) -> bool:
     IngestError
         When ``minimize`` contradicts a built-in metric's direction.
     """
-    from warmstart.evaluate.learners import METRICS, metric_direction
-
     if metric not in METRICS:
         return True if minimize is None else not minimize
     maximize = metric_direction(metric)
