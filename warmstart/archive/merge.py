@@ -51,6 +51,7 @@ import duckdb
 import pandas as pd
 
 from warmstart.archive.faults import DAMAGED, archive_error, damaged_error, damaged_file, fault_of, first_line
+from warmstart.archive.sql import fetch
 from warmstart.archive.store import DATA_TABLES, SCHEMA_VERSION, Archive, utc_now
 from warmstart.errors import ArchiveDamagedError, ArchiveError
 
@@ -186,14 +187,10 @@ class MergeSource:
         return self.relations["trials"]
 
 
-def _rows(con: duckdb.DuckDBPyConnection, sql: str, params: list | None = None) -> list[tuple]:
-    return con.execute(sql, params or []).fetchall()
-
-
 def _new_ids(con: duckdb.DuckDBPyConnection, sequence: str, n: int) -> list[int]:
     if n == 0:
         return []
-    return [int(r[0]) for r in _rows(con, f"SELECT nextval('{sequence}') FROM range(?)", [n])]
+    return [int(r[0]) for r in fetch(con, f"SELECT nextval('{sequence}') FROM range(?)", [n])]
 
 
 def _map_tasks(con, src: MergeSource) -> tuple[pd.DataFrame, list[tuple[str, str]], int]:
@@ -370,7 +367,7 @@ def _merge_profiles(con, src: MergeSource) -> int:
         "WHERE NOT m.is_new AND m.here_id NOT IN (SELECT task_id FROM hv) GROUP BY m.here_id",
         [v, v, v, v],
     )
-    updated = _rows(con, "SELECT count(*) FROM _ws_refresh")[0][0]
+    updated = fetch(con, "SELECT count(*) FROM _ws_refresh")[0][0]
     con.execute("DELETE FROM profiles WHERE task_id IN (SELECT here_id FROM _ws_refresh)")
     con.execute(
         "INSERT INTO profiles (task_id, feature, value, version) SELECT r.here_id, p.feature, p.value, "
@@ -456,7 +453,7 @@ def _find_incoming_trials(con, src: MergeSource) -> tuple[int, int]:
         "QUALIFY row_number() OVER (PARTITION BY m.study_id, m.content_key, m.metric, m.direction, "
         "m.status, m.score ORDER BY m.number) > k.have"
     )
-    n_valid, n_all = _rows(
+    n_valid, n_all = fetch(
         con,
         f"SELECT count(*) FILTER (WHERE t.study_id IN (SELECT study_id FROM _ws_valid)), count(*) "
         f"FROM {src.trials} t",
@@ -522,7 +519,7 @@ def _insert_studies_and_trials(con, src: MergeSource, now: datetime) -> int:
         "i.started_at, i.finished_at, i.error, i.content_key "
         "FROM _ws_incoming i JOIN _ws_map_study m ON m.src_id = i.study_id AND NOT m.is_new"
     )
-    added = _rows(con, "SELECT count(*) FROM _ws_incoming")[0][0]
+    added = fetch(con, "SELECT count(*) FROM _ws_incoming")[0][0]
     con.execute("DROP TABLE _ws_incoming")
     con.execute("DROP TABLE _ws_valid")
     con.execute("DROP TABLE _ws_same")
@@ -605,12 +602,12 @@ def merge_archive(archive: Archive, other: str | Path, progress: Callable[[str],
     _attach(con, other)
     try:
         try:
-            tables = {r[0] for r in _rows(
+            tables = {r[0] for r in fetch(
                 con, "SELECT table_name FROM information_schema.tables WHERE table_catalog = ? "
                 "AND table_schema = 'main'", [_ALIAS])}
-            versions = [r[0] for r in _rows(con, f"SELECT version FROM {_ALIAS}.main.schema_version")] \
+            versions = [r[0] for r in fetch(con, f"SELECT version FROM {_ALIAS}.main.schema_version")] \
                 if "schema_version" in tables else []
-            ids = [r[0] for r in _rows(con, f"SELECT archive_id FROM {_ALIAS}.main.archive_info")] \
+            ids = [r[0] for r in fetch(con, f"SELECT archive_id FROM {_ALIAS}.main.archive_info")] \
                 if "archive_info" in tables else []
         except duckdb.Error as exc:
             raise archive_error(exc, other, source=True) or ArchiveError(

@@ -26,7 +26,7 @@ import duckdb
 import numpy as np
 import pandas as pd
 
-from warmstart.archive.ingest import param_columns, prepare_trials
+from warmstart.archive.ingest import param_columns, prepare_trials, study_direction
 from warmstart.archive.faults import archive_error, first_line, translated
 from warmstart.errors import ArchiveError
 from warmstart.space import Space
@@ -418,14 +418,6 @@ class Archive:
         with self.transaction() as con:
             con.execute("UPDATE studies SET finished_at = ? WHERE study_id = ?", [utc_now(), int(study)])
 
-    def set_prior(self, study: int, prior: Mapping) -> None:
-        """Record the provenance of the prior a study used."""
-        with self.transaction() as con:
-            con.execute(
-                "UPDATE studies SET prior = ?, origin = 'warm' WHERE study_id = ?",
-                [json.dumps(prior, sort_keys=True), int(study)],
-            )
-
     _STUDY_SQL = (
         "SELECT s.study_id, s.task_id, t.name AS task, s.learner, s.space_id, s.metric, s.direction, "
         "s.origin, coalesce(r.trial_count, 0) AS trial_count, coalesce(r.n_ok, 0) AS n_ok, "
@@ -605,8 +597,6 @@ class Archive:
         """
         from warmstart.profile import PROFILE_VERSION, detect_kind
         from warmstart.profile import profile as compute_profile
-
-        from warmstart.archive.ingest import study_direction
 
         maximize = study_direction(metric, None if maximize is None else not maximize)
         prepared = prepare_trials(space, trials, where=where, metric=metric)  # fail before any work or write

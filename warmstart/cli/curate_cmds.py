@@ -20,8 +20,7 @@ from warmstart.archive.curate import (
 )
 from warmstart.archive.exchange import export_archive, import_export
 from warmstart.archive.merge import MERGE_STEPS, merge_archive
-from warmstart.cli.archive_cmds import _parse_tags
-from warmstart.cli.common import get_archive, json_option, print_json, print_table
+from warmstart.cli.common import get_archive, json_option, parse_tags, print_json, print_table
 from warmstart.cli.main import main
 
 _SHOW = 20  # studies listed by prune before "... and N more"
@@ -182,7 +181,7 @@ def prune(ctx, failed, before, learner, tags, owner, yes, as_json):
     Filters combine with AND. Shows what would go and asks first (or --yes);
     everything goes in one transaction.
     """
-    tag_map = _parse_tags(tags)
+    tag_map = parse_tags(tags)
     archive = get_archive(ctx, write=True)
     plan = plan_prune(archive, failed=failed, before=before, learner=learner, tags=tag_map, owner=owner)
     if plan.studies.empty:
@@ -256,7 +255,7 @@ def tag(ctx, study, labels, owner, remove, as_json):
     if not labels and owner is None and not remove:
         raise click.UsageError("give KEY=VALUE tags, --owner NAME or --remove KEY")
     try:
-        tags = _parse_tags(labels)
+        tags = parse_tags(labels)
     except click.BadParameter as exc:
         exc.param_hint = "'[KEY=VALUE]...'"
         raise
