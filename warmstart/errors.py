@@ -40,7 +40,17 @@ class ArchiveDamagedError(ArchiveError):
 
     The message names the file and says what to do (``warmstart curate
     salvage`` copies what can still be read into a new archive).
+
+    Attributes
+    ----------
+    unreadable : tuple
+        What could not be read, when it is known: ``(table, column, detail)``
+        triples (from ``warmstart curate check``, which reads every block).
     """
+
+    def __init__(self, message: str, unreadable: tuple = ()):
+        super().__init__(message)
+        self.unreadable = tuple(unreadable)
 
 
 class ObjectiveError(WarmstartError, ValueError):

@@ -38,6 +38,7 @@ from typing import Callable, Iterable, Mapping
 import pandas as pd
 
 from warmstart.archive.labels import PrunePlan, apply_prune, filter_studies, label_study, plan_prune
+from warmstart.archive.faults import check_blocks
 from warmstart.archive.sql import fetch, rows_changed
 from warmstart.archive.store import ARCHIVE_TABLES, Archive
 from warmstart.errors import ArchiveError, SpaceError
@@ -240,7 +241,14 @@ def check_archive(archive: Archive, progress: Callable[[int, int], None] | None 
     -------
     CheckReport
         One :class:`Finding` per check, ``report.ok`` when all counts are 0.
+
+    Raises
+    ------
+    ArchiveDamagedError
+        A block of the file cannot be read (every value of every column is
+        read first: :func:`warmstart.archive.faults.check_blocks`).
     """
+    check_blocks(archive.con, archive.path, ARCHIVE_TABLES)  # a damaged file first: the checks below would stop at its first bad block
     spaces, unreadable, stale_hash = _space_problems(archive)
     n, examples = _outside_space(archive, spaces, progress)
     findings = [

@@ -12,8 +12,9 @@ naming the file and what to do:
 - **damaged** (:class:`~warmstart.errors.ArchiveDamagedError`): the file is
   cut short (a read past its end) or a block fails DuckDB's checksum. DuckDB
   checks a block when it reads it, so a damaged block in the middle of a big
-  table shows up only in the commands that read that block;
-  ``warmstart curate check`` reads every block.
+  table shows up only in a query that reads that block: :func:`check_blocks`
+  reads every value of every column (``curate check`` and every opening of
+  an archive for writing run it, so nothing is written into a damaged file).
 
 Everything else is left alone (``archive_error`` returns None): it is not
 about the file.
@@ -24,16 +25,18 @@ from __future__ import annotations
 import contextlib
 import re
 import shlex
+from dataclasses import dataclass
 from pathlib import Path
-from typing import Iterator
+from typing import Callable, Iterable, Iterator
 
 import duckdb
 
+from warmstart.archive.sql import fetch, quoted, table_columns
 from warmstart.errors import ArchiveDamagedError, ArchiveError, ArchiveLockedError
 
 __all__ = [
     "LOCKED", "NOT_A_DATABASE", "DAMAGED", "first_line", "fault_of", "damaged_file", "archive_error",
-    "damaged_error", "translated",
+    "damaged_error", "translated", "Unreadable", "unreadable_columns", "check_blocks",
 ]
 
 LOCKED, NOT_A_DATABASE, DAMAGED = "locked", "not a database", "damaged"
@@ -158,3 +161,89 @@ def translated(path: str | Path, *, source: bool = False) -> Iterator[None]:
         if error is None:
             raise
         raise error from None
+
+
+@dataclass(frozen=True)
+class Unreadable:
+    """One column of one table that cannot be read whole.
+
+    Attributes
+    ----------
+    table, column : str
+        Where.
+    detail : str
+        DuckDB's message (first line).
+    """
+
+    table: str
+    column: str
+    detail: str
+
+
+def unreadable_columns(con: duckdb.DuckDBPyConnection, tables: Iterable[str], catalog: str | None = None,
+                       progress: Callable[[int, int], None] | None = None) -> list[Unreadable]:
+    """Read every value of every column of the archive's tables; list what fails.
+
+    Parameters
+    ----------
+    con : duckdb.DuckDBPyConnection
+        A connection to the archive (or one it is attached to).
+    tables : iterable of str
+        The tables to read (names from the caller's allow-list); a table the
+        file lacks is skipped.
+    catalog : str, optional
+        The archive's catalog name on ``con`` (default: the current one).
+    progress : callable, optional
+        Called as ``progress(done, total)`` in tables read.
+
+    Returns
+    -------
+    list of Unreadable
+        Empty when every block of every table reads and passes its checksum.
+        Errors that are not damage (a missing table) are not listed.
+    """
+    catalog = catalog or fetch(con, "SELECT current_database()")[0][0]
+    work = [(t, table_columns(con, catalog, t)) for t in tables]
+    work = [(t, cols) for t, cols in work if cols]
+    found = []
+    for done, (table, columns) in enumerate(work, start=1):
+        # bit_xor of hashes: every value is read (and its block checked), nothing is kept; one
+        # query per table, then one per column only for a table that fails, to say where
+        if _damage(con, catalog, table, columns) is not None:
+            for column in columns:
+                detail = _damage(con, catalog, table, [column])
+                if detail is not None:
+                    found.append(Unreadable(table, column, detail))
+        if progress:
+            progress(done, len(work))
+    return found
+
+
+def _damage(con: duckdb.DuckDBPyConnection, catalog: str, table: str, columns: list[str]) -> str | None:
+    """DuckDB's message when reading every value of ``columns`` meets a damaged block, else None."""
+    reads = ", ".join(f"bit_xor(hash({quoted(c)}))" for c in columns)
+    try:
+        fetch(con, f"SELECT {reads} FROM {quoted(catalog)}.main.{table}")
+    except duckdb.Error as exc:
+        if fault_of(exc) != DAMAGED:
+            raise
+        return first_line(exc)
+    return None
+
+
+def check_blocks(con: duckdb.DuckDBPyConnection, path: str | Path, tables: Iterable[str],
+                 progress: Callable[[int, int], None] | None = None) -> None:
+    """Raise :class:`ArchiveDamagedError` when a block of ``tables`` cannot be read.
+
+    The message names the file, the tables and columns that cannot be read,
+    and what to do; ``error.unreadable`` lists them as (table, column, detail).
+    """
+    found = unreadable_columns(con, tables, progress=progress)
+    if not found:
+        return
+    by_table: dict[str, list[str]] = {}
+    for item in found:
+        by_table.setdefault(item.table, []).append(item.column)
+    where = "; ".join(f"table {t}: column(s) {', '.join(cols)}" for t, cols in by_table.items())
+    error = damaged_error(path, f"blocks that cannot be read in {where}; DuckDB: {found[0].detail}")
+    raise ArchiveDamagedError(str(error), unreadable=[(u.table, u.column, u.detail) for u in found])

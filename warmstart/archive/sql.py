@@ -10,7 +10,7 @@ from typing import Any
 
 import duckdb
 
-__all__ = ["fetch", "rows_changed"]
+__all__ = ["fetch", "rows_changed", "quoted", "table_columns"]
 
 
 def fetch(con: duckdb.DuckDBPyConnection, sql: str, params: Any = None) -> list[tuple]:
@@ -22,3 +22,15 @@ def rows_changed(con: duckdb.DuckDBPyConnection, sql: str, params: Any = None) -
     """Run a DELETE or UPDATE and return how many rows it changed (DuckDB returns the count as a row)."""
     result = fetch(con, sql, params)
     return int(result[0][0]) if result else 0
+
+
+def quoted(name: str) -> str:
+    """A name read from a database's own catalog (a column, a catalog), as a quoted SQL identifier."""
+    return '"' + name.replace('"', '""') + '"'
+
+
+def table_columns(con: duckdb.DuckDBPyConnection, catalog: str, table: str) -> list[str]:
+    """Columns of ``catalog.main.table`` in order (empty when there is no such table)."""
+    return [r[0] for r in fetch(
+        con, "SELECT column_name FROM information_schema.columns WHERE table_catalog = ? AND table_schema = 'main' "
+        "AND table_name = ? ORDER BY ordinal_position", [catalog, table])]

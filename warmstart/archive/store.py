@@ -7,7 +7,11 @@ Rules kept here:
 - every logical write is one transaction (:meth:`Archive.transaction`), so a
   crash leaves the archive as it was before or after, never between;
 - one process writes, others read (DuckDB's file lock); a second writer gets
-  :class:`~warmstart.errors.ArchiveLockedError` naming the file and the fix.
+  :class:`~warmstart.errors.ArchiveLockedError` naming the file and the fix;
+- a damaged file (cut short, or a block failing DuckDB's checksum) gets
+  :class:`~warmstart.errors.ArchiveDamagedError` naming the file and the fix
+  (``warmstart curate salvage``); it is never written: a file cut short is
+  refused on opening, and every block is read before a write opening.
 """
 
 from __future__ import annotations
@@ -27,7 +31,7 @@ import numpy as np
 import pandas as pd
 
 from warmstart.archive.ingest import param_columns, prepare_trials, study_direction
-from warmstart.archive.faults import archive_error, first_line, translated
+from warmstart.archive.faults import archive_error, check_blocks, damaged_error, first_line, translated
 from warmstart.errors import ArchiveError
 from warmstart.space import Space
 
@@ -87,6 +91,9 @@ class Archive:
         from a newer warmstart.
     ArchiveLockedError
         Another process holds the file for writing.
+    ArchiveDamagedError
+        The file is cut short, or (when opened for writing: every block is
+        read first, under a second per million trials) a block fails its checksum.
 
     Examples
     --------
@@ -124,8 +131,12 @@ class Archive:
                 f"{self.path}: cannot open the archive: {first_line(exc)}") from None
         try:
             with translated(self.path):
+                self._check_not_cut_short()
                 # DuckDB's own progress bar prints to stdout on long queries and would corrupt --json output.
                 self.con.execute("SET enable_progress_bar = false")
+                if not read_only and not memory:
+                    # nothing is written into a damaged file: every block is read first
+                    check_blocks(self.con, self.path, ARCHIVE_TABLES)
                 self._check_schema()
         except BaseException:
             self.con.close()
@@ -178,6 +189,25 @@ class Archive:
     def _df(self, sql: str, params: Any = None) -> pd.DataFrame:
         with translated(self.path):
             return self.con.execute(sql, params or []).df()
+
+    def _check_not_cut_short(self) -> None:
+        """Refuse a file shorter than the blocks DuckDB's own header says it holds.
+
+        A file cut short (a full disk, an interrupted copy) opens, and fails
+        only when a command reads a missing block; this check costs one query
+        and makes every command refuse it at once. Blocks in use never overlap,
+        so a sound file is at least ``used_blocks * block_size`` bytes long
+        (free blocks beyond the end are not counted: DuckDB may cut them off).
+        """
+        if self.path == ":memory:":
+            return
+        block_size, used = self.con.execute("SELECT block_size, used_blocks FROM pragma_database_size()").fetchone()
+        size = os.path.getsize(self.path)
+        if size < int(block_size) * int(used):
+            raise damaged_error(
+                self.path, f"the file is {size:,} bytes but its header counts {int(used):,} blocks of "
+                f"{int(block_size):,} bytes in use ({int(block_size) * int(used):,} bytes): it was cut short, "
+                "e.g. by a full disk or an interrupted copy")
 
     # -- schema ------------------------------------------------------------
     def _existing_tables(self) -> set[str]:
