@@ -22,7 +22,8 @@ from warmstart.errors import ArchiveError, ArchiveLockedError, SpaceError, Warms
 from warmstart.space import Space
 
 PROFILE = {"log_rows": 4.0, "log_features": 1.1}  # given, so these tests need not profile data
-TABLES = {"schema_version", "archive_info", "tasks", "profiles", "spaces", "studies", "trials"}
+TABLES = {"schema_version", "archive_info", "tasks", "profiles", "spaces", "studies", "trials",
+          "leases", "requests", "gain_reports"}
 
 
 def trial_frame(space: Space, n: int = 12, seed: int = 0) -> pd.DataFrame:
@@ -43,12 +44,12 @@ def new_study(archive: Archive, space: Space, frame: pd.DataFrame, task: str = "
 
 def test_new_archive_has_the_schema(archive_path):
     with Archive(archive_path) as archive:
-        assert archive.schema_version == SCHEMA_VERSION == 1
+        assert archive.schema_version == SCHEMA_VERSION == 2
     con = duckdb.connect(str(archive_path), read_only=True)
     tables = {r[0] for r in con.execute("SELECT table_name FROM information_schema.tables").fetchall()}
     assert TABLES <= tables
     rows = con.execute("SELECT version, applied_at, duckdb_version FROM schema_version").fetchall()
-    assert [(r[0], r[2]) for r in rows] == [(1, duckdb.__version__)]
+    assert sorted((r[0], r[2]) for r in rows) == [(1, duckdb.__version__), (2, duckdb.__version__)]
     assert con.execute("SELECT count(*) FROM archive_info").fetchall() == [(1,)]
     con.close()
 
@@ -127,7 +128,7 @@ def test_archive_with_a_newer_schema(archive_path, space, small_frame, table_dum
     con.close()
     before = table_dump(archive_path)
     for read_only in (False, True):
-        with pytest.raises(ArchiveError, match=r"schema version 2 is newer than this warmstart understands \(1\); upgrade warmstart"):
+        with pytest.raises(ArchiveError, match=r"schema version 3 is newer than this warmstart understands \(2\); upgrade warmstart"):
             Archive(archive_path, read_only=read_only)
     assert table_dump(archive_path) == before
 

@@ -1,116 +1,107 @@
 """warmstart: keep a team's tuning history, seed new searches from similar
 past tasks, and measure in bits whether the transfer helped.
 
-The names below are the public API; everything else may change.
+The names in ``__all__`` are the public API; everything else may change.
+They are imported on first use (PEP 562), so ``import warmstart`` and
+everyday commands stay quick: a name's module, and what it needs, loads
+only when the name is touched.
+
+Examples
+--------
+>>> import warmstart
+>>> space = warmstart.Space.from_dict({"params": {"C": {"type": "real", "low": 0.01, "high": 100, "log": True}}})
+>>> search = warmstart.DensitySearch(space, prior=None, seed=0, maximize=True)
+>>> config = search.propose()
+>>> 0.01 <= config["C"] <= 100
+True
 """
 
-from warmstart.errors import (
-    ArchiveError,
-    ArchiveLockedError,
-    IngestError,
-    ProfileError,
-    SpaceError,
-    WarmstartError,
-)
-from warmstart.space import Alignment, Param, Space
+from __future__ import annotations
+
+import importlib
+import sys
+import types
+from typing import Any
 
 from warmstart._version import __version__
 
-__all__ = [
-    "Alignment",
-    "ArchiveError",
-    "ArchiveLockedError",
-    "IngestError",
-    "Param",
-    "ProfileError",
-    "Space",
-    "SpaceError",
-    "WarmstartError",
-    "__version__",
-]
+#: public name -> module that defines it
+_WHERE = {
+    # errors
+    "WarmstartError": "warmstart.errors",
+    "ArchiveError": "warmstart.errors",
+    "ArchiveLockedError": "warmstart.errors",
+    "IngestError": "warmstart.errors",
+    "ProfileError": "warmstart.errors",
+    "SpaceError": "warmstart.errors",
+    "PriorError": "warmstart.prior",
+    "SearchError": "warmstart.search.strategy",
+    # spaces and profiles
+    "Space": "warmstart.space",
+    "Param": "warmstart.space",
+    "profile": "warmstart.profile",
+    "PROFILE_VERSION": "warmstart.profile",
+    # the archive and what it gives
+    "Archive": "warmstart.archive.store",
+    "Prior": "warmstart.prior",
+    "load_starter": "warmstart.starter",
+    # searches: the one loop and its strategies
+    "run_search": "warmstart.search.strategy",
+    "Trial": "warmstart.search.strategy",
+    "SearchResult": "warmstart.search.strategy",
+    "SearchStrategy": "warmstart.search.strategy",
+    "DensitySearch": "warmstart.search.density",
+    "RandomSearch": "warmstart.search.baselines",
+    "SobolSearch": "warmstart.search.baselines",
+    "GPSearch": "warmstart.search.baselines",
+    "NelderMeadSearch": "warmstart.search.baselines",
+    # objectives
+    "TrialResult": "warmstart.evaluate.objective",
+    "CallableObjective": "warmstart.evaluate.objective",
+    "CommandObjective": "warmstart.evaluate.objective",
+    "cv_objective": "warmstart.evaluate.learners",
+    "default_space": "warmstart.evaluate.learners",
+    # gain in bits
+    "bits": "warmstart.gain.bits",
+    "compare": "warmstart.gain.bits",
+    "pool": "warmstart.gain.bits",
+    "leave_one_task_out": "warmstart.gain.replay",
+    "ReplayResult": "warmstart.gain.replay",
+    "live_gain": "warmstart.gain.live",
+    "LiveResult": "warmstart.gain.live",
+    # curation
+    "check_archive": "warmstart.archive.curate",
+    "dedupe_trials": "warmstart.archive.curate",
+    "merge_archive": "warmstart.archive.merge",
+    "export_archive": "warmstart.archive.exchange",
+    "import_export": "warmstart.archive.exchange",
+}
 
-# Public names added by later modules are imported below, one block each.
+__all__ = sorted(_WHERE) + ["__version__"]
 
-from warmstart.profile import PROFILE_VERSION, detect_kind, profile  # noqa: E402
-from warmstart.similarity import ProfileIndex, rank_agreement  # noqa: E402
 
-__all__ += ["PROFILE_VERSION", "ProfileIndex", "detect_kind", "profile", "rank_agreement"]
+def __getattr__(name: str) -> Any:
+    module = _WHERE.get(name)
+    if module is None:
+        raise AttributeError(f"module 'warmstart' has no attribute {name!r}")
+    value = getattr(importlib.import_module(module), name)
+    globals()[name] = value  # later look-ups skip this function
+    return value
 
-from warmstart.evaluate.learners import (  # noqa: E402
-    LEARNERS,
-    METRICS,
-    CVObjective,
-    Learner,
-    build_estimator,
-    cv_objective,
-    default_metric,
-    default_space,
-    get_learner,
-    metric_direction,
-)
-from warmstart.evaluate.objective import (  # noqa: E402
-    CallableObjective,
-    CommandObjective,
-    ObjectiveError,
-    TrialFailed,
-    TrialResult,
-    score_function,
-)
 
-__all__ += [
-    "LEARNERS", "METRICS", "CVObjective", "Learner", "build_estimator", "cv_objective", "default_metric",
-    "default_space", "get_learner", "metric_direction",
-    "CallableObjective", "CommandObjective", "ObjectiveError", "TrialFailed", "TrialResult", "score_function",
-]
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(__all__))
 
-from warmstart.starter import StarterError, StarterLoad, load_starter, read_starter  # noqa: E402
 
-__all__ += ["StarterError", "StarterLoad", "load_starter", "read_starter"]
+class _Face(types.ModuleType):
+    """The package module: a submodule never hides the public name it shares
+    (importing ``warmstart.profile`` would otherwise bind the module over the
+    :func:`profile` function)."""
 
-from warmstart.search.baselines import (  # noqa: E402
-    GPSearch,
-    NelderMeadSearch,
-    RandomSearch,
-    SobolSearch,
-    expected_improvement,
-)
-from warmstart.search.kde import KDEError, MixedKDE  # noqa: E402
-from warmstart.search.density import DensitySearch  # noqa: E402
-from warmstart.search.strategy import SearchError, SearchResult, SearchStrategy, Trial, run_search  # noqa: E402
-from warmstart.search.testfunctions import (  # noqa: E402
-    BenchmarkFunction,
-    benchmark_functions,
-    branin,
-    hartmann6,
-    rastrigin,
-    rosenbrock,
-)
+    def __setattr__(self, name: str, value: Any) -> None:
+        if name in _WHERE and isinstance(value, types.ModuleType):
+            return
+        super().__setattr__(name, value)
 
-__all__ += [
-    "DensitySearch", "GPSearch", "KDEError", "MixedKDE", "NelderMeadSearch", "RandomSearch",
-    "SearchError", "SearchResult", "SearchStrategy", "SobolSearch", "Trial", "expected_improvement",
-    "run_search", "BenchmarkFunction", "benchmark_functions", "branin", "hartmann6", "rastrigin",
-    "rosenbrock",
-]
 
-from warmstart.archive.curate import CheckReport, check_archive, dedupe_trials, fix_archive  # noqa: E402
-from warmstart.archive.merge import MergeSummary, merge_archive  # noqa: E402
-from warmstart.archive.exchange import export_archive, import_export  # noqa: E402
-
-__all__ += [
-    "CheckReport", "check_archive", "dedupe_trials", "fix_archive",
-    "MergeSummary", "export_archive", "import_export", "merge_archive",
-]
-
-from warmstart.archive import Archive  # noqa: E402
-from warmstart.gain.bits import PooledGain, Runs, TaskGain, bits, bits_interval, compare, pool, target_threshold  # noqa: E402
-from warmstart.gain.live import LiveResult, live_gain  # noqa: E402
-from warmstart.prior import Prior, PriorError, Source, prior_from_sources  # noqa: E402
-from warmstart.gain.replay import ReplayObjective, ReplayResult, leave_one_task_out  # noqa: E402
-from warmstart.archive.sources import build_prior, load_sources  # noqa: E402
-
-__all__ += [
-    "Archive", "LiveResult", "PooledGain", "Prior", "PriorError", "ReplayObjective", "ReplayResult", "Runs",
-    "Source", "TaskGain", "bits", "bits_interval", "build_prior", "compare", "leave_one_task_out", "live_gain",
-    "load_sources", "pool", "prior_from_sources", "target_threshold",
-]
+sys.modules[__name__].__class__ = _Face

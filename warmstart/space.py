@@ -30,7 +30,6 @@ from pathlib import Path
 from typing import Any, Iterable, Mapping, Sequence
 
 import numpy as np
-from scipy.stats import qmc
 
 from warmstart.errors import SpaceError
 
@@ -673,6 +672,8 @@ class Space:
         taken from a draw of ``2**ceil(log2(n))`` so the balance warning of
         SciPy does not apply.
         """
+        from scipy.stats import qmc  # SciPy's stats take ~0.8 s to import; only designs need them
+
         rng = np.random.default_rng(rng)
         m = max(0, math.ceil(math.log2(max(n, 1))))
         engine = qmc.Sobol(d=self.dim, scramble=True, rng=rng)

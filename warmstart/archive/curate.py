@@ -524,7 +524,11 @@ def archive_digest(archive: Archive, ignore: Mapping[str, Iterable[str]] | None 
         outcome of two runs of one command made at different times).
     """
     out = {}
+    present = {r[0] for r in fetch(archive.con, "SELECT table_name FROM information_schema.tables "
+                                                "WHERE table_schema = 'main' AND table_catalog = current_database()")}
     for table in ARCHIVE_TABLES:  # identifiers from the allow-list only
+        if table not in present:  # a version-1 archive opened read-only has no service tables
+            continue
         columns = [d[0] for d in archive.con.execute(f"SELECT * FROM {table} LIMIT 0").description]
         dropped = set((ignore or {}).get(table, ()))
         unknown = dropped - set(columns)

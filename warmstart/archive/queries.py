@@ -12,6 +12,7 @@ vectorised distance computation and two small SQL look-ups.
 from __future__ import annotations
 
 import json
+import threading
 import uuid
 from collections import OrderedDict
 from typing import Mapping
@@ -31,16 +32,20 @@ NEIGHBOR_COLUMNS = [
 DEFAULT_COLUMNS = ["config", "shrunk_quantile", "mean_quantile", "n_tasks", "trial_count", "weight"]
 PSEUDO_TASKS = 1.0  # neutral pseudo-observations behind the ranking of defaults (a Bayesian average, common practice)
 _CACHE: OrderedDict = OrderedDict()
+_CACHE_LOCK = threading.Lock()
 _CACHE_SIZE = 16
 
 
 def _cached(key: tuple, compute):
-    if key in _CACHE:
-        _CACHE.move_to_end(key)
-        return _CACHE[key]
-    value = _CACHE[key] = compute()
-    while len(_CACHE) > _CACHE_SIZE:
-        _CACHE.popitem(last=False)
+    with _CACHE_LOCK:  # threads of one process (the team service) share the cache
+        if key in _CACHE:
+            _CACHE.move_to_end(key)
+            return _CACHE[key]
+    value = compute()  # outside the lock: two threads may both compute a missing entry, never corrupt it
+    with _CACHE_LOCK:
+        _CACHE[key] = value
+        while len(_CACHE) > _CACHE_SIZE:
+            _CACHE.popitem(last=False)
     return value
 
 
@@ -91,7 +96,8 @@ def _positive_int(name: str, value: int) -> int:
 def clear_cache() -> None:
     """Forget cached profile indexes (needed only after editing the profiles
     table in place with UPDATE, which warmstart itself never does)."""
-    _CACHE.clear()
+    with _CACHE_LOCK:
+        _CACHE.clear()
 
 
 def _signature(con) -> tuple:

@@ -33,9 +33,13 @@ from warmstart.errors import ArchiveDamagedError, ArchiveError
 __all__ = ["TableSalvage", "SalvageReport", "salvage_archive", "SALVAGED_TABLES"]
 
 #: tables a salvage copies, in this order (``schema_version`` is the new archive's own)
-SALVAGED_TABLES = ("archive_info", "tasks", "profiles", "spaces", "studies", "trials")
+SALVAGED_TABLES = ("archive_info", "tasks", "profiles", "spaces", "studies", "trials", "leases", "requests",
+                   "gain_reports")
+#: schema version that added a table (schema_v2.sql): an older damaged file lacks it and loses nothing
+_ADDED_IN = {"leases": 2, "requests": 2, "gain_reports": 2}
 _SEQUENCES = {"tasks": ("task_ids", "task_id"), "spaces": ("space_ids", "space_id"),
-              "studies": ("study_ids", "study_id")}
+              "studies": ("study_ids", "study_id"), "leases": ("trial_ids", "trial_id"),
+              "gain_reports": ("gain_report_ids", "report_id")}
 _ALIAS = "_warmstart_damaged"  # catalog name of the attached damaged file
 _VECTOR_ROWS = 2048  # DuckDB's vector size: a scan reads whole vectors, so no piece is smaller
 
@@ -198,16 +202,19 @@ def _lost_by_study(con: duckdb.DuckDBPyConnection, failed: list[tuple[int, int]]
     return tuple(sorted(counts.items(), key=lambda kv: (kv[0] is None, kv[0] or 0)))
 
 
-def _salvage_table(archive: Archive, table: str, damaged_columns: dict[str, list[str]],
-                   progress: Callable[[str, int, int], None] | None) -> TableSalvage:
+def _salvage_table(archive: Archive, table: str, version: int | None, damaged_columns: dict[str, list[str]],
+                   progress: Callable[[str, int, int], None] | None) -> TableSalvage | None:
+    """Copy one table; None for a table the damaged file's (older) schema never had."""
     con = archive.con
+    theirs = set(table_columns(con, _ALIAS, table))
+    if not theirs:
+        if version is not None and version < _ADDED_IN.get(table, 1):
+            return None
+        return TableSalvage(table, None, 0, note="the table is missing from the damaged file")
     try:
         rows = int(fetch(con, f"SELECT count(*) FROM {_ALIAS}.main.{table}")[0][0])
     except duckdb.Error:
         rows = None
-    theirs = set(table_columns(con, _ALIAS, table))
-    if not theirs:
-        return TableSalvage(table, rows, 0, note="the table is missing from the damaged file")
     columns = [c for c in table_columns(con, fetch(con, "SELECT current_database()")[0][0], table) if c in theirs]
     if table == "archive_info":
         con.execute("DELETE FROM archive_info")  # the damaged archive's identity replaces the fresh one
@@ -221,7 +228,7 @@ def _advance_sequences(archive: Archive) -> None:
     con = archive.con
     last = dict(fetch(con, "SELECT sequence_name, last_value FROM duckdb_sequences() WHERE database_name = ?",
                       [_ALIAS]))
-    for table, (sequence, column) in _SEQUENCES.items():  # names from this module's allow-list
+    for table, (sequence, column) in _SEQUENCES.items():  # names from this module's allow-list and the schema
         top = fetch(con, f"SELECT coalesce(max({column}), 0) FROM {table}")[0][0]
         start = max(int(top), int(last.get(sequence) or 0)) + 1
         con.execute(f"DROP SEQUENCE {sequence}")
@@ -253,8 +260,9 @@ def _attach_damaged(con: duckdb.DuckDBPyConnection, damaged: Path) -> None:
         raise error or ArchiveError(f"{damaged}: cannot open it ({first_line(exc)}); nothing was written") from None
 
 
-def _source_schema(con: duckdb.DuckDBPyConnection, damaged: Path) -> None:
-    """Refuse a file that is not a warmstart archive, or of a newer schema."""
+def _source_schema(con: duckdb.DuckDBPyConnection, damaged: Path) -> int | None:
+    """The damaged file's schema version (None when it cannot be read); refuse a file
+    that is not a warmstart archive, or of a newer schema."""
     try:
         tables = {r[0] for r in fetch(con, "SELECT table_name FROM information_schema.tables WHERE table_catalog = ? "
                                            "AND table_schema = 'main'", [_ALIAS])}
@@ -274,6 +282,7 @@ def _source_schema(con: duckdb.DuckDBPyConnection, damaged: Path) -> None:
     if version is not None and int(version) > SCHEMA_VERSION:
         raise ArchiveError(f"{damaged}: archive schema version {version} is newer than this warmstart understands "
                            f"({SCHEMA_VERSION}); upgrade warmstart to salvage it; nothing was written")
+    return None if version is None else int(version)
 
 
 def salvage_archive(damaged: str | Path, new: str | Path,
@@ -311,11 +320,12 @@ def salvage_archive(damaged: str | Path, new: str | Path,
         with Archive(staging) as archive, translated(damaged, source=True):  # the new file is sound
             _attach_damaged(archive.con, damaged)
             try:
-                _source_schema(archive.con, damaged)
+                version = _source_schema(archive.con, damaged)
                 broken: dict[str, list[str]] = {}
                 for item in unreadable_columns(archive.con, ARCHIVE_TABLES, catalog=_ALIAS):
                     broken.setdefault(item.table, []).append(item.column)
-                tables = tuple(_salvage_table(archive, t, broken, progress) for t in SALVAGED_TABLES)
+                done = (_salvage_table(archive, t, version, broken, progress) for t in SALVAGED_TABLES)
+                tables = tuple(t for t in done if t is not None)
                 _advance_sequences(archive)
                 archive_id = fetch(archive.con, "SELECT min(archive_id) FROM archive_info")[0][0]
                 kept = archive_id if tables[0].copied else None

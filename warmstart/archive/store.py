@@ -30,8 +30,9 @@ import duckdb
 import numpy as np
 import pandas as pd
 
-from warmstart.archive.ingest import param_columns, prepare_trials, study_direction
 from warmstart.archive.faults import archive_error, check_blocks, damaged_error, first_line, translated
+from warmstart.archive.ingest import param_columns, prepare_trials, study_direction
+from warmstart.archive.location import DEFAULT_ARCHIVE, default_archive_path
 from warmstart.errors import ArchiveError
 from warmstart.space import Space
 
@@ -40,18 +41,16 @@ __all__ = [
     "fingerprint", "utc_now",
 ]
 
-SCHEMA_VERSION = 1
-MIGRATIONS = {1: "schema_v1.sql"}  # version -> DDL that brings version-1 to version
-DEFAULT_ARCHIVE = "archive/warmstart.duckdb"
-#: every table of the archive (schema_v1.sql), the allow-list of table names used in statements
-ARCHIVE_TABLES = ("schema_version", "archive_info", "tasks", "profiles", "spaces", "studies", "trials")
+SCHEMA_VERSION = 2
+MIGRATIONS = {1: "schema_v1.sql", 2: "schema_v2.sql"}  # version -> DDL that brings version-1 to version
+#: oldest schema a read-only open accepts: version 2 only adds the service's tables (leases,
+#: request ids, gain reports), which no reader outside the service touches
+READABLE_FROM = 1
+#: every table of the archive (schema_v1.sql, schema_v2.sql), the allow-list of table names used in statements
+ARCHIVE_TABLES = ("schema_version", "archive_info", "tasks", "profiles", "spaces", "studies", "trials",
+                  "leases", "requests", "gain_reports")
 #: the tables that hold history (what a merge, an export and an import carry)
 DATA_TABLES = ("tasks", "profiles", "spaces", "studies", "trials")
-
-
-def default_archive_path() -> str:
-    """``$WARMSTART_ARCHIVE`` when set, else ``./archive/warmstart.duckdb``."""
-    return os.environ.get("WARMSTART_ARCHIVE") or DEFAULT_ARCHIVE
 
 
 def utc_now() -> datetime:
@@ -158,6 +157,18 @@ class Archive:
         mode = "read-only" if self.read_only else "read-write"
         return f"Archive({self.path!r}, {mode})"
 
+    def reader(self) -> "Archive":
+        """A read-only view of this open archive on a cursor of its own.
+
+        For another thread of the same process (DuckDB: one connection per
+        process, a cursor per thread): it sees every committed write and
+        refuses to write. Close it when the thread is done with it.
+        """
+        view = object.__new__(Archive)
+        view.path, view.read_only, view._depth = self.path, True, 0
+        view.con = self.con.cursor()
+        return view
+
     @contextlib.contextmanager
     def transaction(self) -> Iterator[duckdb.DuckDBPyConnection]:
         """One transaction for a logical write; nested uses join the outer one."""
@@ -234,6 +245,8 @@ class Archive:
             )
         if version < SCHEMA_VERSION:
             if self.read_only:
+                if version >= READABLE_FROM:
+                    return
                 raise ArchiveError(
                     f"{self.path}: archive schema version {version} needs migrating to {SCHEMA_VERSION}; "
                     "open it once for writing (any write command) to migrate"
@@ -306,28 +319,86 @@ class Archive:
         if target not in frame.columns:
             raise ArchiveError(f"task {name!r}: target column {target!r} not found; columns are {list(frame.columns)}")
         fp = fingerprint(frame, target)
+        same = self._q("SELECT task_id FROM tasks WHERE name = ? AND fingerprint = ?", [name, fp])
+        taken = bool(self._q("SELECT 1 FROM tasks WHERE name = ?", [name]))
+        stale = bool(same) and self._profile_version(same[0][0]) != PROFILE_VERSION
+        kind = kind or detect_kind(frame[target])
+        if profile is None and (not taken or stale):
+            profile = compute_profile(frame, target=target, kind=kind)
+        return self.register_task(name, fp, kind, target, int(frame.shape[0]), int(frame.shape[1] - 1), profile,
+                                  source=source)
+
+    def register_task(
+        self,
+        name: str,
+        fingerprint: str,
+        kind: str,
+        target: str,
+        n_rows: int | None,
+        n_features: int | None,
+        profile: Mapping[str, float] | None,
+        source: str | None = None,
+    ) -> int:
+        """Add a task known by its fingerprint and profile, without its data.
+
+        What :meth:`add_task` does once it has hashed and profiled the data;
+        the team service calls it with what a client computed locally. A task
+        with the same name and fingerprint is reused (its profile rewritten
+        when it is of another version); the same name with another
+        fingerprint is an error.
+
+        Parameters
+        ----------
+        name : str
+            Task name, stored verbatim.
+        fingerprint : str
+            :func:`fingerprint` of the data and target.
+        kind : {"classification", "regression"}
+        target : str
+            Target column name.
+        n_rows, n_features : int or None
+            Size of the data (features exclude the target).
+        profile : mapping or None
+            Profile of :data:`~warmstart.profile.PROFILE_VERSION`; needed for a
+            new task or one whose stored profile is of another version.
+        source : str, optional
+            Where the data came from, for the record.
+
+        Returns
+        -------
+        int
+            The task id.
+        """
+        from warmstart.profile import PROFILE_VERSION
+
+        if not isinstance(name, str) or not name.strip():
+            raise ArchiveError(f"task name must be a non-empty string, got {name!r}")
+        if kind not in ("classification", "regression"):
+            raise ArchiveError(f"task {name!r}: kind must be classification or regression, got {kind!r}")
         found = self._q("SELECT task_id, fingerprint FROM tasks WHERE name = ?", [name])
         for task_id, other in found:
-            if other == fp:
+            if other == fingerprint:
                 if self._profile_version(task_id) != PROFILE_VERSION:
-                    prof = dict(profile) if profile is not None else compute_profile(frame, target=target, kind=kind)
+                    if profile is None:
+                        raise ArchiveError(f"task {name!r}: its stored profile is outdated; give a profile of "
+                                           f"version {PROFILE_VERSION}")
                     with self.transaction():
-                        self._write_profile(task_id, prof, PROFILE_VERSION)
+                        self._write_profile(task_id, profile, PROFILE_VERSION)
                 return int(task_id)
         if found:
             raise ArchiveError(
                 f"task {name!r} already exists in {self.path} with different data "
-                f"(fingerprint {found[0][1][:12]} vs {fp[:12]}); choose another task name (tune and ingest take --task)"
+                f"(fingerprint {found[0][1][:12]} vs {fingerprint[:12]}); choose another task name (tune and ingest take --task)"
             )
-        kind = kind or detect_kind(frame[target])
-        prof = dict(profile) if profile is not None else compute_profile(frame, target=target, kind=kind)
+        if profile is None:
+            raise ArchiveError(f"task {name!r} is new: give its profile (version {PROFILE_VERSION})")
         with self.transaction() as con:
             task_id = con.execute("SELECT nextval('task_ids')").fetchall()[0][0]
             con.execute(
                 "INSERT INTO tasks VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
-                [task_id, name, fp, kind, target, int(frame.shape[0]), int(frame.shape[1] - 1), utc_now(), source],
+                [task_id, name, fingerprint, kind, target, n_rows, n_features, utc_now(), source],
             )
-            self._write_profile(task_id, prof, PROFILE_VERSION)
+            self._write_profile(task_id, profile, PROFILE_VERSION)
         return int(task_id)
 
     def _profile_version(self, task_id: int) -> str | None:

@@ -354,8 +354,12 @@ def tag(ctx, study, labels, owner, remove, as_json):
     except click.BadParameter as exc:
         exc.param_hint = "'[KEY=VALUE]...'"
         raise
-    archive = get_archive(ctx, write=True)
-    result = label_study(archive, study, tags=tags, owner=owner, remove=remove)
+    from warmstart.cli.remote import server_client
+
+    if (client := server_client(ctx)) is not None:
+        result = client.tag(study, tags=tags, remove=remove, owner=owner)
+    else:
+        result = label_study(get_archive(ctx, write=True), study, tags=tags, owner=owner, remove=remove)
     if as_json:
         print_json(result)
         return

@@ -4,7 +4,9 @@ from __future__ import annotations
 
 import click
 
-from warmstart.cli.common import fail, get_archive, json_option, keep_column_option, print_json, print_table, read_data
+from warmstart.cli.common import (
+    fail, get_archive, json_option, keep_column_option, print_json, print_table, read_data, strict_option,
+)
 from warmstart.cli.main import main
 from warmstart.gain.bits import interval_text, queries_text
 from warmstart.progress import Progress
@@ -38,6 +40,7 @@ def resolve_space(space_path, learner: str, kind: str):
 @click.option("--space", "space_path", type=click.Path(dir_okay=False), help="Space of the new search (default: the learner's built-in space).")
 @click.option("-o", "--output", type=click.Path(dir_okay=False), help="Write the prior as JSON here.")
 @keep_column_option
+@strict_option
 @json_option
 @click.pass_context
 def prior(ctx, data, target, learner, space_path, output, keep_columns, as_json):
@@ -45,11 +48,21 @@ def prior(ctx, data, target, learner, space_path, output, keep_columns, as_json)
     from warmstart.archive.store import fingerprint
     from warmstart.profile import detect_kind, profile
 
+    from warmstart.cli.remote import server_client
+
     frame = read_data(data, target, keep_columns=keep_columns)
-    archive = get_archive(ctx, write=False)
+    client = server_client(ctx)
     kind = detect_kind(frame[target])
     space = resolve_space(space_path, learner, kind)
     prof = profile(frame, target=target, keep_columns=keep_columns)
+    if client is not None:  # built by the service from its archive; the data stays here
+        found = client.prior(prof, learner, space=space.to_dict(), kind=kind,
+                             exclude_fingerprint=fingerprint(frame, target))
+        if output:
+            fail("-o writes a prior built here; with --server use --json to keep the service's provenance")
+        print_json(found["provenance"]) if as_json else click.echo(found["summary"])
+        return
+    archive = get_archive(ctx, write=False)
     tasks = archive.tasks()
     same = tasks.loc[tasks["fingerprint"] == fingerprint(frame, target), "task_id"].tolist()
     built = archive.build_prior(prof, learner=learner, space=space, exclude_tasks=same)
@@ -84,6 +97,7 @@ def prior(ctx, data, target, learner, space_path, output, keep_columns, as_json)
 @click.option("--cv", default=5, show_default=True, type=click.IntRange(min=2), help="With --data: cross-validation folds.")
 @click.option("--report", "report_path", type=click.Path(dir_okay=False), help="Write an HTML report with plots here.")
 @keep_column_option
+@strict_option
 @json_option
 @click.pass_context
 def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, only_tasks, objective, data, target, metric, cv,

@@ -14,7 +14,7 @@ import click
 import duckdb
 import numpy as np
 
-from warmstart.cli.common import fail, get_archive, json_option, keep_column_option, print_json, read_data
+from warmstart.cli.common import fail, get_archive, json_option, keep_column_option, print_json, read_data, strict_option
 from warmstart.cli.main import main
 from warmstart.evaluate.learners import LEARNERS, TASK_KINDS, cv_objective, default_space, metric_direction, METRICS
 from warmstart.evaluate.objective import CommandObjective, local_pool, score_function, stop_pool
@@ -138,6 +138,7 @@ def _objective_and_space(data, target, learner, kind, space_path, metric, minimi
 @click.option("--task", "task_name", help="Task name in the archive (default: DATA's file name).")
 @click.option("--kind", type=click.Choice(TASK_KINDS), help="Kind of task (default: from the target).")
 @keep_column_option
+@strict_option
 @json_option
 @click.pass_context
 def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, cluster, cold, n_seeds, command,
@@ -156,6 +157,16 @@ def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, 
         frame, target, learner, kind, space_path, metric, minimize, command, cv, seed, time_limit,
         threads=1, keep_columns=keep_columns,
     )
+    from warmstart.cli.remote import server_client
+
+    service = server_client(ctx)
+    if service is not None:  # trials run here, results recorded through the service
+        if cluster:
+            fail("--cluster with --server is not supported yet; evaluate with --workers N here")
+        from warmstart.cli.remote_tune import tune_through_service
+
+        return tune_through_service(ctx, service, frame, data, target, kind, keep_columns, task_name, learner,
+                                    space, metric, maximize, cold, n_seeds, budget, objective, n_workers, as_json)
     client = executor = None
     if cluster and budget:
         client, executor, cores = _cluster_executor(cluster)
@@ -285,6 +296,10 @@ def propose(ctx, study, k, seed, as_json):
     history gives the same proposals, so ask for -k N at once for N
     parallel jobs, then `warmstart record` each result.
     """
+    from warmstart.cli.remote import propose_leases, server_client
+
+    if (client := server_client(ctx)) is not None:  # leases: parallel jobs get distinct configs
+        return propose_leases(client, study, k, None, as_json)
     archive = get_archive(ctx, write=False)
     info, search = _rebuilt_search(archive, study, seed)
     configs = search.propose(k)
@@ -299,15 +314,53 @@ def propose(ctx, study, k, seed, as_json):
 
 @main.command()
 @click.option("--study", "study", required=True, type=int, help="Study id.")
-@click.option("--config", "config_text", required=True, metavar="JSON", help='The config, e.g. \'{"C": 1.5}\'.')
+@click.option("--config", "config_text", metavar="JSON", help='The config, e.g. \'{"C": 1.5}\'.')
+@click.option("--trial", "trial", type=click.IntRange(min=1), metavar="ID",
+              help="With --server: the id of a leased trial (from propose) instead of --config.")
 @click.option("--score", type=float, help="The score in the study's metric.")
 @click.option("--failed", is_flag=True, help="The config failed (no score).")
 @click.option("--error", help="What went wrong (with --failed).")
 @click.option("--cost", type=click.FloatRange(min=0), metavar="SECONDS", help="Wall time of the evaluation.")
 @json_option
 @click.pass_context
-def record(ctx, study, config_text, score, failed, error, cost, as_json):
-    """Record the result of one config of a STUDY (committed at once)."""
+def record(ctx, study, config_text, trial, score, failed, error, cost, as_json):
+    """Record the result of one config of a STUDY (committed at once).
+
+    With --server, --trial ID records a leased trial; --config records a
+    config that was never proposed.
+    """
+    from warmstart.cli.remote import server_client
+
+    client = server_client(ctx)
+    if (trial is None) == (config_text is None):
+        raise click.UsageError("give --config JSON" + (" or --trial ID (a lease from propose)" if client else "")
+                               + ("" if trial is None else "; not both"))
+    if trial is not None and client is None:
+        raise click.UsageError("--trial names a lease of a team service: give --server URL (or WARMSTART_SERVER), "
+                               "or record by --config")
+    config = None if config_text is None else _config_argument(config_text)
+    if failed == (score is not None):
+        raise click.UsageError("give either --score X or --failed (with --error TEXT)")
+    if score is not None and not math.isfinite(score):
+        raise click.BadParameter(f"must be a finite number, got {score}; use --failed for a failed trial",
+                                 param_hint="--score")
+    if error and not failed:
+        raise click.UsageError("--error goes with --failed")
+    if client is not None:
+        done = client.record(study, trial=trial, config=config, score=score, failed=failed,
+                             error=(error or "failed (recorded by hand)") if failed else None, cost_s=cost)
+        if as_json:
+            print_json(done)
+            return
+        what = "failed" if failed else f"score {score:.6g}"
+        again = " (recorded before with the same result: nothing changed)" if done["repeat"] else ""
+        click.echo(f"recorded trial {done['trial']} as number {done['number']} of study {study} ({what}){again}; "
+                   f"best {_fmt(done['best_score'])} over {done['trial_count']} trials")
+        return
+    _record_here(ctx, study, config, score, failed, error, cost, as_json)
+
+
+def _config_argument(config_text: str) -> dict:
     try:
         config = json.loads(config_text)
     except json.JSONDecodeError as exc:
@@ -316,13 +369,10 @@ def record(ctx, study, config_text, score, failed, error, cost, as_json):
     if not isinstance(config, dict):
         raise click.BadParameter(f"must be a JSON object of parameter values, got {config_text!r}",
                                  param_hint="--config")
-    if failed == (score is not None):
-        raise click.UsageError("give either --score X or --failed (with --error TEXT)")
-    if score is not None and not math.isfinite(score):
-        raise click.BadParameter(f"must be a finite number, got {score}; use --failed for a failed trial",
-                                 param_hint="--score")
-    if error and not failed:
-        raise click.UsageError("--error goes with --failed")
+    return config
+
+
+def _record_here(ctx, study, config, score, failed, error, cost, as_json) -> None:
     archive = get_archive(ctx, write=True)
     info = archive.study(study)
     number = archive.record_trial(study, config, None if failed else score,

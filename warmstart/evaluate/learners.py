@@ -33,7 +33,7 @@ from warmstart.evaluate.metrics import METRICS, metric_direction
 from warmstart.evaluate.objective import ObjectiveError, TrialResult, _check_limit, _error_text, _now
 from warmstart.profile import detect_kind
 from warmstart.space import Space
-from warmstart.data.features import feature_frame
+from warmstart.data.clean import clean_table
 from warmstart.data.read import TableError
 
 __all__ = [
@@ -427,11 +427,13 @@ class CVObjective:
     :meth:`close` stops it. Without a time limit trials run in this process.
     Warnings (convergence and others) are silenced inside a trial.
 
-    The features are the table's other columns as
-    :func:`warmstart.data.read.feature_frame` gives them (identifier columns
-    left out, dates written as text as days since 1970-01-01), the same
-    columns a profile of the table uses; ``feature_notes`` says what was
-    done per column.
+    The rows, labels and features are the table as
+    :func:`warmstart.data.clean.clean_table` gives it, the same table a
+    profile uses: identifier columns left out, dates written as text as days
+    since 1970-01-01, rows without a target left out, text labels that
+    differ only in case or surrounding spaces merged, infinite feature values
+    missing. ``feature_notes`` says what was done per column left out or
+    converted, ``data_notes`` what else was done (rows, labels, values).
     """
 
     def __init__(self, frame, target, learner, metric=None, kind=None, cv=5, seed=0,
@@ -441,17 +443,17 @@ class CVObjective:
         if target not in frame.columns:
             raise ObjectiveError(f"target column {target!r} not found; columns are: {', '.join(map(str, frame.columns))}")
         original = [c for c in frame.columns if c != target]
-        try:  # on the table as given, before rows go: the same columns as its profile
-            frame, self.feature_notes = feature_frame(frame, target, keep=keep_columns)
+        try:  # the same rows, labels and columns as its profile
+            cleaned = clean_table(frame, target, keep_columns=keep_columns)
         except TableError as exc:
             raise ObjectiveError(str(exc)) from None
+        frame, self.feature_notes, self.data_notes = cleaned.frame, cleaned.column_notes, cleaned.notes
         if original and frame.shape[1] == 1:
             raise ObjectiveError(
                 "every feature column was left out: "
                 + "; ".join(f"{c!r} {why}" for c, why in self.feature_notes.items())
                 + "; pass the ones that are features with keep_columns (--keep-column on the command line)"
             )
-        frame = frame[frame[target].notna()]
         y = frame[target]
         self.kind = _check_kind(kind) if kind is not None else detect_kind(y)
         self.key = learner
@@ -635,9 +637,11 @@ def cv_objective(frame: pd.DataFrame, target: str, learner: str, metric: str | N
     Parameters
     ----------
     frame : DataFrame
-        Features and target; rows with a missing target are left out.
-        Identifier columns are left out and dates written as text become
-        days, as in a profile (:func:`warmstart.data.read.feature_frame`).
+        Features and target, used as :func:`warmstart.data.clean.clean_table`
+        gives them, as in a profile: rows with a missing target left out,
+        text labels that differ only in case or surrounding spaces merged,
+        infinite feature values missing, identifier columns left out and
+        dates written as text as days.
     target : str
         Target column.
     learner : str
@@ -669,7 +673,7 @@ def cv_objective(frame: pd.DataFrame, target: str, learner: str, metric: str | N
     keep_columns : iterable of str, default ()
         Columns to use as features exactly as they are, even when they look
         like identifiers or dates written as text (see
-        :func:`warmstart.data.read.feature_frame`).
+        :func:`warmstart.data.features.feature_frame`).
 
     Returns
     -------

@@ -158,6 +158,9 @@ class SearchStrategy:
 
     def _propose_and_hold(self) -> dict:
         config, source = self._propose_one()
+        return self._hold_normalized(config, source)
+
+    def _hold_normalized(self, config: dict, source: str) -> dict:
         key = _config_key(config)
         if key in self._pending:
             self._pending[key][3] += 1
@@ -212,6 +215,27 @@ class SearchStrategy:
         self._trials.append(trial)
         self._observe()
         return trial
+
+    def hold(self, config: Mapping, source: str = "external") -> dict:
+        """Mark a config as pending, as if this search had proposed it.
+
+        A search rebuilt from stored history uses it for configs proposed
+        earlier and not recorded yet (the leases of the team service), so new
+        proposals stay apart from them. Returns the normalised config.
+        """
+        return self._hold_normalized(self.space.normalize(config), source)
+
+    def release(self, config: Mapping) -> bool:
+        """Forget one pending copy of a config that will not be recorded
+        (e.g. an expired lease); False when it was not pending."""
+        key = _config_key(self.space.normalize(config))
+        entry = self._pending.get(key)
+        if entry is None:
+            return False
+        entry[3] -= 1
+        if entry[3] == 0:
+            del self._pending[key]
+        return True
 
     # -- state -------------------------------------------------------------
     @property
