@@ -7,7 +7,11 @@ Rules kept here:
 - every logical write is one transaction (:meth:`Archive.transaction`), so a
   crash leaves the archive as it was before or after, never between;
 - one process writes, others read (DuckDB's file lock); a second writer gets
-  :class:`~warmstart.errors.ArchiveLockedError` naming the file and the fix.
+  :class:`~warmstart.errors.ArchiveLockedError` naming the file and the fix;
+- a damaged file (cut short, or a block failing DuckDB's checksum) gets
+  :class:`~warmstart.errors.ArchiveDamagedError` naming the file and the fix
+  (``warmstart curate salvage``); it is never written: a file cut short is
+  refused on opening, and every block is read before a write opening.
 """
 
 from __future__ import annotations
@@ -15,6 +19,7 @@ from __future__ import annotations
 import contextlib
 import hashlib
 import json
+import os
 import uuid
 from datetime import datetime, timezone
 from importlib import resources
@@ -25,22 +30,31 @@ import duckdb
 import numpy as np
 import pandas as pd
 
-from warmstart.archive.ingest import param_columns, prepare_trials
+from warmstart.archive.faults import archive_error, check_blocks, damaged_error, first_line, translated
+from warmstart.archive.ingest import param_columns, prepare_trials, study_direction
 from warmstart.archive.location import DEFAULT_ARCHIVE, default_archive_path
-from warmstart.errors import ArchiveError, ArchiveLockedError
+from warmstart.errors import ArchiveError
 from warmstart.space import Space
 
-__all__ = ["Archive", "SCHEMA_VERSION", "DEFAULT_ARCHIVE", "default_archive_path", "fingerprint"]
+__all__ = [
+    "Archive", "SCHEMA_VERSION", "DEFAULT_ARCHIVE", "ARCHIVE_TABLES", "DATA_TABLES", "default_archive_path",
+    "fingerprint", "utc_now",
+]
 
 SCHEMA_VERSION = 2
 MIGRATIONS = {1: "schema_v1.sql", 2: "schema_v2.sql"}  # version -> DDL that brings version-1 to version
 #: oldest schema a read-only open accepts: version 2 only adds the service's tables (leases,
 #: request ids, gain reports), which no reader outside the service touches
 READABLE_FROM = 1
-_TABLES = ("schema_version", "archive_info", "tasks", "profiles", "spaces", "studies", "trials")
+#: every table of the archive (schema_v1.sql, schema_v2.sql), the allow-list of table names used in statements
+ARCHIVE_TABLES = ("schema_version", "archive_info", "tasks", "profiles", "spaces", "studies", "trials",
+                  "leases", "requests", "gain_reports")
+#: the tables that hold history (what a merge, an export and an import carry)
+DATA_TABLES = ("tasks", "profiles", "spaces", "studies", "trials")
 
 
-def _now() -> datetime:
+def utc_now() -> datetime:
+    """Now in UTC, as a naive datetime (how the archive stores times)."""
     return datetime.now(timezone.utc).replace(tzinfo=None)
 
 
@@ -76,6 +90,9 @@ class Archive:
         from a newer warmstart.
     ArchiveLockedError
         Another process holds the file for writing.
+    ArchiveDamagedError
+        The file is cut short, or (when opened for writing: every block is
+        read first, under a second per million trials) a block fails its checksum.
 
     Examples
     --------
@@ -108,26 +125,18 @@ class Archive:
                     )
         try:
             self.con = duckdb.connect(self.path, read_only=read_only)
-        except duckdb.IOException as exc:
-            text = str(exc)
-            if "lock" in text.lower():
-                raise ArchiveLockedError(
-                    f"{self.path}: another process is writing to this archive ({_pid_hint(text)}). "
-                    "DuckDB allows one writing process at a time: wait for it to finish, then run the "
-                    "command again; nothing was changed."
-                ) from None
-            if "not a valid DuckDB database" in text or "not a valid" in text:
-                raise ArchiveError(
-                    f"{self.path}: not a warmstart archive (the file is not a DuckDB database); "
-                    "give another --archive path or move this file away"
-                ) from None
-            raise ArchiveError(f"{self.path}: cannot open the archive: {text}") from None
         except duckdb.Error as exc:
-            raise ArchiveError(f"{self.path}: cannot open the archive: {exc}") from None
+            raise archive_error(exc, self.path) or ArchiveError(
+                f"{self.path}: cannot open the archive: {first_line(exc)}") from None
         try:
-            # DuckDB's own progress bar prints to stdout on long queries and would corrupt --json output.
-            self.con.execute("SET enable_progress_bar = false")
-            self._check_schema()
+            with translated(self.path):
+                self._check_not_cut_short()
+                # DuckDB's own progress bar prints to stdout on long queries and would corrupt --json output.
+                self.con.execute("SET enable_progress_bar = false")
+                if not read_only and not memory:
+                    # nothing is written into a damaged file: every block is read first
+                    check_blocks(self.con, self.path, ARCHIVE_TABLES)
+                self._check_schema()
         except BaseException:
             self.con.close()
             raise
@@ -185,10 +194,31 @@ class Archive:
         self.con.commit()
 
     def _q(self, sql: str, params: Any = None) -> list[tuple]:
-        return self.con.execute(sql, params or []).fetchall()
+        with translated(self.path):
+            return self.con.execute(sql, params or []).fetchall()
 
     def _df(self, sql: str, params: Any = None) -> pd.DataFrame:
-        return self.con.execute(sql, params or []).df()
+        with translated(self.path):
+            return self.con.execute(sql, params or []).df()
+
+    def _check_not_cut_short(self) -> None:
+        """Refuse a file shorter than the blocks DuckDB's own header says it holds.
+
+        A file cut short (a full disk, an interrupted copy) opens, and fails
+        only when a command reads a missing block; this check costs one query
+        and makes every command refuse it at once. Blocks in use never overlap,
+        so a sound file is at least ``used_blocks * block_size`` bytes long
+        (free blocks beyond the end are not counted: DuckDB may cut them off).
+        """
+        if self.path == ":memory:":
+            return
+        block_size, used = self.con.execute("SELECT block_size, used_blocks FROM pragma_database_size()").fetchone()
+        size = os.path.getsize(self.path)
+        if size < int(block_size) * int(used):
+            raise damaged_error(
+                self.path, f"the file is {size:,} bytes but its header counts {int(used):,} blocks of "
+                f"{int(block_size):,} bytes in use ({int(block_size) * int(used):,} bytes): it was cut short, "
+                "e.g. by a full disk or an interrupted copy")
 
     # -- schema ------------------------------------------------------------
     def _existing_tables(self) -> set[str]:
@@ -236,10 +266,10 @@ class Archive:
                 for statement in _split_sql(sql):
                     con.execute(statement)
                 con.execute(
-                    "INSERT INTO schema_version VALUES (?, ?, ?)", [version, _now(), duckdb.__version__]
+                    "INSERT INTO schema_version VALUES (?, ?, ?)", [version, utc_now(), duckdb.__version__]
                 )
             if current == 0:
-                con.execute("INSERT INTO archive_info VALUES (?, ?)", [uuid.uuid4().hex, _now()])
+                con.execute("INSERT INTO archive_info VALUES (?, ?)", [uuid.uuid4().hex, utc_now()])
 
     @property
     def archive_id(self) -> str:
@@ -366,7 +396,7 @@ class Archive:
             task_id = con.execute("SELECT nextval('task_ids')").fetchall()[0][0]
             con.execute(
                 "INSERT INTO tasks VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
-                [task_id, name, fingerprint, kind, target, n_rows, n_features, _now(), source],
+                [task_id, name, fingerprint, kind, target, n_rows, n_features, utc_now(), source],
             )
             self._write_profile(task_id, profile, PROFILE_VERSION)
         return int(task_id)
@@ -479,7 +509,7 @@ class Archive:
                     study_id, int(task), learner, space_id, metric,
                     "maximize" if maximize else "minimize", origin,
                     None if prior is None else json.dumps(prior, sort_keys=True),
-                    _now(), owner, json.dumps(tags, sort_keys=True),
+                    utc_now(), owner, json.dumps(tags, sort_keys=True),
                 ],
             )
         return int(study_id)
@@ -487,15 +517,7 @@ class Archive:
     def finish_study(self, study: int) -> None:
         """Mark a study finished now."""
         with self.transaction() as con:
-            con.execute("UPDATE studies SET finished_at = ? WHERE study_id = ?", [_now(), int(study)])
-
-    def set_prior(self, study: int, prior: Mapping) -> None:
-        """Record the provenance of the prior a study used."""
-        with self.transaction() as con:
-            con.execute(
-                "UPDATE studies SET prior = ?, origin = 'warm' WHERE study_id = ?",
-                [json.dumps(prior, sort_keys=True), int(study)],
-            )
+            con.execute("UPDATE studies SET finished_at = ? WHERE study_id = ?", [utc_now(), int(study)])
 
     _STUDY_SQL = (
         "SELECT s.study_id, s.task_id, t.name AS task, s.learner, s.space_id, s.metric, s.direction, "
@@ -585,7 +607,7 @@ class Archive:
         row: dict[str, Any] = {name: [config.get(name)] for name in space.names}
         row.update(
             score=[np.nan if score is None else score], status=[status], cost_s=[cost_s],
-            started_at=[started_at], finished_at=[finished_at or _now()], error=[error],
+            started_at=[started_at], finished_at=[finished_at or utc_now()], error=[error],
         )
         prepared = prepare_trials(space, pd.DataFrame(row), where=f"trial of study {study}",
                                   metric=self._study_metric(study))
@@ -677,8 +699,6 @@ class Archive:
         from warmstart.profile import PROFILE_VERSION, detect_kind
         from warmstart.profile import profile as compute_profile
 
-        from warmstart.archive.ingest import study_direction
-
         maximize = study_direction(metric, None if maximize is None else not maximize)
         prepared = prepare_trials(space, trials, where=where, metric=metric)  # fail before any work or write
         if target not in data.columns:
@@ -733,12 +753,4 @@ def _insert_frame(con: duckdb.DuckDBPyConnection, table: str, frame: pd.DataFram
 def _split_sql(sql: str) -> list[str]:
     lines = [line for line in sql.splitlines() if not line.strip().startswith("--")]
     return [s.strip() for s in "\n".join(lines).split(";") if s.strip()]
-
-
-def _pid_hint(text: str) -> str:
-    marker = "PID "
-    if marker in text:
-        pid = text.split(marker, 1)[1].split(")")[0]
-        return f"held by process {pid}"
-    return "the file is locked"
 

@@ -9,22 +9,11 @@ import click
 import pandas as pd
 
 from warmstart.cli.common import (
-    fail, get_archive, json_option, keep_column_option, print_json, print_table, read_data, strict_option,
+    fail, get_archive, json_option, keep_column_option, parse_tags, print_json, print_table, read_data,
+    strict_option,
 )
 from warmstart.cli.main import main
 from warmstart.space import Space
-
-
-def _parse_tags(values: tuple[str, ...]) -> dict[str, str]:
-    tags = {}
-    for item in values:
-        if "=" not in item:
-            raise click.BadParameter(f"{item!r} is not KEY=VALUE (e.g. team=retail)", param_hint="--tag")
-        key, value = item.split("=", 1)
-        if not key:
-            raise click.BadParameter(f"{item!r} has an empty key; use KEY=VALUE", param_hint="--tag")
-        tags[key] = value
-    return tags
 
 
 @main.command()
@@ -91,7 +80,7 @@ def ingest(ctx, trials, task, data_path, target, learner, space_path, metric, mi
     """
     from warmstart.archive.ingest import study_direction
 
-    tag_map = _parse_tags(tags)
+    tag_map = parse_tags(tags)
     maximize = study_direction(metric, minimize)
     trial_frame = read_data(trials)  # its notes (a guessed delimiter, short rows) too
     data = read_data(data_path, target, keep_columns=keep_columns)
@@ -157,7 +146,7 @@ def studies(ctx, learner, task, owner, tags, as_json):
     from warmstart.cli.remote import print_remote_studies, server_client
 
     if (client := server_client(ctx)) is not None:
-        return print_remote_studies(client, learner, task, owner, _parse_tags(tags), as_json)
+        return print_remote_studies(client, learner, task, owner, parse_tags(tags), as_json)
     path = ctx.find_root().obj["archive_path"]
     if not Path(path).exists():  # a listing never creates an archive (a mistyped path stays a mistake)
         if as_json:
@@ -175,7 +164,7 @@ def studies(ctx, learner, task, owner, tags, as_json):
     if owner is not None or tags:
         from warmstart.archive.curate import filter_studies
 
-        frame = filter_studies(frame, owner=owner, tags=_parse_tags(tags))
+        frame = filter_studies(frame, owner=owner, tags=parse_tags(tags))
     cols = ["study_id", "task", "learner", "metric", "direction", "origin", "trial_count", "best_score", "owner", "tags", "created_at"]
     filtered = bool(learner or task or owner is not None or tags)
     empty = ("no study matches these filters (`warmstart studies` without filters lists them all)"

@@ -14,8 +14,8 @@ import pandas as pd
 from warmstart.archive.store import Archive
 
 __all__ = [
-    "get_archive", "print_table", "print_json", "fail", "json_option", "keep_column_option", "read_data", "strict_option",
-    "to_jsonable",
+    "get_archive", "print_table", "print_json", "fail", "json_option", "keep_column_option", "parse_tags", "read_data",
+    "strict_option", "to_jsonable",
 ]
 
 json_option = click.option("--json", "as_json", is_flag=True, help="Print JSON instead of a table.")
@@ -59,6 +59,20 @@ def get_archive(ctx: click.Context, write: bool = True) -> Archive:
     root.obj["archive"] = archive
     root.call_on_close(archive.close)
     return archive
+
+
+def parse_tags(values: tuple[str, ...]) -> dict[str, str]:
+    """``KEY=VALUE`` texts (``--tag`` options) as a dict; a text without ``=`` or
+    with an empty key is a :class:`click.BadParameter` naming it."""
+    tags = {}
+    for item in values:
+        if "=" not in item:
+            raise click.BadParameter(f"{item!r} is not KEY=VALUE (e.g. team=retail)", param_hint="--tag")
+        key, value = item.split("=", 1)
+        if not key:
+            raise click.BadParameter(f"{item!r} has an empty key; use KEY=VALUE", param_hint="--tag")
+        tags[key] = value
+    return tags
 
 
 def fail(message: str) -> None:

@@ -6,7 +6,7 @@ import importlib
 
 import click
 
-from warmstart import __version__
+from warmstart._version import __version__
 from warmstart.archive.location import DEFAULT_ARCHIVE
 from warmstart.errors import WarmstartError
 
@@ -30,8 +30,13 @@ COMMAND_MODULES = {
 
 class _Group(click.Group):
     """The top group: loads a command's module on first use, and turns
-    library errors into clean messages (exit code 1)."""
+    library errors into clean messages (exit code 1).
 
+    A DuckDB error that says the archive file is locked, not a database or
+    damaged (:mod:`warmstart.archive.faults`) gets the same treatment, naming
+    the file, whichever command met it; any other DuckDB error is a bug and
+    keeps its traceback.
+    """
     def get_command(self, ctx: click.Context, name: str):
         if name not in self.commands and name in COMMAND_MODULES:
             importlib.import_module(f"warmstart.cli.{COMMAND_MODULES[name]}")
@@ -45,6 +50,13 @@ class _Group(click.Group):
             return super().invoke(ctx)
         except WarmstartError as exc:
             raise click.ClickException(str(exc)) from None
+        except Exception as exc:
+            from warmstart.archive.faults import archive_error  # DuckDB is imported only when one failed
+
+            error = archive_error(exc, (ctx.obj or {}).get("archive_path", "the archive"))
+            if error is None:
+                raise
+            raise click.ClickException(str(error)) from None
 
 
 @click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})

@@ -29,6 +29,7 @@ import pandas as pd
 from pandas.api import types as ptypes
 
 from warmstart.evaluate.deadline import StoppableRunner
+from warmstart.evaluate.metrics import METRICS, metric_direction
 from warmstart.evaluate.objective import ObjectiveError, TrialResult, _check_limit, _error_text, _now
 from warmstart.profile import detect_kind
 from warmstart.space import Space
@@ -51,18 +52,6 @@ __all__ = [
 
 TASK_KINDS = ("classification", "regression")
 
-# metric -> (kind, maximize, scikit-learn scorer name, sign that turns the
-# scorer's value into the metric's natural value)
-METRICS: dict[str, tuple[str, bool, str, float]] = {
-    "accuracy": ("classification", True, "accuracy", 1.0),
-    "balanced_accuracy": ("classification", True, "balanced_accuracy", 1.0),
-    "roc_auc": ("classification", True, "roc_auc", 1.0),  # roc_auc_ovr for > 2 classes
-    "log_loss": ("classification", False, "neg_log_loss", -1.0),
-    "f1_macro": ("classification", True, "f1_macro", 1.0),
-    "r2": ("regression", True, "r2", 1.0),
-    "rmse": ("regression", False, "neg_root_mean_squared_error", -1.0),
-    "mae": ("regression", False, "neg_mean_absolute_error", -1.0),
-}
 _DEFAULT_METRIC = {"classification": "accuracy", "regression": "r2"}
 
 # one-hot encoding of categoricals: levels seen in < 1 % of rows are grouped,
@@ -310,13 +299,6 @@ def default_space(key: str, kind: str) -> Space:
     return get_learner(key, kind).space
 
 
-def metric_direction(metric: str) -> bool:
-    """True when larger values of ``metric`` are better (False for losses and errors)."""
-    if metric not in METRICS:
-        raise ObjectiveError(f"unknown metric {metric!r}; metrics are: {', '.join(METRICS)}")
-    return METRICS[metric][1]
-
-
 def default_metric(kind: str) -> str:
     """``accuracy`` for classification, ``r2`` for regression."""
     return _DEFAULT_METRIC[_check_kind(kind)]
@@ -416,9 +398,9 @@ def _check_metric(metric: str | None, kind: str) -> str:
     if metric is None:
         return default_metric(kind)
     metric_direction(metric)  # unknown metric -> error listing them
-    if METRICS[metric][0] != kind:
-        fitting = ", ".join(m for m, spec in METRICS.items() if spec[0] == kind)
-        raise ObjectiveError(f"metric {metric!r} is for {METRICS[metric][0]} tasks; for {kind} use one of: {fitting}")
+    if METRICS[metric].kind != kind:
+        fitting = ", ".join(m for m, spec in METRICS.items() if spec.kind == kind)
+        raise ObjectiveError(f"metric {metric!r} is for {METRICS[metric].kind} tasks; for {kind} use one of: {fitting}")
     return metric
 
 
@@ -521,10 +503,10 @@ class CVObjective:
         with warnings.catch_warnings():  # small classes: scikit-learn warns, we go on
             warnings.simplefilter("ignore")
             self.folds = [(tr, te) for tr, te in splitter.split(self.X, self.y)]
-        scorer = METRICS[self.metric][2]
+        scorer = METRICS[self.metric].scorer
         if self.metric == "roc_auc" and len(classes) > 2:
             scorer = "roc_auc_ovr"
-        self.scorer_name, self.sign = scorer, METRICS[self.metric][3]
+        self.scorer_name, self.sign = scorer, METRICS[self.metric].sign
         self.proba = self.metric == "log_loss" or scorer == "roc_auc_ovr"
         self.seed = seed
         self.time_limit = _check_limit(time_limit)

@@ -35,7 +35,7 @@ from pathlib import Path
 from typing import Any, Callable, Mapping, Sequence
 
 from warmstart.evaluate.deadline import STOP_WAIT_S, child_context
-from warmstart.errors import WarmstartError
+from warmstart.errors import ObjectiveError
 
 __all__ = [
     "ObjectiveError",
@@ -50,10 +50,6 @@ __all__ = [
 ]
 
 _TAIL_CHARS = 2000
-
-
-class ObjectiveError(WarmstartError, ValueError):
-    """An objective cannot be set up as asked (unknown command, bad metric ...)."""
 
 
 def _now() -> datetime:

@@ -290,7 +290,7 @@ def api_router(service: Service, authorize) -> APIRouter:
     @router.get("/curate/export", summary="The archive as a Parquet store, zipped (admin)",
                 response_class=FileResponse)
     def export(who: Principal = Depends(admins)) -> FileResponse:
-        from warmstart.archive.transfer import export_archive
+        from warmstart.archive.exchange import export_archive
 
         scratch = Path(tempfile.mkdtemp(prefix="warmstart-export-"))
         try:
