@@ -32,9 +32,9 @@ __all__ = [
 # Public names added by later modules are imported below, one block each.
 
 from warmstart.profile import PROFILE_VERSION, detect_kind, profile  # noqa: E402
-from warmstart.similarity import ProfileIndex, rank_agreement  # noqa: E402
+from warmstart.similarity import ProfileIndex  # noqa: E402
 
-__all__ += ["PROFILE_VERSION", "ProfileIndex", "detect_kind", "profile", "rank_agreement"]
+__all__ += ["PROFILE_VERSION", "ProfileIndex", "detect_kind", "profile"]
 
 from warmstart.evaluate.learners import (  # noqa: E402
     LEARNERS,
@@ -106,10 +106,10 @@ from warmstart.gain.bits import PooledGain, Runs, TaskGain, bits, bits_interval,
 from warmstart.gain.live import LiveResult, live_gain  # noqa: E402
 from warmstart.prior import Prior, PriorError, Source, prior_from_sources  # noqa: E402
 from warmstart.gain.replay import ReplayObjective, ReplayResult, leave_one_task_out  # noqa: E402
-from warmstart.archive.sources import build_prior, load_sources  # noqa: E402
+from warmstart.archive.sources import load_sources  # noqa: E402
 
 __all__ += [
     "Archive", "LiveResult", "PooledGain", "Prior", "PriorError", "ReplayObjective", "ReplayResult", "Runs",
-    "Source", "TaskGain", "bits", "bits_interval", "build_prior", "compare", "leave_one_task_out", "live_gain",
+    "Source", "TaskGain", "bits", "bits_interval", "compare", "leave_one_task_out", "live_gain",
     "load_sources", "pool", "prior_from_sources", "target_threshold",
 ]

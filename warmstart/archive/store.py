@@ -643,12 +643,15 @@ class Archive:
 
         return defaults(self, learner, near=near, n=n, kind=kind)
 
-    def build_prior(self, prof: Mapping[str, float], learner: str, space: Space, **options: Any):
+    def build_prior(self, prof: Mapping[str, float], learner: str, space: Space, exclude_tasks=(), **options: Any):
         """Build a :class:`~warmstart.prior.Prior` for ``learner`` over ``space``
-        from the studies of tasks similar to ``prof``."""
-        from warmstart.archive.sources import build_prior
+        from the studies of tasks similar to ``prof`` (``exclude_tasks``: task
+        ids left out; ``options`` go to :func:`~warmstart.prior.prior_from_sources`)."""
+        from warmstart.archive.sources import prior_info, prior_sources
+        from warmstart.prior import prior_from_sources
 
-        return build_prior(self, prof, learner=learner, space=space, **options)
+        sources = prior_sources(self, prof, learner, space, exclude_tasks=exclude_tasks)
+        return prior_from_sources(space, sources, provenance=prior_info(learner), **options)
 
 
 def _insert_frame(con: duckdb.DuckDBPyConnection, table: str, frame: pd.DataFrame, columns: list[str]) -> None:
