@@ -7,6 +7,7 @@ random frame of conftest.py (invented)."""
 
 from __future__ import annotations
 
+import json
 import math
 
 import numpy as np
@@ -98,3 +99,108 @@ def test_ctrl_c_keeps_the_finished_trials_and_leaves_the_study_open(tmp_path, sm
         assert len(archive.trials(study.study_id)) == 3
         assert pd.isna(archive.study(study.study_id)["finished_at"])
         assert np.isfinite(archive.trials(study.study_id)["score"]).all()
+
+
+# -- a warm study keeps the prior it started with ------------------------------------------
+from sklearn.datasets import load_breast_cancer, load_iris, load_wine  # noqa: E402
+
+from warmstart.space import Space  # noqa: E402
+
+TOY = Space.from_dict({"params": {"x": {"type": "real", "low": 0.0, "high": 1.0},
+                                  "k": {"type": "integer", "low": 1, "high": 64, "log": True}}})
+
+
+def _history(archive, name, frame, best_x, seed):
+    """A past study of learner 'toy' whose invented scores peak at x = best_x."""
+    rng = np.random.default_rng(seed)
+    x, k = rng.random(24), rng.integers(1, 65, 24)
+    scores = 1 - (x - best_x) ** 2 - 0.05 * (np.log2(k) - 3) ** 2
+    task = archive.add_task(name, frame, "target")
+    study = archive.add_study(task, "toy", TOY, metric="score")
+    archive.add_trials(study, pd.DataFrame({"x": x, "k": k, "score": scores}))
+    return study
+
+
+def _same_prior(a, b) -> bool:
+    """Equal priors: every number of their plain-data form (the space compared by
+    content: the archive's copy also carries the learner's label)."""
+    da, db = a.to_dict(), b.to_dict()
+    return a.space.content_hash == b.space.content_hash and {**da, "space": None} == {**db, "space": None}
+
+
+def _resample(loader, seed):
+    return loader(as_frame=True).frame.sample(frac=1.0, replace=True, random_state=seed).reset_index(drop=True)
+
+
+@pytest.fixture
+def warm(tmp_path):
+    """An archive with two past studies and a warm study on a third table
+    (scikit-learn's bundled datasets; scores invented)."""
+    path = tmp_path / "a.duckdb"
+    with Archive(path) as archive:
+        _history(archive, "iris", load_iris(as_frame=True).frame, 0.2, 1)
+        _history(archive, "wine", load_wine(as_frame=True).frame, 0.3, 2)
+        task = archive.add_task("cancer", load_breast_cancer(as_frame=True).frame, "target")
+        study = start_study(archive, task, "toy", TOY, seed=0)
+        assert study.origin == "warm"
+        record = archive.study(study.study_id)["prior"]
+        for seed in (5, 6):  # teammates add close relatives of the task, with other best configs
+            _history(archive, f"cancer resample {seed}", _resample(load_breast_cancer, seed), 0.9, seed)
+    return path, study, record
+
+
+def test_the_stored_recipe_rebuilds_the_same_prior_whatever_was_added(warm):
+    path, study, record = warm
+    started = study.search.prior
+    assert [s["task"] for s in record["recipe"]["sources"]] == ["iris", "wine"]
+    assert {"digest", "task_fingerprint", "created_at", "trial_count", "similarity"} <= set(record["recipe"]["sources"][0])
+    assert "centres" not in record and len(json.dumps(record)) < 4000  # a few hundred bytes per source
+    with Archive(path, read_only=True) as archive:
+        resumed = resume_study(archive, study.study_id)
+        today = archive.build_prior(archive.profile_of(study_id_task(archive, study)), "toy", TOY,
+                                    exclude_tasks=[study_id_task(archive, study)])
+    assert _same_prior(resumed.search.prior, started)
+    assert "it started with" in resumed.note and "not as recorded" not in resumed.note
+    assert len(today.sources) == 4  # today's archive would give another prior
+
+
+def study_id_task(archive, study) -> int:
+    return int(archive.study(study.study_id)["task_id"])
+
+
+def _set_record(path, study_id, record):
+    with Archive(path) as archive:  # what an older warmstart, or a merge, left in the studies table
+        archive.con.execute("UPDATE studies SET prior = ? WHERE study_id = ?", [json.dumps(record), study_id])
+
+
+def test_a_study_recorded_by_an_older_warmstart_rebuilds_from_the_studies_it_lists(warm):
+    path, study, record = warm
+    older = {k: v for k, v in record.items() if k != "recipe"}
+    older["centres"] = study.search.prior.provenance["centres"]  # the old record: provenance + n_seeds
+    _set_record(path, study.study_id, older)
+    with Archive(path, read_only=True) as archive:
+        resumed = resume_study(archive, study.study_id)
+    assert _same_prior(resumed.search.prior, study.search.prior)
+    assert "older warmstart" in resumed.note
+
+
+def test_a_renumbered_source_is_found_by_its_identity(warm):
+    path, study, record = warm
+    moved = json.loads(json.dumps(record))
+    moved["recipe"]["sources"][0]["study_id"] = 4  # a merge gave the source another id; 4 is another study
+    _set_record(path, study.study_id, moved)
+    with Archive(path, read_only=True) as archive:
+        resumed = resume_study(archive, study.study_id)
+    assert _same_prior(resumed.search.prior, study.search.prior)
+
+
+def test_sources_changed_since_are_named_in_the_note(warm):
+    path, study, record = warm
+    first = record["recipe"]["sources"][0]
+    with Archive(path) as archive:  # a curation step deleted two of its trials
+        archive.con.execute("DELETE FROM trials WHERE study_id = ? AND number <= 2", [first["study_id"]])
+        resumed = resume_study(archive, study.study_id)
+        assert f"study {first['study_id']} (iris) has 22 of the 24 successful trials it had" in resumed.note
+        archive.con.execute("DELETE FROM trials")
+        gone = resume_study(archive, study.study_id)
+    assert "rebuilt from today's archive" in gone.note and gone.search.prior is None

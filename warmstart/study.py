@@ -3,9 +3,12 @@ from, and the archive record of every finished trial.
 
 :func:`start_study` adds a study to the archive with the search it starts
 with (warm from the archive's other studies of the learner when it can,
-cold otherwise); :func:`resume_study` rebuilds that search for a study
-already in the archive and feeds it the recorded trials, so that the same
-history gives the same proposals; :func:`run_study` evaluates an objective
+cold otherwise) and stores what a warm start was built from;
+:func:`resume_study` rebuilds that search for a study already in the archive
+(a warm one from its stored sources, not from today's archive) and feeds it
+the recorded trials, so the same study with the same results gives the same
+proposals whatever was added to the archive since; :func:`run_study`
+evaluates an objective
 with the study's search and records each trial as it finishes, so an
 interrupted run keeps what it finished.
 """
@@ -21,13 +24,15 @@ from typing import Any, Callable, Mapping
 import duckdb
 import numpy as np
 
+from warmstart.archive.sources import recorded_sources, source_identities
 from warmstart.evaluate.objective import local_pool, score_function, stop_pool
-from warmstart.prior import PriorError
+from warmstart.prior import Prior, PriorError, prior_from_sources
 from warmstart.search.density import DEFAULT_N_SEEDS, DensitySearch
 from warmstart.search.strategy import Trial, run_search
 from warmstart.space import Space
 
-__all__ = ["Study", "StudyRun", "start_study", "resume_study", "run_study", "summary", "warm_or_cold"]
+__all__ = ["Study", "StudyRun", "start_study", "resume_study", "run_study", "summary", "warm_or_cold",
+           "warm_start_record", "recorded_prior"]
 
 
 @dataclass
@@ -159,7 +164,76 @@ def warm_or_cold(
     if n_seeds != DEFAULT_N_SEEDS:
         note += f"; {n_seeds} past config(s) first"
     search = DensitySearch(space, prior=prior, seed=seed, maximize=maximize, n_seeds=n_seeds)
-    return search, "warm", {**prior.provenance, "n_seeds": n_seeds}, note
+    return search, "warm", warm_start_record(archive, prior, n_seeds), note
+
+
+def warm_start_record(archive, prior: Prior, n_seeds: int) -> dict:
+    """What a warm study stores in its ``prior`` column.
+
+    The prior's provenance for people (which studies, with which weights;
+    without the per-centre list, which the sources rebuild) plus ``recipe``
+    (:meth:`~warmstart.prior.Prior.recipe`, each source with its study's
+    identity from :func:`~warmstart.archive.sources.source_identities`):
+    enough to rebuild the prior exactly, a few hundred bytes per source.
+    """
+    recipe = prior.recipe()
+    identities = source_identities(archive, [s["study_id"] for s in recipe["sources"]])
+    recipe["sources"] = [{**s, **identities.get(s["study_id"], {})} for s in recipe["sources"]]
+    shown = {k: v for k, v in prior.provenance.items() if k != "centres"}
+    return {**shown, "n_seeds": int(n_seeds), "recipe": recipe}
+
+
+def _legacy_recipe(record: Mapping) -> dict:
+    """The recipe of a study started by a warmstart that stored only the
+    provenance: its sources were every listed study, in study-id order, with
+    their first ``trial_count`` successful trials."""
+    info = {k: record[k] for k in ("learner", "profile_version", "bandwidth_scale") if k in record}
+    n_seeds = int(record.get("n_seeds", DEFAULT_N_SEEDS))
+    return {"top_fraction": record.get("top_fraction", 0.2), "n_seeds": max(n_seeds, 1), "info": info,
+            "sources": sorted(record.get("neighbors", []), key=lambda n: int(n["study_id"]))}
+
+
+def recorded_prior(archive, info: Mapping) -> tuple[Prior | None, str]:
+    """The prior a warm study started with, rebuilt from what it stored.
+
+    Parameters
+    ----------
+    archive : Archive
+    info : mapping
+        The study as :meth:`Archive.study` returns it.
+
+    Returns
+    -------
+    (prior, note)
+        The prior (None when none of its sources is left) and one line for
+        people: where the prior came from and anything no longer as recorded.
+        A study started by an older warmstart (no ``recipe``) is rebuilt from
+        the studies its provenance lists, which is exact unless their trials
+        were deleted since; one with no record at all, or whose sources are
+        all gone, is rebuilt from today's archive, and the note says so.
+    """
+    record = info["prior"] or {}
+    n_seeds = int(record.get("n_seeds", DEFAULT_N_SEEDS))
+    recipe = record.get("recipe")
+    older = recipe is None
+    if older:
+        recipe = _legacy_recipe(record)
+    space = info["space"]
+    sources, problems = recorded_sources(archive, space, recipe["sources"]) if recipe["sources"] else ([], [])
+    if not sources:
+        fresh, _, _, note = warm_or_cold(archive, int(info["task_id"]), info["learner"], space, info["maximize"],
+                                         0, cold=False, n_seeds=n_seeds)
+        why = "; ".join(problems) or "the study recorded no sources"
+        return fresh.prior, f"{note} (rebuilt from today's archive: {why})"
+    prior = prior_from_sources(space, sources, top_fraction=recipe["top_fraction"], provenance=recipe["info"],
+                               n_seeds=recipe.get("n_seeds", max(n_seeds, 1)))
+    note = (f"warm start from the {len(sources)} past studies of {info['learner']!r} it started with "
+            f"(prior strength n0 = {prior.strength:.1f})")
+    if older:
+        note += "; recorded by an older warmstart, rebuilt from the studies it lists"
+    if problems:
+        note += "; not as recorded: " + "; ".join(problems)
+    return prior, note
 
 
 def start_study(
@@ -209,7 +283,8 @@ def start_study(
 def resume_study(archive, study_id: int, seed: int = 0) -> Study:
     """A study of the archive with its search rebuilt and fed its recorded trials.
 
-    The search's generator is seeded with ``(seed, study_id, number of
+    A warm study's prior comes from what the study stored when it started
+    (:func:`recorded_prior`), not from today's archive. The search's generator is seeded with ``(seed, study_id, number of
     trials)``, so the same history gives the same proposals and every new
     result moves on.
 
@@ -229,9 +304,7 @@ def resume_study(archive, study_id: int, seed: int = 0) -> Study:
     prior, note, n_seeds = None, "cold start", DEFAULT_N_SEEDS
     if info["origin"] == "warm":
         n_seeds = int((info["prior"] or {}).get("n_seeds", DEFAULT_N_SEEDS))
-        fresh, _, _, note = warm_or_cold(archive, int(info["task_id"]), info["learner"], info["space"],
-                                         info["maximize"], 0, cold=False, n_seeds=n_seeds)
-        prior = fresh.prior
+        prior, note = recorded_prior(archive, info)
     search = DensitySearch(info["space"], prior=prior, seed=rng, maximize=info["maximize"], n_seeds=n_seeds)
     for config, score, status in zip(trials["config"], trials["score"], trials["status"]):
         search.record(config, None if status == "failed" else float(score), status)

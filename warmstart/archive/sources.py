@@ -3,9 +3,11 @@
 The archive side of a prior: :func:`load_sources` reads every usable study of
 a learner and aligns its configs onto the new space; :func:`weight_sources`
 gives each the similarity of its task (plain data in, plain data out);
-:func:`prior_sources` does both for one profile. Building the prior from the
-sources is :func:`warmstart.prior.prior_from_sources`, which knows nothing of
-the archive.
+:func:`prior_sources` does both for one profile. :func:`recorded_sources`
+reads back the sources a warm study recorded when it started
+(:meth:`warmstart.prior.Prior.recipe`), whatever was added since. Building the
+prior from the sources is :func:`warmstart.prior.prior_from_sources`, which
+knows nothing of the archive.
 """
 
 from __future__ import annotations
@@ -23,7 +25,7 @@ from warmstart.similarity import BANDWIDTH_SCALE
 from warmstart.space import Space
 
 __all__ = ["load_sources", "weight_sources", "prior_sources", "source_from_trials", "prior_info",
-           "MIN_SOURCE_TRIALS"]
+           "source_identities", "recorded_sources", "MIN_SOURCE_TRIALS"]
 
 #: Fewest successful trials a past study needs to be a source.
 MIN_SOURCE_TRIALS = 3
@@ -171,3 +173,82 @@ def prior_sources(
 def prior_info(learner: str) -> dict:
     """What a prior built from the archive records about how (its provenance ``info``)."""
     return {"learner": learner, "profile_version": PROFILE_VERSION, "bandwidth_scale": BANDWIDTH_SCALE}
+
+
+def source_identities(archive, study_ids: Iterable[int]) -> dict[int, dict]:
+    """What identifies each study beyond its id: its task's fingerprint, its
+    learner and its creation time (a merge into another archive keeps these
+    and renumbers the study)."""
+    wanted = {int(i) for i in study_ids}
+    studies = archive.studies()
+    studies = studies[studies["study_id"].isin(wanted)]
+    fingerprints = archive.tasks().set_index("task_id")["fingerprint"]
+    return {
+        int(r.study_id): {"task_fingerprint": str(fingerprints.get(r.task_id, "")), "learner": str(r.learner),
+                          "created_at": pd.Timestamp(r.created_at).isoformat()}
+        for r in studies.itertuples(index=False)
+    }
+
+
+def _find_study(studies: pd.DataFrame, fingerprints: pd.Series, entry: Mapping):
+    """The study a recorded source names: by id when its identity (if recorded)
+    matches, else by identity (after a merge renumbered it); None if gone."""
+    def same(row) -> bool:
+        return ("task_fingerprint" not in entry
+                or (fingerprints.get(row.task_id) == entry["task_fingerprint"]
+                    and row.learner == entry.get("learner", row.learner)
+                    and pd.Timestamp(row.created_at).isoformat() == entry.get("created_at")))
+
+    by_id = studies[studies["study_id"] == int(entry["study_id"])]
+    for row in by_id.itertuples(index=False):
+        if same(row):
+            return row
+    if "task_fingerprint" in entry:
+        for row in studies.itertuples(index=False):
+            if same(row):
+                return row
+    return None
+
+
+def recorded_sources(archive, space: Space, entries: list[Mapping]) -> tuple[list[Source], list[str]]:
+    """Read back the sources a warm study recorded (in the recorded order).
+
+    Each entry names a study (``study_id``, and when recorded its identity
+    from :func:`source_identities`), how many successful trials it gave
+    (``trial_count``: the first ones by trial number), its ``similarity`` and
+    ``distance``, and optionally the ``digest`` of what the prior took from
+    it. The sources come back with the recorded similarity and distance, so
+    the prior built from them equals the one the study started with as long
+    as those trials are unchanged.
+
+    Returns
+    -------
+    (sources, problems)
+        ``problems`` says, per source, what is no longer as recorded (study
+        gone, fewer trials, different trials); such a source is used as it
+        is now, or left out when gone.
+    """
+    studies = archive.studies()
+    fingerprints = archive.tasks().set_index("task_id")["fingerprint"]
+    out, problems = [], []
+    for entry in entries:
+        label = f"study {entry['study_id']} ({entry.get('task', '?')})"
+        row = _find_study(studies, fingerprints, entry)
+        if row is None:
+            problems.append(f"{label} is no longer in the archive")
+            continue
+        trials = archive.trials(int(row.study_id))
+        trials = trials[trials["status"] == "ok"].head(int(entry["trial_count"]))
+        if trials.empty:
+            problems.append(f"{label} has no successful trial left")
+            continue
+        source = source_from_trials(row, trials, archive.space(int(row.space_id)), space)
+        distance = entry.get("distance")
+        source = Source(**{**source.__dict__, "similarity": float(entry["similarity"]),
+                           "distance": float("nan") if distance is None else float(distance)})
+        if len(trials) < int(entry["trial_count"]):
+            problems.append(f"{label} has {len(trials)} of the {entry['trial_count']} successful trials it had")
+        elif entry.get("digest") not in (None, source.digest):
+            problems.append(f"{label} has other trials than it had")
+        out.append(source)
+    return out, problems
