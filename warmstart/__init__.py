@@ -48,19 +48,13 @@ from warmstart.evaluate.learners import (  # noqa: E402
     get_learner,
     metric_direction,
 )
-from warmstart.evaluate.objective import (  # noqa: E402
-    CallableObjective,
-    CommandObjective,
-    ObjectiveError,
-    TrialFailed,
-    TrialResult,
-    score_function,
-)
+from warmstart.evaluate.objective import CallableObjective, CommandObjective  # noqa: E402
+from warmstart.evaluate.result import ObjectiveError, TrialResult  # noqa: E402
 
 __all__ += [
     "LEARNERS", "METRICS", "CVObjective", "Learner", "build_estimator", "cv_objective", "default_metric",
     "default_space", "get_learner", "metric_direction",
-    "CallableObjective", "CommandObjective", "ObjectiveError", "TrialFailed", "TrialResult", "score_function",
+    "CallableObjective", "CommandObjective", "ObjectiveError", "TrialResult",
 ]
 
 from warmstart.starter import StarterError, StarterLoad, load_starter, read_starter  # noqa: E402

@@ -18,14 +18,13 @@ from __future__ import annotations
 import concurrent.futures as cf
 from collections import Counter
 from dataclasses import dataclass
-from datetime import datetime, timezone
 from typing import Any, Callable, Mapping
 
 import duckdb
 import numpy as np
 
 from warmstart.archive.sources import recorded_sources, source_identities
-from warmstart.evaluate.objective import local_pool, score_function, stop_pool
+from warmstart.evaluate.objective import local_pool, stop_pool
 from warmstart.prior import Prior, PriorError, prior_from_sources
 from warmstart.search.density import DEFAULT_N_SEEDS, DensitySearch
 from warmstart.search.strategy import Trial, run_search
@@ -63,7 +62,8 @@ class Study:
         at once); returns its trial number in the study."""
         return self.archive.record_trial(
             self.study_id, trial.config, trial.score, status=trial.status, cost_s=trial.cost_s,
-            started_at=_stamp(trial.started_at), finished_at=_stamp(trial.finished_at), error=_error_of(trial),
+            started_at=trial.started_at, finished_at=trial.finished_at, error=trial.error,
+            fold_scores=trial.fold_scores or None,
         )
 
 
@@ -92,19 +92,8 @@ class StudyRun:
     @property
     def failures(self) -> dict[str, int]:
         """Error text of the failed trials -> how many, most frequent first."""
-        errors = Counter(_error_of(t) or "no error text" for t in self.trials if t.status == "failed")
+        errors = Counter(t.error or "no error text" for t in self.trials if t.status == "failed")
         return dict(errors.most_common())
-
-
-def _stamp(unix: float | None) -> datetime | None:
-    return None if unix is None else datetime.fromtimestamp(unix, timezone.utc)
-
-
-def _error_of(trial: Trial) -> str | None:
-    error = trial.error
-    if error and error.startswith("TrialFailed: "):
-        error = error[len("TrialFailed: "):]
-    return error
 
 
 def warm_or_cold(
@@ -351,12 +340,10 @@ def run_study(
         if callback is not None:
             callback(trial)
 
-    pool = None
+    pool, evaluate = None, objective
     if budget and n_workers > 1 and executor is None:
-        pool, proxy = local_pool(n_workers, objective)
-        executor, evaluate = pool, score_function(proxy)
-    else:
-        evaluate = score_function(objective)
+        pool, evaluate = local_pool(n_workers, objective)
+        executor = pool
     interrupted = False
     try:
         if budget:

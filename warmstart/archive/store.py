@@ -32,8 +32,8 @@ from warmstart.space import Space
 
 __all__ = ["Archive", "SCHEMA_VERSION", "DEFAULT_ARCHIVE", "default_archive_path", "fingerprint"]
 
-SCHEMA_VERSION = 1
-MIGRATIONS = {1: "schema_v1.sql"}  # version -> DDL that brings version-1 to version
+SCHEMA_VERSION = 2
+MIGRATIONS = {1: "schema_v1.sql", 2: "schema_v2.sql"}  # version -> DDL that brings version-1 to version
 DEFAULT_ARCHIVE = "archive/warmstart.duckdb"
 _TABLES = ("schema_version", "archive_info", "tasks", "profiles", "spaces", "studies", "trials")
 
@@ -506,13 +506,17 @@ class Archive:
         started_at: datetime | None = None,
         finished_at: datetime | None = None,
         error: str | None = None,
+        fold_scores: Any = None,
     ) -> int:
         """Record one evaluated config (committed at once); returns its trial number.
 
         A score that is None, NaN or infinite records a failed trial.
+        ``fold_scores`` (finite numbers) are the per-fold scores of a
+        cross-validated objective.
         """
         space, fp, learner = self._study_keys(study)
         config = space.normalize(config)
+        folds = _fold_scores(fold_scores, f"trial of study {study}")
         row: dict[str, Any] = {name: [config.get(name)] for name in space.names}
         row.update(
             score=[np.nan if score is None else score], status=[status], cost_s=[cost_s],
@@ -520,6 +524,8 @@ class Archive:
         )
         prepared = prepare_trials(space, pd.DataFrame(row), where=f"trial of study {study}",
                                   metric=self._study_metric(study))
+        if folds is not None:
+            prepared = prepared.assign(fold_scores=[folds])
         with self.transaction():
             return self._insert_trials(int(study), space, fp, learner, prepared)
 
@@ -546,12 +552,14 @@ class Archive:
         numbered = prepared.assign(_number=np.arange(start + 1, start + len(prepared) + 1, dtype=np.int64))
         view = f"_incoming_{uuid.uuid4().hex}"
         con.register(view, numbered)
+        folds = "fold_scores" if "fold_scores" in prepared.columns else "NULL"  # one of two fixed names
         try:
             con.execute(
                 f"""
-                INSERT INTO trials
+                INSERT INTO trials (study_id, number, config, score, status, cost_s, started_at, finished_at,
+                                    error, content_key, fold_scores)
                 SELECT ?, _number, cfg, score, status::VARCHAR, cost_s,
-                       started_at, finished_at, error, sha256(? || '|' || ? || '|' || cfg)
+                       started_at, finished_at, error, sha256(? || '|' || ? || '|' || cfg), {folds}
                 FROM (SELECT {config_sql} AS cfg, * FROM {view})
                 """,
                 [study, fp, learner] + keys,
@@ -561,9 +569,10 @@ class Archive:
         return start + len(prepared)
 
     def trials(self, study: int) -> pd.DataFrame:
-        """Trials of a study: number, config (dict), score, status, cost_s, times, error, content_key."""
+        """Trials of a study: number, config (dict), score, status, cost_s, times, error,
+        content_key and fold_scores (list of float, or None)."""
         frame = self._df(
-            "SELECT number, config, score, status, cost_s, started_at, finished_at, error, content_key "
+            "SELECT number, config, score, status, cost_s, started_at, finished_at, error, content_key, fold_scores "
             "FROM trials WHERE study_id = ? ORDER BY number",
             [int(study)],
         )
@@ -652,6 +661,19 @@ class Archive:
 
         sources = prior_sources(self, prof, learner, space, exclude_tasks=exclude_tasks)
         return prior_from_sources(space, sources, provenance=prior_info(learner), **options)
+
+
+def _fold_scores(values: Any, where: str) -> list[float] | None:
+    """Per-fold scores as a list of finite floats (None or empty: none)."""
+    if values is None:
+        return None
+    try:
+        folds = [float(v) for v in values]
+    except (TypeError, ValueError):
+        raise ArchiveError(f"{where}: fold_scores must be a list of numbers, got {values!r}") from None
+    if not all(np.isfinite(folds)):
+        raise ArchiveError(f"{where}: fold_scores must be finite numbers, got {folds}")
+    return folds or None
 
 
 def _insert_frame(con: duckdb.DuckDBPyConnection, table: str, frame: pd.DataFrame, columns: list[str]) -> None:

@@ -661,6 +661,9 @@ _ALLOWED = {
 }
 
 
+# columns an export may lack (written before the schema had them): they arrive empty
+_OPTIONAL = {("trials", "fold_scores")}
+
 _ROW_NAME = {"tasks": "task", "profiles": "profile value", "spaces": "space", "studies": "study", "trials": "trial"}
 
 
@@ -731,7 +734,7 @@ def import_export(archive: Archive, directory: str | Path, progress: Callable[[s
                     n = int(rel.aggregate("count(*)").fetchall()[0][0])
                 except duckdb.Error as exc:
                     raise ArchiveError(f"{where}: not a readable Parquet file ({_first_line(exc)})") from None
-                lacking = [c for c in need if c not in rel.columns]
+                lacking = [c for c in need if c not in rel.columns and (table, c) not in _OPTIONAL]
                 if lacking:
                     raise ArchiveError(f"{where}: column(s) {lacking} missing; expected {need}")
             else:
