@@ -412,18 +412,33 @@ def defaults(
     """
     n = _positive_int("n", n)
     _check_learner(archive, learner)
-    con = archive.con
     notes: list[str] = []
-    task_weights = pd.DataFrame({"task_id": pd.Series(dtype="int64"), "w": pd.Series(dtype="float64")})
+    task_weights = None
     if near is not None:
         found = similar_tasks(archive, near, learner=learner, weights=weights, version=version)
         notes = found.attrs["notes"]
         task_weights = pd.DataFrame({"task_id": found["task_id"].astype("int64"), "w": found["similarity"].astype(float)})
-    view = f"_task_weights_{uuid.uuid4().hex}"
+    frame = _ranked_configs(archive.con, learner, kind, task_weights, n)
+    if frame.empty:
+        notes = notes + [f"learner {learner!r} has no successful trials with a score"]
+    frame["config"] = [json.loads(c) for c in frame["config"]]
+    frame["n_tasks"] = frame["n_tasks"].astype("int64")
+    frame["trial_count"] = frame["trial_count"].astype("int64")
+    out = frame[DEFAULT_COLUMNS].reset_index(drop=True)
+    out.attrs["notes"] = notes
+    return out
+
+
+def _ranked_configs(con, learner: str, kind: str | None, task_weights: pd.DataFrame | None, n: int) -> pd.DataFrame:
+    """The SQL behind :func:`defaults`: within-study quantiles, averaged per task,
+    then over tasks (weighted by ``task_weights``: task_id, w; equal when None)."""
+    weighted = task_weights is not None
+    if task_weights is None:
+        task_weights = pd.DataFrame({"task_id": pd.Series(dtype="int64"), "w": pd.Series(dtype="float64")})
+    view = f"_task_weights_{uuid.uuid4().hex}"  # a fixed prefix and hex digits: a safe identifier
     con.register(view, task_weights)
-    weighted = near is not None
     try:
-        frame = con.execute(
+        return con.execute(
             f"""
             WITH ok AS (
                 SELECT s.task_id, r.study_id, r.config,
@@ -462,11 +477,3 @@ def defaults(
         ).df()
     finally:
         con.unregister(view)
-    if frame.empty:
-        notes = notes + [f"learner {learner!r} has no successful trials with a score"]
-    frame["config"] = [json.loads(c) for c in frame["config"]]
-    frame["n_tasks"] = frame["n_tasks"].astype("int64")
-    frame["trial_count"] = frame["trial_count"].astype("int64")
-    out = frame[DEFAULT_COLUMNS].reset_index(drop=True)
-    out.attrs["notes"] = notes
-    return out
