@@ -8,9 +8,9 @@ cold otherwise) and stores what a warm start was built from;
 (a warm one from its stored sources, not from today's archive) and feeds it
 the recorded trials, so the same study with the same results gives the same
 proposals whatever was added to the archive since; :func:`run_study`
-evaluates an objective
-with the study's search and records each trial as it finishes, so an
-interrupted run keeps what it finished.
+evaluates an objective with the study's search and records each trial as it
+finishes (its whole :class:`~warmstart.evaluate.result.TrialResult`: score,
+cost, error text, fold scores), so an interrupted run keeps what it finished.
 """
 
 from __future__ import annotations

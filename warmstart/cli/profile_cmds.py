@@ -89,7 +89,11 @@ def profile_command(data, target, kind, keep_columns, as_json):
 @json_option
 @click.pass_context
 def neighbors_command(ctx, data, target, learner, k, kind, keep_columns, as_json):
-    """List the past tasks most similar to DATA that have studies of a learner."""
+    """List the past tasks most similar to DATA that have studies of a learner.
+
+    The similarity column is what a prior for DATA (`warmstart prior`, a warm
+    `tune`) weights each task's studies by, before normalising over them.
+    """
     archive = get_archive(ctx, write=False)
     prof, _ = _profile_file(data, target, kind, keep_columns)
     frame = archive.neighbors(prof, learner=learner, k=k)
