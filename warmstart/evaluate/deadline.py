@@ -29,6 +29,8 @@ from dataclasses import dataclass
 from datetime import datetime, timezone
 from typing import Any, Callable
 
+from warmstart.evaluate.result import error_text
+
 __all__ = ["RunOutcome", "StoppableRunner", "child_context"]
 
 #: seconds a new child may take to start (import, receive the job) before the run fails
@@ -103,11 +105,6 @@ class RunOutcome:
     started_at: datetime | None = None
 
 
-def _error_text(exc: BaseException) -> str:
-    text = str(exc).strip()
-    return f"{type(exc).__name__}: {text}" if text else type(exc).__name__
-
-
 def _exit_when_orphaned(alive: mpc.Connection) -> None:
     """Child thread: end the process when the caller's end of ``alive`` closes."""
     try:
@@ -134,7 +131,7 @@ def _serve(job: Callable, conn: mpc.Connection, alive: mpc.Connection) -> None:
         try:
             value = job(payload, report)
         except Exception as exc:  # the caller records it as a failed run
-            conn.send(("error", _error_text(exc)))
+            conn.send(("error", error_text(exc)))
         else:
             conn.send(("done", value))
 
@@ -255,7 +252,7 @@ class StoppableRunner:
         try:
             child = _Child(self.context, self.job)
         except Exception as exc:  # e.g. a job that cannot be pickled
-            return f"the trial process could not start: {_error_text(exc)}"
+            return f"the trial process could not start: {error_text(exc)}"
         try:
             why = child.wait_ready(START_TIMEOUT_S)
         except BaseException:  # Ctrl-C while it starts
