@@ -29,7 +29,6 @@ import pandas as pd
 
 from warmstart.archive import Archive
 from warmstart.evaluate.learners import cv_objective, default_space
-from warmstart.evaluate.objective import score_function
 from warmstart.evaluate.workers import map_jobs
 from warmstart.gain.bits import interval_text, queries_text
 from warmstart.gain.live import LiveResult, live_gain
@@ -146,7 +145,7 @@ def _history_study(job: _HistoryJob) -> pd.DataFrame:
     """Evaluate the design on one store (module level, so worker processes can run it):
     one row per config, with its score (NaN when failed) and cost."""
     objective = cv_objective(job.frame, "lapsed", job.learner, metric=METRIC, cv=3, seed=job.seed)
-    result = run_search(FixedListSearch(job.space, job.configs), score_function(objective), len(job.configs))
+    result = run_search(FixedListSearch(job.space, job.configs), objective, len(job.configs))
     return pd.DataFrame([{**t.config, "score": s, "cost_s": t.cost_s} for t, s in zip(result.trials, result.scores)])
 
 
