@@ -24,20 +24,6 @@ from warmstart.space import Space
 
 
 
-# -- workers -------------------------------------------------------------------
-def _cluster_executor(address: str):
-    try:
-        from dask.distributed import Client
-    except ImportError:
-        fail("--cluster needs dask.distributed, which is not installed; "
-             "install it with: pip install 'warmstart[cluster]'")
-    try:
-        client = Client(address)
-    except Exception as exc:  # connection problems come in many types
-        fail(f"--cluster {address}: cannot connect to the Dask scheduler ({exc})")
-    return client, client.get_executor(pure=False), sum(client.nthreads().values())
-
-
 def _start_search(archive, task_id: int, learner: str, space: Space, maximize: bool, seed: int, cold: bool,
                   n_seeds: int = DEFAULT_SEEDS):
     """The search a study starts with, its origin, the prior's provenance and a
@@ -125,7 +111,9 @@ def _objective_and_space(data, target, learner, kind, space_path, metric, minimi
 @click.option("--metric", help=f"Built-in metric ({', '.join(METRICS)}); default accuracy or r2.")
 @click.option("--seed", default=0, show_default=True, type=int, help="Seed of the search and the CV folds.")
 @click.option("--workers", type=click.IntRange(min=1), help="Trials evaluated at once (local processes).")
-@click.option("--cluster", metavar="ADDRESS", help="Evaluate on a Dask cluster (needs warmstart[cluster]).")
+@click.option("--cluster", metavar="ADDRESS",
+              help="Evaluate on the workers of the Dask scheduler at ADDRESS (needs warmstart[cluster]); "
+                   "--workers defaults to the cluster's threads.")
 @click.option("--cold", is_flag=True, help="Force a cold start (no prior).")
 @click.option("--seeds", "n_seeds", default=DEFAULT_SEEDS, show_default=True, type=click.IntRange(0, DEFAULT_SEEDS),
               help="Warm start: past configs tried before the search's own model takes over (fewer is bolder: "
@@ -167,10 +155,14 @@ def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, 
 
         return tune_through_service(ctx, service, frame, data, target, kind, keep_columns, task_name, learner,
                                     space, metric, maximize, cold, n_seeds, budget, objective, n_workers, as_json)
-    client = executor = None
-    if cluster and budget:
-        client, executor, cores = _cluster_executor(cluster)
-        n_workers = workers or max(1, cores)
+    executor = None
+    if cluster and budget:  # trials run on the cluster's workers (evaluate/cluster.py)
+        from warmstart.evaluate.cluster import ClusterPool
+
+        executor = ClusterPool(cluster)
+        # at the end, or on any error: a trial already running on a worker is not stopped
+        ctx.call_on_close(lambda: executor.shutdown(wait=False, cancel_futures=True))
+        n_workers = workers or executor.cores
     archive = get_archive(ctx, write=True)
     # the task (its fingerprint) is the table as read; its profile sees the features the learner sees
     prof = profile(frame, target=target, kind=kind, keep_columns=keep_columns) if keep_columns else None
@@ -186,6 +178,8 @@ def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, 
         executor, evaluate = pool, score_function(proxy)
     else:
         evaluate = score_function(objective)
+        if executor is not None:  # sent to each worker once, which keeps it (and a trial process) between trials
+            executor.share(evaluate)
     counts = {"ok": 0, "failed": 0}
     errors: Counter = Counter()
     interrupted = False
@@ -219,8 +213,6 @@ def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, 
         finally:
             if pool is not None:
                 pool.shutdown(wait=True)
-            if client is not None:
-                client.close()
             if hasattr(objective, "close"):  # the trial process of a time limit (learners.CVObjective)
                 objective.close()
     if not interrupted:

@@ -26,6 +26,7 @@ the imports of the job, paid once per child, not per run. POSIX only.
 
 from __future__ import annotations
 
+import importlib
 import json
 import multiprocessing
 import multiprocessing.connection as mpc
@@ -142,6 +143,11 @@ def serve_inherited(conn_fd: int, alive_fd: int) -> None:
         job = conn.recv()
     except (EOFError, OSError):
         return
+    for name in _PRELOAD + ["threadpoolctl"]:  # as the fork server does: imports are not paid inside a limit
+        try:
+            importlib.import_module(name)
+        except ImportError:
+            pass
     _serve(job, conn, alive)
 
 
