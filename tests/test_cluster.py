@@ -115,15 +115,15 @@ def test_tune_on_a_cluster_records_trials_scored_as_cross_val_score(cluster, iri
     address, client = cluster
     extra = [] if limit is None else ["--time-limit", limit]
     with get_task_stream(client) as stream:
-        res = _tune(tmp_path, iris_csv, "--target", "target", "--learner", "knn", "--budget", 4, "--cold",
+        res = _tune(tmp_path, iris_csv, "--target", "target", "--learner", "knn", "--budget", 2, "--cold",
                     "--seed", 3, "--cluster", address, *extra)
     assert res.exit_code == 0, res.output
     summary = json.loads(res.stdout)
-    assert (summary["trial_count"], summary["n_failed"]) == (4, 0), summary["failures"]
+    assert (summary["trial_count"], summary["n_failed"]) == (2, 0), summary["failures"]
     workers = _evaluations(stream.data)
-    assert len(workers) == 4 and set(workers) <= set(client.nthreads())
+    assert len(workers) == 2 and set(workers) <= set(client.nthreads())
     trials = _trials(tmp_path, summary["study_id"])
-    assert len(trials) == 4 and (trials["status"] == "ok").all()
+    assert len(trials) == 2 and (trials["status"] == "ok").all()
     # reference: scikit-learn's cross_val_score on the folds the objective uses (same seed)
     frame = load_iris(as_frame=True).frame
     folds = cv_objective(frame, "target", "knn", seed=3).folds

@@ -122,14 +122,14 @@ def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, cluster, onl
     from warmstart.gain.replay import leave_one_task_out
 
     budgets = _budgets(budget_text)
+    if cluster and (data or target):
+        fail("--cluster spreads a replay's held-out tasks; a live comparison (--data) runs here: use --workers N")
     archive = get_archive(ctx, write=False)
     if data or target:
         from click.core import ParameterSource
 
         if ctx.get_parameter_source("objective") is not ParameterSource.DEFAULT:
             fail("--replay picks how a replay scores proposals; with --data the searches train on the data itself")
-        if cluster:
-            fail("--cluster spreads a replay's held-out tasks; a live comparison (--data) runs here: use --workers N")
         results = _live(archive, data, target, learners, only_tasks, metric, cv, budgets, repeats, gamma, seed,
                         workers, as_json, keep_columns)
         _show(results, gamma, report_path, as_json)
