@@ -64,13 +64,12 @@ def problem(name: str):
             from sklearn import datasets
 
             from warmstart.evaluate.learners import cv_objective
-            from warmstart.evaluate.objective import score_function
 
             loader, learner, metric = REAL[name]
             data = getattr(datasets, loader)(as_frame=True)
             frame = pd.concat([data.data, data.target.rename("target")], axis=1)
             objective = cv_objective(frame, "target", learner, metric=metric, cv=3, seed=0)
-            _PROBLEMS[name] = (objective.space, score_function(objective), True, lambda best: 1.0 - best)
+            _PROBLEMS[name] = (objective.space, objective, True, lambda best: 1.0 - best)
     return _PROBLEMS[name]
 
 

@@ -45,7 +45,8 @@ def _version_1_archive(path, space, frame) -> None:
         configs = space.sample(5, rng=0)
         trials = pd.DataFrame(configs, columns=space.names).assign(score=np.linspace(0.1, 0.5, 5))
         scratch.add_trials(study, trials)
-        rows = {t: scratch.con.execute(f"SELECT * FROM {t}").fetchall()
+        # trials.fold_scores came with version 3: a version-1 file has none
+        rows = {t: scratch.con.execute(f"SELECT * {'EXCLUDE (fold_scores) ' if t == 'trials' else ''}FROM {t}").fetchall()
                 for t in ("tasks", "profiles", "spaces", "studies", "trials")}
     con = duckdb.connect(str(path))
     for table, values in rows.items():
@@ -74,21 +75,24 @@ def test_version_1_archive_is_upgraded_when_opened_for_writing(archive_path, spa
     _version_1_archive(archive_path, space, small_frame)
     before = table_dump(archive_path)
     with Archive(archive_path) as archive:
-        assert archive.schema_version == SCHEMA_VERSION == 2
+        assert archive.schema_version == SCHEMA_VERSION == 3
         assert archive.archive_id == "v1archive"  # not a new archive: the id stays
     after = table_dump(archive_path)
     for table, rows in before.items():
-        if table != "schema_version":
+        if table == "trials":  # version 3 appends fold_scores, empty for trials written before it
+            assert all(r.endswith(", None)") for r in after[table])
+            assert [r[: -len(", None)")] + ")" for r in after[table]] == rows
+        elif table != "schema_version":
             assert after[table] == rows, table
     assert V2_TABLES <= _tables(archive_path)
     con = duckdb.connect(str(archive_path), read_only=True)
-    assert [r[0] for r in con.execute("SELECT version FROM schema_version ORDER BY version").fetchall()] == [1, 2]
+    assert [r[0] for r in con.execute("SELECT version FROM schema_version ORDER BY version").fetchall()] == [1, 2, 3]
     con.close()
     with Archive(archive_path) as archive:  # a second open adds nothing
         archive.add_trials(1, pd.DataFrame(space.sample(1, rng=9), columns=space.names).assign(score=0.9))
         assert archive.studies()["trial_count"].tolist() == [6]
     con = duckdb.connect(str(archive_path), read_only=True)
-    assert con.execute("SELECT count(*) FROM schema_version").fetchall() == [(2,)]
+    assert con.execute("SELECT count(*) FROM schema_version").fetchall() == [(3,)]
     con.close()
 
 

@@ -56,7 +56,7 @@ _WHERE = {
     "GPSearch": "warmstart.search.baselines",
     "NelderMeadSearch": "warmstart.search.baselines",
     # objectives
-    "TrialResult": "warmstart.evaluate.objective",
+    "TrialResult": "warmstart.evaluate.result",
     "CallableObjective": "warmstart.evaluate.objective",
     "CommandObjective": "warmstart.evaluate.objective",
     "cv_objective": "warmstart.evaluate.learners",

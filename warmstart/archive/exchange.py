@@ -174,6 +174,9 @@ def _columns(con: duckdb.DuckDBPyConnection, table: str) -> list[str]:
 
 
 # values the schema's CHECK constraints allow (schema_v1.sql)
+# columns an export may lack (written before the schema had them): they arrive empty
+_OPTIONAL = {("trials", "fold_scores")}
+
 _ALLOWED = {
     ("tasks", "kind"): ("classification", "regression"),
     ("studies", "direction"): ("maximize", "minimize"),
@@ -252,7 +255,7 @@ def import_export(archive: Archive, directory: str | Path, progress: Callable[[s
                     n = int(rel.aggregate("count(*)").fetchall()[0][0])
                 except duckdb.Error as exc:
                     raise ArchiveError(f"{where}: not a readable Parquet file ({first_line(exc)})") from None
-                lacking = [c for c in need if c not in rel.columns]
+                lacking = [c for c in need if c not in rel.columns and (table, c) not in _OPTIONAL]
                 if lacking:
                     raise ArchiveError(f"{where}: column(s) {lacking} missing; expected {need}")
             else:

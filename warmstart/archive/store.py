@@ -41,12 +41,13 @@ __all__ = [
     "fingerprint", "utc_now",
 ]
 
-SCHEMA_VERSION = 2
-MIGRATIONS = {1: "schema_v1.sql", 2: "schema_v2.sql"}  # version -> DDL that brings version-1 to version
+SCHEMA_VERSION = 3
+MIGRATIONS = {1: "schema_v1.sql", 2: "schema_v2.sql", 3: "schema_v3.sql"}  # version -> DDL that brings version-1 to version
 #: oldest schema a read-only open accepts: version 2 only adds the service's tables (leases,
-#: request ids, gain reports), which no reader outside the service touches
+#: request ids, gain reports), which no reader outside the service touches; version 3 adds
+#: trials.fold_scores, which a reader of an older file sees as missing (:meth:`Archive.trials`)
 READABLE_FROM = 1
-#: every table of the archive (schema_v1.sql, schema_v2.sql), the allow-list of table names used in statements
+#: every table of the archive (schema_v1.sql, schema_v2.sql, schema_v3.sql), the allow-list of table names used in statements
 ARCHIVE_TABLES = ("schema_version", "archive_info", "tasks", "profiles", "spaces", "studies", "trials",
                   "leases", "requests", "gain_reports")
 #: the tables that hold history (what a merge, an export and an import carry)
@@ -597,13 +598,17 @@ class Archive:
         started_at: datetime | None = None,
         finished_at: datetime | None = None,
         error: str | None = None,
+        fold_scores: Any = None,
     ) -> int:
         """Record one evaluated config (committed at once); returns its trial number.
 
         A score that is None, NaN or infinite records a failed trial.
+        ``fold_scores`` (finite numbers) are the per-fold scores of a
+        cross-validated objective.
         """
         space, fp, learner = self._study_keys(study)
         config = space.normalize(config)
+        folds = _fold_scores(fold_scores, f"trial of study {study}")
         row: dict[str, Any] = {name: [config.get(name)] for name in space.names}
         row.update(
             score=[np.nan if score is None else score], status=[status], cost_s=[cost_s],
@@ -611,6 +616,8 @@ class Archive:
         )
         prepared = prepare_trials(space, pd.DataFrame(row), where=f"trial of study {study}",
                                   metric=self._study_metric(study))
+        if folds is not None:
+            prepared = prepared.assign(fold_scores=[folds])
         with self.transaction():
             return self._insert_trials(int(study), space, fp, learner, prepared)
 
@@ -637,12 +644,14 @@ class Archive:
         numbered = prepared.assign(_number=np.arange(start + 1, start + len(prepared) + 1, dtype=np.int64))
         view = f"_incoming_{uuid.uuid4().hex}"
         con.register(view, numbered)
+        folds = "fold_scores" if "fold_scores" in prepared.columns else "NULL"  # one of two fixed names
         try:
             con.execute(
                 f"""
-                INSERT INTO trials
+                INSERT INTO trials (study_id, number, config, score, status, cost_s, started_at, finished_at,
+                                    error, content_key, fold_scores)
                 SELECT ?, _number, cfg, score, status::VARCHAR, cost_s,
-                       started_at, finished_at, error, sha256(? || '|' || ? || '|' || cfg)
+                       started_at, finished_at, error, sha256(? || '|' || ? || '|' || cfg), {folds}
                 FROM (SELECT {config_sql} AS cfg, * FROM {view})
                 """,
                 [study, fp, learner] + keys,
@@ -651,11 +660,21 @@ class Archive:
             con.unregister(view)
         return start + len(prepared)
 
+    def _has_fold_scores(self) -> bool:
+        """Whether the trials table has ``fold_scores`` (schema 3; an older file opened read-only lacks it)."""
+        rows = self._q(
+            "SELECT count(*) FROM duckdb_columns() WHERE database_name = current_database() "
+            "AND table_name = 'trials' AND column_name = 'fold_scores'"
+        )
+        return bool(rows[0][0])
+
     def trials(self, study: int) -> pd.DataFrame:
-        """Trials of a study: number, config (dict), score, status, cost_s, times, error, content_key."""
+        """Trials of a study: number, config (dict), score, status, cost_s, times, error,
+        content_key and fold_scores (list of float, or None)."""
         frame = self._df(
-            "SELECT number, config, score, status, cost_s, started_at, finished_at, error, content_key "
-            "FROM trials WHERE study_id = ? ORDER BY number",
+            "SELECT number, config, score, status, cost_s, started_at, finished_at, error, content_key, "
+            + ("fold_scores " if self._has_fold_scores() else "NULL AS fold_scores ")
+            + "FROM trials WHERE study_id = ? ORDER BY number",
             [int(study)],
         )
         frame["config"] = [json.loads(c) for c in frame["config"]]
@@ -732,12 +751,28 @@ class Archive:
 
         return defaults(self, learner, near=near, n=n, kind=kind)
 
-    def build_prior(self, prof: Mapping[str, float], learner: str, space: Space, **options: Any):
+    def build_prior(self, prof: Mapping[str, float], learner: str, space: Space, exclude_tasks=(), **options: Any):
         """Build a :class:`~warmstart.prior.Prior` for ``learner`` over ``space``
-        from the studies of tasks similar to ``prof``."""
-        from warmstart.archive.sources import build_prior
+        from the studies of tasks similar to ``prof`` (``exclude_tasks``: task
+        ids left out; ``options`` go to :func:`~warmstart.prior.prior_from_sources`)."""
+        from warmstart.archive.sources import prior_info, prior_sources
+        from warmstart.prior import prior_from_sources
 
-        return build_prior(self, prof, learner=learner, space=space, **options)
+        sources = prior_sources(self, prof, learner, space, exclude_tasks=exclude_tasks)
+        return prior_from_sources(space, sources, provenance=prior_info(learner), **options)
+
+
+def _fold_scores(values: Any, where: str) -> list[float] | None:
+    """Per-fold scores as a list of finite floats (None or empty: none)."""
+    if values is None:
+        return None
+    try:
+        folds = [float(v) for v in values]
+    except (TypeError, ValueError):
+        raise ArchiveError(f"{where}: fold_scores must be a list of numbers, got {values!r}") from None
+    if not all(np.isfinite(folds)):
+        raise ArchiveError(f"{where}: fold_scores must be finite numbers, got {folds}")
+    return folds or None
 
 
 def _insert_frame(con: duckdb.DuckDBPyConnection, table: str, frame: pd.DataFrame, columns: list[str]) -> None:

@@ -93,7 +93,11 @@ def profile_command(data, target, kind, keep_columns, as_json):
 @json_option
 @click.pass_context
 def neighbors_command(ctx, data, target, learner, k, kind, keep_columns, as_json):
-    """List the past tasks most similar to DATA that have studies of a learner."""
+    """List the past tasks most similar to DATA that have studies of a learner.
+
+    The similarity column is what a prior for DATA (`warmstart prior`, a warm
+    `tune`) weights each task's studies by, before normalising over them.
+    """
     from warmstart.cli.remote import server_client
 
     archive = server_client(ctx) or get_archive(ctx, write=False)

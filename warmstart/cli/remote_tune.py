@@ -47,7 +47,7 @@ class LeaseStrategy(SearchStrategy):
 def tune_through_service(ctx, client, frame, data, target, kind, keep_columns, task_name, learner, space, metric,
                          maximize, cold, n_seeds, budget, objective, n_workers, as_json) -> None:
     from warmstart.client import task_description
-    from warmstart.evaluate.objective import local_pool, score_function, stop_pool
+    from warmstart.evaluate.objective import local_pool, stop_pool
 
     task = task_description(frame, target, task_name or Path(data).stem, kind=kind, keep_columns=keep_columns,
                             source=str(data))
@@ -61,9 +61,9 @@ def tune_through_service(ctx, client, frame, data, target, kind, keep_columns, t
     executor = None
     if budget and n_workers > 1:
         pool, proxy = local_pool(n_workers, objective)
-        executor, evaluate = pool, score_function(proxy)
+        executor, evaluate = pool, proxy
     else:
-        evaluate = score_function(objective)
+        evaluate = objective
     counts = {"ok": 0, "failed": 0}
     last = {}
     interrupted = False
@@ -71,8 +71,6 @@ def tune_through_service(ctx, client, frame, data, target, kind, keep_columns, t
                            item_show_func=lambda s: s) as bar:
         def keep(trial) -> None:
             error = trial.error
-            if error and error.startswith("TrialFailed: "):
-                error = error[len("TrialFailed: "):]
             answer = client.record(study, trial=strategy.trial_id(trial.config), score=trial.score,
                                    failed=trial.status == "failed", error=error if trial.status == "failed" else None,
                                    cost_s=trial.cost_s)

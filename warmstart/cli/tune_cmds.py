@@ -1,68 +1,26 @@
 """Commands that run searches: ``tune`` (evaluate here), ``propose`` and
-``record`` (evaluate elsewhere)."""
+``record`` (evaluate elsewhere). Starting, resuming and running a study is
+:mod:`warmstart.study`; these commands parse, call and print."""
 
 from __future__ import annotations
 
 import json
 import math
 import sys
-from collections import Counter
-from datetime import datetime, timezone
 from pathlib import Path
 
 import click
-import duckdb
-import numpy as np
 
 from warmstart.cli.common import fail, get_archive, json_option, keep_column_option, print_json, read_data, strict_option
 from warmstart.cli.main import main
 from warmstart.evaluate.learners import LEARNERS, TASK_KINDS, cv_objective, default_space, metric_direction, METRICS
-from warmstart.evaluate.objective import CommandObjective, local_pool, score_function, stop_pool
+from warmstart.evaluate.objective import CommandObjective
 from warmstart.profile import detect_kind, profile
-from warmstart.search.density import DEFAULT_N_SEEDS as DEFAULT_SEEDS, DensitySearch, run_search
+from warmstart.search.density import DEFAULT_N_SEEDS as DEFAULT_SEEDS
 from warmstart.space import Space
+from warmstart.study import resume_study, run_study, start_study, summary
 
 
-
-def _start_search(archive, task_id: int, learner: str, space: Space, maximize: bool, seed: int, cold: bool,
-                  n_seeds: int = DEFAULT_SEEDS):
-    """The search a study starts with, its origin, the prior's provenance and a
-    note for the user.
-
-    Warm by default: a prior from the archive's studies of the same learner on
-    other tasks. Cold when ``cold`` is set or when there is nothing to learn from.
-    ``n_seeds`` past configs are tried first; the provenance records it, so
-    ``propose`` rebuilds the same search.
-    """
-    from warmstart.prior import PriorError
-
-    if cold:
-        return DensitySearch(space, prior=None, seed=seed, maximize=maximize), "cold", None, "cold start (--cold)"
-    profiles = archive.profiles()
-    if task_id not in profiles.index:
-        return DensitySearch(space, prior=None, seed=seed, maximize=maximize), "cold", None, \
-            "cold start: this task has no profile to compare"
-    prof = archive.profile_of(task_id)
-    try:
-        # the prior lists exactly n_seeds configs: a search rebuilt by `propose` from recorded trials
-        # skips the listed configs already tried, so the list's length is what bounds the seed phase
-        prior = archive.build_prior(prof, learner=learner, space=space, exclude_tasks=[task_id],
-                                    n_seeds=max(n_seeds, 1))
-    except PriorError as exc:
-        return DensitySearch(space, prior=None, seed=seed, maximize=maximize), "cold", None, \
-            f"cold start: {exc}"
-    heaviest = prior.provenance["neighbors"][:3]
-    used = ", ".join(f"{n['task']!r} (study {n['study_id']}, weight {n['weight']:.2f})" for n in heaviest)
-    note = (f"warm start from {len(prior.sources)} past studies of {learner!r}; heaviest: {used}; "
-            f"prior strength n0 = {prior.strength:.1f}")
-    if n_seeds != DEFAULT_SEEDS:
-        note += f"; {n_seeds} past config(s) first"
-    search = DensitySearch(space, prior=prior, seed=seed, maximize=maximize, n_seeds=n_seeds)
-    return search, "warm", {**prior.provenance, "n_seeds": n_seeds}, note
-
-
-def _stamp(unix: float | None) -> datetime | None:
-    return None if unix is None else datetime.fromtimestamp(unix, timezone.utc)
 
 
 def _fmt(score) -> str:
@@ -167,114 +125,49 @@ def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, 
     # the task (its fingerprint) is the table as read; its profile sees the features the learner sees
     prof = profile(frame, target=target, kind=kind, keep_columns=keep_columns) if keep_columns else None
     task_id = archive.add_task(task_name or Path(data).stem, frame, target, kind=kind, source=str(data), profile=prof)
-    search, origin, provenance, note = _start_search(archive, task_id, learner, space, maximize, seed, cold, n_seeds)
-    study = archive.add_study(task_id, learner, space, metric=metric, maximize=maximize, origin=origin,
-                              prior=provenance)
-    click.echo(f"study {study}: {learner} on {Path(data).name} ({kind}), {metric} "
-               f"({'maximize' if maximize else 'minimize'}), budget {budget}; {note}", err=True)
-    pool = None
-    if budget and n_workers > 1 and executor is None:
-        pool, proxy = local_pool(n_workers, objective)
-        executor, evaluate = pool, score_function(proxy)
-    else:
-        evaluate = score_function(objective)
-        if executor is not None:  # sent to each worker once, which keeps it (and a trial process) between trials
-            executor.share(evaluate)
-    counts = {"ok": 0, "failed": 0}
-    errors: Counter = Counter()
-    interrupted = False
+    study = start_study(archive, task_id, learner, space, metric=metric, maximize=maximize, seed=seed, cold=cold,
+                        n_seeds=n_seeds)
+    click.echo(f"study {study.study_id}: {learner} on {Path(data).name} ({kind}), {metric} "
+               f"({'maximize' if maximize else 'minimize'}), budget {budget}; {study.note}", err=True)
+    failed = 0
     with click.progressbar(length=budget, label="tuning", file=sys.stderr,
                            show_pos=True, show_eta=True, item_show_func=lambda s: s) as bar:
-        def keep(trial) -> None:
-            error = trial.error
-            if error and error.startswith("TrialFailed: "):
-                error = error[len("TrialFailed: "):]
-            archive.record_trial(study, trial.config, trial.score, status=trial.status, cost_s=trial.cost_s,
-                                 started_at=_stamp(trial.started_at), finished_at=_stamp(trial.finished_at),
-                                 error=error)
-            counts[trial.status] += 1
-            if trial.status == "failed":
-                errors[error or "no error text"] += 1
-            best = search.best
-            bar.update(1, f"best {_fmt(best.score if best else None)}, {counts['failed']} failed")
+        def show(trial) -> None:
+            nonlocal failed
+            failed += trial.status == "failed"
+            best = study.search.best
+            bar.update(1, f"best {_fmt(best.score if best else None)}, {failed} failed")
 
-        try:
-            if budget:
-                run_search(search, evaluate, budget, callback=keep, n_workers=n_workers, executor=executor)
-        except (KeyboardInterrupt, RuntimeError, duckdb.Error) as exc:
-            # Ctrl-C may land inside a DuckDB query, which then raises its own
-            # "interrupted" error instead of KeyboardInterrupt
-            if not isinstance(exc, KeyboardInterrupt) and "interrupt" not in str(exc).lower():
-                raise
-            interrupted = True
-            if pool is not None:
-                stop_pool(pool)
-                pool = None
-        finally:
-            if pool is not None:
-                pool.shutdown(wait=True)
-            if hasattr(objective, "close"):  # the trial process of a time limit (learners.CVObjective)
-                objective.close()
-    if not interrupted:
-        archive.finish_study(study)
-    _report(archive, study, search, counts, interrupted, as_json, budget, errors)
-    if interrupted:
+        # a cluster pool, if any, is shut down when the command closes (ctx.call_on_close above)
+        run = run_study(study, objective, budget, n_workers=n_workers, executor=executor, callback=show)
+    _report(study, run, as_json, budget)
+    if run.interrupted:
         ctx.exit(130)
 
 
-def _report(archive, study, search, counts, interrupted, as_json, budget, errors=None) -> None:
-    row = archive.study(study)
-    best = search.best
-    summary = {
-        "study_id": study, "task_id": int(row["task_id"]), "task": row["task"], "learner": row["learner"],
-        "metric": row["metric"], "direction": row["direction"], "origin": row["origin"],
-        "trial_count": counts["ok"] + counts["failed"], "n_failed": counts["failed"],
-        "best_score": None if best is None else best.score,
-        "best_config": None if best is None else best.config, "interrupted": interrupted,
-        "failures": dict((errors or Counter()).most_common()),
-    }
+def _report(study, run, as_json, budget) -> None:
+    out = summary(study, run)
     if as_json:
-        print_json(summary)
+        print_json(out)
         return
-    state = "interrupted: " if interrupted else ""
-    click.echo(f"{state}study {study} ({row['learner']} on task {row['task']!r}): "
-               f"{summary['trial_count']} trials, {summary['n_failed']} failed")
-    for text, n in (errors or Counter()).most_common(2):
+    state = "interrupted: " if run.interrupted else ""
+    click.echo(f"{state}study {study.study_id} ({out['learner']} on task {out['task']!r}): "
+               f"{out['trial_count']} trials, {out['n_failed']} failed")
+    for text, n in list(out["failures"].items())[:2]:
         click.echo(f"  {n} failed with: {text}")
+    best = study.search.best
     if best is None:
         hint = ("evaluate configs with `warmstart propose --study "
-                f"{study}` and `warmstart record`") if budget == 0 else "no trial succeeded"
+                f"{study.study_id}` and `warmstart record`") if budget == 0 else "no trial succeeded"
         click.echo(hint)
         return
-    click.echo(f"best {row['metric']} {best.score:.6g}")
+    click.echo(f"best {out['metric']} {best.score:.6g}")
     width = max(len(name) for name in best.config)
     for name, value in best.config.items():
         click.echo(f"  {name.ljust(width)}  {value}")
 
 
 # -- propose / record -----------------------------------------------------------
-def _rebuilt_search(archive, study: int, seed: int):
-    """A fresh search fed with the study's recorded trials.
-
-    The generator is seeded with (seed, study, number of trials), so the same
-    history gives the same proposals and every new result moves on.
-    """
-    info = archive.study(study)
-    trials = archive.trials(study)
-    rng = np.random.default_rng([seed, study, len(trials)])
-    prior, note, n_seeds = None, "cold start", DEFAULT_SEEDS
-    if info["origin"] == "warm":
-        n_seeds = int((info["prior"] or {}).get("n_seeds", DEFAULT_SEEDS))
-        fresh, _, _, note = _start_search(archive, int(info["task_id"]), info["learner"], info["space"],
-                                          info["maximize"], 0, cold=False, n_seeds=n_seeds)
-        prior = fresh.prior
-    info["note"] = note
-    search = DensitySearch(info["space"], prior=prior, seed=rng, maximize=info["maximize"], n_seeds=n_seeds)
-    for config, score, status in zip(trials["config"], trials["score"], trials["status"]):
-        search.record(config, None if status == "failed" else float(score), status)
-    return info, search
-
-
 @main.command()
 @click.option("--study", "study", required=True, type=int, help="Study id (see `warmstart studies`).")
 @click.option("-k", "k", default=1, show_default=True, type=click.IntRange(min=1), help="Configs to propose.")
@@ -293,10 +186,11 @@ def propose(ctx, study, k, seed, as_json):
     if (client := server_client(ctx)) is not None:  # leases: parallel jobs get distinct configs
         return propose_leases(client, study, k, None, as_json)
     archive = get_archive(ctx, write=False)
-    info, search = _rebuilt_search(archive, study, seed)
-    configs = search.propose(k)
-    click.echo(f"study {study}: {search.trial_count} trials recorded, best {_fmt(info['best_score'])}; "
-               f"{info['note']}", err=True)
+    resumed = resume_study(archive, study, seed)
+    configs = resumed.search.propose(k)
+    best = resumed.search.best
+    click.echo(f"study {study}: {resumed.search.trial_count} trials recorded, "
+               f"best {_fmt(None if best is None else best.score)}; {resumed.note}", err=True)
     if as_json:
         print_json({"study_id": study, "configs": configs})
         return

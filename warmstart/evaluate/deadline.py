@@ -42,6 +42,8 @@ from dataclasses import dataclass
 from datetime import datetime, timezone
 from typing import Any, Callable
 
+from warmstart.evaluate.result import error_text
+
 __all__ = ["RunOutcome", "StoppableRunner", "child_context"]
 
 #: seconds a new child may take to start (import, receive the job) before the run fails
@@ -114,11 +116,6 @@ class RunOutcome:
     stage: Any = None
     started: float = 0.0
     started_at: datetime | None = None
-
-
-def _error_text(exc: BaseException) -> str:
-    text = str(exc).strip()
-    return f"{type(exc).__name__}: {text}" if text else type(exc).__name__
 
 
 def _exit_when_orphaned(alive: mpc.Connection) -> None:
@@ -223,7 +220,7 @@ def _serve(job: Callable, conn: mpc.Connection, alive: mpc.Connection) -> None:
         try:
             value = job(payload, report)
         except Exception as exc:  # the caller records it as a failed run
-            conn.send(("error", _error_text(exc)))
+            conn.send(("error", error_text(exc)))
         else:
             conn.send(("done", value))
 
@@ -373,7 +370,7 @@ class StoppableRunner:
         try:
             child = _Child(self.context, self.job, command=command)
         except Exception as exc:  # e.g. a job that cannot be pickled
-            return f"the trial process could not start: {_error_text(exc)}"
+            return f"the trial process could not start: {error_text(exc)}"
         try:
             why = child.wait_ready(START_TIMEOUT_S)
         except BaseException:  # Ctrl-C while it starts

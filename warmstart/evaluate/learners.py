@@ -30,7 +30,7 @@ from pandas.api import types as ptypes
 
 from warmstart.evaluate.deadline import StoppableRunner
 from warmstart.evaluate.metrics import METRICS, metric_direction
-from warmstart.evaluate.objective import ObjectiveError, TrialResult, _check_limit, _error_text, _now
+from warmstart.evaluate.result import ObjectiveError, TrialResult, check_time_limit, error_text, utc_now
 from warmstart.profile import detect_kind
 from warmstart.space import Space
 from warmstart.data.clean import clean_table
@@ -509,24 +509,24 @@ class CVObjective:
         self.scorer_name, self.sign = scorer, METRICS[self.metric].sign
         self.proba = self.metric == "log_loss" or scorer == "roc_auc_ovr"
         self.seed = seed
-        self.time_limit = _check_limit(time_limit)
+        self.time_limit = check_time_limit(time_limit)
         self.threads = threads
         self._runner: StoppableRunner | None = None
 
     def __call__(self, config: Mapping) -> TrialResult:
-        started_at, started = _now(), time.perf_counter()
+        started_at, started = utc_now(), time.perf_counter()
         try:
             config = self.space.normalize(config)
         except Exception as exc:
-            return TrialResult.failed(_error_text(exc), started, started_at)
+            return TrialResult.failed(error_text(exc), started, started_at)
         if self.time_limit is not None:
             return self._call_limited(config)
         try:
             scores = self.fold_scores(config)
         except Exception as exc:  # a failed trial; the search goes on
-            return TrialResult.failed(_error_text(exc), started, started_at)
+            return TrialResult.failed(error_text(exc), started, started_at)
         cost = time.perf_counter() - started
-        return TrialResult(float(np.mean(scores)), "ok", cost, None, started_at, _now(), tuple(scores))
+        return TrialResult(float(np.mean(scores)), "ok", cost, None, started_at, utc_now(), tuple(scores))
 
     def fold_scores(self, config: dict, report: Callable[[int], None] | None = None) -> list[float]:
         """The per-fold scores of a normalized config, in this process.
@@ -566,7 +566,7 @@ class CVObjective:
         if outcome.status == "done":
             scores = outcome.value
             cost = time.perf_counter() - outcome.started
-            return TrialResult(float(np.mean(scores)), "ok", cost, None, outcome.started_at, _now(), tuple(scores))
+            return TrialResult(float(np.mean(scores)), "ok", cost, None, outcome.started_at, utc_now(), tuple(scores))
         if outcome.status == "timeout":
             error = f"trial exceeded its time limit of {self.time_limit:g} s (stopped {where})"
         elif outcome.status == "ended" and outcome.stage is not None:

@@ -42,7 +42,7 @@ from warmstart.evaluate.workers import map_jobs
 from warmstart.gain.bits import GainResult, Runs, TaskGain, compare, hits_and_regret, pool, target_threshold
 from warmstart.gain.objectives import HeldOutObjective, ReplayObjective, SurrogateObjective
 from warmstart.prior import Prior, Source, prior_from_sources
-from warmstart.archive.sources import BANDWIDTH_SCALE, comparable_profiles, load_sources, weight_sources
+from warmstart.archive.sources import load_sources, prior_info, prior_sources
 from warmstart.search.baselines import RandomSearch
 from warmstart.search.density import DensitySearch
 from warmstart.search.static import FixedListSearch, average_rank_list, nearest_tasks_list
@@ -348,10 +348,8 @@ def leave_one_task_out(
         key = t.space.content_hash
         if key not in cache:
             cache[key] = load_sources(archive, learner, t.space)
-        weighted = weight_sources(cache[key], comparable_profiles(archive, t.profile), t.profile,
-                                  exclude_tasks=[t.task_id],
-                                  bandwidth_scale=BANDWIDTH_SCALE)
-        prior = prior_from_sources(t.space, weighted, provenance={"learner": learner, "held_out": t.task})
+        weighted = prior_sources(archive, t.profile, learner, t.space, exclude_tasks=[t.task_id], loaded=cache[key])
+        prior = prior_from_sources(t.space, weighted, provenance={**prior_info(learner), "held_out": t.task})
         jobs.append(_TaskJob(t, prior, budget, repeats, seed))
     results = map_jobs(_one_task, jobs, workers, progress, done_before=fits, total=fits + len(jobs),
                        executor=executor)

@@ -5,7 +5,10 @@ their results (:meth:`SearchStrategy.record`); subclasses only say how the
 next config is chosen (``_propose_one``). :func:`run_search` evaluates an
 objective with any strategy, records every trial (an exception in the
 objective becomes a failed trial and the loop goes on) and returns a
-:class:`SearchResult`.
+:class:`SearchResult`. An objective's
+:class:`~warmstart.evaluate.result.TrialResult` reaches the :class:`Trial`
+whole: score, status, the objective's own cost, its error text and its
+per-fold scores.
 """
 
 from __future__ import annotations
@@ -16,6 +19,7 @@ import json
 import math
 import time
 from dataclasses import dataclass
+from datetime import datetime
 from typing import Any, Callable, Mapping
 
 import numpy as np
@@ -23,6 +27,7 @@ import pandas as pd
 
 from warmstart._checks import check_count
 from warmstart.errors import WarmstartError
+from warmstart.evaluate.result import TrialResult, error_text, utc_now
 from warmstart.evaluate.workers import wait_first
 from warmstart.space import Space
 
@@ -53,11 +58,16 @@ class Trial:
         Where the config came from: ``"seed"`` (the prior's seeds),
         ``"design"`` (space-filling start), ``"model"``, ``"random"``,
         ``"simplex"``, ... or ``"external"`` (recorded without a proposal).
-    cost_s, started_at, finished_at : float, optional
-        Wall time of the evaluation and its Unix start/end times (set by
-        :func:`run_search`).
+    cost_s : float, optional
+        Seconds the evaluation took: the objective's own figure when it
+        returns a :class:`~warmstart.evaluate.result.TrialResult`, else the
+        wall time of the call (set by :func:`run_search`).
+    started_at, finished_at : datetime, optional
+        UTC times the evaluation started and ended.
     error : str, optional
-        Error text of a failed evaluation.
+        Error text of a failed evaluation, as the objective gave it.
+    fold_scores : tuple of float
+        Per-fold scores of a cross-validated objective (empty otherwise).
     """
 
     number: int
@@ -66,9 +76,10 @@ class Trial:
     status: str
     source: str = "external"
     cost_s: float | None = None
-    started_at: float | None = None
-    finished_at: float | None = None
+    started_at: datetime | None = None
+    finished_at: datetime | None = None
     error: str | None = None
+    fold_scores: tuple = ()
 
 
 def _row_key(row: np.ndarray) -> bytes:
@@ -356,7 +367,7 @@ class SearchResult:
 
     def to_frame(self) -> pd.DataFrame:
         """One row per trial: number, config, score, status, best_so_far,
-        source, cost_s, started_at, finished_at, error."""
+        source, cost_s, started_at, finished_at, error, fold_scores."""
         frame = pd.DataFrame([dataclasses.asdict(t) for t in self.trials],
                              columns=[f.name for f in dataclasses.fields(Trial)])
         frame["score"] = self.scores
@@ -370,22 +381,21 @@ class SearchResult:
         return f"SearchResult(trial_count={len(self.trials)}, n_failed={n_failed}, best={shown})"
 
 
-def _evaluate(objective: Callable, config: dict) -> dict:
-    """Evaluate one config; never raises (module level so executors can pickle it)."""
-    started = time.time()
-    t0 = time.perf_counter()
-    error = None
+def _evaluate(objective: Callable, config: dict) -> TrialResult:
+    """Evaluate one config; never raises an ``Exception`` (module level so
+    executors can pickle it).
+
+    An objective's own :class:`~warmstart.evaluate.result.TrialResult` is
+    kept whole; a bare score is wrapped with the wall time measured here; an
+    exception, ``None``, NaN, infinity or a non-number is a failed result
+    naming what happened.
+    """
+    started_at, started = utc_now(), time.perf_counter()
     try:
-        score = objective(dict(config))
-        classify_result(score, None)
+        value = objective(dict(config))
     except Exception as exc:  # the objective's failure is a failed trial
-        score, error = None, f"{type(exc).__name__}: {exc}"
-    else:
-        if score is None or not math.isfinite(float(score)):
-            error = f"objective returned {score!r}"
-            score = None
-    return {"score": score, "error": error, "cost_s": time.perf_counter() - t0,
-            "started_at": started, "finished_at": time.time()}
+        return TrialResult.failed(error_text(exc), started, started_at)
+    return TrialResult.from_value(value, started, started_at)
 
 
 def run_search(
@@ -403,9 +413,10 @@ def run_search(
     strategy : SearchStrategy
         Any strategy (:class:`~warmstart.search.density.DensitySearch` or a baseline).
     objective : callable
-        ``objective(config) -> score``. An exception, ``None``, NaN or an
-        infinite value records a failed trial (with the error text); the
-        loop goes on.
+        ``objective(config) -> TrialResult`` (kept whole in the
+        :class:`Trial`: fold scores, cost, error text) or ``-> score``. An
+        exception, ``None``, NaN or an infinite value records a failed trial
+        (with the error text); the loop goes on.
     budget : int
         Number of trials to evaluate.
     callback : callable, optional
@@ -433,11 +444,11 @@ def run_search(
     check_count("n_workers", n_workers, minimum=1, error=SearchError)
     done: list[Trial] = []
 
-    def finish(config: dict, outcome: dict) -> None:
-        trial = strategy.record(config, outcome["score"], "ok" if outcome["error"] is None else "failed")
-        trial = dataclasses.replace(trial, number=len(done), cost_s=outcome["cost_s"],
-                                    started_at=outcome["started_at"],
-                                    finished_at=outcome["finished_at"], error=outcome["error"])
+    def finish(config: dict, result: TrialResult) -> None:
+        trial = strategy.record(config, result.score, result.status)
+        trial = dataclasses.replace(trial, number=len(done), cost_s=result.cost_s, started_at=result.started_at,
+                                    finished_at=result.finished_at, error=result.error,
+                                    fold_scores=tuple(float(v) for v in result.fold_scores))
         done.append(trial)
         if callback is not None:
             callback(trial)

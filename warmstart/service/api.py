@@ -46,6 +46,7 @@ StudyId = Annotated[int, PathParam(ge=1, le=2**62, description="study id")]
 def api_router(service: Service, authorize) -> APIRouter:
     """The API's routes over ``service``; ``authorize(role)`` gives the
     dependency that checks a request's token for ``role``."""
+    # long: a router factory; each endpoint below is its own short function closed over the service
     router = APIRouter(prefix="/api/v1")
     readers, writers, admins = authorize("read"), authorize("write"), authorize("admin")
 

@@ -140,6 +140,7 @@ def line_chart(series: dict[str, Sequence[tuple[float, float]]], x_label: str, y
 
 def page_router(service: Service, page_who: Callable) -> APIRouter:
     """Routes of the page; ``page_who(request)`` checks a token (Bearer or Basic)."""
+    # long: a router factory; each page below is its own short function closed over the service
     router = APIRouter(include_in_schema=False)
 
     def who(request: Request):
