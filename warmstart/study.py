@@ -362,6 +362,8 @@ def run_study(
     if budget and n_workers > 1 and executor is None:
         pool, evaluate = local_pool(n_workers, objective)
         executor = pool
+    elif executor is not None and hasattr(executor, "share"):
+        executor.share(evaluate)  # a cluster pool: sent to each worker once, kept between trials
     interrupted = False
     try:
         if budget:

@@ -85,6 +85,9 @@ def prior(ctx, data, target, learner, space_path, output, keep_columns, as_json)
 @click.option("--gamma", default=0.05, show_default=True, type=click.FloatRange(0.001, 0.5), help="Target set: top share of scores.")
 @click.option("--seed", default=0, show_default=True, type=int)
 @click.option("--workers", default=1, show_default=True, type=click.IntRange(1, 64), help="Processes (tasks run in parallel).")
+@click.option("--cluster", metavar="ADDRESS",
+              help="Replay the held-out tasks on the workers of the Dask scheduler at ADDRESS (needs "
+                   "warmstart[cluster]); the same figures as here for the same --seed.")
 @click.option("--task", "only_tasks", multiple=True, help="Only these held-out tasks (names).")
 @click.option("--replay", "objective", type=click.Choice(["nearest", "surrogate"]), default="nearest",
               show_default=True,
@@ -100,8 +103,8 @@ def prior(ctx, data, target, learner, space_path, output, keep_columns, as_json)
 @strict_option
 @json_option
 @click.pass_context
-def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, only_tasks, objective, data, target, metric, cv,
-         report_path, keep_columns, as_json):
+def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, cluster, only_tasks, objective, data, target,
+         metric, cv, report_path, keep_columns, as_json):
     """Measure, in bits, whether warm starts beat cold ones on your history.
 
     Leave-one-task-out replay: each archived study is held out in turn and its
@@ -119,6 +122,8 @@ def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, only_tasks, 
     from warmstart.gain.replay import leave_one_task_out
 
     budgets = _budgets(budget_text)
+    if cluster and (data or target):
+        fail("--cluster spreads a replay's held-out tasks; a live comparison (--data) runs here: use --workers N")
     archive = get_archive(ctx, write=False)
     if data or target:
         from click.core import ParameterSource
@@ -143,13 +148,19 @@ def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, only_tasks, 
     for learner in learners:
         if learner not in known:
             fail(f"no studies of learner {learner!r}; learners with studies: {sorted(known)}")
+    executor = None
+    if cluster:
+        from warmstart.evaluate.cluster import ClusterPool
+
+        executor = ClusterPool(cluster)
+        ctx.call_on_close(lambda: executor.shutdown(wait=False, cancel_futures=True))
     results = []
     for learner in learners:
         for budget in budgets:
             bar = Progress(f"{learner} budget {budget}", enabled=not as_json)
             results.append(leave_one_task_out(
                 archive, learner, budget=budget, repeats=repeats, gamma=gamma, seed=seed, workers=workers,
-                progress=bar, tasks=list(only_tasks) or None, objective=objective,
+                progress=bar, tasks=list(only_tasks) or None, objective=objective, executor=executor,
             ))
     _show(results, gamma, report_path, as_json)
 

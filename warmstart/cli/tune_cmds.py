@@ -21,18 +21,6 @@ from warmstart.space import Space
 from warmstart.study import resume_study, run_study, start_study, summary
 
 
-# -- workers -------------------------------------------------------------------
-def _cluster_executor(address: str):
-    try:
-        from dask.distributed import Client
-    except ImportError:
-        fail("--cluster needs dask.distributed, which is not installed; "
-             "install it with: pip install 'warmstart[cluster]'")
-    try:
-        client = Client(address)
-    except Exception as exc:  # connection problems come in many types
-        fail(f"--cluster {address}: cannot connect to the Dask scheduler ({exc})")
-    return client, client.get_executor(pure=False), sum(client.nthreads().values())
 
 
 def _fmt(score) -> str:
@@ -81,7 +69,9 @@ def _objective_and_space(data, target, learner, kind, space_path, metric, minimi
 @click.option("--metric", help=f"Built-in metric ({', '.join(METRICS)}); default accuracy or r2.")
 @click.option("--seed", default=0, show_default=True, type=int, help="Seed of the search and the CV folds.")
 @click.option("--workers", type=click.IntRange(min=1), help="Trials evaluated at once (local processes).")
-@click.option("--cluster", metavar="ADDRESS", help="Evaluate on a Dask cluster (needs warmstart[cluster]).")
+@click.option("--cluster", metavar="ADDRESS",
+              help="Evaluate on the workers of the Dask scheduler at ADDRESS (needs warmstart[cluster]); "
+                   "--workers defaults to the cluster's threads.")
 @click.option("--cold", is_flag=True, help="Force a cold start (no prior).")
 @click.option("--seeds", "n_seeds", default=DEFAULT_SEEDS, show_default=True, type=click.IntRange(0, DEFAULT_SEEDS),
               help="Warm start: past configs tried before the search's own model takes over (fewer is bolder: "
@@ -123,10 +113,14 @@ def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, 
 
         return tune_through_service(ctx, service, frame, data, target, kind, keep_columns, task_name, learner,
                                     space, metric, maximize, cold, n_seeds, budget, objective, n_workers, as_json)
-    client = executor = None
-    if cluster and budget:
-        client, executor, cores = _cluster_executor(cluster)
-        n_workers = workers or max(1, cores)
+    executor = None
+    if cluster and budget:  # trials run on the cluster's workers (evaluate/cluster.py)
+        from warmstart.evaluate.cluster import ClusterPool
+
+        executor = ClusterPool(cluster)
+        # at the end, or on any error: a trial already running on a worker is not stopped
+        ctx.call_on_close(lambda: executor.shutdown(wait=False, cancel_futures=True))
+        n_workers = workers or executor.cores
     archive = get_archive(ctx, write=True)
     # the task (its fingerprint) is the table as read; its profile sees the features the learner sees
     prof = profile(frame, target=target, kind=kind, keep_columns=keep_columns) if keep_columns else None
@@ -144,11 +138,8 @@ def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, 
             best = study.search.best
             bar.update(1, f"best {_fmt(best.score if best else None)}, {failed} failed")
 
-        try:
-            run = run_study(study, objective, budget, n_workers=n_workers, executor=executor, callback=show)
-        finally:
-            if client is not None:
-                client.close()
+        # a cluster pool, if any, is shut down when the command closes (ctx.call_on_close above)
+        run = run_study(study, objective, budget, n_workers=n_workers, executor=executor, callback=show)
     _report(study, run, as_json, budget)
     if run.interrupted:
         ctx.exit(130)

@@ -144,7 +144,7 @@ def _build_objective(job: _ObjectiveJob) -> HeldOutObjective:
 def replay_tasks(archive, learner: str, gamma: float = 0.05, min_trials: int = 20,
                  objective: str = "nearest", only: Sequence[str] | None = None, workers: int = 1,
                  progress: Callable[[int, int], None] | None = None,
-                 total: int | None = None) -> list[ReplayTask]:
+                 total: int | None = None, executor=None) -> list[ReplayTask]:
     """Every task with a study of ``learner`` (its largest study) ready for replay.
 
     Parameters
@@ -169,6 +169,9 @@ def replay_tasks(archive, learner: str, gamma: float = 0.05, min_trials: int = 2
         Called after each surrogate is fitted (not for ``nearest``, which is quick).
     total : int, optional
         Total passed to ``progress`` when the fits are part of larger work.
+    executor : concurrent.futures.Executor, optional
+        Fit the surrogates there instead of in ``workers`` local processes
+        (a Dask cluster's :class:`~warmstart.evaluate.cluster.ClusterPool`).
     """
     check_choice("replay objective", objective, OBJECTIVES, error=WarmstartError)
     studies = _replay_studies(archive, learner, min_trials)
@@ -176,7 +179,8 @@ def replay_tasks(archive, learner: str, gamma: float = 0.05, min_trials: int = 2
         studies = [s for s in studies if s.task in set(only)]
     surrogate = objective == "surrogate"
     objectives = map_jobs(_build_objective, [_ObjectiveJob(objective, s) for s in studies],
-                          workers if surrogate else 1, progress if surrogate else None, total=total)
+                          workers if surrogate else 1, progress if surrogate else None, total=total,
+                          executor=executor if surrogate else None)
     out = []
     for s, obj in zip(studies, objectives):
         threshold = target_threshold(obj.reference_scores, gamma, s.maximize)
@@ -286,6 +290,7 @@ def leave_one_task_out(
     progress: Callable[[int, int], None] | None = None,
     tasks: Sequence[str] | None = None,
     objective: str = "nearest",
+    executor=None,
 ) -> ReplayResult:
     """Replay every archived study of ``learner`` with the task held out.
 
@@ -308,6 +313,10 @@ def leave_one_task_out(
     objective : {"nearest", "surrogate"}, default "nearest"
         How the held-out task's recorded trials score a proposal (see
         :func:`replay_tasks`).
+    executor : concurrent.futures.Executor, optional
+        Replay the held-out tasks there instead of in ``workers`` local
+        processes (a Dask cluster's :class:`~warmstart.evaluate.cluster.ClusterPool`).
+        Each task's job carries its seed, so the figures are the same.
 
     Returns
     -------
@@ -332,7 +341,7 @@ def leave_one_task_out(
     # a surrogate fit counts as one unit of work, as does replaying a task
     fits = len(names) if objective == "surrogate" else 0
     chosen = replay_tasks(archive, learner, gamma, objective=objective, only=names, workers=workers,
-                          progress=progress, total=fits + len(names))
+                          progress=progress, total=fits + len(names), executor=executor)
     cache: dict[str, list[Source]] = {}
     jobs = []
     for t in chosen:
@@ -342,7 +351,8 @@ def leave_one_task_out(
         weighted = prior_sources(archive, t.profile, learner, t.space, exclude_tasks=[t.task_id], loaded=cache[key])
         prior = prior_from_sources(t.space, weighted, provenance={**prior_info(learner), "held_out": t.task})
         jobs.append(_TaskJob(t, prior, budget, repeats, seed))
-    results = map_jobs(_one_task, jobs, workers, progress, done_before=fits, total=fits + len(jobs))
+    results = map_jobs(_one_task, jobs, workers, progress, done_before=fits, total=fits + len(jobs),
+                       executor=executor)
     gains = [r.gain for r in results]
     curves = {}
     for label in results[0].curves:

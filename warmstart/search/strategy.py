@@ -429,8 +429,10 @@ def run_search(
         or a thread pool; results are recorded as they finish, so the order
         can vary between runs.
     executor : concurrent.futures.Executor, optional
-        Where to evaluate when ``n_workers > 1`` (a process pool, a Dask
-        client's executor ...); the objective must then be picklable.
+        Where to evaluate (a process pool, a Dask cluster's
+        :class:`~warmstart.evaluate.cluster.ClusterPool` ...); the objective
+        must then be picklable. Without one, ``n_workers > 1`` evaluates in
+        a thread pool and 1 in this process.
 
     Returns
     -------
@@ -451,7 +453,7 @@ def run_search(
         if callback is not None:
             callback(trial)
 
-    if n_workers == 1:
+    if n_workers == 1 and executor is None:
         for _ in range(int(budget)):
             config = strategy.propose()
             finish(config, _evaluate(objective, config))
