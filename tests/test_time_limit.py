@@ -387,7 +387,8 @@ def test_tune_records_trials_over_the_limit_as_failed(tmp_path, slow_csv, worker
     budget = 2 * workers
     result = _run(tmp_path, "tune", data, "--target", "target", "--learner", "mlp", "--space", space,
                   "--budget", budget, "--time-limit", 1, "--workers", workers, "--cold")
-    assert result.exit_code == 0, result.stderr
+    assert result.exit_code == 1, result.stderr  # every trial failed: a script must see it
+    assert "every trial failed" in result.stderr
     assert f"{budget} trials, {budget} failed" in result.stdout and "no trial succeeded" in result.stdout
     message = "trial exceeded its time limit of 1 s (stopped during fold 1 of 5)"
     assert f"{budget} failed with: {message}" in result.stdout

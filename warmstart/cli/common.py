@@ -2,9 +2,12 @@
 
 from __future__ import annotations
 
+import contextlib
 import json
 import math
 import shlex
+import signal
+import threading
 from typing import Any
 
 import click
@@ -200,3 +203,31 @@ def read_data(path: str, target: str | None = None, echo_notes: bool = True, kee
         for note in notes[shown:]:
             click.echo(f"note: {path}: {note}", err=True)
     return frame
+
+
+class _Stop:
+    """Which signal stopped a run (None: none did)."""
+
+    signal: int | None = None
+
+
+@contextlib.contextmanager
+def terminate_as_interrupt():
+    """Within the block, SIGTERM stops the work as Ctrl-C does (a ``KeyboardInterrupt``),
+    so a run stopped by a scheduler or ``kill`` keeps what it finished and prints its
+    summary; the yielded object's ``signal`` says which signal came. The previous
+    handlers come back on exit. Outside the main thread it does nothing."""
+    stop = _Stop()
+    if threading.current_thread() is not threading.main_thread():
+        yield stop
+        return
+
+    def on_term(signum, frame):
+        stop.signal = signum
+        raise KeyboardInterrupt
+
+    previous = signal.signal(signal.SIGTERM, on_term)
+    try:
+        yield stop
+    finally:
+        signal.signal(signal.SIGTERM, previous)

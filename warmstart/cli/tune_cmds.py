@@ -6,21 +6,36 @@ from __future__ import annotations
 
 import json
 import math
+import signal
 import sys
 from pathlib import Path
 
 import click
 
-from warmstart.cli.common import fail, get_archive, json_option, keep_column_option, print_json, read_data, strict_option
+from warmstart.cli.common import (
+    fail,
+    get_archive,
+    json_option,
+    keep_column_option,
+    print_json,
+    read_data,
+    strict_option,
+    terminate_as_interrupt,
+)
 from warmstart.cli.main import main
-from warmstart.evaluate.learners import LEARNERS, TASK_KINDS, cv_objective, default_space, metric_direction, METRICS
+from warmstart.evaluate.learners import (
+    LEARNERS,
+    METRICS,
+    TASK_KINDS,
+    cv_objective,
+    default_space,
+    metric_direction,
+)
 from warmstart.evaluate.objective import CommandObjective
 from warmstart.profile import detect_kind, profile
 from warmstart.search.density import DEFAULT_N_SEEDS as DEFAULT_SEEDS
 from warmstart.space import Space
 from warmstart.study import resume_study, run_study, start_study, summary
-
-
 
 
 def _fmt(score) -> str:
@@ -95,6 +110,13 @@ def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, 
     Columns that look like row identifiers are left out of the features and
     dates written as text count as days (a note names each); --keep-column
     keeps one as it is.
+
+    \b
+    Exit status:
+      0    at least one trial succeeded (or --budget 0)
+      1    an error, or every trial failed
+      130  stopped by Ctrl-C (SIGINT); 143 stopped by SIGTERM
+    A stopped run prints the same summary either way, and keeps what it finished.
     """
     frame = read_data(data, target, keep_columns=keep_columns)
     kind = kind or detect_kind(frame[target])
@@ -139,10 +161,14 @@ def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, 
             bar.update(1, f"best {_fmt(best.score if best else None)}, {failed} failed")
 
         # a cluster pool, if any, is shut down when the command closes (ctx.call_on_close above)
-        run = run_study(study, objective, budget, n_workers=n_workers, executor=executor, callback=show)
+        with terminate_as_interrupt() as stop:
+            run = run_study(study, objective, budget, n_workers=n_workers, executor=executor, callback=show)
     _report(study, run, as_json, budget)
     if run.interrupted:
-        ctx.exit(130)
+        ctx.exit(143 if stop.signal == signal.SIGTERM else 130)
+    if budget and len(run.trials) == run.n_failed:
+        click.echo(f"error: every trial failed ({run.n_failed} of {run.n_failed}); exit status 1", err=True)
+        ctx.exit(1)
 
 
 def _report(study, run, as_json, budget) -> None:
