@@ -87,14 +87,15 @@ def test_an_archive_from_before_fold_scores_is_migrated_and_keeps_its_trials(tmp
     with Archive(path) as archive:
         study = archive.add_study(archive.add_task("t", small_frame, "y"), "toy", SPACE)
         archive.add_trials(study, pd.DataFrame({"x": [0.1, 0.2, 0.3], "score": [0.5, 0.6, 0.7]}))
-    con = duckdb.connect(str(path))  # make it what version 1 wrote: no fold_scores, no version-2 row
+    con = duckdb.connect(str(path))  # make it what version 2 wrote: no fold_scores, no version-3 row
     con.execute("ALTER TABLE trials DROP COLUMN fold_scores")
-    con.execute("DELETE FROM schema_version WHERE version = 2")
+    con.execute("DELETE FROM schema_version WHERE version = 3")
     con.close()
-    with pytest.raises(ArchiveError, match="schema version 1 needs migrating to 2; open it once for writing"):
-        Archive(path, read_only=True)
+    with Archive(path, read_only=True) as archive:  # a reader sees the trials, without fold scores
+        assert archive.schema_version == 2
+        assert archive.trials(study)["fold_scores"].isna().all()
     with Archive(path) as archive:
-        assert archive.schema_version == SCHEMA_VERSION == 2
+        assert archive.schema_version == SCHEMA_VERSION == 3
         trials = archive.trials(study)
         assert trials["score"].tolist() == [0.5, 0.6, 0.7] and trials["fold_scores"].isna().all()
         archive.record_trial(study, {"x": 0.4}, 0.8, fold_scores=[0.75, 0.85])
@@ -103,7 +104,7 @@ def test_an_archive_from_before_fold_scores_is_migrated_and_keeps_its_trials(tmp
 
 def test_an_export_without_fold_scores_still_imports(tmp_path, small_frame):
     """Exports written before the column existed lack it; importing them works."""
-    from warmstart.archive.transfer import export_archive, import_export
+    from warmstart.archive.exchange import export_archive, import_export
 
     source = tmp_path / "source.duckdb"
     with Archive(source) as archive:
