@@ -657,7 +657,10 @@ class Archive:
                 [study, fp, learner] + keys,
             )
         finally:
-            con.unregister(view)
+            # an interrupted insert (Ctrl-C, SIGTERM) aborts the transaction, and DuckDB then refuses
+            # even the unregister; the caller's transaction rolls back and the interruption goes on
+            with contextlib.suppress(duckdb.Error):
+                con.unregister(view)
         return start + len(prepared)
 
     def _has_fold_scores(self) -> bool:
