@@ -54,7 +54,11 @@ from warmstart.search.strategy import run_search
 #: Named variants of the mixture search (options of MixtureSearch); every one measured is
 #: recorded in docs/experiments.md.
 VARIANTS: dict[str, dict] = {
-    "default": {},
+    "default": {},  # the defaults of MixtureSearch as committed
+    # the first design, spelled out so later changes of the defaults do not change what it means
+    "v1": {"gamma": 0.25, "source_gamma": 0.15, "n_hedge": 3, "cover_fraction": 0.1, "own_strength": 10.0,
+           "uniform": 0.1, "n_candidates": 24, "n_boot": 256, "max_ranked": 40, "prior_power": 0.0,
+           "source_score": "ratio", "shrink": 1.0, "explore": 0.1, "cover": "top"},
 }
 
 

@@ -137,6 +137,10 @@ class MixtureSearch(SearchStrategy):
         Greedy coverage of the hedge: ``top`` counts the weight of past tasks
         whose top set (``cover_fraction``) a config enters; ``soft`` the rise
         of the weighted best quantile reached in every past task.
+    exact_share : float, default 0
+        Share of the candidates drawn from a past task's good density that
+        are its good configs themselves, without kernel noise (configs that
+        did well before are candidates as they are).
     """
 
     def __init__(
@@ -159,6 +163,7 @@ class MixtureSearch(SearchStrategy):
         shrink: float = 1.0,
         explore: float = 0.1,
         cover: str = "top",
+        exact_share: float = 0.0,
     ):
         super().__init__(space, seed=seed, maximize=maximize)
         sources = getattr(prior, "sources", None)
@@ -180,6 +185,8 @@ class MixtureSearch(SearchStrategy):
         for name, value in (("own_strength", own_strength), ("prior_power", prior_power), ("shrink", shrink)):
             if isinstance(value, bool) or not isinstance(value, (int, float)) or not (value >= 0 and math.isfinite(value)):
                 raise SearchError(f"{name} must be a finite number >= 0, got {value!r}")
+        if isinstance(exact_share, bool) or not isinstance(exact_share, (int, float)) or not 0 <= exact_share <= 1:
+            raise SearchError(f"exact_share must be a number in [0, 1], got {exact_share!r}")
         if cover not in ("top", "soft"):
             raise SearchError(f"cover must be 'top' or 'soft', got {cover!r}")
         if source_score not in _SCORES:
@@ -191,7 +198,7 @@ class MixtureSearch(SearchStrategy):
             "uniform": float(uniform), "n_candidates": int(n_candidates), "n_boot": int(n_boot),
             "max_ranked": int(max_ranked), "prior_power": float(prior_power),
             "source_score": source_score, "shrink": float(shrink), "explore": float(explore),
-            "cover": cover,
+            "cover": cover, "exact_share": float(exact_share),
         }
         self.__dict__.update(self.options)
         kept = [s for s in sources if s.X.shape[0] > 0]
@@ -402,8 +409,12 @@ class MixtureSearch(SearchStrategy):
         counts = rng.multinomial(self.n_candidates, mix)
         draws = [space.sample_unit(counts[0], rng)]
         for k, i in enumerate(active):
-            if counts[1 + k]:
-                draws.append(self._models[i].good.sample(counts[1 + k], rng))
+            m = counts[1 + k]
+            if m:
+                good = self._models[i].good
+                exact = rng.binomial(m, self.exact_share)  # centres as they are, the rest with kernel noise
+                draws.append(good.centres[rng.choice(good.centres.shape[0], exact, p=good.weights)])
+                draws.append(good.sample(m - exact, rng))
         if counts[-1]:
             draws.append(good0.sample(counts[-1], rng))
         C = np.vstack(draws)
@@ -462,4 +473,5 @@ class MixtureSearch(SearchStrategy):
     @staticmethod
     def _option_names() -> tuple[str, ...]:
         return ("gamma", "source_gamma", "n_hedge", "cover_fraction", "own_strength", "uniform",
-                "n_candidates", "n_boot", "max_ranked", "prior_power", "source_score", "shrink", "explore", "cover")
+                "n_candidates", "n_boot", "max_ranked", "prior_power", "source_score", "shrink", "explore", "cover",
+                "exact_share")
