@@ -45,6 +45,7 @@ from warmstart.archive import Archive
 from warmstart.archive.sources import BANDWIDTH_SCALE, comparable_profiles, load_sources, weight_sources
 from warmstart.gain.bits import Runs, compare, in_target, pool
 from warmstart.gain.replay import hindsight_rates, replay_tasks, static_order
+from warmstart.gain.verdicts import paired_runs_p, verdicts
 from warmstart.prior import prior_from_sources
 from warmstart.progress import Progress
 from warmstart.search.density import DensitySearch
@@ -58,7 +59,8 @@ VARIANTS: dict[str, dict] = {
     # the first design, spelled out so later changes of the defaults do not change what it means
     "v1": {"gamma": 0.25, "source_gamma": 0.15, "n_hedge": 3, "cover_fraction": 0.1, "own_strength": 10.0,
            "uniform": 0.1, "n_candidates": 24, "n_boot": 256, "max_ranked": 40, "prior_power": 0.0,
-           "source_score": "ratio", "shrink": 1.0, "explore": 0.1, "cover": "top"},
+           "source_score": "ratio", "shrink": 1.0, "explore": 0.1, "cover": "top", "exact_share": 0.0,
+           "cover_pool": 1.0},
 }
 
 
@@ -93,7 +95,7 @@ def study_learner(archive, learner: str, args, options: dict, progress) -> dict:
     if args.task:
         tasks = [t for t in tasks if t.task in set(args.task)]
     cache: dict = {}
-    gains, per_task, curves = [], [], {"warm": [], "cold": [], "seedlist": []}
+    gains, per_task, curves, p_values = [], [], {"warm": [], "cold": [], "seedlist": []}, []
     t0 = time.perf_counter()
     for i, task in enumerate(tasks):
         key = task.space.content_hash
@@ -121,6 +123,7 @@ def study_learner(archive, learner: str, args, options: dict, progress) -> dict:
             h = in_target(task.objective.values(task.space.encode(configs)), task.threshold, mx)
             others[label] = Runs(np.pad(h, (0, args.budget - len(h)))[None, :])
         result = compare(task.task, Runs(warm), Runs(cold), task.p, rng=args.seed, others=others)
+        p_values.append(paired_runs_p(warm, cold))
         for label, q in hindsight_rates(task, prior, args.budget).items():
             result.extra[f"q_{label}"] = q
         gains.append(result)
@@ -128,6 +131,7 @@ def study_learner(archive, learner: str, args, options: dict, progress) -> dict:
                          "q_cold": round(result.q_cold, 3), "q_seedlist": round(result.extra["q_seedlist"], 3)})
         progress(i + 1, len(tasks))
     pooled = pool(gains, rng=args.seed)
+    v = verdicts([g.task for g in gains], [g.gain for g in gains], p_values)
     p = np.mean([g.p for g in gains])
     q = {label: float(np.mean([g.extra[f"q_{label}"] for g in gains]))
          for label in ("seedlist", "defaults", "nearest", "best_past_task")}
@@ -139,6 +143,8 @@ def study_learner(archive, learner: str, args, options: dict, progress) -> dict:
         "gain_seedlist": math.log2(q["seedlist"] / np.mean([g.q_cold for g in gains])),
         "share_hurt_seedlist": float(np.mean([g.extra["q_seedlist"] < g.q_cold for g in gains])),
         "seconds": time.perf_counter() - t0, "tasks": per_task,
+        "wins": v.wins, "ties": v.ties, "losses": v.losses, "share_loss_low": v.share_loss_low,
+        "share_loss_high": v.share_loss_high, "significant_losses": v.significant_losses,
         "curves": {k: np.mean(v, axis=0).round(3).tolist() for k, v in curves.items()},
     }
 
@@ -175,6 +181,9 @@ def main(argv=None) -> None:
               f"{r['share_hurt']:5.2f} | {r['bits_warm']:5.2f} {r['bits_cold']:5.2f} {r['bits_seedlist']:5.2f} "
               f"{r['bits_defaults']:5.2f} {r['bits_nearest']:5.2f} {r['room']:+5.2f} | "
               f"{r['gain_seedlist']:+6.2f} {r['share_hurt_seedlist']:5.2f} {r['seconds']:4.0f}", flush=True)
+        print(f"   {r['wins']}/{r['ties']}/{r['losses']} win/tie/loss (+-0.1 bit), losses "
+              f"{r['losses'] / r['n_tasks']:.0%} (95% {r['share_loss_low']:.0%} to {r['share_loss_high']:.0%}), "
+              f"significant losses (Holm) {r['significant_losses']}", flush=True)
         if args.curves:
             for label, c in r["curves"].items():
                 print(f"   hit rate per query, {label:8}: " + " ".join(f"{v:.2f}" for v in c), flush=True)

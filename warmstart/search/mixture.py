@@ -141,6 +141,10 @@ class MixtureSearch(SearchStrategy):
         Share of the candidates drawn from a past task's good density that
         are its good configs themselves, without kernel noise (configs that
         did well before are candidates as they are).
+    cover_pool : float, default 1
+        Share of the coverage candidates (by weighted mean quantile over the
+        past tasks) the hedge may pick from: below 1 it covers top sets only
+        among configs the weighted past tasks rate highly on average.
     """
 
     def __init__(
@@ -164,6 +168,7 @@ class MixtureSearch(SearchStrategy):
         explore: float = 0.1,
         cover: str = "top",
         exact_share: float = 0.0,
+        cover_pool: float = 1.0,
     ):
         super().__init__(space, seed=seed, maximize=maximize)
         sources = getattr(prior, "sources", None)
@@ -171,7 +176,8 @@ class MixtureSearch(SearchStrategy):
             raise SearchError("prior must be a warmstart Prior with at least one source (past study); "
                               "build one with Archive.build_prior")
         for name, value in (("gamma", gamma), ("source_gamma", source_gamma),
-                            ("cover_fraction", cover_fraction), ("uniform", uniform)):
+                            ("cover_fraction", cover_fraction), ("uniform", uniform),
+                            ("cover_pool", cover_pool)):
             if isinstance(value, bool) or not isinstance(value, (int, float)) or not 0 < value <= 1:
                 raise SearchError(f"{name} must be a number in (0, 1], got {value!r}")
         if isinstance(explore, bool) or not isinstance(explore, (int, float)) or not 0 <= explore <= 1:
@@ -199,6 +205,7 @@ class MixtureSearch(SearchStrategy):
             "max_ranked": int(max_ranked), "prior_power": float(prior_power),
             "source_score": source_score, "shrink": float(shrink), "explore": float(explore),
             "cover": cover, "exact_share": float(exact_share),
+            "cover_pool": float(cover_pool),
         }
         self.__dict__.update(self.options)
         kept = [s for s in sources if s.X.shape[0] > 0]
@@ -387,6 +394,10 @@ class MixtureSearch(SearchStrategy):
             covered = self._in_top(Q).any(axis=0)
             best = Q.max(axis=0)
         allowed = ~self._known_rows(self._cover_rows)
+        if self.cover_pool < 1:  # only configs the weighted past tasks rate highly on average
+            mean_q = self._cover_q @ w_src
+            cut = np.quantile(mean_q, 1.0 - self.cover_pool)
+            allowed &= mean_q >= cut
         pick = greedy_cover(self._cover_top, self._cover_q, w_src, covered, allowed,
                             best=best if self.cover == "soft" else None)
         if pick is None:
@@ -474,4 +485,4 @@ class MixtureSearch(SearchStrategy):
     def _option_names() -> tuple[str, ...]:
         return ("gamma", "source_gamma", "n_hedge", "cover_fraction", "own_strength", "uniform",
                 "n_candidates", "n_boot", "max_ranked", "prior_power", "source_score", "shrink", "explore", "cover",
-                "exact_share")
+                "exact_share", "cover_pool")
