@@ -127,8 +127,10 @@ def study_learner(archive, learner: str, args, options: dict, progress) -> dict:
         for label, q in hindsight_rates(task, prior, args.budget).items():
             result.extra[f"q_{label}"] = q
         gains.append(result)
-        per_task.append({"task": task.task, "gain": round(result.gain, 3), "q_warm": round(result.q_warm, 3),
-                         "q_cold": round(result.q_cold, 3), "q_seedlist": round(result.extra["q_seedlist"], 3)})
+        per_task.append({"task": task.task, "half": half_of(task.task), "gain": result.gain, "p": task.p,
+                         "q_warm": result.q_warm, "q_cold": result.q_cold, "p_value": p_values[-1],
+                         **{f"q_{k}": result.extra[f"q_{k}"]
+                            for k in ("seedlist", "defaults", "nearest", "best_past_task")}})
         progress(i + 1, len(tasks))
     pooled = pool(gains, rng=args.seed)
     v = verdicts([g.task for g in gains], [g.gain for g in gains], p_values)

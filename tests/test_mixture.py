@@ -160,11 +160,15 @@ def test_misleading_source_costs_little_and_loses_its_weight():
 def test_the_trusted_source_takes_the_weight():
     prior = prior_from_sources(SPACE, [branin_source(3, sign=-1.0, similarity=1.0),
                                        branin_source(4, similarity=0.2)])
-    search = MixtureSearch(SPACE, prior, seed=0, maximize=False)
-    assert search.start_weights == pytest.approx([1 / 1.2, 0.2 / 1.2])
-    run_search(search, BRANIN, 8)
-    w_src, _ = search.current_weights()
-    assert w_src[1] > w_src[0]
+    assert MixtureSearch(SPACE, prior).start_weights == pytest.approx([1 / 1.2, 0.2 / 1.2])
+    weights = []
+    for seed in range(10):
+        search = MixtureSearch(SPACE, prior, seed=seed, maximize=False)
+        run_search(search, BRANIN, 8)
+        weights.append(search.current_weights()[0])
+    mean = np.mean(weights, axis=0)
+    # the similar-looking but misleading study falls from 0.83 to a small weight, the other rises above it
+    assert mean[0] < 0.1 and mean[1] > 3 * mean[0]
 
 
 @settings(max_examples=15, deadline=None, suppress_health_check=[HealthCheck.too_slow])
