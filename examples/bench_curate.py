@@ -240,7 +240,7 @@ def main() -> None:
             t0 = time.perf_counter()
             added = naive_merge(archive, sb)
             naive_time = time.perf_counter() - t0
-        from warmstart.archive.transfer import merge_archive
+        from warmstart.archive.merge import merge_archive
 
         with Archive(bulk_copy) as archive:
             t0 = time.perf_counter()

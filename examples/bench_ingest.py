@@ -134,7 +134,8 @@ def main() -> None:
     sample = read_table(sample_file)
     rows = [python_row(SPACE, r, fp, "gbt", row_study, i + 1) for i, r in enumerate(sample.to_dict(orient="records"))]
     with archive.transaction() as con:
-        con.executemany("INSERT INTO trials VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)", rows)
+        con.executemany("INSERT INTO trials (study_id, number, config, score, status, cost_s, started_at, "
+                        "finished_at, error, content_key) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)", rows)
     row_wall, row_cpu = time.perf_counter() - wall, time.process_time() - cpu
     load1 = os.getloadavg()[0]
 

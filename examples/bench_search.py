@@ -31,7 +31,7 @@ import time
 import numpy as np
 
 from warmstart.search.baselines import GPSearch, NelderMeadSearch, RandomSearch, SobolSearch
-from warmstart.progress import Progress
+from warmstart.cli.progress import Progress
 from warmstart.search.density import DensitySearch, run_search
 from warmstart.space import Space
 from warmstart.search.testfunctions import benchmark_functions
@@ -64,13 +64,12 @@ def problem(name: str):
             from sklearn import datasets
 
             from warmstart.evaluate.learners import cv_objective
-            from warmstart.evaluate.objective import score_function
 
             loader, learner, metric = REAL[name]
             data = getattr(datasets, loader)(as_frame=True)
             frame = pd.concat([data.data, data.target.rename("target")], axis=1)
             objective = cv_objective(frame, "target", learner, metric=metric, cv=3, seed=0)
-            _PROBLEMS[name] = (objective.space, score_function(objective), True, lambda best: 1.0 - best)
+            _PROBLEMS[name] = (objective.space, objective, True, lambda best: 1.0 - best)
     return _PROBLEMS[name]
 
 

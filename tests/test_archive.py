@@ -22,7 +22,8 @@ from warmstart.errors import ArchiveError, ArchiveLockedError, SpaceError, Warms
 from warmstart.space import Space
 
 PROFILE = {"log_rows": 4.0, "log_features": 1.1}  # given, so these tests need not profile data
-TABLES = {"schema_version", "archive_info", "tasks", "profiles", "spaces", "studies", "trials"}
+TABLES = {"schema_version", "archive_info", "tasks", "profiles", "spaces", "studies", "trials",
+          "leases", "requests", "gain_reports"}
 
 
 def trial_frame(space: Space, n: int = 12, seed: int = 0) -> pd.DataFrame:
@@ -43,12 +44,12 @@ def new_study(archive: Archive, space: Space, frame: pd.DataFrame, task: str = "
 
 def test_new_archive_has_the_schema(archive_path):
     with Archive(archive_path) as archive:
-        assert archive.schema_version == SCHEMA_VERSION == 1
+        assert archive.schema_version == SCHEMA_VERSION == 3
     con = duckdb.connect(str(archive_path), read_only=True)
     tables = {r[0] for r in con.execute("SELECT table_name FROM information_schema.tables").fetchall()}
     assert TABLES <= tables
     rows = con.execute("SELECT version, applied_at, duckdb_version FROM schema_version").fetchall()
-    assert [(r[0], r[2]) for r in rows] == [(1, duckdb.__version__)]
+    assert [(r[0], r[2]) for r in sorted(rows)] == [(v, duckdb.__version__) for v in (1, 2, 3)]
     assert con.execute("SELECT count(*) FROM archive_info").fetchall() == [(1,)]
     con.close()
 
@@ -127,7 +128,7 @@ def test_archive_with_a_newer_schema(archive_path, space, small_frame, table_dum
     con.close()
     before = table_dump(archive_path)
     for read_only in (False, True):
-        with pytest.raises(ArchiveError, match=r"schema version 2 is newer than this warmstart understands \(1\); upgrade warmstart"):
+        with pytest.raises(ArchiveError, match=r"schema version 4 is newer than this warmstart understands \(3\); upgrade warmstart"):
             Archive(archive_path, read_only=read_only)
     assert table_dump(archive_path) == before
 
@@ -333,7 +334,7 @@ def test_studies_study_and_trials(archive_path, space, small_frame):
         assert row["tags"] == {"team": "retail"} and row["owner"] == "ana"
         trials = archive.trials(up)
         assert list(trials.columns) == ["number", "config", "score", "status", "cost_s", "started_at",
-                                        "finished_at", "error", "content_key"]
+                                        "finished_at", "error", "content_key", "fold_scores"]
         assert trials["config"].tolist() == [space.normalize(c) for c in space.sample(12, rng=0)]
         table = archive.trial_table(up)
         assert list(table.columns[:1 + space.dim]) == ["number"] + space.names

@@ -21,9 +21,8 @@ from click.testing import CliRunner
 from conftest import dump_tables
 
 from warmstart.archive import Archive
-from warmstart.archive.ingest import SCORE_BOUNDS, metric_bounds
 from warmstart.cli import main
-from warmstart.evaluate.learners import METRICS
+from warmstart.evaluate.metrics import METRICS, SCORE_BOUNDS, metric_bounds
 
 TRIALS = (
     "C,tol,n_trees,depth,kernel,degree,score\n"

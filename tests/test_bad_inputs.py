@@ -27,7 +27,7 @@ from conftest import dump_tables
 from test_curate import SPACE, cli, make_data, make_trials
 
 from warmstart.archive import Archive
-from warmstart.archive.transfer import export_archive
+from warmstart.archive.exchange import export_archive
 
 
 class Files:
@@ -197,16 +197,17 @@ CASES = [
     # -- archive files ------------------------------------------------------------------------------
     Case("archive not a database", lambda f: ["studies"], ("junk.duckdb", "not a warmstart archive"),
          archive=lambda f: f.text("junk.duckdb", "hello, not a database")),
+    # `curate check` exits 5 when it cannot check at all (its documented statuses: 1 is "unsound")
     Case("archive a database but no archive", lambda f: ["curate", "check"], ("plain.duckdb", "not a warmstart archive"),
-         archive=lambda f: f.duckdb_file(["CREATE TABLE sales (x INTEGER)"], "plain.duckdb")),
+         archive=lambda f: f.duckdb_file(["CREATE TABLE sales (x INTEGER)"], "plain.duckdb"), exit_codes=(5,)),
     Case("archive from a newer schema (read)", lambda f: ["studies"], ("newer.duckdb", "schema version 99", "upgrade"),
          archive=lambda f: f.newer_archive()),
     Case("archive from a newer schema (write)", lambda f: ["curate", "check", "--fix"],
-         ("newer.duckdb", "newer than this warmstart"), archive=lambda f: f.newer_archive()),
+         ("newer.duckdb", "newer than this warmstart"), archive=lambda f: f.newer_archive(), exit_codes=(5,)),
     Case("archive is a directory", lambda f: ["curate", "dedupe"], ("is a directory",),
          archive=lambda f: f.path("folder").parent),
     Case("archive missing (read-only)", lambda f: ["curate", "check"], ("nothing.duckdb", "no archive here"),
-         archive=lambda f: f.root / "nothing.duckdb"),
+         archive=lambda f: f.root / "nothing.duckdb", exit_codes=(5,)),
     # -- merge ---------------------------------------------------------------------------------------
     Case("merge missing file", lambda f: ["curate", "merge", f.root / "absent.duckdb"],
          ("absent.duckdb", "no such file")),

@@ -13,6 +13,7 @@ import pandas as pd
 import pytest
 from click.testing import CliRunner
 
+from warmstart.archive import SCHEMA_VERSION
 from warmstart.cli import main
 from warmstart.space import Space
 
@@ -68,7 +69,7 @@ def assert_clean_failure(result, *parts, code=1):
 def test_init_with_archive_option(files):
     result = run("init", archive=files.archive)
     assert_ok(result)
-    assert result.stdout == f"archive ready: {files.archive} (schema 1, 0 studies)\n"
+    assert result.stdout == f"archive ready: {files.archive} (schema {SCHEMA_VERSION}, 0 studies)\n"
     assert files.archive.exists()
     assert_ok(run("init", archive=files.archive))  # again: checks, changes nothing
 
@@ -282,7 +283,7 @@ def _newer_schema(path):
     con = duckdb.connect(str(path))
     con.execute("INSERT INTO schema_version VALUES (?, now(), ?)", [99, "9.9.9"])
     con.close()
-    return "archive schema version 99 is newer than this warmstart understands (1); upgrade warmstart"
+    return f"archive schema version 99 is newer than this warmstart understands ({SCHEMA_VERSION}); upgrade warmstart"
 
 
 @pytest.mark.parametrize("make", [_not_duckdb, _other_duckdb, _newer_schema], ids=["not duckdb", "not an archive", "newer schema"])

@@ -122,11 +122,11 @@ def _inject_every_problem(path: Path) -> dict:
         con.execute("UPDATE profiles SET version = '0' WHERE task_id = ?", [old_profile])
         con.execute("INSERT INTO profiles VALUES (999, 'log_rows', 1.0, '1')")  # orphan profile
         con.execute("INSERT INTO trials SELECT 777, number, config, score, status, cost_s, started_at, finished_at, "
-                    "error, content_key FROM trials WHERE study_id = ? AND number <= 2", [b])  # 2 orphan trials
+                    "error, content_key, fold_scores FROM trials WHERE study_id = ? AND number <= 2", [b])  # 2 orphan trials
         con.execute("INSERT INTO studies (study_id, task_id, learner, space_id, metric, direction, origin, created_at) "
                     "SELECT 500, 4242, 'svm', space_id, 'score', 'maximize', 'cold', now() FROM spaces LIMIT 1")
         con.execute("INSERT INTO trials SELECT 500, number, config, score + 1, status, cost_s, started_at, "
-                    "finished_at, error, content_key FROM trials WHERE study_id = ? AND number <= 2", [b])
+                    "finished_at, error, content_key, fold_scores FROM trials WHERE study_id = ? AND number <= 2", [b])
         con.execute("UPDATE trials SET score = 'inf'::DOUBLE WHERE study_id = ? AND number = 1", [b])
         con.execute("UPDATE trials SET status = 'failed' WHERE study_id = ? AND number = 2", [b])
         con.execute("UPDATE trials SET content_key = 'stale' WHERE study_id = ? AND number = 3", [b])

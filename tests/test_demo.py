@@ -30,3 +30,26 @@ def test_demo_runs_end_to_end(tmp_path):
     html = (out / "report.html").read_text()
     assert html.count("<img") >= 4 and "Larkspur" in html
     assert (out / "demo.duckdb").exists()
+    # the command hands its progress bars to the demo: one per long step, on stderr
+    for bar in ("  history [", "  live [", "  replay ["):
+        assert bar in res.stderr
+
+
+def test_only_the_command_line_imports_click():
+    # the one-way rule: library modules print and draw progress through what their caller passes
+    import ast
+    from pathlib import Path
+
+    import warmstart
+
+    root = Path(warmstart.__file__).parent
+    offenders = []
+    for path in root.rglob("*.py"):
+        if path.relative_to(root).parts[0] == "cli":
+            continue
+        for node in ast.walk(ast.parse(path.read_text())):
+            names = [a.name for a in node.names] if isinstance(node, ast.Import) else \
+                [node.module or ""] if isinstance(node, ast.ImportFrom) else []
+            if any(n == "click" or n.startswith("click.") for n in names):
+                offenders.append(str(path.relative_to(root)))
+    assert offenders == []

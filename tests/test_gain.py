@@ -5,6 +5,8 @@ import math
 
 import numpy as np
 import pytest
+from hypothesis import given
+from hypothesis import strategies as st
 from scipy.stats import wilcoxon
 
 from warmstart.gain.bits import (
@@ -14,6 +16,7 @@ from warmstart.gain.bits import (
     bits_interval,
     compare,
     hit_rate,
+    hits_and_regret,
     in_target,
     pool,
     target_threshold,
@@ -145,3 +148,26 @@ def test_share_hurt_outside_noise_counts_only_unflagged_tasks():
     for r in results:
         del r.extra["within_noise"]
     assert math.isnan(pool(results).share_hurt_outside_noise)  # no flags: nothing to split on
+
+
+def test_hits_and_regret_by_hand():
+    # analytic: reference spans 0 (worst) to 1 (best); threshold 0.8
+    scores = np.array([[0.2, np.nan, 0.9, 0.5, 1.0],
+                       [np.nan, np.nan, 0.6, 0.7, 0.1]])
+    hits, regret = hits_and_regret(scores, 0.8, np.array([0.0, 0.3, 1.0]))
+    assert hits.tolist() == [[False, False, True, False, True], [False] * 5]
+    np.testing.assert_allclose(regret, [[0.8, 0.8, 0.1, 0.1, 0.0], [1.0, 1.0, 0.4, 0.3, 0.3]])
+    # minimising: the same scores read the other way round
+    hits, regret = hits_and_regret(scores[:1], 0.3, np.array([0.0, 1.0]), maximize=False)
+    assert hits.tolist() == [[True, False, False, False, False]]
+    np.testing.assert_allclose(regret, [[0.2, 0.2, 0.2, 0.2, 0.2]])
+
+
+@given(st.lists(st.floats(-10, 10), min_size=1, max_size=30), st.booleans())
+def test_regret_never_rises_stays_in_unit_interval_and_is_zero_at_the_best(values, maximize):
+    # invariants of best-so-far regret against a reference that holds the searched scores
+    scores = np.array(values)
+    hits, regret = hits_and_regret(scores, float(np.median(scores)), scores, maximize)
+    assert (np.diff(regret) <= 0).all() and ((0 <= regret) & (regret <= 1)).all()
+    assert regret[-1] == 0.0
+    assert (hits == in_target(scores, float(np.median(scores)), maximize)).all()

@@ -31,7 +31,8 @@ from test_curate import NASTY_LEARNER, NASTY_TASK, SPACE, add_study, cli, make_d
 
 from warmstart.archive import SCHEMA_VERSION, Archive
 from warmstart.archive.curate import archive_digest, check_archive, count_duplicates
-from warmstart.archive.transfer import MERGE_STEPS, export_archive, import_export, merge_archive
+from warmstart.archive.exchange import export_archive, import_export
+from warmstart.archive.merge import MERGE_STEPS, merge_archive
 from warmstart.errors import ArchiveError
 from warmstart.space import Space
 

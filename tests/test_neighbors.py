@@ -320,3 +320,57 @@ def test_best_score_with_studies_of_different_metrics(archive_file, tmp_path):
         row = neighbors(a, profile(frame, target), learner="svm", k=1).iloc[0]
         assert row["n_studies"] == 3 and row["trial_count"] == 6 + 2 + 12
         assert row["metric"] == "rmse (largest study)" and row["best_score"] == pytest.approx(3.0)
+
+
+# -- one similarity: what neighbors prints is what weights a prior ------------------
+def _study_weights_from_similarities(records: list[dict], studies: list[dict]) -> dict[int, float]:
+    """Normalised similarity per study: its task's similarity as `neighbors` printed it."""
+    by_task = {r["task_id"]: r["similarity"] for r in records}
+    raw = {s["study_id"]: by_task[s["task_id"]] for s in studies}
+    total = sum(raw.values())
+    return {study: value / total for study, value in raw.items()}
+
+
+def test_prior_weights_are_the_normalised_similarities_neighbors_prints(archive_file, tmp_path):
+    """The study weights `warmstart prior` reports equal the similarities
+    `warmstart neighbors` prints for the same table, normalised over the
+    studies the prior uses (DESIGN: one similarity)."""
+    path, target = _csv(tmp_path, "wine", seed=31)
+    space_file = tmp_path / "svm.json"
+    space_file.write_text(json.dumps(SPACE.to_dict()))
+    shown = _run("--archive", archive_file, "neighbors", path, "--target", target, "--learner", "svm",
+                 "-k", "100", "--json")
+    assert shown.exit_code == 0, shown.output
+    records = json.loads(shown.stdout)
+    built = _run("--archive", archive_file, "prior", path, "--target", target, "--learner", "svm",
+                 "--space", str(space_file), "--json")
+    assert built.exit_code == 0, built.output
+    used = json.loads(built.stdout)["neighbors"]
+    # every comparable svm task is a source (the regression task is not comparable with this profile)
+    assert sorted(r["task_id"] for r in used) == sorted(r["task_id"] for r in records) and len(used) == 8
+    expected = _study_weights_from_similarities(records, used)
+    for r in used:
+        assert r["weight"] == pytest.approx(expected[r["study_id"]], rel=1e-12)
+        assert r["similarity"] == pytest.approx({x["task_id"]: x["similarity"] for x in records}[r["task_id"]],
+                                                rel=1e-12)
+
+
+def test_leaving_tasks_out_of_a_prior_changes_no_other_similarity(archive_file, tmp_path):
+    """A task left out of a prior (the new task itself, a held-out task) drops
+    its studies; the others keep the similarity `neighbors` gives them, and
+    a task with two studies gives each the same similarity."""
+    copy = str(tmp_path / "copy.duckdb")
+    shutil.copy(archive_file, copy)
+    with Archive(copy) as a:
+        iris0 = a.task_id("iris-0")
+        a.add_trials(a.add_study(iris0, "svm", SPACE, metric="accuracy"),
+                     pd.DataFrame(GRID).assign(score=np.linspace(0.9, 0.5, len(GRID))))
+        prof = profile(*_resample("breast_cancer", 40))
+        shown = neighbors(a, prof, learner="svm", k=100)
+        left_out = int(shown["task_id"].iloc[0])
+        prior = a.build_prior(prof, learner="svm", space=SPACE, exclude_tasks=[left_out])
+    used = prior.provenance["neighbors"]
+    assert left_out not in {r["task_id"] for r in used}
+    assert sum(r["task_id"] == iris0 for r in used) == 2
+    expected = _study_weights_from_similarities(shown.to_dict(orient="records"), used)
+    assert {r["study_id"]: r["weight"] for r in used} == pytest.approx(expected, rel=1e-12)

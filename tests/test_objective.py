@@ -16,15 +16,11 @@ from pathlib import Path
 
 import pytest
 
-from warmstart.evaluate.objective import (
-    CallableObjective,
-    CommandObjective,
-    ObjectiveError,
-    TrialFailed,
-    TrialResult,
-    parse_score,
-    score_function,
-)
+from warmstart.evaluate.objective import CallableObjective, CommandObjective, ObjectiveError, parse_score
+from warmstart.evaluate.result import TrialResult
+from warmstart.search.baselines import RandomSearch
+from warmstart.search.strategy import run_search
+from warmstart.space import Space
 
 EXAMPLE = Path(__file__).resolve().parents[1] / "examples" / "objective_script.py"
 
@@ -172,11 +168,19 @@ def test_keyboard_interrupt_is_not_a_failed_trial():
         CallableObjective(fn)({"x": 1})
 
 
-def test_score_function_adapter_pickles_and_raises(tmp_path):
-    wrapped = score_function(CommandObjective(_script(tmp_path, ECHO)))
-    wrapped = pickle.loads(pickle.dumps(wrapped))
-    assert wrapped({"x": 1.5}) == 3.0
-    with pytest.raises(TrialFailed, match="ValueError: bad"):
-        score_function(CallableObjective(lambda c: (_ for _ in ()).throw(ValueError("bad"))))({"x": 1})
+def test_objectives_pickle_and_their_results_reach_the_search_loop_whole(tmp_path):
+    """A command objective runs through run_search as it is (no adapter): the
+    trial keeps the objective's score and cost, and a failure its error text
+    without any prefix."""
+    command = pickle.loads(pickle.dumps(CommandObjective(_script(tmp_path, ECHO))))
+    assert command({"x": 1.5}).score == 3.0
+    space = Space.from_dict({"params": {"x": {"type": "real", "low": 0.0, "high": 2.0}}})
+    result = run_search(RandomSearch(space, seed=0), command, 3)
+    for trial in result.trials:
+        assert trial.status == "ok" and trial.score == pytest.approx(2 * trial.config["x"])
+        assert trial.cost_s > 0 and trial.started_at <= trial.finished_at
+    failing = CallableObjective(lambda c: (_ for _ in ()).throw(ValueError("bad")))
+    trial = run_search(RandomSearch(space, seed=0), failing, 1).trials[0]
+    assert trial.status == "failed" and trial.error == "ValueError: bad" and trial.score is None
     result = TrialResult(1.0, "ok", 0.1)
     assert json.loads(json.dumps(result.to_dict()))["score"] == 1.0

@@ -174,7 +174,7 @@ def world(tmp_path_factory) -> dict:
         task = b.add_task("stores", make_data(9), "y", profile={"log_rows": 1.0})
         b.add_trials(b.add_study(task, "svm", SPACE), shared)
         b.add_trials(b.add_study(task, "svm", SPACE), own)
-        from warmstart.archive.transfer import export_archive
+        from warmstart.archive.exchange import export_archive
 
         export_archive(b, root / "b_store")
     return {"root": root, "a": root / "a.duckdb"}

@@ -11,7 +11,8 @@ from click.testing import CliRunner
 from warmstart.archive import Archive
 from warmstart.cli import main
 from warmstart.prior import Prior
-from warmstart.gain.replay import ReplayObjective, leave_one_task_out, replay_tasks
+from warmstart.gain.objectives import HeldOutObjective, ReplayObjective, SurrogateObjective
+from warmstart.gain.replay import leave_one_task_out, replay_tasks
 from warmstart.space import Space
 
 SPACE = Space.from_dict({"params": {
@@ -56,6 +57,8 @@ def test_replay_objective_returns_the_nearest_recorded_score():
     configs = SPACE.sample(40, rng)
     scores = rng.normal(size=40)
     obj = ReplayObjective(SPACE, SPACE.encode(configs), scores)
+    assert isinstance(obj, HeldOutObjective)  # the one protocol of replay objectives
+    assert isinstance(SurrogateObjective(SPACE, SPACE.encode(configs), scores), HeldOutObjective)
     assert obj(configs[7]) == scores[7]  # a recorded config scores what it scored
     # reference: brute-force nearest neighbour in the unit cube (choice mismatch counts 1)
     query = SPACE.sample(25, 1)
@@ -172,7 +175,7 @@ def test_unknown_replay_objective_is_refused(archive_path):
     from warmstart.errors import WarmstartError
 
     with Archive(archive_path, read_only=True) as archive:
-        with pytest.raises(WarmstartError, match="nearest, surrogate; got 'table'"):
+        with pytest.raises(WarmstartError, match="replay objective must be one of 'nearest', 'surrogate', got 'table'; pick one"):
             replay_tasks(archive, "toy", objective="table")
 
 

@@ -1,5 +1,5 @@
-"""Distances, kernel and rank agreement, against brute-force loops and
-SciPy references; retrieval of resampled real datasets and of synthetic
+"""Distances and the similarity kernel, against brute-force loops, analytic
+values and SciPy references; retrieval of resampled real datasets and of synthetic
 task families."""
 
 from __future__ import annotations
@@ -25,10 +25,11 @@ from warmstart.similarity import (
     feature_weights,
     median_bandwidth,
     profile_distances,
-    rank_agreement,
     similarity_kernel,
+    task_similarity,
+    kernel_bandwidth,
+    BANDWIDTH_SCALE,
 )
-from warmstart.space import Space
 
 
 pytestmark = pytest.mark.usefixtures("one_blas_thread")
@@ -117,11 +118,38 @@ def test_zero_weight_removes_a_feature():
 def test_kernel_and_median_heuristic():
     d = np.array([0.0, 0.5, 1.0, 2.0, np.inf])
     assert median_bandwidth(d) == pytest.approx(1.0)  # median of the finite positive distances
-    sim = similarity_kernel(d)
-    assert sim.tolist() == pytest.approx([1.0, math.exp(-0.125), math.exp(-0.5), math.exp(-2.0), 0.0])  # analytic
+    assert kernel_bandwidth(d) == pytest.approx(BANDWIDTH_SCALE * 1.0)
+    assert kernel_bandwidth(d, scale=1.0) == pytest.approx(1.0)
+    # analytic: exp(-d^2 / (2 h^2)) with h = 1
+    assert similarity_kernel(d, bandwidth=1.0).tolist() == pytest.approx(
+        [1.0, math.exp(-0.125), math.exp(-0.5), math.exp(-2.0), 0.0])
     assert similarity_kernel(d, bandwidth=2.0)[3] == pytest.approx(math.exp(-0.5))
     with pytest.raises(ProfileError, match="bandwidth must be a positive number"):
         similarity_kernel(d, bandwidth=0.0)
+    with pytest.raises(ProfileError, match="bandwidth scale must be a positive number, got -1"):
+        kernel_bandwidth(d, scale=-1)
+
+
+def test_task_similarity_is_the_default_kernel_at_half_the_median():
+    d = np.array([0.0, 0.5, 1.0, 2.0, np.inf])
+    # analytic: h = 0.5 x median(0.5, 1, 2) = 0.5, so exp(-2 d^2); distance 0 keeps 1, inf gets 0
+    expected = [1.0, math.exp(-0.5), math.exp(-2.0), math.exp(-8.0), 0.0]
+    assert task_similarity(d).tolist() == pytest.approx(expected)
+    assert similarity_kernel(d).tolist() == pytest.approx(expected)
+    # a task at the median distance keeps e^-2 of an identical task's weight
+    assert task_similarity(np.array([1.0, 1.0, 1.0])).tolist() == pytest.approx([math.exp(-2.0)] * 3)
+
+
+@settings(max_examples=60, deadline=None)
+@given(arrays(float, st.integers(2, 30), elements=st.floats(0.01, 100.0)), st.floats(0.1, 1000.0))
+def test_task_similarity_does_not_depend_on_the_units_of_distance(d, factor):
+    """Invariance: the bandwidth is relative to the median, so scaling every
+    distance leaves the similarities unchanged; nearer is never less similar."""
+    sim = task_similarity(d)
+    assert np.allclose(task_similarity(d * factor), sim, rtol=1e-9, atol=1e-12)
+    order = np.argsort(d, kind="stable")
+    assert np.all(np.diff(sim[order]) <= 1e-12)
+    assert np.all((sim >= 0) & (sim <= 1)) and sim.max() > 0  # far tasks may underflow to 0, never below
 
 
 def test_index_query_matches_argsort_and_candidates():
@@ -138,51 +166,6 @@ def test_index_query_matches_argsort_and_candidates():
     assert np.all(np.diff(sub["distance"]) >= 0) and np.all(np.diff(sub["similarity"]) <= 0)
     with pytest.raises(ProfileError, match="shares no meta-feature"):
         idx.query({"unrelated": 1.0})
-
-
-# -- rank agreement ------------------------------------------------------------------
-SPACE = Space.from_dict(
-    {"params": {"C": {"type": "real", "low": 1e-3, "high": 1e3, "log": True}, "kernel": {"type": "choice", "choices": ["rbf", "linear"]}}}
-)
-
-
-def test_rank_agreement_hand_computed_tau():
-    configs = [{"C": c, "kernel": "rbf"} for c in [0.01, 0.1, 1.0, 10.0]]
-    scores = [1.0, 2.0, 3.0, 4.0]
-    # neighbor evaluated the same configs (and nearby ones); one pair swapped
-    same = (configs, [1.0, 2.0, 4.0, 3.0])
-    reverse = (configs, [4.0, 3.0, 2.0, 1.0])
-    agree = rank_agreement(SPACE, configs, scores, [same, reverse])
-    assert agree.tau[0] == pytest.approx(4 / 6)  # analytic: 5 concordant, 1 discordant pair of 6
-    assert agree.tau[1] == pytest.approx(-1.0)
-    assert agree.weights[0] > agree.weights[1] and agree.weights.sum() == pytest.approx(1.0)
-    for j in range(2):  # z-value: the normal approximation SciPy uses for its asymptotic p-value
-        p = scipy.stats.kendalltau(scores, (same, reverse)[j][1], method="asymptotic").pvalue
-        assert 2 * scipy.stats.norm.sf(abs(agree.z[j])) == pytest.approx(p)  # reference: scipy.stats.kendalltau
-
-
-def test_rank_agreement_matches_nearest_configs_and_directions():
-    rng = np.random.default_rng(0)
-    f = lambda c: -((math.log10(c["C"]) - 1) ** 2) + (c["kernel"] == "rbf")  # noqa: E731
-    nb_configs = SPACE.sample(200, rng=1)
-    good = pd.DataFrame({"config": nb_configs, "score": [f(c) for c in nb_configs]})
-    flipped = pd.DataFrame({"config": nb_configs, "score": [-f(c) for c in nb_configs]})
-    new_configs = SPACE.sample(12, rng=2)
-    new_scores = [f(c) + rng.normal(0, 0.05) for c in new_configs]
-    agree = rank_agreement(SPACE, new_configs, new_scores, [good, flipped], neighbor_maximize=[True, False])
-    assert agree.tau[0] > 0.7 and agree.tau[1] == pytest.approx(agree.tau[0])  # a minimised copy agrees as well
-    # the new study minimises a loss: its ranking is the reverse
-    loss = rank_agreement(SPACE, new_configs, [-s for s in new_scores], [good], maximize=False)
-    assert loss.tau[0] == pytest.approx(agree.tau[0])
-    assert agree.to_frame().shape == (2, 4)
-
-
-def test_rank_agreement_needs_three_observations():
-    configs = [{"C": 1.0, "kernel": "rbf"}, {"C": 2.0, "kernel": "linear"}]
-    agree = rank_agreement(SPACE, configs, [0.1, 0.2], [(configs, [0.1, 0.2])], similarity=[0.3])
-    assert agree.tau.tolist() == [0.0] and agree.weights.tolist() == [1.0]
-    with pytest.raises(ProfileError, match="one entry per neighbor"):
-        rank_agreement(SPACE, configs, [0.1, 0.2], [(configs, [0.1, 0.2])], similarity=[0.3, 0.2])
 
 
 # -- retrieval -------------------------------------------------------------------------

@@ -8,7 +8,8 @@ from scipy.stats import spearmanr
 
 from warmstart.gain.bits import in_target, target_threshold
 from warmstart.space import Space
-from warmstart.gain.objectives import SurrogateObjective, gp_features
+from warmstart.gain.objectives import SurrogateObjective
+from warmstart.search.gp import gp_features
 from warmstart.search.testfunctions import branin
 
 pytestmark = pytest.mark.usefixtures("one_blas_thread")

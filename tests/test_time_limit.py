@@ -196,15 +196,49 @@ def test_a_job_that_cannot_be_sent_is_a_failed_run_not_a_crash():
 
 def _runner_in_daemon() -> tuple:
     runner = StoppableRunner(_job)
-    outcome = runner.run({}, limit=60)
-    return outcome.status, outcome.error
+    try:
+        done = runner.run({}, limit=120)
+        stopped = runner.run({"stages": 1, "sleep": 600}, limit=1)
+    finally:
+        runner.close()
+    return multiprocessing.current_process().daemon, os.getpid(), done, stopped
 
 
-def test_a_daemonic_process_gets_a_clear_failure():
-    # multiprocessing.Pool workers are daemonic and may not start processes
+def test_a_daemonic_process_runs_and_stops_trials_in_a_subprocess_child():
+    # multiprocessing.Pool workers are daemonic, as Dask's nanny workers are (Python's docs: a daemonic
+    # process may not create child processes); the runner starts its child with subprocess there
     with child_context().Pool(1) as pool:
-        status, error = pool.apply(_runner_in_daemon)
-    assert status == "ended" and "daemonic" in error and "ProcessPoolExecutor" in error
+        daemonic, worker, done, stopped = pool.apply(_runner_in_daemon)
+    assert daemonic
+    assert done.status == "done" and done.value not in (worker, os.getpid())
+    assert (stopped.status, stopped.stage) == ("timeout", 0)
+    assert _gone(done.value)
+
+
+def test_a_subprocess_child_reports_errors_deaths_and_limits_as_a_process_child_does():
+    runner = StoppableRunner(_job, command=True)
+    try:
+        first = runner.run({}, limit=120)
+        assert first.status == "done" and first.value != os.getpid()
+        assert runner.run({"raise": "bad config"}, limit=60).error == "ValueError: bad config"
+        assert runner.run({}, limit=60).value == first.value  # the child is kept between runs
+        killed = runner.run({"stages": 1, "kill": True}, limit=60)
+        assert (killed.status, killed.stage) == ("ended", 0)
+        assert killed.error == "the trial process ended unexpectedly: it was ended by signal SIGKILL"
+        stopped = runner.run({"stages": 2, "sleep": 600}, limit=1)
+        assert (stopped.status, stopped.stage) == ("timeout", 1)
+        assert _gone(first.value)
+    finally:
+        runner.close()
+
+
+def test_a_subprocess_child_whose_job_cannot_be_sent_is_a_failed_run():
+    runner = StoppableRunner(lambda payload, report: 1, command=True)  # a lambda does not pickle
+    outcome = runner.run({}, limit=60)
+    assert outcome.status == "ended" and outcome.error.startswith("the trial process could not start: ")
+    assert "pickle" in outcome.error.lower()
+    with pytest.raises(TypeError, match="command must be True, False or None"):
+        StoppableRunner(_job, command="yes")
 
 
 def _owner(queue) -> None:
@@ -353,7 +387,8 @@ def test_tune_records_trials_over_the_limit_as_failed(tmp_path, slow_csv, worker
     budget = 2 * workers
     result = _run(tmp_path, "tune", data, "--target", "target", "--learner", "mlp", "--space", space,
                   "--budget", budget, "--time-limit", 1, "--workers", workers, "--cold")
-    assert result.exit_code == 0, result.stderr
+    assert result.exit_code == 1, result.stderr  # every trial failed: a script must see it
+    assert "every trial failed" in result.stderr
     assert f"{budget} trials, {budget} failed" in result.stdout and "no trial succeeded" in result.stdout
     message = "trial exceeded its time limit of 1 s (stopped during fold 1 of 5)"
     assert f"{budget} failed with: {message}" in result.stdout

@@ -106,7 +106,8 @@ def test_tune_with_external_command(tmp_path):
 def test_time_limit_and_failed_trials(tmp_path, iris_csv):
     result = _run(tmp_path, "tune", iris_csv, "--target", "target", "--learner", "logreg", "--budget", 3,
                   "--time-limit", 1e-6)
-    assert result.exit_code == 0, result.stderr
+    assert result.exit_code == 1, result.stderr  # every trial failed (issue 17: exit statuses scripts trust)
+    assert "error: every trial failed (3 of 3)" in result.stderr
     assert "3 trials, 3 failed" in result.stdout and "no trial succeeded" in result.stdout
     with _archive(tmp_path) as archive:
         trials = archive.trials(1)

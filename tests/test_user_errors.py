@@ -53,7 +53,7 @@ def test_tune_says_why_its_trials_failed(tmp_path):
     frame.to_csv(data, index=False)
     res = CliRunner().invoke(main, ["--archive", str(tmp_path / "a.duckdb"), "tune", str(data), "--target", "target",
                                     "--learner", "svm", "--metric", "roc_auc", "--budget", "2", "--cold"])
-    assert res.exit_code == 0, res.output
+    assert res.exit_code == 1, res.output  # every trial failed: exit status 1 (tune --help)
     assert "2 failed" in res.output and "2 failed with: ValueError" in res.output
     shown = CliRunner().invoke(main, ["--archive", str(tmp_path / "a.duckdb"), "show", "1"])
     assert shown.exit_code == 0 and "failure   2 x ValueError" in shown.output

@@ -80,3 +80,81 @@ def test_tune_seeds_option_is_kept_with_the_study(tmp_path):
     assert proposals[3] in past and proposals[2] not in past
     bad = runner.invoke(main, base + [iris, "--target", "target", "--learner", "knn", "--seeds", "11"])
     assert bad.exit_code != 0 and "--seeds" in bad.output and "Traceback" not in bad.output
+
+
+# -- a warm study keeps the prior it started with --------------------------------------
+TOY_SPACE = {"params": {"x": {"type": "real", "low": 0.0, "high": 1.0},
+                        "k": {"type": "integer", "low": 1, "high": 64, "log": True}}}
+
+
+def _toy_trials(path, best_x: float, seed: int) -> str:
+    """24 configs with invented scores peaking at x = best_x, k = 8."""
+    import numpy as np
+    import pandas as pd
+
+    rng = np.random.default_rng(seed)
+    x, k = rng.random(24), rng.integers(1, 65, 24)
+    score = 1 - (x - best_x) ** 2 - 0.05 * (np.log2(k) - 3) ** 2
+    pd.DataFrame({"x": x, "k": k, "score": score}).to_csv(path, index=False)
+    return str(path)
+
+
+def _resample_csv(tmp_path, name, loader, seed) -> str:
+    frame = loader(as_frame=True).frame.sample(frac=1.0, replace=True, random_state=seed)
+    path = tmp_path / f"{name}-{seed}.csv"
+    frame.to_csv(path, index=False)
+    return str(path)
+
+
+def test_propose_on_a_warm_study_ignores_studies_added_since(tmp_path):
+    """`propose` on a warm study rebuilds the prior the study started with
+    (stored with the study), so studies added to the archive in between do
+    not change its proposals; a new study on the same data started now does
+    see them (so the comparison could fail). Tables: scikit-learn's bundled
+    datasets and bootstrap resamples of them; trial scores invented."""
+    import sys
+
+    runner = CliRunner()
+    archive = str(tmp_path / "a.duckdb")
+    space = tmp_path / "toy.json"
+    space.write_text(json.dumps(TOY_SPACE))
+    script = tmp_path / "never_run.py"
+    script.write_text("print(0.5)\n")
+
+    def ingest(task, data, best_x, seed):
+        trials = _toy_trials(tmp_path / f"trials of {task}.csv", best_x, seed)
+        res = runner.invoke(main, ["--archive", archive, "ingest", trials, "--task", task, "--data", data,
+                                   "--target", "target", "--learner", "toy", "--space", str(space)])
+        assert res.exit_code == 0, res.output
+
+    ingest("iris", _csv(tmp_path, "iris", load_iris), 0.2, 1)
+    ingest("wine", _csv(tmp_path, "wine", load_wine), 0.25, 2)
+    cancer = _csv(tmp_path, "cancer", load_breast_cancer)
+
+    def new_study(name) -> int:
+        res = runner.invoke(main, ["--archive", archive, "tune", cancer, "--target", "target", "--learner", "toy",
+                                   "--space", str(space), "--command", f"{sys.executable} {script}",
+                                   "--budget", "0", "--task", name, "--json"])
+        assert res.exit_code == 0, res.output
+        assert "warm start from" in res.stderr
+        return json.loads(res.stdout)["study_id"]
+
+    def propose(study) -> list:
+        res = runner.invoke(main, ["--archive", archive, "propose", "--study", str(study), "-k", "3", "--json"])
+        assert res.exit_code == 0, res.output
+        return json.loads(res.stdout)["configs"]
+
+    study = new_study("cancer")
+    before = propose(study)
+    # teammates add close relatives of the task, whose best configs lie elsewhere
+    for seed in (11, 12):
+        ingest(f"cancer resample {seed}", _resample_csv(tmp_path, "cancer", load_breast_cancer, seed), 0.9, seed)
+    assert propose(study) == before
+    started_now = new_study("cancer")  # the same table: the task is reused, and its new study sees the newcomers
+    assert propose(started_now) != before
+    with Archive(archive, read_only=True) as a:
+        kept, fresh = a.study(study)["prior"], a.study(started_now)["prior"]
+    assert [s["task"] for s in kept["recipe"]["sources"]] == ["iris", "wine"]
+    assert len(fresh["recipe"]["sources"]) == 4
+    res = runner.invoke(main, ["--archive", archive, "propose", "--study", str(study)])
+    assert "it started with" in res.stderr

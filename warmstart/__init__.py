@@ -23,7 +23,7 @@ import sys
 import types
 from typing import Any
 
-__version__ = "0.1.0"
+from warmstart._version import __version__
 
 #: public name -> module that defines it
 _WHERE = {
@@ -56,7 +56,7 @@ _WHERE = {
     "GPSearch": "warmstart.search.baselines",
     "NelderMeadSearch": "warmstart.search.baselines",
     # objectives
-    "TrialResult": "warmstart.evaluate.objective",
+    "TrialResult": "warmstart.evaluate.result",
     "CallableObjective": "warmstart.evaluate.objective",
     "CommandObjective": "warmstart.evaluate.objective",
     "cv_objective": "warmstart.evaluate.learners",
@@ -72,9 +72,9 @@ _WHERE = {
     # curation
     "check_archive": "warmstart.archive.curate",
     "dedupe_trials": "warmstart.archive.curate",
-    "merge_archive": "warmstart.archive.transfer",
-    "export_archive": "warmstart.archive.transfer",
-    "import_export": "warmstart.archive.transfer",
+    "merge_archive": "warmstart.archive.merge",
+    "export_archive": "warmstart.archive.exchange",
+    "import_export": "warmstart.archive.exchange",
 }
 
 __all__ = sorted(_WHERE) + ["__version__"]

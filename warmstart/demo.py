@@ -24,17 +24,27 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable
 
-import click
 import numpy as np
 import pandas as pd
 
-from warmstart.gain.bits import interval_text, queries_text
+from warmstart.archive import Archive
+from warmstart.evaluate.learners import cv_objective, default_space
 from warmstart.evaluate.workers import map_jobs
-from warmstart.progress import Progress
+from warmstart.gain.bits import interval_text, queries_text
+from warmstart.gain.live import LiveResult, live_gain
+from warmstart.gain.replay import ReplayResult, leave_one_task_out
+from warmstart.gain.report import write_report
+from warmstart.prior import Prior
+from warmstart.profile import profile
+from warmstart.search.static import FixedListSearch
+from warmstart.search.strategy import run_search
+from warmstart.space import Space
 
 __all__ = ["StoreTraits", "store_traits", "store_table", "demo_space", "run_demo", "ORGANISATION"]
 
 ORGANISATION = "Larkspur Provisions (an invented grocery cooperative)"
+#: The metric every demo study is tuned on.
+METRIC = "balanced_accuracy"
 _TOWNS = [
     "Alderbrook", "Bexley Fen", "Cobble Hill", "Dunmarrow", "Eastwick Lane", "Fallowmere", "Greyhaven",
     "Hollin Cross", "Ivybridge Row", "Juniper Vale", "Kestrel Point", "Larchmont", "Millbeck", "Nettlecombe",
@@ -112,9 +122,6 @@ def store_table(traits: StoreTraits, seed: int = 7) -> pd.DataFrame:
 def demo_space(learner: str = "svm"):
     """The space the demo tunes: the learner's default space, except for
     ``svm``, whose C range stops at 2**10 so no demo config trains for long."""
-    from warmstart.evaluate.learners import default_space
-    from warmstart.space import Space
-
     space = default_space(learner, "classification")
     if learner != "svm":
         return space
@@ -123,17 +130,23 @@ def demo_space(learner: str = "svm"):
     return Space.from_dict(d)
 
 
-def _history_study(args):
-    """Evaluate a Sobol design of the learner on one store (runs in a worker)."""
-    from warmstart.evaluate.learners import cv_objective
+@dataclass(frozen=True, eq=False)
+class _HistoryJob:
+    """One store's history study: the learner evaluated on a fixed design."""
 
-    frame, learner, configs, seed = args
-    objective = cv_objective(frame, "lapsed", learner, metric="balanced_accuracy", cv=3, seed=seed)
-    rows = []
-    for cfg in configs:
-        r = objective(cfg)
-        rows.append({**cfg, "score": r.score if r.status == "ok" else np.nan, "cost_s": r.cost_s})
-    return pd.DataFrame(rows)
+    frame: pd.DataFrame
+    learner: str
+    space: Space
+    configs: list
+    seed: int
+
+
+def _history_study(job: _HistoryJob) -> pd.DataFrame:
+    """Evaluate the design on one store (module level, so worker processes can run it):
+    one row per config, with its score (NaN when failed) and cost."""
+    objective = cv_objective(job.frame, "lapsed", job.learner, metric=METRIC, cv=3, seed=job.seed)
+    result = run_search(FixedListSearch(job.space, job.configs), objective, len(job.configs))
+    return pd.DataFrame([{**t.config, "score": s, "cost_s": t.cost_s} for t, s in zip(result.trials, result.scores)])
 
 
 def run_demo(
@@ -144,8 +157,9 @@ def run_demo(
     repeats: int = 5,
     workers: int = 2,
     learner: str = "svm",
-    echo: Callable[..., None] = click.echo,
+    echo: Callable[[str], None] = print,
     seed: int = 7,
+    progress: Callable[[str], Callable[[int, int], None]] | None = None,
 ) -> dict:
     """Run the whole job on the invented scenario and write a report.
 
@@ -164,50 +178,76 @@ def run_demo(
         Processes.
     learner : str
         Built-in learner to tune.
-    echo : callable
-        Printer (``click.echo`` from the command line).
+    echo : callable(text), default print
+        Where the figures go (the command line passes ``click.echo``).
+    seed : int, default 7
+        Seed of the invented stores, the design and the searches.
+    progress : callable(label) -> callable(done, total), optional
+        Makes a progress callback for each long step ("history", "live",
+        "replay"); none by default (the command line draws bars on stderr).
 
     Returns
     -------
     dict
         The figures printed: live gain, replay pooled gain, paths.
     """
-    from warmstart.archive import Archive
-    from warmstart.evaluate.learners import cv_objective
-    from warmstart.gain.live import live_gain
-    from warmstart.profile import profile
-    from warmstart.gain.replay import leave_one_task_out
-    from warmstart.gain.report import write_report
-
     started = time.monotonic()
-    out = Path(out_dir)
+    bar = progress or (lambda label: None)
+    db = _fresh_archive_path(Path(out_dir))
+    echo(f"warmstart demo: {ORGANISATION}. Every store and figure in it is invented.")
+    echo(f"Each store predicts which loyalty members lapse next quarter; we tune {learner!r} for them.\n")
+    space = demo_space(learner)
+    stores = [store_traits(i, seed) for i in range(n_history + 1)]
+    tables = [store_table(t, seed) for t in stores]
+    with Archive(str(db)) as archive:
+        _build_history(archive, stores[:n_history], tables[:n_history], space, learner, n_configs, workers, seed,
+                       echo, bar("  history"))
+        echo(f"   archive: {db} ({n_history} studies, {n_history * n_configs} trials)\n")
+        new, new_table = stores[n_history], tables[n_history]
+        built = _meet_new_store(archive, new, new_table, space, learner, echo)
+        live = _live_step(new, new_table, space, learner, built, budget, repeats, workers, seed, echo, bar("  live"))
+        replay = _replay_step(archive, learner, budget, workers, seed, echo, bar("  replay"))
+    report = write_report(
+        [live, replay], db.parent / "report.html", title="warmstart demo: Larkspur Provisions (invented scenario)",
+        notes=[f"{ORGANISATION}: all stores and data are invented and generated with seed {seed}.",
+               "A tuned cross-validation score is optimistic: keep an untouched test set for the final check."],
+    )
+    elapsed = time.monotonic() - started
+    echo(f"\nreport: {report}   (demo took {elapsed:.0f}s)")
+    return {"live": live.tasks[0].to_dict(), "replay": replay.pooled.to_dict(), "report": str(report),
+            "archive": str(db), "seconds": elapsed}
+
+
+def _fresh_archive_path(out: Path) -> Path:
+    """``out/demo.duckdb``, with any previous demo archive (and its WAL) removed."""
     out.mkdir(parents=True, exist_ok=True)
     db = out / "demo.duckdb"
     for stale in (db, Path(str(db) + ".wal")):
         if stale.exists():
             stale.unlink()
-    echo(f"warmstart demo: {ORGANISATION}. Every store and figure in it is invented.")
-    echo(f"Each store predicts which loyalty members lapse next quarter; we tune {learner!r} for them.\n")
+    return db
 
-    space = demo_space(learner)
-    stores = [store_traits(i, seed) for i in range(n_history + 1)]
-    tables = [store_table(t, seed) for t in stores]
-    archive = Archive(str(db))
-    echo(f"1. Building a tuning history: {n_configs} configs of {learner!r} on each of {n_history} stores "
+
+def _build_history(archive: Archive, stores: list[StoreTraits], tables: list[pd.DataFrame], space: Space,
+                   learner: str, n_configs: int, workers: int, seed: int, echo: Callable[[str], None],
+                   progress: Callable[[int, int], None] | None) -> None:
+    """Step 1: the same Sobol design evaluated on every history store, ingested as one study each."""
+    echo(f"1. Building a tuning history: {n_configs} configs of {learner!r} on each of {len(stores)} stores "
          f"(3-fold cross-validated balanced accuracy)")
     design = space.sobol(n_configs, np.random.default_rng(seed))
-    bar = Progress("  history")
-    jobs = [(tables[i], learner, design, seed) for i in range(n_history)]
-    results = map_jobs(_history_study, jobs, workers, bar)
-    for i in range(n_history):
-        archive.ingest(results[i], task=stores[i].name, data=tables[i], target="lapsed", learner=learner,
-                       space=space, metric="balanced_accuracy", where=f"demo history of {stores[i].name}",
+    jobs = [_HistoryJob(table, learner, space, design, seed) for table in tables]
+    results = map_jobs(_history_study, jobs, workers, progress)
+    for store, table, trials in zip(stores, tables, results):
+        archive.ingest(trials, task=store.name, data=table, target="lapsed", learner=learner,
+                       space=space, metric=METRIC, where=f"demo history of {store.name}",
                        source="warmstart.demo", owner="demo", tags={"scenario": "larkspur"})
-    echo(f"   archive: {db} ({n_history} studies, {n_history * n_configs} trials)\n")
 
-    new, new_table = stores[n_history], tables[n_history]
-    echo(f"2. A new store joins: {new.name} ({len(new_table)} members, {new_table.shape[1] - 1} columns)")
-    prof = profile(new_table, target="lapsed")
+
+def _meet_new_store(archive: Archive, new: StoreTraits, table: pd.DataFrame, space: Space, learner: str,
+                    echo: Callable[[str], None]) -> Prior:
+    """Steps 2 to 4: the new store's profile, its nearest past stores and the prior they give."""
+    echo(f"2. A new store joins: {new.name} ({len(table)} members, {table.shape[1] - 1} columns)")
+    prof = profile(table, target="lapsed")
     shown = ["log_rows", "log_features", "class_entropy", "minority_share", "landmark_1nn", "landmark_lda"]
     echo("   profile: " + ", ".join(f"{k} {prof[k]:.3g}" for k in shown if k in prof))
     neigh = archive.neighbors(prof, learner=learner, k=5)
@@ -218,33 +258,35 @@ def run_demo(
     built = archive.build_prior(prof, learner=learner, space=space)
     echo("\n4. The prior built from them:")
     echo("\n".join("   " + line for line in built.summary(n=3).splitlines()))
+    return built
 
+
+def _live_step(new: StoreTraits, table: pd.DataFrame, space: Space, learner: str, prior: Prior, budget: int,
+               repeats: int, workers: int, seed: int, echo: Callable[[str], None],
+               progress: Callable[[int, int], None] | None) -> LiveResult:
+    """Step 5: warm and cold searches side by side on the new store."""
     echo(f"\n5. Warm and cold searches side by side on {new.name}: budget {budget}, {repeats} runs each "
          f"(target: top 5% of a 64-config reference sample)")
-    objective = cv_objective(new_table, "lapsed", learner, metric="balanced_accuracy", cv=3, seed=seed)
-    live = live_gain(space, objective, built, budget=budget, repeats=repeats, seed=seed, workers=workers,
-                     task=new.name, learner=f"{learner} (live, {new.name})", progress=Progress("  live"))
+    objective = cv_objective(table, "lapsed", learner, metric=METRIC, cv=3, seed=seed)
+    live = live_gain(space, objective, prior, budget=budget, repeats=repeats, seed=seed, workers=workers,
+                     task=new.name, learner=f"{learner} (live, {new.name})", progress=progress)
     t = live.tasks[0]
     echo(f"   warm: {t.bits_warm:+.2f} bits over uniform, cold: {t.bits_cold:+.2f} bits")
     echo(f"   gain of warm over cold: {t.gain:+.2f} bits ({interval_text(t.gain_low, t.gain_high)}; "
          f"{t.verdict}){' [a search never hit: smoothed]' if t.smoothed else ''}")
     echo(f"   median queries to the first hit: warm {queries_text(t.first_hit_warm)}, "
          f"cold {queries_text(t.first_hit_cold)}")
+    return live
 
+
+def _replay_step(archive: Archive, learner: str, budget: int, workers: int, seed: int,
+                 echo: Callable[[str], None], progress: Callable[[int, int], None] | None) -> ReplayResult:
+    """Step 6: leave-one-store-out replay over the whole history."""
     echo(f"\n6. Does transfer help across the whole history? Leave-one-store-out replay, budget {budget}:")
     replay = leave_one_task_out(archive, learner, budget=budget, repeats=10, seed=seed, workers=workers,
-                                progress=Progress("  replay"))
+                                progress=progress)
     pg = replay.pooled
     echo(f"   pooled over {pg.n_tasks} stores: warm {pg.bits_warm:+.2f} bits, cold {pg.bits_cold:+.2f} bits; "
          f"gain {pg.gain:+.2f} bits (95% {pg.gain_low:+.2f} to {pg.gain_high:+.2f}), "
          f"transfer hurt on {pg.share_hurt:.0%} of stores")
-    report = write_report(
-        [live, replay], out / "report.html", title="warmstart demo: Larkspur Provisions (invented scenario)",
-        notes=[f"{ORGANISATION}: all stores and data are invented and generated with seed {seed}.",
-               "A tuned cross-validation score is optimistic: keep an untouched test set for the final check."],
-    )
-    archive.close()
-    elapsed = time.monotonic() - started
-    echo(f"\nreport: {report}   (demo took {elapsed:.0f}s)")
-    return {"live": t.to_dict(), "replay": pg.to_dict(), "report": str(report), "archive": str(db),
-            "seconds": elapsed}
+    return replay

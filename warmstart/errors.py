@@ -12,7 +12,9 @@ __all__ = [
     "SpaceError",
     "ArchiveError",
     "ArchiveLockedError",
+    "ArchiveDamagedError",
     "IngestError",
+    "ObjectiveError",
     "ProfileError",
 ]
 
@@ -31,6 +33,28 @@ class ArchiveError(WarmstartError):
 
 class ArchiveLockedError(ArchiveError):
     """Another process holds the archive for writing."""
+
+
+class ArchiveDamagedError(ArchiveError):
+    """The archive file is damaged: cut short, or a block fails its checksum.
+
+    The message names the file and says what to do (``warmstart curate
+    salvage`` copies what can still be read into a new archive).
+
+    Attributes
+    ----------
+    unreadable : tuple
+        What could not be read, when it is known: ``(table, column, detail)``
+        triples (from ``warmstart curate check``, which reads every block).
+    """
+
+    def __init__(self, message: str, unreadable: tuple = ()):
+        super().__init__(message)
+        self.unreadable = tuple(unreadable)
+
+
+class ObjectiveError(WarmstartError, ValueError):
+    """An objective cannot be set up as asked (unknown command, bad metric ...)."""
 
 
 class IngestError(WarmstartError, ValueError):

@@ -25,6 +25,7 @@ similarity-weighted mean quantile they had in the sources.
 
 from __future__ import annotations
 
+import hashlib
 import json
 import math
 from dataclasses import dataclass, field
@@ -37,7 +38,11 @@ from warmstart.errors import WarmstartError
 from warmstart.search.kde import MixedKDE
 from warmstart.space import Space, unit_distances
 
-__all__ = ["Prior", "PriorError", "Source", "prior_from_sources", "within_study_quantiles", "unit_distances"]
+__all__ = ["Prior", "PriorError", "Source", "prior_from_sources", "within_study_quantiles", "unit_distances",
+           "RECIPE_FORMAT"]
+
+#: Format tag of :meth:`Prior.recipe`.
+RECIPE_FORMAT = "warmstart-prior-recipe/1"
 
 #: Probability that a source orders a pair of configs wrongly, in the
 #: pairwise-concordance re-weighting (our choice; 0.25 keeps one lucky pair
@@ -89,6 +94,18 @@ class Source:
     similarity: float = 1.0
     distance: float = float("nan")
     notes: dict = field(default_factory=dict)
+
+    @property
+    def digest(self) -> str:
+        """Hash of what a prior takes from this source: its aligned configs,
+        their quantiles and clipped flags (16 hex digits of SHA-256)."""
+        h = hashlib.sha256()
+        X = np.asarray(self.X, dtype=float)
+        h.update(str(X.shape).encode())
+        h.update(np.ascontiguousarray(np.where(np.isnan(X), -1.0, X)).tobytes())  # one spelling of "inactive"
+        h.update(np.ascontiguousarray(np.asarray(self.quantile, dtype=float)).tobytes())
+        h.update(np.ascontiguousarray(np.asarray(self.clipped, dtype=bool)).tobytes())
+        return h.hexdigest()[:16]
 
 
 def within_study_quantiles(scores: Sequence[float], maximize: bool = True) -> np.ndarray:
@@ -250,6 +267,18 @@ class Prior:
         configs = [self.space.normalize(c) for c in configs]
         return self.logpdf_unit(self.space.encode(configs))
 
+    @property
+    def candidates(self) -> np.ndarray:
+        """Encoded rows of the candidate seeds: the distinct top configs of
+        every source, shape (m, d)."""
+        return self._candidates
+
+    @property
+    def candidate_quantiles(self) -> np.ndarray:
+        """The quantile each source predicts for each candidate (that of its
+        nearest recorded config), shape (m, n_sources)."""
+        return self._Q
+
     def seed_scores(self) -> np.ndarray:
         """Weighted mean quantile of every candidate seed across sources."""
         return self._Q @ self.weights
@@ -345,6 +374,29 @@ class Prior:
     def __repr__(self) -> str:
         return (f"Prior({len(self.sources)} studies, strength={self.strength:.2f}, "
                 f"agreement={self.agreement:.2f}, space={self.space.dim} params)")
+
+    def recipe(self) -> dict:
+        """What rebuilds this prior exactly from the archive it came from.
+
+        Per source, in order: its study and task, how many successful trials
+        it used (the first ones by trial number), its similarity and distance,
+        and :attr:`Source.digest` to check that the trials read back are the
+        same; plus the options. A few hundred bytes per source, against the
+        whole recorded history that :meth:`to_dict` carries.
+        """
+        return {
+            "format": RECIPE_FORMAT,
+            "space_hash": self.space.content_hash,
+            "top_fraction": self.top_fraction,
+            "n_seeds": self.n_seeds,
+            "info": dict(self.info),
+            "sources": [
+                {"study_id": int(s.study_id), "task_id": int(s.task_id), "task": s.task,
+                 "trial_count": int(s.X.shape[0]), "similarity": float(s.similarity),
+                 "distance": None if not math.isfinite(s.distance) else float(s.distance), "digest": s.digest}
+                for s in self.sources
+            ],
+        }
 
     # -- JSON ------------------------------------------------------------------
     def to_dict(self) -> dict:

@@ -34,7 +34,7 @@ import pandas as pd
 from pandas.api import types as ptypes
 
 from warmstart.errors import ProfileError
-from warmstart.data.features import feature_frame
+from warmstart.data.clean import clean_table
 from warmstart.data.read import TableError, column_not_found
 
 __all__ = [
@@ -127,12 +127,14 @@ def profile(
     Parameters
     ----------
     frame : pandas.DataFrame
-        The dataset, target column included. The features are the other
-        columns as :func:`warmstart.data.read.feature_frame` gives them:
-        identifier columns left out, dates written as text as days since
-        1970-01-01.
+        The dataset, target column included. The profile sees the table
+        :func:`warmstart.data.clean.clean_table` gives (the same table the
+        cross-validated objective sees): identifier columns left out, dates
+        written as text as days since 1970-01-01, rows without a target left
+        out, text labels that differ only in case or surrounding spaces
+        merged, infinite feature values missing.
     target : str
-        Name of the target column. Rows where it is missing are left out.
+        Name of the target column.
     kind : {"classification", "regression"}, optional
         Task kind; detected with :func:`detect_kind` when not given.
     seed : int, default 0
@@ -173,13 +175,14 @@ def profile(
 
 
 def _features(frame: pd.DataFrame, target: str, keep_columns) -> pd.DataFrame:
-    """The table as :func:`warmstart.data.read.feature_frame` gives it, with
+    """The table as :func:`warmstart.data.clean.clean_table` gives it, with
     profile errors for what it refuses."""
     _check_input(frame, target)  # type, emptiness, target column: the messages of the table as given
     try:
-        table, notes = feature_frame(frame, target, keep=keep_columns)
+        cleaned = clean_table(frame, target, keep_columns=keep_columns)
     except TableError as exc:
         raise ProfileError(str(exc)) from None
+    table, notes = cleaned.frame, cleaned.column_notes
     if table.shape[1] == 1:
         raise ProfileError(
             f"every feature column was left out: {'; '.join(f'{c!r} {why}' for c, why in notes.items())}; "

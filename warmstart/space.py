@@ -201,6 +201,8 @@ class Alignment:
 
 
 def _parse_param(name: str, spec: Any, where: str) -> Param:
+    # long: one check per field of a parameter's spec, in the order a reader writes them, each with its
+    # own message naming the field; split by kind, the shared checks (name, type, condition) would repeat
     if not isinstance(name, str) or not name:
         raise SpaceError(f"{where}: parameter names must be non-empty strings, got {name!r}")
     if not isinstance(spec, Mapping):

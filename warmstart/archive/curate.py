@@ -37,10 +37,12 @@ from typing import Callable, Iterable, Mapping
 
 import pandas as pd
 
-from warmstart.archive.ingest import SCORE_BOUNDS
-from warmstart.archive.labels import PrunePlan, _changed, _q, apply_prune, filter_studies, label_study, plan_prune
-from warmstart.archive.store import Archive
+from warmstart.archive.labels import PrunePlan, apply_prune, filter_studies, label_study, plan_prune
+from warmstart.archive.faults import check_blocks
+from warmstart.archive.sql import fetch, rows_changed
+from warmstart.archive.store import ARCHIVE_TABLES, Archive
 from warmstart.errors import ArchiveError, SpaceError
+from warmstart.evaluate.metrics import SCORE_BOUNDS
 from warmstart.space import Space
 
 __all__ = [
@@ -60,7 +62,6 @@ __all__ = [
     "ARCHIVE_TABLES",
 ]
 
-ARCHIVE_TABLES = ("schema_version", "archive_info", "tasks", "profiles", "spaces", "studies", "trials")
 _EXAMPLES = 5  # how many culprits a finding names
 
 # For each trial, the earliest study holding an exact copy of it (its ``keeper``):
@@ -143,16 +144,15 @@ def _count_examples(
     archive: Archive, sql: str, label: Callable[[tuple], str], params: list | None = None
 ) -> tuple[int, tuple]:
     """Count the rows of ``sql`` and name the first few."""
-    n = _q(archive, f"SELECT count(*) FROM ({sql})", params)[0][0]
-    rows = _q(archive, f"SELECT * FROM ({sql}) LIMIT {_EXAMPLES}", params) if n else []
+    n = fetch(archive.con, f"SELECT count(*) FROM ({sql})", params)[0][0]
+    rows = fetch(archive.con, f"SELECT * FROM ({sql}) LIMIT {_EXAMPLES}", params) if n else []
     return int(n), tuple(label(r) for r in rows)
 
 
 def _space_problems(archive: Archive) -> tuple[dict[int, Space], list[str], list[str]]:
     """Parse every space: (parsed spaces, unreadable ones, stale hashes)."""
     parsed, unreadable, stale = {}, [], []
-    for space_id, learner, definition, stored in _q(
-        archive, "SELECT space_id, learner, definition, content_hash FROM spaces ORDER BY space_id"
+    for space_id, learner, definition, stored in fetch(archive.con, "SELECT space_id, learner, definition, content_hash FROM spaces ORDER BY space_id"
     ):
         try:
             d = json.loads(definition)
@@ -171,7 +171,7 @@ def _outside_space(archive: Archive, spaces: dict[int, Space], progress: Callabl
     """Trials whose stored config is not a valid config of its study's space."""
     total = 0
     if progress:
-        total = _q(archive, "SELECT count(*) FROM (SELECT DISTINCT s.space_id, t.config FROM trials t "
+        total = fetch(archive.con, "SELECT count(*) FROM (SELECT DISTINCT s.space_id, t.config FROM trials t "
                             "JOIN studies s USING (study_id))")[0][0]
     done = 0
     result = archive.con.execute(
@@ -200,7 +200,7 @@ def _outside_space(archive: Archive, spaces: dict[int, Space], progress: Callabl
 def count_duplicates(archive: Archive) -> int:
     """Number of exact duplicate trials (those dedupe would drop): copies of
     a trial of an earlier study; repeats within one study are not counted."""
-    return int(_q(archive, f"SELECT count(*) FROM ({_DUPLICATE_RANK}) WHERE study_id <> keeper")[0][0])
+    return int(fetch(archive.con, f"SELECT count(*) FROM ({_DUPLICATE_RANK}) WHERE study_id <> keeper")[0][0])
 
 
 def copies_elsewhere(archive: Archive, study: int) -> tuple[int, list[int]]:
@@ -214,8 +214,7 @@ def copies_elsewhere(archive: Archive, study: int) -> tuple[int, list[int]]:
     (int, list of int)
         Trials of ``study`` with a copy elsewhere, and the other studies' ids.
     """
-    n, others = _q(
-        archive,
+    n, others = fetch(archive.con,
         "SELECT count(DISTINCT t.number), array_sort(list(DISTINCT o.study_id)) "
         "FROM trials t JOIN studies s USING (study_id) "
         "JOIN trials o ON o.content_key = t.content_key AND o.study_id <> t.study_id AND o.status = t.status "
@@ -242,89 +241,139 @@ def check_archive(archive: Archive, progress: Callable[[int, int], None] | None 
     -------
     CheckReport
         One :class:`Finding` per check, ``report.ok`` when all counts are 0.
+
+    Raises
+    ------
+    ArchiveDamagedError
+        A block of the file cannot be read (every value of every column is
+        read first: :func:`warmstart.archive.faults.check_blocks`).
     """
-    from warmstart.profile import PROFILE_VERSION
-
-    findings = []
-
-    def add(check: str, fixable: bool, what: str, sql: str, label: Callable[[tuple], str], params=None) -> None:
-        n, ex = _count_examples(archive, sql, label, params)
-        findings.append(Finding(check, n, fixable, what, ex))
-
-    add("orphan_profiles", True, "profile rows of a task that does not exist",
-        "SELECT DISTINCT task_id FROM profiles WHERE task_id NOT IN (SELECT task_id FROM tasks)",
-        lambda r: f"task id {r[0]}")
-    add("orphan_trials", True, "trials of a study that does not exist",
-        "SELECT study_id, number FROM trials WHERE study_id NOT IN (SELECT study_id FROM studies) "
-        "ORDER BY study_id, number", lambda r: f"study {r[0]} trial {r[1]}")
-    add("studies_without_task", False, "studies whose task does not exist (prune them or restore the task)",
-        "SELECT study_id, task_id FROM studies WHERE task_id NOT IN (SELECT task_id FROM tasks) ORDER BY study_id",
-        lambda r: f"study {r[0]} (task id {r[1]})")
-    add("studies_without_space", False, "studies whose space does not exist (prune them or restore the space)",
-        "SELECT study_id, space_id FROM studies WHERE space_id NOT IN (SELECT space_id FROM spaces) "
-        "ORDER BY study_id", lambda r: f"study {r[0]} (space id {r[1]})")
+    check_blocks(archive.con, archive.path, ARCHIVE_TABLES)  # a damaged file first: the checks below would stop at its first bad block
     spaces, unreadable, stale_hash = _space_problems(archive)
-    findings.append(Finding("unreadable_spaces", len(unreadable), False,
-                            "space definitions that are not a valid space", tuple(unreadable[:_EXAMPLES])))
-    findings.append(Finding("stale_space_hashes", len(stale_hash), True,
-                            "spaces whose stored content hash does not match their definition",
-                            tuple(stale_hash[:_EXAMPLES])))
-    n, ex = _outside_space(archive, spaces, progress)
-    findings.append(Finding("trials_outside_space", n, False,
-                            "trials whose config is not valid in their study's space (prune or fix by hand)", ex))
-    add("nonfinite_scores_ok", True, "trials marked ok whose score is missing, NaN or infinite (become failed)",
-        "SELECT study_id, number, score FROM trials WHERE status = 'ok' AND (score IS NULL OR NOT isfinite(score)) "
-        "ORDER BY study_id, number", lambda r: f"study {r[0]} trial {r[1]} (score {r[2]})")
+    n, examples = _outside_space(archive, spaces, progress)
+    findings = [
+        *_reference_findings(archive),
+        Finding("unreadable_spaces", len(unreadable), False, "space definitions that are not a valid space",
+                tuple(unreadable[:_EXAMPLES])),
+        Finding("stale_space_hashes", len(stale_hash), True,
+                "spaces whose stored content hash does not match their definition", tuple(stale_hash[:_EXAMPLES])),
+        Finding("trials_outside_space", n, False,
+                "trials whose config is not valid in their study's space (prune or fix by hand)", examples),
+        *_score_findings(archive),
+        *_trial_findings(archive),
+        *_coverage_findings(archive),
+    ]
+    return CheckReport(archive.path, tuple(findings), _check_notes(archive))
+
+
+def _finding(archive: Archive, check: str, fixable: bool, what: str, sql: str, label: Callable[[tuple], str],
+             params: list | None = None) -> Finding:
+    """A finding counted (and its first culprits named) by one query."""
+    n, examples = _count_examples(archive, sql, label, params)
+    return Finding(check, n, fixable, what, examples)
+
+
+def _reference_findings(archive: Archive) -> list[Finding]:
+    """Rows pointing at a task, study or space that does not exist."""
+    return [
+        _finding(archive, "orphan_profiles", True, "profile rows of a task that does not exist",
+                 "SELECT DISTINCT task_id FROM profiles WHERE task_id NOT IN (SELECT task_id FROM tasks)",
+                 lambda r: f"task id {r[0]}"),
+        _finding(archive, "orphan_trials", True, "trials of a study that does not exist",
+                 "SELECT study_id, number FROM trials WHERE study_id NOT IN (SELECT study_id FROM studies) "
+                 "ORDER BY study_id, number", lambda r: f"study {r[0]} trial {r[1]}"),
+        _finding(archive, "studies_without_task", False,
+                 "studies whose task does not exist (prune them or restore the task)",
+                 "SELECT study_id, task_id FROM studies WHERE task_id NOT IN (SELECT task_id FROM tasks) "
+                 "ORDER BY study_id", lambda r: f"study {r[0]} (task id {r[1]})"),
+        _finding(archive, "studies_without_space", False,
+                 "studies whose space does not exist (prune them or restore the space)",
+                 "SELECT study_id, space_id FROM studies WHERE space_id NOT IN (SELECT space_id FROM spaces) "
+                 "ORDER BY study_id", lambda r: f"study {r[0]} (space id {r[1]})"),
+    ]
+
+
+def _score_findings(archive: Archive) -> list[Finding]:
+    """Scores that cannot be: missing on an ok trial, outside a built-in metric's range, on a failed trial."""
     # Valid ranges of the built-in metrics: scikit-learn's metric definitions (see SCORE_BOUNDS).
     bounds = [(m, lo, hi) for m, (lo, hi) in SCORE_BOUNDS.items()]
-    add("scores_out_of_range", False,
-        "ok trials whose score is impossible for their built-in metric, e.g. accuracy above 1 (prune or fix by hand)",
-        "SELECT t.study_id, t.number, s.metric, t.score FROM trials t JOIN studies s USING (study_id) "
-        "JOIN (VALUES " + ", ".join(["(?, CAST(? AS DOUBLE), CAST(? AS DOUBLE))"] * len(bounds)) + ") "
-        "AS b(metric, lo, hi) ON b.metric = s.metric "
-        "WHERE t.status = 'ok' AND isfinite(t.score) AND (t.score < b.lo OR t.score > b.hi) "
-        "ORDER BY t.study_id, t.number",
-        lambda r: f"study {r[0]} trial {r[1]} ({r[2]} {r[3]})", [v for row in bounds for v in row])
-    add("failed_with_score", True, "failed trials that carry a score (the score moves into the error text)",
-        "SELECT study_id, number, score FROM trials WHERE status = 'failed' AND score IS NOT NULL "
-        "ORDER BY study_id, number", lambda r: f"study {r[0]} trial {r[1]} (score {r[2]})")
-    add("stale_content_keys", True, "trials whose content key does not match task fingerprint, learner and config",
-        _STALE_KEYS + " ORDER BY t.study_id, t.number", lambda r: f"study {r[1]} trial {r[2]}")
-    add("repeated_trial_numbers", True, "trials sharing a number with another trial of the same study",
-        "SELECT study_id, number, count(*) AS n FROM trials GROUP BY study_id, number HAVING count(*) > 1 "
-        "ORDER BY study_id, number", lambda r: f"study {r[0]} trial {r[1]} ({r[2]} times)")
-    add("duplicate_trials", True,
-        "trials repeating a trial of an earlier study (same task data, learner, config, metric and result; "
-        "the earliest study keeps its copies)",
-        f"SELECT study_id, number FROM ({_DUPLICATE_RANK}) WHERE study_id <> keeper ORDER BY study_id, number",
-        lambda r: f"study {r[0]} trial {r[1]}")
-    add("profile_version_mismatch", False,
-        f"tasks whose profile is not version {PROFILE_VERSION} (needs the dataset: ingest it again to re-profile)",
-        "SELECT k.task_id, k.name, min(p.version), max(p.version) FROM tasks k JOIN profiles p USING (task_id) "
-        "GROUP BY k.task_id, k.name HAVING min(p.version) <> ? OR max(p.version) <> ? ORDER BY k.task_id",
-        lambda r: f"task {r[1]!r} (version {r[2]}" + (f"..{r[3]}" if r[3] != r[2] else "") + ")",
-        [str(PROFILE_VERSION)] * 2)
-    add("studies_without_trials", True, "studies with no trials",
-        "SELECT study_id FROM studies WHERE study_id NOT IN (SELECT study_id FROM trials) ORDER BY study_id",
-        lambda r: f"study {r[0]}")
-    add("tasks_without_profiles", False, "tasks with no profile (needs the dataset: ingest it again to profile it)",
-        "SELECT task_id, name FROM tasks WHERE task_id NOT IN (SELECT task_id FROM profiles) ORDER BY task_id",
-        lambda r: f"task {r[1]!r}")
+    return [
+        _finding(archive, "nonfinite_scores_ok", True,
+                 "trials marked ok whose score is missing, NaN or infinite (become failed)",
+                 "SELECT study_id, number, score FROM trials WHERE status = 'ok' AND (score IS NULL OR NOT "
+                 "isfinite(score)) ORDER BY study_id, number",
+                 lambda r: f"study {r[0]} trial {r[1]} (score {r[2]})"),
+        _finding(archive, "scores_out_of_range", False,
+                 "ok trials whose score is impossible for their built-in metric, e.g. accuracy above 1 "
+                 "(prune or fix by hand)",
+                 "SELECT t.study_id, t.number, s.metric, t.score FROM trials t JOIN studies s USING (study_id) "
+                 "JOIN (VALUES " + ", ".join(["(?, CAST(? AS DOUBLE), CAST(? AS DOUBLE))"] * len(bounds)) + ") "
+                 "AS b(metric, lo, hi) ON b.metric = s.metric "
+                 "WHERE t.status = 'ok' AND isfinite(t.score) AND (t.score < b.lo OR t.score > b.hi) "
+                 "ORDER BY t.study_id, t.number",
+                 lambda r: f"study {r[0]} trial {r[1]} ({r[2]} {r[3]})", [v for row in bounds for v in row]),
+        _finding(archive, "failed_with_score", True,
+                 "failed trials that carry a score (the score moves into the error text)",
+                 "SELECT study_id, number, score FROM trials WHERE status = 'failed' AND score IS NOT NULL "
+                 "ORDER BY study_id, number", lambda r: f"study {r[0]} trial {r[1]} (score {r[2]})"),
+    ]
+
+
+def _trial_findings(archive: Archive) -> list[Finding]:
+    """Trials whose key, number or existence is wrong: stale keys, repeated numbers, duplicates."""
+    return [
+        _finding(archive, "stale_content_keys", True,
+                 "trials whose content key does not match task fingerprint, learner and config",
+                 _STALE_KEYS + " ORDER BY t.study_id, t.number", lambda r: f"study {r[1]} trial {r[2]}"),
+        _finding(archive, "repeated_trial_numbers", True, "trials sharing a number with another trial of the same study",
+                 "SELECT study_id, number, count(*) AS n FROM trials GROUP BY study_id, number HAVING count(*) > 1 "
+                 "ORDER BY study_id, number", lambda r: f"study {r[0]} trial {r[1]} ({r[2]} times)"),
+        _finding(archive, "duplicate_trials", True,
+                 "trials repeating a trial of an earlier study (same task data, learner, config, metric and result; "
+                 "the earliest study keeps its copies)",
+                 f"SELECT study_id, number FROM ({_DUPLICATE_RANK}) WHERE study_id <> keeper ORDER BY study_id, number",
+                 lambda r: f"study {r[0]} trial {r[1]}"),
+    ]
+
+
+def _coverage_findings(archive: Archive) -> list[Finding]:
+    """What a prior cannot use: profiles of another version, studies without trials, tasks without profiles."""
+    from warmstart.profile import PROFILE_VERSION
+
+    return [
+        _finding(archive, "profile_version_mismatch", False,
+                 f"tasks whose profile is not version {PROFILE_VERSION} (needs the dataset: ingest it again to "
+                 "re-profile)",
+                 "SELECT k.task_id, k.name, min(p.version), max(p.version) FROM tasks k JOIN profiles p USING (task_id) "
+                 "GROUP BY k.task_id, k.name HAVING min(p.version) <> ? OR max(p.version) <> ? ORDER BY k.task_id",
+                 lambda r: f"task {r[1]!r} (version {r[2]}" + (f"..{r[3]}" if r[3] != r[2] else "") + ")",
+                 [str(PROFILE_VERSION)] * 2),
+        _finding(archive, "studies_without_trials", True, "studies with no trials",
+                 "SELECT study_id FROM studies WHERE study_id NOT IN (SELECT study_id FROM trials) ORDER BY study_id",
+                 lambda r: f"study {r[0]}"),
+        _finding(archive, "tasks_without_profiles", False,
+                 "tasks with no profile (needs the dataset: ingest it again to profile it)",
+                 "SELECT task_id, name FROM tasks WHERE task_id NOT IN (SELECT task_id FROM profiles) ORDER BY task_id",
+                 lambda r: f"task {r[1]!r}"),
+    ]
+
+
+def _check_notes(archive: Archive) -> dict[str, int]:
+    """Counts shown beside the findings: sizes, repeated evaluations, unused spaces."""
+    con = archive.con
     notes = {
-        "tasks": _q(archive, "SELECT count(*) FROM tasks")[0][0],
-        "studies": _q(archive, "SELECT count(*) FROM studies")[0][0],
-        "trials": _q(archive, "SELECT count(*) FROM trials")[0][0],
-        "repeated_configs_other_result": _q(
-            archive,
-            "SELECT count(*) FROM (SELECT t.content_key, s.metric FROM trials t JOIN studies s USING (study_id) "
+        "tasks": fetch(con, "SELECT count(*) FROM tasks")[0][0],
+        "studies": fetch(con, "SELECT count(*) FROM studies")[0][0],
+        "trials": fetch(con, "SELECT count(*) FROM trials")[0][0],
+        "repeated_configs_other_result": fetch(
+            con, "SELECT count(*) FROM (SELECT t.content_key, s.metric FROM trials t JOIN studies s USING (study_id) "
             "GROUP BY t.content_key, s.metric HAVING count(DISTINCT (t.status, t.score)) > 1)",
         )[0][0],
-        "repeated_evaluations_same_result": _q(archive, _REPEATS_IN_STUDY)[0][0],
-        "spaces_without_studies": _q(
-            archive, "SELECT count(*) FROM spaces WHERE space_id NOT IN (SELECT space_id FROM studies)"
-        )[0][0],
+        "repeated_evaluations_same_result": fetch(con, _REPEATS_IN_STUDY)[0][0],
+        "spaces_without_studies": fetch(
+            con, "SELECT count(*) FROM spaces WHERE space_id NOT IN (SELECT space_id FROM studies)")[0][0],
     }
-    return CheckReport(archive.path, tuple(findings), {k: int(v) for k, v in notes.items()})
+    return {k: int(v) for k, v in notes.items()}
 
 
 _EMPTIED = (
@@ -339,7 +388,7 @@ def _carry_labels(archive: Archive, emptied: list[tuple[int, list[int]]]) -> Non
     ids = sorted({s for s, _ in emptied} | {k for _, keepers in emptied for k in keepers})
     if not ids:
         return
-    rows = _q(archive, f"SELECT study_id, owner, tags FROM studies WHERE study_id IN ({', '.join('?' * len(ids))}) "
+    rows = fetch(archive.con, f"SELECT study_id, owner, tags FROM studies WHERE study_id IN ({', '.join('?' * len(ids))}) "
                        "ORDER BY created_at, study_id", ids)
     labels = {int(r[0]): [r[1], json.loads(r[2]) if r[2] else {}] for r in rows}
     order = {study: i for i, study in enumerate(labels)}
@@ -366,17 +415,15 @@ def _delete_duplicates(archive: Archive) -> tuple[int, int]:
     studies that held nothing else, whose labels go to the studies that keep
     their trials; returns (trials, studies) removed. Call inside a transaction."""
     # The ranking joins studies, so find the studies to empty before deleting anything.
-    found = _q(archive, _EMPTIED)
+    found = fetch(archive.con, _EMPTIED)
     _carry_labels(archive, [(int(s), [int(k) for k in keepers]) for s, keepers in found])
     emptied = [int(r[0]) for r in found]
-    trials = _changed(
-        archive, f"DELETE FROM trials WHERE rowid IN (SELECT rid FROM ({_DUPLICATE_RANK}) WHERE study_id <> keeper)"
+    trials = rows_changed(archive.con, f"DELETE FROM trials WHERE rowid IN (SELECT rid FROM ({_DUPLICATE_RANK}) WHERE study_id <> keeper)"
     )
     studies = 0
     for start in range(0, len(emptied), 1000):
         chunk = emptied[start:start + 1000]
-        studies += _changed(
-            archive, f"DELETE FROM studies WHERE study_id IN ({', '.join('?' * len(chunk))})", chunk
+        studies += rows_changed(archive.con, f"DELETE FROM studies WHERE study_id IN ({', '.join('?' * len(chunk))})", chunk
         )
     return trials, studies
 
@@ -395,8 +442,7 @@ def fix_archive(archive: Archive) -> list[tuple[str, int]]:
         n_hash = 0
         for space_id, space in parsed.items():
             fresh = space.content_hash
-            n_hash += _changed(
-                archive, "UPDATE spaces SET content_hash = ? WHERE space_id = ? AND content_hash <> ?",
+            n_hash += rows_changed(archive.con, "UPDATE spaces SET content_hash = ? WHERE space_id = ? AND content_hash <> ?",
                 [fresh, space_id, fresh],
             )
         steps = [
@@ -423,13 +469,13 @@ def fix_archive(archive: Archive) -> list[tuple[str, int]]:
         if n_hash:
             done.append(("recomputed stale space content hashes", n_hash))
         for what, sql in steps:
-            n = _changed(archive, sql)
+            n = rows_changed(archive.con, sql)
             if n:
                 done.append((what, n))
         trials, emptied = _delete_duplicates(archive)
         if trials:
             done.append(("deleted trials repeating an earlier study's (kept the earliest study's copies)", trials))
-        n = _changed(archive, "DELETE FROM studies WHERE study_id NOT IN (SELECT study_id FROM trials)") + emptied
+        n = rows_changed(archive.con, "DELETE FROM studies WHERE study_id NOT IN (SELECT study_id FROM trials)") + emptied
         if n:
             done.append(("deleted studies with no trials", n))
     return done
@@ -456,8 +502,7 @@ def dedupe_trials(archive: Archive, dry_run: bool = False) -> tuple[int, int]:
         one of their trials was a duplicate of an earlier study's.
     """
     if dry_run:
-        emptied = _q(
-            archive,
+        emptied = fetch(archive.con,
             f"SELECT count(*) FROM ({_EMPTIED})",
         )[0][0]
         return count_duplicates(archive), int(emptied)
@@ -479,15 +524,18 @@ def archive_digest(archive: Archive, ignore: Mapping[str, Iterable[str]] | None 
         outcome of two runs of one command made at different times).
     """
     out = {}
+    present = {r[0] for r in fetch(archive.con, "SELECT table_name FROM information_schema.tables "
+                                                "WHERE table_schema = 'main' AND table_catalog = current_database()")}
     for table in ARCHIVE_TABLES:  # identifiers from the allow-list only
+        if table not in present:  # a version-1 archive opened read-only has no service tables
+            continue
         columns = [d[0] for d in archive.con.execute(f"SELECT * FROM {table} LIMIT 0").description]
         dropped = set((ignore or {}).get(table, ()))
         unknown = dropped - set(columns)
         if unknown:
             raise ArchiveError(f"table {table} has no column(s) {sorted(unknown)}; it has {columns}")
         kept = ", ".join(c for c in columns if c not in dropped)  # names from the table itself
-        n, digest = _q(
-            archive,
+        n, digest = fetch(archive.con,
             f"SELECT count(*), sha256(coalesce(string_agg(x, chr(10) ORDER BY x), '')) "
             f"FROM (SELECT CAST(ROW({kept}) AS VARCHAR) AS x FROM {table})",
         )[0]

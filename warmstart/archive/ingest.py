@@ -17,51 +17,13 @@ import numpy as np
 import pandas as pd
 
 from warmstart.errors import IngestError
+from warmstart.evaluate.metrics import METRICS, metric_bounds, metric_direction
 from warmstart.space import Param, Space
 
-__all__ = ["prepare_trials", "EXTRA_COLUMNS", "param_columns", "metric_bounds", "study_direction", "SCORE_BOUNDS"]
+__all__ = ["prepare_trials", "EXTRA_COLUMNS", "param_columns", "study_direction"]
 
 EXTRA_COLUMNS = ("score", "status", "cost_s", "started_at", "finished_at", "error")
 _STATUS = ("ok", "failed")
-
-#: Range of values each built-in metric (``warmstart.evaluate.learners.METRICS``) can
-#: take, as (low, high); None = unbounded on that side. Source: the metric
-#: definitions in scikit-learn's documentation (User Guide, "Metrics and
-#: scoring"): accuracy, balanced accuracy, ROC AUC and F1 are shares in
-#: [0, 1]; R² is at most 1 (arbitrarily negative for a bad model); log loss,
-#: RMSE and MAE are non-negative. Scores are stored in natural units (an
-#: error is positive), as :class:`warmstart.evaluate.learners.CVObjective` reports them.
-SCORE_BOUNDS: dict[str, tuple[float | None, float | None]] = {
-    "accuracy": (0.0, 1.0),
-    "balanced_accuracy": (0.0, 1.0),
-    "roc_auc": (0.0, 1.0),
-    "f1_macro": (0.0, 1.0),
-    "r2": (None, 1.0),
-    "log_loss": (0.0, None),
-    "rmse": (0.0, None),
-    "mae": (0.0, None),
-}
-
-
-def metric_bounds(metric: str | None) -> tuple[float, float] | None:
-    """Valid score range of a built-in metric, or None for a custom metric name.
-
-    Parameters
-    ----------
-    metric : str or None
-        Metric name as stored with a study.
-
-    Returns
-    -------
-    (float, float) or None
-        ``(low, high)``, with ``-inf``/``inf`` on an unbounded side (see
-        :data:`SCORE_BOUNDS`).
-    """
-    if metric not in SCORE_BOUNDS:
-        return None
-    low, high = SCORE_BOUNDS[metric]
-    return (-np.inf if low is None else low, np.inf if high is None else high)
-
 
 def _describe_range(low: float, high: float) -> str:
     if np.isinf(low):
@@ -74,7 +36,7 @@ def _describe_range(low: float, high: float) -> str:
 def study_direction(metric: str, minimize: bool | None) -> bool:
     """Whether a new study of ``metric`` maximises its score.
 
-    A built-in metric (``warmstart.evaluate.learners.METRICS``) knows its direction; a
+    A built-in metric (:data:`warmstart.evaluate.metrics.METRICS`) knows its direction; a
     flag that contradicts it is refused. A custom metric name follows the
     flag (default: higher is better).
 
@@ -95,8 +57,6 @@ def study_direction(metric: str, minimize: bool | None) -> bool:
     IngestError
         When ``minimize`` contradicts a built-in metric's direction.
     """
-    from warmstart.evaluate.learners import METRICS, metric_direction
-
     if metric not in METRICS:
         return True if minimize is None else not minimize
     maximize = metric_direction(metric)
@@ -243,6 +203,22 @@ def prepare_trials(space: Space, frame: pd.DataFrame, where: str = "trials", met
         bad statuses or times, scores outside a built-in metric's range,
         or an empty table.
     """
+    frame, columns = _checked_columns(space, frame, where)
+    codes, present, numeric = _parameter_cells(space, frame, columns, where)
+    active = space.active_mask(codes)
+    _check_active_given(space, frame, columns, active, present, where)
+    out = _parameter_columns(space, frame, codes, numeric, active, where)
+    score, failed = _scores(frame, columns, where, metric)
+    out["score"] = np.where(failed, np.nan, score)
+    out["status"] = pd.Categorical.from_codes(failed.astype(np.int8), categories=list(_STATUS))
+    out.update(_costs_and_times(frame, columns, where))
+    out["error"] = _error_texts(frame, columns, np.isfinite(score))
+    return pd.DataFrame(out)
+
+
+def _checked_columns(space: Space, frame: Any, where: str) -> tuple[pd.DataFrame, list[str]]:
+    """The table with text column names and a fresh index; refuses no rows, repeated,
+    unknown or missing columns."""
     if not isinstance(frame, pd.DataFrame):
         raise IngestError(f"{where}: expected a table (DataFrame), got {type(frame).__name__}")
     if len(frame) == 0:
@@ -260,15 +236,20 @@ def prepare_trials(space: Space, frame: pd.DataFrame, where: str = "trials", met
         )
     if "score" not in columns:
         raise IngestError(f"{where}: no 'score' column; columns are {columns}")
-    n = len(frame)
     missing_cols = [p.name for p in space.params if p.name not in columns and not p.when]
     if missing_cols:
         raise IngestError(
             f"{where}: missing column(s) for parameter(s) {missing_cols}; every unconditional "
             f"parameter of the space ({space.names}) needs a column"
         )
+    return frame, columns
 
-    # Level indices of choice parameters first: conditions depend on them.
+
+def _parameter_cells(space: Space, frame: pd.DataFrame, columns: list[str],
+                     where: str) -> tuple[np.ndarray, np.ndarray, dict[int, np.ndarray]]:
+    """Per cell: the level index of a choice (what conditions test; 0 for a given
+    number), whether a value is given, and the numbers of real/integer columns."""
+    n = len(frame)
     codes = np.full((n, space.dim), np.nan)
     present = np.zeros((n, space.dim), dtype=bool)
     numeric: dict[int, np.ndarray] = {}
@@ -285,7 +266,12 @@ def prepare_trials(space: Space, frame: pd.DataFrame, where: str = "trials", met
             present[:, j] = ~np.isnan(vals)
             numeric[j] = vals
             codes[present[:, j], j] = 0.0
-    active = space.active_mask(codes)
+    return codes, present, numeric
+
+
+def _check_active_given(space: Space, frame: pd.DataFrame, columns: list[str], active: np.ndarray,
+                        present: np.ndarray, where: str) -> None:
+    """Refuse a row where an active parameter has no value."""
     for j, p in enumerate(space.params):
         lacking = active[:, j] & ~present[:, j]
         if lacking.any():
@@ -295,6 +281,11 @@ def prepare_trials(space: Space, frame: pd.DataFrame, where: str = "trials", met
             raw = frame[p.name].iloc[row]
             raise _fail(where, row, p.name, raw, f"is missing or not finite, but parameter {p.name!r} is active here; {p.describe()}")
 
+
+def _parameter_columns(space: Space, frame: pd.DataFrame, codes: np.ndarray, numeric: dict[int, np.ndarray],
+                       active: np.ndarray, where: str) -> dict[str, Any]:
+    """The prepared value columns ``p0 ..``: range and whole-number checks; missing where inactive."""
+    n = len(frame)
     out: dict[str, Any] = {}
     for j, (p, name) in enumerate(zip(space.params, param_columns(space))):
         use = active[:, j]
@@ -320,7 +311,12 @@ def prepare_trials(space: Space, frame: pd.DataFrame, where: str = "trials", met
             out[name] = pd.arrays.IntegerArray(np.where(use, vals, 0).astype(np.int64), ~use)
         else:
             out[name] = np.where(use, vals, np.nan)
+    return out
 
+
+def _scores(frame: pd.DataFrame, columns: list[str], where: str, metric: str | None) -> tuple[np.ndarray, np.ndarray]:
+    """Scores as numbers and which trials failed (status ``failed``, or no finite score);
+    a successful score outside a built-in metric's range is refused."""
     score = _numeric(frame["score"], where, "score", "a score must be a number (empty, NaN or inf mark a failed trial)")
     finite = np.isfinite(score)
     if "status" in columns:
@@ -342,9 +338,13 @@ def prepare_trials(space: Space, frame: pd.DataFrame, where: str = "trials", met
             raise _fail(where, row, "score", frame["score"].iloc[row],
                         f"is impossible for metric {metric!r}: its scores are {_describe_range(*bounds)} "
                         "(scikit-learn's metric definitions)")
-    out["score"] = np.where(failed, np.nan, score)
-    out["status"] = pd.Categorical.from_codes(failed.astype(np.int8), categories=list(_STATUS))
+    return score, failed
 
+
+def _costs_and_times(frame: pd.DataFrame, columns: list[str], where: str) -> dict[str, Any]:
+    """``cost_s`` (seconds >= 0) and ``started_at``/``finished_at`` (UTC, naive); missing when not given."""
+    n = len(frame)
+    out: dict[str, Any] = {}
     if "cost_s" in columns:
         cost = _numeric(frame["cost_s"], where, "cost_s", "cost_s is the trial's cost in seconds (a number >= 0)")
         bad = ~np.isnan(cost) & ((cost < 0) | np.isinf(cost))
@@ -365,12 +365,16 @@ def prepare_trials(space: Space, frame: pd.DataFrame, where: str = "trials", met
             out[name] = stamps.dt.tz_convert(None).astype("datetime64[us]")
         else:
             out[name] = pd.Series(pd.NaT, index=range(n), dtype="datetime64[us]")
+    return out
+
+
+def _error_texts(frame: pd.DataFrame, columns: list[str], finite: np.ndarray) -> np.ndarray:
+    """The error text of each trial; a trial without a finite score says so when it has none."""
     if "error" in columns:
         given = frame["error"]
         errors = given.astype("string").astype(object).to_numpy().copy()
         errors[pd.isna(given).to_numpy()] = None
     else:
-        errors = np.full(n, None, dtype=object)
+        errors = np.full(len(frame), None, dtype=object)
     errors[~finite & pd.isna(errors)] = "score is missing or not finite"
-    out["error"] = errors
-    return pd.DataFrame(out)
+    return errors

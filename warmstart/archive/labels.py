@@ -14,20 +14,11 @@ from typing import Any, Iterable, Mapping
 
 import pandas as pd
 
+from warmstart.archive.sql import fetch, rows_changed
 from warmstart.archive.store import Archive
 from warmstart.errors import ArchiveError
 
 __all__ = ["filter_studies", "PrunePlan", "plan_prune", "apply_prune", "label_study"]
-
-
-def _q(archive: Archive, sql: str, params: Any = None) -> list[tuple]:
-    return archive.con.execute(sql, params or []).fetchall()
-
-
-def _changed(archive: Archive, sql: str, params: Any = None) -> int:
-    """Run a DELETE/UPDATE and return how many rows it changed."""
-    rows = _q(archive, sql, params)
-    return int(rows[0][0]) if rows else 0
 
 
 def _parse_date(value: Any) -> datetime:
@@ -159,9 +150,8 @@ def apply_prune(archive: Archive, plan: PrunePlan) -> tuple[int, int]:
         con.register(view, ids)
         try:
             status = " AND status = 'failed'" if plan.failed_only else ""
-            trials = _changed(archive, f"DELETE FROM trials WHERE study_id IN (SELECT study_id FROM {view}){status}")
-            studies = _changed(
-                archive,
+            trials = rows_changed(archive.con, f"DELETE FROM trials WHERE study_id IN (SELECT study_id FROM {view}){status}")
+            studies = rows_changed(archive.con,
                 f"DELETE FROM studies WHERE study_id IN (SELECT study_id FROM {view}) "
                 "AND study_id NOT IN (SELECT study_id FROM trials)",
             )
@@ -195,7 +185,7 @@ def label_study(
     dict
         ``{"study_id", "owner", "tags"}`` after the change.
     """
-    rows = _q(archive, "SELECT tags, owner FROM studies WHERE study_id = ?", [int(study)])
+    rows = fetch(archive.con, "SELECT tags, owner FROM studies WHERE study_id = ?", [int(study)])
     if not rows:
         raise ArchiveError(f"no study with id {study} in {archive.path}; `warmstart studies` lists them")
     current = json.loads(rows[0][0]) if rows[0][0] else {}

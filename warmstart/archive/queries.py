@@ -1,6 +1,10 @@
 """Read-only questions to the archive: which past tasks resemble a new one
-(:func:`neighbors`) and which configs did well across many past tasks
-(:func:`defaults`).
+(:func:`similar_tasks`, :func:`neighbors`) and which configs did well across
+many past tasks (:func:`defaults`).
+
+:func:`similar_tasks` is the one place a similarity to a profile is computed
+from the archive: ``neighbors`` prints it, ``defaults`` weighs tasks by it and
+the prior builder (:mod:`warmstart.archive.sources`) weights its sources by it.
 
 Only profiles of the current :data:`~warmstart.profile.PROFILE_VERSION` and of
 the same task kind are compared; tasks profiled by another version are left
@@ -12,6 +16,7 @@ vectorised distance computation and two small SQL look-ups.
 from __future__ import annotations
 
 import json
+import threading
 import uuid
 from collections import OrderedDict
 from typing import Mapping
@@ -23,7 +28,7 @@ from warmstart.errors import ArchiveError, ProfileError
 from warmstart.profile import PROFILE_VERSION, profile_kind
 from warmstart.similarity import ProfileIndex
 
-__all__ = ["neighbors", "defaults", "learners", "profile_index", "clear_cache"]
+__all__ = ["similar_tasks", "neighbors", "defaults", "learners", "profile_index", "clear_cache"]
 
 NEIGHBOR_COLUMNS = [
     "task_id", "task", "distance", "similarity", "n_studies", "study_ids", "trial_count", "best_score", "metric",
@@ -31,16 +36,20 @@ NEIGHBOR_COLUMNS = [
 DEFAULT_COLUMNS = ["config", "shrunk_quantile", "mean_quantile", "n_tasks", "trial_count", "weight"]
 PSEUDO_TASKS = 1.0  # neutral pseudo-observations behind the ranking of defaults (a Bayesian average, common practice)
 _CACHE: OrderedDict = OrderedDict()
+_CACHE_LOCK = threading.Lock()
 _CACHE_SIZE = 16
 
 
 def _cached(key: tuple, compute):
-    if key in _CACHE:
-        _CACHE.move_to_end(key)
-        return _CACHE[key]
-    value = _CACHE[key] = compute()
-    while len(_CACHE) > _CACHE_SIZE:
-        _CACHE.popitem(last=False)
+    with _CACHE_LOCK:  # threads of one process (the team service) share the cache
+        if key in _CACHE:
+            _CACHE.move_to_end(key)
+            return _CACHE[key]
+    value = compute()  # outside the lock: two threads may both compute a missing entry, never corrupt it
+    with _CACHE_LOCK:
+        _CACHE[key] = value
+        while len(_CACHE) > _CACHE_SIZE:
+            _CACHE.popitem(last=False)
     return value
 
 
@@ -91,7 +100,8 @@ def _positive_int(name: str, value: int) -> int:
 def clear_cache() -> None:
     """Forget cached profile indexes (needed only after editing the profiles
     table in place with UPDATE, which warmstart itself never does)."""
-    _CACHE.clear()
+    with _CACHE_LOCK:
+        _CACHE.clear()
 
 
 def _signature(con) -> tuple:
@@ -240,6 +250,75 @@ def _comparable(archive, prof: dict, version: str) -> tuple[ProfileIndex, list[s
     return index, notes, kind
 
 
+def similar_tasks(
+    archive,
+    prof: Mapping[str, float],
+    learner: str | None = None,
+    k: int | None = None,
+    weights: Mapping[str, float] | None = None,
+    version: str = PROFILE_VERSION,
+) -> pd.DataFrame:
+    """Past tasks with their profile distance and similarity to ``prof``.
+
+    Distances are measured after standardising over every task of the same
+    kind with a ``version`` profile; similarities come from
+    :func:`warmstart.similarity.task_similarity` over the candidates (the
+    tasks with studies of ``learner``, or every comparable task). A task's
+    similarity does not depend on ``k`` nor on which tasks a caller leaves
+    out afterwards.
+
+    Parameters
+    ----------
+    archive : Archive
+    prof : mapping
+        Profile of the new task (from :func:`warmstart.profile`).
+    learner : str, optional
+        Only tasks with studies of this learner.
+    k : int, optional
+        Keep the k nearest (all when omitted).
+    weights : mapping, optional
+        Meta-feature or group weights (see :func:`warmstart.similarity.feature_weights`).
+    version : str, default PROFILE_VERSION
+        Profile version ``prof`` was computed with.
+
+    Returns
+    -------
+    pandas.DataFrame
+        Nearest first: ``task_id``, ``distance``, ``similarity``;
+        ``attrs["notes"]`` lists tasks left out and why.
+
+    Raises
+    ------
+    ArchiveError
+        Unknown learner (the message lists the learners that exist), or no
+        task with a comparable profile.
+    ProfileError
+        ``prof`` is not a mapping of finite numbers.
+    """
+    prof = _check_profile(prof)
+    state = _studies_state(archive)
+    if learner is not None:
+        _check_learner(archive, learner, state)
+    index, notes, kind = _comparable(archive, prof, version)
+    candidates = None
+    if learner is not None:
+        candidates = _learner_tasks(archive, learner, state)
+        comparable = index.contains(candidates)
+        if not comparable.any():
+            raise ArchiveError(
+                f"{archive.path}: learner {learner!r} has studies only on tasks that are not comparable with this "
+                f"{kind} profile (other task kind or profile version)"
+            )
+        if (~comparable).any():
+            notes = notes + [
+                f"{int((~comparable).sum())} task(s) with {learner!r} studies left out: another task kind "
+                "or profile version"
+            ]
+    found = index.query(prof, k=k, candidates=candidates, weights=weights)
+    found.attrs["notes"] = notes
+    return found
+
+
 def neighbors(
     archive,
     prof: Mapping[str, float],
@@ -267,10 +346,10 @@ def neighbors(
     Returns
     -------
     pandas.DataFrame
-        Nearest first: task_id, task, distance, similarity (Gaussian kernel,
-        bandwidth by the median heuristic over all candidates), n_studies,
-        study_ids, trial_count and best_score (of the learner's studies) and
-        metric. ``attrs["notes"]`` lists tasks left out and why.
+        Nearest first: task_id, task, distance, similarity (from
+        :func:`similar_tasks`: the values that weight a prior's sources),
+        n_studies, study_ids, trial_count and best_score (of the learner's
+        studies) and metric. ``attrs["notes"]`` lists tasks left out and why.
 
     Raises
     ------
@@ -279,26 +358,8 @@ def neighbors(
         with a comparable profile, or ``k`` not a positive integer.
     """
     k = _positive_int("k", k)
-    prof = _check_profile(prof)
-    state = _studies_state(archive)
-    if learner is not None:
-        _check_learner(archive, learner, state)
-    index, notes, kind = _comparable(archive, prof, version)
-    candidates = None
-    if learner is not None:
-        candidates = _learner_tasks(archive, learner, state)
-        comparable = index.contains(candidates)
-        if not comparable.any():
-            raise ArchiveError(
-                f"{archive.path}: learner {learner!r} has studies only on tasks that are not comparable with this "
-                f"{kind} profile (other task kind or profile version)"
-            )
-        if (~comparable).any():
-            notes = notes + [
-                f"{int((~comparable).sum())} task(s) with {learner!r} studies left out: another task kind "
-                "or profile version"
-            ]
-    found = index.query(prof, k=k, candidates=candidates, weights=weights)
+    found = similar_tasks(archive, prof, learner=learner, k=k, weights=weights, version=version)
+    notes = found.attrs["notes"]
     ids = [int(t) for t in found["task_id"]]
     names = dict(
         archive.con.execute(f"SELECT task_id, name FROM tasks WHERE task_id IN {_placeholders(len(ids))}", ids).fetchall()
@@ -357,25 +418,33 @@ def defaults(
     """
     n = _positive_int("n", n)
     _check_learner(archive, learner)
-    con = archive.con
     notes: list[str] = []
-    task_weights = pd.DataFrame({"task_id": pd.Series(dtype="int64"), "w": pd.Series(dtype="float64")})
+    task_weights = None
     if near is not None:
-        prof = _check_profile(near)
-        index, notes, _ = _comparable(archive, prof, version)
-        candidates = _learner_tasks(archive, learner)
-        found = index.query(prof, candidates=candidates, weights=weights)
-        if found.empty:
-            raise ArchiveError(f"{archive.path}: no task with {learner!r} studies has a profile comparable with --near")
-        left_out = int((~index.contains(candidates)).sum())
-        if left_out:
-            notes = notes + [f"{left_out} task(s) with {learner!r} studies have no comparable profile and were left out"]
+        found = similar_tasks(archive, near, learner=learner, weights=weights, version=version)
+        notes = found.attrs["notes"]
         task_weights = pd.DataFrame({"task_id": found["task_id"].astype("int64"), "w": found["similarity"].astype(float)})
-    view = f"_task_weights_{uuid.uuid4().hex}"
+    frame = _ranked_configs(archive.con, learner, kind, task_weights, n)
+    if frame.empty:
+        notes = notes + [f"learner {learner!r} has no successful trials with a score"]
+    frame["config"] = [json.loads(c) for c in frame["config"]]
+    frame["n_tasks"] = frame["n_tasks"].astype("int64")
+    frame["trial_count"] = frame["trial_count"].astype("int64")
+    out = frame[DEFAULT_COLUMNS].reset_index(drop=True)
+    out.attrs["notes"] = notes
+    return out
+
+
+def _ranked_configs(con, learner: str, kind: str | None, task_weights: pd.DataFrame | None, n: int) -> pd.DataFrame:
+    """The SQL behind :func:`defaults`: within-study quantiles, averaged per task,
+    then over tasks (weighted by ``task_weights``: task_id, w; equal when None)."""
+    weighted = task_weights is not None
+    if task_weights is None:
+        task_weights = pd.DataFrame({"task_id": pd.Series(dtype="int64"), "w": pd.Series(dtype="float64")})
+    view = f"_task_weights_{uuid.uuid4().hex}"  # a fixed prefix and hex digits: a safe identifier
     con.register(view, task_weights)
-    weighted = near is not None
     try:
-        frame = con.execute(
+        return con.execute(
             f"""
             WITH ok AS (
                 SELECT s.task_id, r.study_id, r.config,
@@ -414,11 +483,3 @@ def defaults(
         ).df()
     finally:
         con.unregister(view)
-    if frame.empty:
-        notes = notes + [f"learner {learner!r} has no successful trials with a score"]
-    frame["config"] = [json.loads(c) for c in frame["config"]]
-    frame["n_tasks"] = frame["n_tasks"].astype("int64")
-    frame["trial_count"] = frame["trial_count"].astype("int64")
-    out = frame[DEFAULT_COLUMNS].reset_index(drop=True)
-    out.attrs["notes"] = notes
-    return out

@@ -7,7 +7,11 @@ Rules kept here:
 - every logical write is one transaction (:meth:`Archive.transaction`), so a
   crash leaves the archive as it was before or after, never between;
 - one process writes, others read (DuckDB's file lock); a second writer gets
-  :class:`~warmstart.errors.ArchiveLockedError` naming the file and the fix.
+  :class:`~warmstart.errors.ArchiveLockedError` naming the file and the fix;
+- a damaged file (cut short, or a block failing DuckDB's checksum) gets
+  :class:`~warmstart.errors.ArchiveDamagedError` naming the file and the fix
+  (``warmstart curate salvage``); it is never written: a file cut short is
+  refused on opening, and every block is read before a write opening.
 """
 
 from __future__ import annotations
@@ -15,6 +19,7 @@ from __future__ import annotations
 import contextlib
 import hashlib
 import json
+import os
 import uuid
 from datetime import datetime, timezone
 from importlib import resources
@@ -25,19 +30,32 @@ import duckdb
 import numpy as np
 import pandas as pd
 
-from warmstart.archive.ingest import param_columns, prepare_trials
+from warmstart.archive.faults import archive_error, check_blocks, damaged_error, first_line, translated
+from warmstart.archive.ingest import param_columns, prepare_trials, study_direction
 from warmstart.archive.location import DEFAULT_ARCHIVE, default_archive_path
-from warmstart.errors import ArchiveError, ArchiveLockedError
+from warmstart.errors import ArchiveError
 from warmstart.space import Space
 
-__all__ = ["Archive", "SCHEMA_VERSION", "DEFAULT_ARCHIVE", "default_archive_path", "fingerprint"]
+__all__ = [
+    "Archive", "SCHEMA_VERSION", "DEFAULT_ARCHIVE", "ARCHIVE_TABLES", "DATA_TABLES", "default_archive_path",
+    "fingerprint", "utc_now",
+]
 
-SCHEMA_VERSION = 1
-MIGRATIONS = {1: "schema_v1.sql"}  # version -> DDL that brings version-1 to version
-_TABLES = ("schema_version", "archive_info", "tasks", "profiles", "spaces", "studies", "trials")
+SCHEMA_VERSION = 3
+MIGRATIONS = {1: "schema_v1.sql", 2: "schema_v2.sql", 3: "schema_v3.sql"}  # version -> DDL that brings version-1 to version
+#: oldest schema a read-only open accepts: version 2 only adds the service's tables (leases,
+#: request ids, gain reports), which no reader outside the service touches; version 3 adds
+#: trials.fold_scores, which a reader of an older file sees as missing (:meth:`Archive.trials`)
+READABLE_FROM = 1
+#: every table of the archive (schema_v1.sql, schema_v2.sql, schema_v3.sql), the allow-list of table names used in statements
+ARCHIVE_TABLES = ("schema_version", "archive_info", "tasks", "profiles", "spaces", "studies", "trials",
+                  "leases", "requests", "gain_reports")
+#: the tables that hold history (what a merge, an export and an import carry)
+DATA_TABLES = ("tasks", "profiles", "spaces", "studies", "trials")
 
 
-def _now() -> datetime:
+def utc_now() -> datetime:
+    """Now in UTC, as a naive datetime (how the archive stores times)."""
     return datetime.now(timezone.utc).replace(tzinfo=None)
 
 
@@ -73,6 +91,9 @@ class Archive:
         from a newer warmstart.
     ArchiveLockedError
         Another process holds the file for writing.
+    ArchiveDamagedError
+        The file is cut short, or (when opened for writing: every block is
+        read first, under a second per million trials) a block fails its checksum.
 
     Examples
     --------
@@ -105,26 +126,18 @@ class Archive:
                     )
         try:
             self.con = duckdb.connect(self.path, read_only=read_only)
-        except duckdb.IOException as exc:
-            text = str(exc)
-            if "lock" in text.lower():
-                raise ArchiveLockedError(
-                    f"{self.path}: another process is writing to this archive ({_pid_hint(text)}). "
-                    "DuckDB allows one writing process at a time: wait for it to finish, then run the "
-                    "command again; nothing was changed."
-                ) from None
-            if "not a valid DuckDB database" in text or "not a valid" in text:
-                raise ArchiveError(
-                    f"{self.path}: not a warmstart archive (the file is not a DuckDB database); "
-                    "give another --archive path or move this file away"
-                ) from None
-            raise ArchiveError(f"{self.path}: cannot open the archive: {text}") from None
         except duckdb.Error as exc:
-            raise ArchiveError(f"{self.path}: cannot open the archive: {exc}") from None
+            raise archive_error(exc, self.path) or ArchiveError(
+                f"{self.path}: cannot open the archive: {first_line(exc)}") from None
         try:
-            # DuckDB's own progress bar prints to stdout on long queries and would corrupt --json output.
-            self.con.execute("SET enable_progress_bar = false")
-            self._check_schema()
+            with translated(self.path):
+                self._check_not_cut_short()
+                # DuckDB's own progress bar prints to stdout on long queries and would corrupt --json output.
+                self.con.execute("SET enable_progress_bar = false")
+                if not read_only and not memory:
+                    # nothing is written into a damaged file: every block is read first
+                    check_blocks(self.con, self.path, ARCHIVE_TABLES)
+                self._check_schema()
         except BaseException:
             self.con.close()
             raise
@@ -144,6 +157,18 @@ class Archive:
     def __repr__(self) -> str:
         mode = "read-only" if self.read_only else "read-write"
         return f"Archive({self.path!r}, {mode})"
+
+    def reader(self) -> "Archive":
+        """A read-only view of this open archive on a cursor of its own.
+
+        For another thread of the same process (DuckDB: one connection per
+        process, a cursor per thread): it sees every committed write and
+        refuses to write. Close it when the thread is done with it.
+        """
+        view = object.__new__(Archive)
+        view.path, view.read_only, view._depth = self.path, True, 0
+        view.con = self.con.cursor()
+        return view
 
     @contextlib.contextmanager
     def transaction(self) -> Iterator[duckdb.DuckDBPyConnection]:
@@ -170,10 +195,31 @@ class Archive:
         self.con.commit()
 
     def _q(self, sql: str, params: Any = None) -> list[tuple]:
-        return self.con.execute(sql, params or []).fetchall()
+        with translated(self.path):
+            return self.con.execute(sql, params or []).fetchall()
 
     def _df(self, sql: str, params: Any = None) -> pd.DataFrame:
-        return self.con.execute(sql, params or []).df()
+        with translated(self.path):
+            return self.con.execute(sql, params or []).df()
+
+    def _check_not_cut_short(self) -> None:
+        """Refuse a file shorter than the blocks DuckDB's own header says it holds.
+
+        A file cut short (a full disk, an interrupted copy) opens, and fails
+        only when a command reads a missing block; this check costs one query
+        and makes every command refuse it at once. Blocks in use never overlap,
+        so a sound file is at least ``used_blocks * block_size`` bytes long
+        (free blocks beyond the end are not counted: DuckDB may cut them off).
+        """
+        if self.path == ":memory:":
+            return
+        block_size, used = self.con.execute("SELECT block_size, used_blocks FROM pragma_database_size()").fetchone()
+        size = os.path.getsize(self.path)
+        if size < int(block_size) * int(used):
+            raise damaged_error(
+                self.path, f"the file is {size:,} bytes but its header counts {int(used):,} blocks of "
+                f"{int(block_size):,} bytes in use ({int(block_size) * int(used):,} bytes): it was cut short, "
+                "e.g. by a full disk or an interrupted copy")
 
     # -- schema ------------------------------------------------------------
     def _existing_tables(self) -> set[str]:
@@ -200,6 +246,8 @@ class Archive:
             )
         if version < SCHEMA_VERSION:
             if self.read_only:
+                if version >= READABLE_FROM:
+                    return
                 raise ArchiveError(
                     f"{self.path}: archive schema version {version} needs migrating to {SCHEMA_VERSION}; "
                     "open it once for writing (any write command) to migrate"
@@ -219,10 +267,10 @@ class Archive:
                 for statement in _split_sql(sql):
                     con.execute(statement)
                 con.execute(
-                    "INSERT INTO schema_version VALUES (?, ?, ?)", [version, _now(), duckdb.__version__]
+                    "INSERT INTO schema_version VALUES (?, ?, ?)", [version, utc_now(), duckdb.__version__]
                 )
             if current == 0:
-                con.execute("INSERT INTO archive_info VALUES (?, ?)", [uuid.uuid4().hex, _now()])
+                con.execute("INSERT INTO archive_info VALUES (?, ?)", [uuid.uuid4().hex, utc_now()])
 
     @property
     def archive_id(self) -> str:
@@ -272,28 +320,86 @@ class Archive:
         if target not in frame.columns:
             raise ArchiveError(f"task {name!r}: target column {target!r} not found; columns are {list(frame.columns)}")
         fp = fingerprint(frame, target)
+        same = self._q("SELECT task_id FROM tasks WHERE name = ? AND fingerprint = ?", [name, fp])
+        taken = bool(self._q("SELECT 1 FROM tasks WHERE name = ?", [name]))
+        stale = bool(same) and self._profile_version(same[0][0]) != PROFILE_VERSION
+        kind = kind or detect_kind(frame[target])
+        if profile is None and (not taken or stale):
+            profile = compute_profile(frame, target=target, kind=kind)
+        return self.register_task(name, fp, kind, target, int(frame.shape[0]), int(frame.shape[1] - 1), profile,
+                                  source=source)
+
+    def register_task(
+        self,
+        name: str,
+        fingerprint: str,
+        kind: str,
+        target: str,
+        n_rows: int | None,
+        n_features: int | None,
+        profile: Mapping[str, float] | None,
+        source: str | None = None,
+    ) -> int:
+        """Add a task known by its fingerprint and profile, without its data.
+
+        What :meth:`add_task` does once it has hashed and profiled the data;
+        the team service calls it with what a client computed locally. A task
+        with the same name and fingerprint is reused (its profile rewritten
+        when it is of another version); the same name with another
+        fingerprint is an error.
+
+        Parameters
+        ----------
+        name : str
+            Task name, stored verbatim.
+        fingerprint : str
+            :func:`fingerprint` of the data and target.
+        kind : {"classification", "regression"}
+        target : str
+            Target column name.
+        n_rows, n_features : int or None
+            Size of the data (features exclude the target).
+        profile : mapping or None
+            Profile of :data:`~warmstart.profile.PROFILE_VERSION`; needed for a
+            new task or one whose stored profile is of another version.
+        source : str, optional
+            Where the data came from, for the record.
+
+        Returns
+        -------
+        int
+            The task id.
+        """
+        from warmstart.profile import PROFILE_VERSION
+
+        if not isinstance(name, str) or not name.strip():
+            raise ArchiveError(f"task name must be a non-empty string, got {name!r}")
+        if kind not in ("classification", "regression"):
+            raise ArchiveError(f"task {name!r}: kind must be classification or regression, got {kind!r}")
         found = self._q("SELECT task_id, fingerprint FROM tasks WHERE name = ?", [name])
         for task_id, other in found:
-            if other == fp:
+            if other == fingerprint:
                 if self._profile_version(task_id) != PROFILE_VERSION:
-                    prof = dict(profile) if profile is not None else compute_profile(frame, target=target, kind=kind)
+                    if profile is None:
+                        raise ArchiveError(f"task {name!r}: its stored profile is outdated; give a profile of "
+                                           f"version {PROFILE_VERSION}")
                     with self.transaction():
-                        self._write_profile(task_id, prof, PROFILE_VERSION)
+                        self._write_profile(task_id, profile, PROFILE_VERSION)
                 return int(task_id)
         if found:
             raise ArchiveError(
                 f"task {name!r} already exists in {self.path} with different data "
-                f"(fingerprint {found[0][1][:12]} vs {fp[:12]}); choose another task name (tune and ingest take --task)"
+                f"(fingerprint {found[0][1][:12]} vs {fingerprint[:12]}); choose another task name (tune and ingest take --task)"
             )
-        kind = kind or detect_kind(frame[target])
-        prof = dict(profile) if profile is not None else compute_profile(frame, target=target, kind=kind)
+        if profile is None:
+            raise ArchiveError(f"task {name!r} is new: give its profile (version {PROFILE_VERSION})")
         with self.transaction() as con:
             task_id = con.execute("SELECT nextval('task_ids')").fetchall()[0][0]
             con.execute(
                 "INSERT INTO tasks VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
-                [task_id, name, fp, kind, target, int(frame.shape[0]), int(frame.shape[1] - 1), _now(), source],
+                [task_id, name, fingerprint, kind, target, n_rows, n_features, utc_now(), source],
             )
-            self._write_profile(task_id, prof, PROFILE_VERSION)
+            self._write_profile(task_id, profile, PROFILE_VERSION)
         return int(task_id)
 
     def _profile_version(self, task_id: int) -> str | None:
@@ -404,7 +510,7 @@ class Archive:
                     study_id, int(task), learner, space_id, metric,
                     "maximize" if maximize else "minimize", origin,
                     None if prior is None else json.dumps(prior, sort_keys=True),
-                    _now(), owner, json.dumps(tags, sort_keys=True),
+                    utc_now(), owner, json.dumps(tags, sort_keys=True),
                 ],
             )
         return int(study_id)
@@ -412,15 +518,7 @@ class Archive:
     def finish_study(self, study: int) -> None:
         """Mark a study finished now."""
         with self.transaction() as con:
-            con.execute("UPDATE studies SET finished_at = ? WHERE study_id = ?", [_now(), int(study)])
-
-    def set_prior(self, study: int, prior: Mapping) -> None:
-        """Record the provenance of the prior a study used."""
-        with self.transaction() as con:
-            con.execute(
-                "UPDATE studies SET prior = ?, origin = 'warm' WHERE study_id = ?",
-                [json.dumps(prior, sort_keys=True), int(study)],
-            )
+            con.execute("UPDATE studies SET finished_at = ? WHERE study_id = ?", [utc_now(), int(study)])
 
     _STUDY_SQL = (
         "SELECT s.study_id, s.task_id, t.name AS task, s.learner, s.space_id, s.metric, s.direction, "
@@ -500,20 +598,26 @@ class Archive:
         started_at: datetime | None = None,
         finished_at: datetime | None = None,
         error: str | None = None,
+        fold_scores: Any = None,
     ) -> int:
         """Record one evaluated config (committed at once); returns its trial number.
 
         A score that is None, NaN or infinite records a failed trial.
+        ``fold_scores`` (finite numbers) are the per-fold scores of a
+        cross-validated objective.
         """
         space, fp, learner = self._study_keys(study)
         config = space.normalize(config)
+        folds = _fold_scores(fold_scores, f"trial of study {study}")
         row: dict[str, Any] = {name: [config.get(name)] for name in space.names}
         row.update(
             score=[np.nan if score is None else score], status=[status], cost_s=[cost_s],
-            started_at=[started_at], finished_at=[finished_at or _now()], error=[error],
+            started_at=[started_at], finished_at=[finished_at or utc_now()], error=[error],
         )
         prepared = prepare_trials(space, pd.DataFrame(row), where=f"trial of study {study}",
                                   metric=self._study_metric(study))
+        if folds is not None:
+            prepared = prepared.assign(fold_scores=[folds])
         with self.transaction():
             return self._insert_trials(int(study), space, fp, learner, prepared)
 
@@ -540,25 +644,40 @@ class Archive:
         numbered = prepared.assign(_number=np.arange(start + 1, start + len(prepared) + 1, dtype=np.int64))
         view = f"_incoming_{uuid.uuid4().hex}"
         con.register(view, numbered)
+        folds = "fold_scores" if "fold_scores" in prepared.columns else "NULL"  # one of two fixed names
         try:
             con.execute(
                 f"""
-                INSERT INTO trials
+                INSERT INTO trials (study_id, number, config, score, status, cost_s, started_at, finished_at,
+                                    error, content_key, fold_scores)
                 SELECT ?, _number, cfg, score, status::VARCHAR, cost_s,
-                       started_at, finished_at, error, sha256(? || '|' || ? || '|' || cfg)
+                       started_at, finished_at, error, sha256(? || '|' || ? || '|' || cfg), {folds}
                 FROM (SELECT {config_sql} AS cfg, * FROM {view})
                 """,
                 [study, fp, learner] + keys,
             )
         finally:
-            con.unregister(view)
+            # an interrupted insert (Ctrl-C, SIGTERM) aborts the transaction, and DuckDB then refuses
+            # even the unregister; the caller's transaction rolls back and the interruption goes on
+            with contextlib.suppress(duckdb.Error):
+                con.unregister(view)
         return start + len(prepared)
 
+    def _has_fold_scores(self) -> bool:
+        """Whether the trials table has ``fold_scores`` (schema 3; an older file opened read-only lacks it)."""
+        rows = self._q(
+            "SELECT count(*) FROM duckdb_columns() WHERE database_name = current_database() "
+            "AND table_name = 'trials' AND column_name = 'fold_scores'"
+        )
+        return bool(rows[0][0])
+
     def trials(self, study: int) -> pd.DataFrame:
-        """Trials of a study: number, config (dict), score, status, cost_s, times, error, content_key."""
+        """Trials of a study: number, config (dict), score, status, cost_s, times, error,
+        content_key and fold_scores (list of float, or None)."""
         frame = self._df(
-            "SELECT number, config, score, status, cost_s, started_at, finished_at, error, content_key "
-            "FROM trials WHERE study_id = ? ORDER BY number",
+            "SELECT number, config, score, status, cost_s, started_at, finished_at, error, content_key, "
+            + ("fold_scores " if self._has_fold_scores() else "NULL AS fold_scores ")
+            + "FROM trials WHERE study_id = ? ORDER BY number",
             [int(study)],
         )
         frame["config"] = [json.loads(c) for c in frame["config"]]
@@ -602,8 +721,6 @@ class Archive:
         from warmstart.profile import PROFILE_VERSION, detect_kind
         from warmstart.profile import profile as compute_profile
 
-        from warmstart.archive.ingest import study_direction
-
         maximize = study_direction(metric, None if maximize is None else not maximize)
         prepared = prepare_trials(space, trials, where=where, metric=metric)  # fail before any work or write
         if target not in data.columns:
@@ -637,12 +754,28 @@ class Archive:
 
         return defaults(self, learner, near=near, n=n, kind=kind)
 
-    def build_prior(self, prof: Mapping[str, float], learner: str, space: Space, **options: Any):
+    def build_prior(self, prof: Mapping[str, float], learner: str, space: Space, exclude_tasks=(), **options: Any):
         """Build a :class:`~warmstart.prior.Prior` for ``learner`` over ``space``
-        from the studies of tasks similar to ``prof``."""
-        from warmstart.archive.sources import build_prior
+        from the studies of tasks similar to ``prof`` (``exclude_tasks``: task
+        ids left out; ``options`` go to :func:`~warmstart.prior.prior_from_sources`)."""
+        from warmstart.archive.sources import prior_info, prior_sources
+        from warmstart.prior import prior_from_sources
 
-        return build_prior(self, prof, learner=learner, space=space, **options)
+        sources = prior_sources(self, prof, learner, space, exclude_tasks=exclude_tasks)
+        return prior_from_sources(space, sources, provenance=prior_info(learner), **options)
+
+
+def _fold_scores(values: Any, where: str) -> list[float] | None:
+    """Per-fold scores as a list of finite floats (None or empty: none)."""
+    if values is None:
+        return None
+    try:
+        folds = [float(v) for v in values]
+    except (TypeError, ValueError):
+        raise ArchiveError(f"{where}: fold_scores must be a list of numbers, got {values!r}") from None
+    if not all(np.isfinite(folds)):
+        raise ArchiveError(f"{where}: fold_scores must be finite numbers, got {folds}")
+    return folds or None
 
 
 def _insert_frame(con: duckdb.DuckDBPyConnection, table: str, frame: pd.DataFrame, columns: list[str]) -> None:
@@ -658,12 +791,4 @@ def _insert_frame(con: duckdb.DuckDBPyConnection, table: str, frame: pd.DataFram
 def _split_sql(sql: str) -> list[str]:
     lines = [line for line in sql.splitlines() if not line.strip().startswith("--")]
     return [s.strip() for s in "\n".join(lines).split(";") if s.strip()]
-
-
-def _pid_hint(text: str) -> str:
-    marker = "PID "
-    if marker in text:
-        pid = text.split(marker, 1)[1].split(")")[0]
-        return f"held by process {pid}"
-    return "the file is locked"
 

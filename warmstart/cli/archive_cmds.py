@@ -8,22 +8,12 @@ from pathlib import Path
 import click
 import pandas as pd
 
-from warmstart.cli.common import fail, get_archive, json_option, keep_column_option, print_json, print_table, read_data
+from warmstart.cli.common import (
+    fail, get_archive, json_option, keep_column_option, parse_tags, print_json, print_table, read_data,
+    strict_option,
+)
 from warmstart.cli.main import main
 from warmstart.space import Space
-from warmstart.data.read import read_table
-
-
-def _parse_tags(values: tuple[str, ...]) -> dict[str, str]:
-    tags = {}
-    for item in values:
-        if "=" not in item:
-            raise click.BadParameter(f"{item!r} is not KEY=VALUE (e.g. team=retail)", param_hint="--tag")
-        key, value = item.split("=", 1)
-        if not key:
-            raise click.BadParameter(f"{item!r} has an empty key; use KEY=VALUE", param_hint="--tag")
-        tags[key] = value
-    return tags
 
 
 @main.command()
@@ -78,6 +68,7 @@ def _load_space(space_path: str | None, learner: str, data: pd.DataFrame, target
 @click.option("--owner", help="Who ran the study.")
 @click.option("--tag", "tags", multiple=True, metavar="KEY=VALUE", help="Tag the study (repeatable).")
 @keep_column_option
+@strict_option
 @json_option
 @click.pass_context
 def ingest(ctx, trials, task, data_path, target, learner, space_path, metric, minimize, owner, tags, keep_columns,
@@ -89,11 +80,27 @@ def ingest(ctx, trials, task, data_path, target, learner, space_path, metric, mi
     """
     from warmstart.archive.ingest import study_direction
 
-    tag_map = _parse_tags(tags)
+    tag_map = parse_tags(tags)
     maximize = study_direction(metric, minimize)
-    trial_frame = read_table(trials)
+    trial_frame = read_data(trials)  # its notes (a guessed delimiter, short rows) too
     data = read_data(data_path, target, keep_columns=keep_columns)
     space = _load_space(space_path, learner, data, target)
+    from warmstart.cli.remote import server_client
+
+    if (client := server_client(ctx)) is not None:  # the data stays here: its fingerprint and profile go
+        from warmstart.client import task_description
+
+        done = client.ingest(trial_frame, task_description(data, target, task, keep_columns=keep_columns,
+                                                           source=str(data_path)),
+                             learner, space=space.to_dict(), metric=metric, maximize=maximize, tags=tag_map,
+                             owner=owner)
+        if as_json:
+            print_json(done)
+        else:
+            click.echo(f"ingested {done['trials']} trials of {learner!r} on task {task!r} as study "
+                       f"{done['study_id']} on {client.url} ({done['failed']} failed; best {metric} "
+                       f"{done['best_score']:.4g})")
+        return
     archive = get_archive(ctx, write=True)
     with archive.transaction():  # one transaction: a refused trials file leaves no task behind either
         if keep_columns:  # the task's profile with the kept columns; ingest then finds the task current
@@ -136,6 +143,10 @@ def ingest(ctx, trials, task, data_path, target, learner, space_path, metric, mi
 @click.pass_context
 def studies(ctx, learner, task, owner, tags, as_json):
     """List studies: task, learner, metric, trial count, best score."""
+    from warmstart.cli.remote import print_remote_studies, server_client
+
+    if (client := server_client(ctx)) is not None:
+        return print_remote_studies(client, learner, task, owner, parse_tags(tags), as_json)
     path = ctx.find_root().obj["archive_path"]
     if not Path(path).exists():  # a listing never creates an archive (a mistyped path stays a mistake)
         if as_json:
@@ -153,7 +164,7 @@ def studies(ctx, learner, task, owner, tags, as_json):
     if owner is not None or tags:
         from warmstart.archive.curate import filter_studies
 
-        frame = filter_studies(frame, owner=owner, tags=_parse_tags(tags))
+        frame = filter_studies(frame, owner=owner, tags=parse_tags(tags))
     cols = ["study_id", "task", "learner", "metric", "direction", "origin", "trial_count", "best_score", "owner", "tags", "created_at"]
     filtered = bool(learner or task or owner is not None or tags)
     empty = ("no study matches these filters (`warmstart studies` without filters lists them all)"
@@ -170,6 +181,10 @@ def studies(ctx, learner, task, owner, tags, as_json):
 @click.pass_context
 def show(ctx, study, top, as_json):
     """Show one STUDY (its id): task, space and its best trials."""
+    from warmstart.cli.remote import server_client, show_study
+
+    if (client := server_client(ctx)) is not None:
+        return show_study(client, study, top, as_json)
     archive = get_archive(ctx, write=False)
     row = archive.study(study)
     table = archive.trial_table(study)

@@ -2,9 +2,12 @@
 
 from __future__ import annotations
 
+import contextlib
 import json
 import math
 import shlex
+import signal
+import threading
 from typing import Any
 
 import click
@@ -14,7 +17,8 @@ import pandas as pd
 from warmstart.archive.store import Archive
 
 __all__ = [
-    "get_archive", "print_table", "print_json", "fail", "json_option", "keep_column_option", "read_data", "to_jsonable",
+    "get_archive", "print_table", "print_json", "fail", "json_option", "keep_column_option", "parse_tags", "read_data",
+    "strict_option", "to_jsonable",
 ]
 
 json_option = click.option("--json", "as_json", is_flag=True, help="Print JSON instead of a table.")
@@ -23,6 +27,24 @@ keep_column_option = click.option(
     "--keep-column", "keep_columns", multiple=True, metavar="NAME",
     help="Use this column of the data as a feature as it is written, even if it looks like a row "
          "identifier (left out) or dates written as text (turned into days); repeatable.",
+)
+
+_STRICT = "warmstart.strict"  # key in click's ``ctx.meta`` (shared by every context of one command line)
+
+
+def _remember_strict(ctx: click.Context, param: click.Parameter, value: bool) -> bool:
+    if value:
+        ctx.meta[_STRICT] = True
+    return value
+
+
+#: ``--strict`` for a command that reads a data file: every note about the file
+#: becomes an error (:func:`read_data` reads the flag; the command never sees it)
+strict_option = click.option(
+    "--strict", is_flag=True, expose_value=False, callback=_remember_strict,
+    help="Refuse the data file, instead of printing a note, when reading it would guess, leave out, merge "
+         "or convert anything (short rows, rows without a target, labels differing only in case or spaces, "
+         "infinite values, columns left out ...); nothing is written to the archive.",
 )
 
 
@@ -40,6 +62,20 @@ def get_archive(ctx: click.Context, write: bool = True) -> Archive:
     root.obj["archive"] = archive
     root.call_on_close(archive.close)
     return archive
+
+
+def parse_tags(values: tuple[str, ...]) -> dict[str, str]:
+    """``KEY=VALUE`` texts (``--tag`` options) as a dict; a text without ``=`` or
+    with an empty key is a :class:`click.BadParameter` naming it."""
+    tags = {}
+    for item in values:
+        if "=" not in item:
+            raise click.BadParameter(f"{item!r} is not KEY=VALUE (e.g. team=retail)", param_hint="--tag")
+        key, value = item.split("=", 1)
+        if not key:
+            raise click.BadParameter(f"{item!r} has an empty key; use KEY=VALUE", param_hint="--tag")
+        tags[key] = value
+    return tags
 
 
 def fail(message: str) -> None:
@@ -113,33 +149,85 @@ def print_table(frame: pd.DataFrame, as_json: bool = False, empty: str = "(nothi
         click.echo(line(row))
 
 
-def read_data(path: str, target: str | None = None, echo_notes: bool = True, keep_columns=()):
+def read_data(path: str, target: str | None = None, echo_notes: bool = True, keep_columns=(),
+              strict: bool | None = None):
     """Read a data table for a command.
 
-    What reading guessed (delimiter, decimal commas, dropped or converted
-    columns) goes to stderr as notes; a missing ``target`` or a
-    ``--keep-column`` name the table lacks stops the command with the
-    closest column name suggested. With a target, every feature column that
-    profiles and learners will leave out or convert
-    (:func:`warmstart.data.read.feature_frame`) gets a note saying so and how
-    to keep it. The table is returned as read: the task's fingerprint is
-    computed on it.
-    """
-    from warmstart.data.features import feature_frame
-    from warmstart.data.read import column_not_found, read_table
+    What reading guessed or did (delimiter, decimal commas, short rows,
+    dropped or converted columns) goes to stderr as ``note:`` lines; a
+    missing ``target`` or a ``--keep-column`` name the table lacks stops the
+    command with the closest column name suggested. With a target, what
+    profiles and learners will do to the table
+    (:func:`warmstart.data.clean.clean_table`: identifier columns left out
+    or dates converted, with how to keep them; rows without a target left
+    out; labels merged; infinite values read as missing; columns a model
+    learns nothing from) gets a note too. The table is returned as read:
+    the task's fingerprint is computed on it.
 
+    With ``strict`` (default: the command's ``--strict``, see
+    :data:`strict_option`) any such note stops the command instead, with one
+    message naming the file and everything found, before anything is
+    written.
+    """
+    from warmstart.data.clean import clean_table
+    from warmstart.data.read import TableError, column_not_found, read_table
+
+    if strict is None:
+        ctx = click.get_current_context(silent=True)
+        strict = bool(ctx is not None and ctx.meta.get(_STRICT))
     frame = read_table(path)
-    if echo_notes:
-        for note in frame.attrs.get("notes", []):
+    notes = list(frame.attrs.get("notes", []))
+    if echo_notes and not strict:  # before a missing column stops the command: a guessed delimiter explains it
+        for note in notes:
             click.echo(f"note: {path}: {note}", err=True)
+    shown = 0 if strict else len(notes)
     if target is not None and target not in frame.columns:
         fail(f"{path}: {column_not_found(target, frame.columns)}")
     for name in keep_columns:
         if name not in frame.columns:
             fail(f"{path}: {column_not_found(name, frame.columns, what='--keep-column')}")
-    if echo_notes and target is not None:
-        for name, done in feature_frame(frame, target, keep=keep_columns).notes.items():
+    if target is not None and (echo_notes or strict):
+        try:
+            cleaned = clean_table(frame, target, keep_columns=keep_columns)
+        except TableError as exc:
+            fail(f"{path}: {exc}")
+        for name, done in cleaned.column_notes.items():
             verb = "use it" if done.startswith("left out") else "use it as written"
-            click.echo(f"note: {path}: column {name!r} {done}; pass --keep-column {shlex.quote(name)} to {verb}",
-                       err=True)
+            notes.append(f"column {name!r} {done}; pass --keep-column {shlex.quote(name)} to {verb}")
+        notes.extend(cleaned.notes)
+    if strict and notes:
+        found = "".join(f"\n  - {note}" for note in notes)
+        fail(f"{path}: refused (--strict); reading it found:{found}\n"
+             "correct the file, or run without --strict to accept these as notes")
+    if echo_notes:
+        for note in notes[shown:]:
+            click.echo(f"note: {path}: {note}", err=True)
     return frame
+
+
+class _Stop:
+    """Which signal stopped a run (None: none did)."""
+
+    signal: int | None = None
+
+
+@contextlib.contextmanager
+def terminate_as_interrupt():
+    """Within the block, SIGTERM stops the work as Ctrl-C does (a ``KeyboardInterrupt``),
+    so a run stopped by a scheduler or ``kill`` keeps what it finished and prints its
+    summary; the yielded object's ``signal`` says which signal came. The previous
+    handlers come back on exit. Outside the main thread it does nothing."""
+    stop = _Stop()
+    if threading.current_thread() is not threading.main_thread():
+        yield stop
+        return
+
+    def on_term(signum, frame):
+        stop.signal = signum
+        raise KeyboardInterrupt
+
+    previous = signal.signal(signal.SIGTERM, on_term)
+    try:
+        yield stop
+    finally:
+        signal.signal(signal.SIGTERM, previous)

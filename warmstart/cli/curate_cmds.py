@@ -1,6 +1,6 @@
 """Commands that curate the team's history: ``curate check|dedupe|merge|prune|
-export|import`` and ``tag``. Thin: parse, call :mod:`warmstart.archive.curate`
-or :mod:`warmstart.archive.transfer`, print."""
+export|import|salvage`` and ``tag``. Thin: parse, call :mod:`warmstart.archive.curate`
+or :mod:`warmstart.archive.merge` / :mod:`warmstart.archive.exchange`, print."""
 
 from __future__ import annotations
 
@@ -18,10 +18,12 @@ from warmstart.archive.curate import (
     label_study,
     plan_prune,
 )
-from warmstart.archive.transfer import MERGE_STEPS, export_archive, import_export, merge_archive
-from warmstart.cli.archive_cmds import _parse_tags
-from warmstart.cli.common import get_archive, json_option, print_json, print_table
+from warmstart.archive.exchange import export_archive, import_export
+from warmstart.archive.faults import translated
+from warmstart.archive.merge import MERGE_STEPS, merge_archive
+from warmstart.cli.common import get_archive, json_option, parse_tags, print_json, print_table
 from warmstart.cli.main import main
+from warmstart.errors import ArchiveDamagedError, ArchiveError, ArchiveLockedError
 
 _SHOW = 20  # studies listed by prune before "... and N more"
 
@@ -50,24 +52,60 @@ def _steps(label: str, enabled: bool = True) -> Iterator:
 
 @main.group()
 def curate() -> None:
-    """Check, clean up, merge, prune, export and import the archive."""
+    """Check, clean up, merge, prune, export, import and salvage the archive."""
 
 
-@curate.command()
+#: exit statuses of `curate check` (click itself exits 2 on a usage error)
+CHECK_SOUND, CHECK_UNSOUND, CHECK_BUSY, CHECK_DAMAGED, CHECK_CANNOT = 0, 1, 3, 4, 5
+
+
+@curate.command(epilog="""\b
+Exit status:
+  0  sound: no check found anything
+  1  unsound: findings left (--fix repairs those marked so)
+  2  usage error (a wrong option)
+  3  busy: another process is writing to the archive; run again when it is done
+  4  damaged: a block of the file cannot be read; `warmstart curate salvage` copies what can be
+  5  cannot check: no archive at that path, or the file is not a warmstart archive""")
 @click.option("--fix", is_flag=True, help="Repair the safe cases (one transaction) and say what was done.")
 @json_option
 @click.pass_context
 def check(ctx, fix, as_json):
-    """Check the archive's integrity; exit status 1 when anything is wrong.
+    """Check the archive's integrity; the exit status says what was found (below).
 
-    Looks for orphan rows, trials outside their study's space, non-finite
-    scores marked ok, scores impossible for a built-in metric, duplicate
-    trials (copies of an earlier study's), profile-version mismatches,
-    studies without trials and tasks without profiles (and a few more).
-    Identical repeats within one study are repeated evaluations: a note, not
-    a problem.
+    Reads every block of the file first (a damaged file is reported as such
+    and never repaired), then looks for orphan rows, trials outside their
+    study's space, non-finite scores marked ok, scores impossible for a
+    built-in metric, duplicate trials (copies of an earlier study's),
+    profile-version mismatches, studies without trials and tasks without
+    profiles (and a few more). Identical repeats within one study are
+    repeated evaluations: a note, not a problem.
     """
-    archive = get_archive(ctx, write=fix)
+    path = ctx.find_root().obj["archive_path"]
+    try:
+        with translated(path):  # a lock or damage DuckDB reports mid-way gets its status too
+            archive = get_archive(ctx, write=fix)
+            report, fixed = _check_and_fix(archive, fix, as_json)
+    except ArchiveLockedError as exc:
+        _check_failed(ctx, path, "busy", CHECK_BUSY, exc, as_json)
+    except ArchiveDamagedError as exc:
+        _check_failed(ctx, path, "damaged", CHECK_DAMAGED, exc, as_json)
+    except ArchiveError as exc:
+        _check_failed(ctx, path, "cannot check", CHECK_CANNOT, exc, as_json)
+    if as_json:
+        findings = [{"check": f.check, "count": f.count, "fixable": f.fixable, "what": f.what,
+                     "examples": list(f.examples)} for f in report.findings]
+        print_json({"archive": archive.path, "ok": report.ok, "status": "sound" if report.ok else "unsound",
+                    "fixed": [{"what": w, "rows": n} for w, n in fixed],
+                    "findings": findings, "notes": report.notes})
+    else:
+        _print_check(archive, report, fixed, fix)
+    if not report.ok:
+        ctx.exit(CHECK_UNSOUND)
+
+
+def _check_and_fix(archive, fix: bool, as_json: bool):
+    """Check (with a progress bar unless JSON), repair when asked, check again."""
     if as_json:
         report = check_archive(archive)
     else:
@@ -82,38 +120,95 @@ def check(ctx, fix, as_json):
     if fix and not report.ok:
         fixed = fix_archive(archive)
         report = check_archive(archive)
+    return report, fixed
+
+
+def _check_failed(ctx, path: str, status: str, code: int, exc: Exception, as_json: bool) -> None:
+    """Stop `curate check` with its own exit status: the message on stderr (and JSON on stdout)."""
     if as_json:
-        findings = [{"check": f.check, "count": f.count, "fixable": f.fixable, "what": f.what,
-                     "examples": list(f.examples)} for f in report.findings]
-        print_json({"archive": archive.path, "ok": report.ok, "fixed": [{"what": w, "rows": n} for w, n in fixed],
-                    "findings": findings, "notes": report.notes})
+        unreadable = [{"table": t, "column": c, "detail": d} for t, c, d in getattr(exc, "unreadable", ())]
+        print_json({"archive": path, "ok": False, "status": status, "error": str(exc), "unreadable": unreadable})
+    click.echo(f"Error: {exc}", err=True)
+    ctx.exit(code)
+
+
+def _print_check(archive, report, fixed, fix: bool) -> None:
+    notes = report.notes
+    click.echo(f"archive {archive.path}: {notes['tasks']} tasks, {notes['studies']} studies, {notes['trials']} trials")
+    for what, n in fixed:
+        click.echo(f"fixed: {what}: {n}")
+    for f in report.findings:
+        mark = "ok" if f.count == 0 else str(f.count)
+        hint = "" if f.count == 0 else ("  [--fix repairs this]" if f.fixable else "  [needs you]")
+        click.echo(f"  {mark:>7}  {f.check:<26} {f.what}{hint}")
+        for example in f.examples:
+            click.echo(f"           {'':<26} e.g. {example}")
+    if notes["repeated_configs_other_result"]:
+        click.echo(f"note: {notes['repeated_configs_other_result']} config(s) were evaluated more than once "
+                   "with different results (kept: repeated evaluations are information)")
+    if notes["repeated_evaluations_same_result"]:
+        click.echo(f"note: {notes['repeated_evaluations_same_result']} trial(s) repeat a config of their own "
+                   "study with the same result (kept: repeated evaluations, not duplicates)")
+    if notes["spaces_without_studies"]:
+        click.echo(f"note: {notes['spaces_without_studies']} space(s) are used by no study")
+    if report.ok:
+        click.echo("archive is sound")
     else:
-        notes = report.notes
-        click.echo(f"archive {archive.path}: {notes['tasks']} tasks, {notes['studies']} studies, {notes['trials']} trials")
-        for what, n in fixed:
-            click.echo(f"fixed: {what}: {n}")
-        for f in report.findings:
-            mark = "ok" if f.count == 0 else str(f.count)
-            hint = "" if f.count == 0 else ("  [--fix repairs this]" if f.fixable else "  [needs you]")
-            click.echo(f"  {mark:>7}  {f.check:<26} {f.what}{hint}")
-            for example in f.examples:
-                click.echo(f"           {'':<26} e.g. {example}")
-        if notes["repeated_configs_other_result"]:
-            click.echo(f"note: {notes['repeated_configs_other_result']} config(s) were evaluated more than once "
-                       "with different results (kept: repeated evaluations are information)")
-        if notes["repeated_evaluations_same_result"]:
-            click.echo(f"note: {notes['repeated_evaluations_same_result']} trial(s) repeat a config of their own "
-                       "study with the same result (kept: repeated evaluations, not duplicates)")
-        if notes["spaces_without_studies"]:
-            click.echo(f"note: {notes['spaces_without_studies']} space(s) are used by no study")
-        if report.ok:
-            click.echo("archive is sound")
-        else:
-            n = len(report.problems)
-            tail = "" if fix else " (`warmstart curate check --fix` repairs those marked so)"
-            click.echo(f"{n} kind(s) of problem found{tail}")
-    if not report.ok:
-        ctx.exit(1)
+        tail = "" if fix else " (`warmstart curate check --fix` repairs those marked so)"
+        click.echo(f"{len(report.problems)} kind(s) of problem found{tail}")
+
+
+@curate.command(epilog="""\b
+Exit status:
+  0  every row was copied (the file read cleanly)
+  1  nothing was done (DAMAGED missing, held by a writer, unreadable from its header; NEW exists ...)
+  2  usage error (a wrong option)
+  4  NEW was written, but some rows of DAMAGED could not be read (the report says which)""")
+@click.argument("damaged", metavar="DAMAGED", type=click.Path(dir_okay=False))
+@click.argument("new", metavar="NEW", type=click.Path(dir_okay=False))
+@json_option
+@click.pass_context
+def salvage(ctx, damaged, new, as_json):
+    """Copy every table and row that can be read from the DAMAGED archive into a NEW one.
+
+    DAMAGED is only read (attached read-only); NEW must not exist yet (its
+    directory must) and appears only when the copy is complete, with a fresh
+    schema and the damaged archive's id. Rows are copied whole or not at all;
+    the report says, per table, how many rows were copied and how many could
+    not be read (and for trials, of which studies). Afterwards, `warmstart
+    --archive NEW curate check` lists what the lost rows leave behind.
+    """
+    from warmstart.archive.salvage import salvage_archive
+
+    with _salvage_progress(not as_json) as progress:
+        report = salvage_archive(damaged, new, progress=progress)
+    if as_json:
+        print_json(report.to_dict())
+    else:
+        for line in report.lines():
+            click.echo(line)
+    if not report.complete:
+        ctx.exit(CHECK_DAMAGED)
+
+
+@contextlib.contextmanager
+def _salvage_progress(enabled: bool) -> Iterator:
+    """A progress bar on stderr for each table copied piece by piece (a clean table is one step)."""
+    if not enabled:
+        yield None
+        return
+    with contextlib.ExitStack() as stack:
+        current: dict = {}
+
+        def advance(table: str, done: int, total: int) -> None:
+            if current.get("table") != table:
+                stack.close()  # the previous table's bar ends
+                current.update(table=table, bar=stack.enter_context(
+                    click.progressbar(length=total, label=f"salvaging {table}", file=sys.stderr)))
+            bar = current["bar"]
+            bar.update(done - bar.pos)
+
+        yield advance
 
 
 @curate.command()
@@ -181,7 +276,7 @@ def prune(ctx, failed, before, learner, tags, owner, yes, as_json):
     Filters combine with AND. Shows what would go and asks first (or --yes);
     everything goes in one transaction.
     """
-    tag_map = _parse_tags(tags)
+    tag_map = parse_tags(tags)
     archive = get_archive(ctx, write=True)
     plan = plan_prune(archive, failed=failed, before=before, learner=learner, tags=tag_map, owner=owner)
     if plan.studies.empty:
@@ -255,12 +350,16 @@ def tag(ctx, study, labels, owner, remove, as_json):
     if not labels and owner is None and not remove:
         raise click.UsageError("give KEY=VALUE tags, --owner NAME or --remove KEY")
     try:
-        tags = _parse_tags(labels)
+        tags = parse_tags(labels)
     except click.BadParameter as exc:
         exc.param_hint = "'[KEY=VALUE]...'"
         raise
-    archive = get_archive(ctx, write=True)
-    result = label_study(archive, study, tags=tags, owner=owner, remove=remove)
+    from warmstart.cli.remote import server_client
+
+    if (client := server_client(ctx)) is not None:
+        result = client.tag(study, tags=tags, remove=remove, owner=owner)
+    else:
+        result = label_study(get_archive(ctx, write=True), study, tags=tags, owner=owner, remove=remove)
     if as_json:
         print_json(result)
         return

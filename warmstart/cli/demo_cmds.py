@@ -5,6 +5,7 @@ from __future__ import annotations
 import click
 
 from warmstart.cli.main import main
+from warmstart.cli.progress import Progress
 
 
 @main.command()
@@ -25,4 +26,5 @@ def demo(out_dir, n_history, budget, repeats, workers):
     """
     from warmstart.demo import run_demo
 
-    run_demo(out_dir, n_history=n_history, budget=budget, repeats=repeats, workers=workers, echo=click.echo)
+    run_demo(out_dir, n_history=n_history, budget=budget, repeats=repeats, workers=workers, echo=click.echo,
+             progress=Progress)

@@ -6,7 +6,7 @@ import importlib
 
 import click
 
-from warmstart import __version__
+from warmstart._version import __version__
 from warmstart.archive.location import DEFAULT_ARCHIVE
 from warmstart.errors import WarmstartError
 
@@ -24,13 +24,19 @@ COMMAND_MODULES = {
     "profile": "profile_cmds", "neighbors": "profile_cmds", "defaults": "profile_cmds",
     "tune": "tune_cmds", "propose": "tune_cmds", "record": "tune_cmds",
     "curate": "curate_cmds", "tag": "curate_cmds",
+    "serve": "serve_cmds",
 }
 
 
 class _Group(click.Group):
     """The top group: loads a command's module on first use, and turns
-    library errors into clean messages (exit code 1)."""
+    library errors into clean messages (exit code 1).
 
+    A DuckDB error that says the archive file is locked, not a database or
+    damaged (:mod:`warmstart.archive.faults`) gets the same treatment, naming
+    the file, whichever command met it; any other DuckDB error is a bug and
+    keeps its traceback.
+    """
     def get_command(self, ctx: click.Context, name: str):
         if name not in self.commands and name in COMMAND_MODULES:
             importlib.import_module(f"warmstart.cli.{COMMAND_MODULES[name]}")
@@ -44,6 +50,13 @@ class _Group(click.Group):
             return super().invoke(ctx)
         except WarmstartError as exc:
             raise click.ClickException(str(exc)) from None
+        except Exception as exc:
+            from warmstart.archive.faults import archive_error  # DuckDB is imported only when one failed
+
+            error = archive_error(exc, (ctx.obj or {}).get("archive_path", "the archive"))
+            if error is None:
+                raise
+            raise click.ClickException(str(error)) from None
 
 
 @click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})
@@ -56,10 +69,19 @@ class _Group(click.Group):
     metavar="PATH",
     help="Archive file (DuckDB). Also from the environment variable WARMSTART_ARCHIVE.",
 )
+@click.option(
+    "--server",
+    envvar="WARMSTART_SERVER",
+    metavar="URL",
+    help="Talk to a team service (warmstart serve) instead of an archive file: studies, show, neighbors, "
+         "defaults, prior, ingest, tag, propose, record, tune. Also from WARMSTART_SERVER; the token from "
+         "WARMSTART_TOKEN.",
+)
 @click.version_option(__version__, prog_name="warmstart")
 @click.pass_context
-def main(ctx: click.Context, archive_path: str) -> None:
+def main(ctx: click.Context, archive_path: str, server: str | None) -> None:
     """Keep your team's tuning history, start new searches from what worked on
     similar tasks, and measure in bits whether that helped."""
     ctx.ensure_object(dict)
     ctx.obj["archive_path"] = archive_path
+    ctx.obj["server"] = server

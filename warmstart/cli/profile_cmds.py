@@ -9,7 +9,9 @@ import time
 import click
 import pandas as pd
 
-from warmstart.cli.common import get_archive, json_option, keep_column_option, print_json, print_table, read_data
+from warmstart.cli.common import (
+    get_archive, json_option, keep_column_option, print_json, print_table, read_data, strict_option,
+)
 from warmstart.cli.main import main
 from warmstart.profile import FEATURE_GROUPS, PROFILE_VERSION, detect_kind, profile
 
@@ -61,6 +63,7 @@ def _echo_notes(frame: pd.DataFrame) -> None:
 @click.option("--target", required=True, help="Target column of the table.")
 @_kind_option
 @keep_column_option
+@strict_option
 @json_option
 def profile_command(data, target, kind, keep_columns, as_json):
     """Print the meta-features of DATA (CSV, TSV, Parquet or JSON lines).
@@ -86,11 +89,18 @@ def profile_command(data, target, kind, keep_columns, as_json):
 @click.option("-k", "k", default=5, show_default=True, type=click.IntRange(min=1), help="How many neighbors.")
 @_kind_option
 @keep_column_option
+@strict_option
 @json_option
 @click.pass_context
 def neighbors_command(ctx, data, target, learner, k, kind, keep_columns, as_json):
-    """List the past tasks most similar to DATA that have studies of a learner."""
-    archive = get_archive(ctx, write=False)
+    """List the past tasks most similar to DATA that have studies of a learner.
+
+    The similarity column is what a prior for DATA (`warmstart prior`, a warm
+    `tune`) weights each task's studies by, before normalising over them.
+    """
+    from warmstart.cli.remote import server_client
+
+    archive = server_client(ctx) or get_archive(ctx, write=False)
     prof, _ = _profile_file(data, target, kind, keep_columns)
     frame = archive.neighbors(prof, learner=learner, k=k)
     _echo_notes(frame)
@@ -106,6 +116,7 @@ def neighbors_command(ctx, data, target, learner, k, kind, keep_columns, as_json
 @click.option("-n", "n", default=10, show_default=True, type=click.IntRange(min=1), help="How many configs.")
 @_kind_option
 @keep_column_option
+@strict_option
 @json_option
 @click.pass_context
 def defaults_command(ctx, learner, near, target, n, kind, keep_columns, as_json):
@@ -116,8 +127,17 @@ def defaults_command(ctx, learner, near, target, n, kind, keep_columns, as_json)
         raise click.UsageError("--target goes with --near DATA; give both or neither")
     if keep_columns and not near:
         raise click.UsageError("--keep-column names a column of the --near table; give --near DATA --target COL")
-    archive = get_archive(ctx, write=False)
+    from warmstart.cli.remote import server_client
+
+    client = server_client(ctx)
+    archive = client or get_archive(ctx, write=False)
     empty = f"no successful trials of {learner!r} in the archive"
+    if client is not None and not near:  # the service ranks one kind of task, or all
+        frame = client.defaults(learner, n=n, kind=kind)
+        if not as_json:
+            frame = frame.assign(config=[json.dumps(c, sort_keys=True) for c in frame["config"]])
+        print_table(frame, as_json, empty=empty)
+        return
     if near:
         frame = archive.defaults(learner, near=_profile_file(near, target, kind, keep_columns)[0], n=n)
         _echo_notes(frame)

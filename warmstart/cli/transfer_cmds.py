@@ -4,10 +4,12 @@ from __future__ import annotations
 
 import click
 
-from warmstart.cli.common import fail, get_archive, json_option, keep_column_option, print_json, print_table, read_data
+from warmstart.cli.common import (
+    fail, get_archive, json_option, keep_column_option, print_json, print_table, read_data, strict_option,
+)
 from warmstart.cli.main import main
 from warmstart.gain.bits import interval_text, queries_text
-from warmstart.progress import Progress
+from warmstart.cli.progress import Progress
 
 
 def _budgets(text: str) -> list[int]:
@@ -38,6 +40,7 @@ def resolve_space(space_path, learner: str, kind: str):
 @click.option("--space", "space_path", type=click.Path(dir_okay=False), help="Space of the new search (default: the learner's built-in space).")
 @click.option("-o", "--output", type=click.Path(dir_okay=False), help="Write the prior as JSON here.")
 @keep_column_option
+@strict_option
 @json_option
 @click.pass_context
 def prior(ctx, data, target, learner, space_path, output, keep_columns, as_json):
@@ -45,11 +48,21 @@ def prior(ctx, data, target, learner, space_path, output, keep_columns, as_json)
     from warmstart.archive.store import fingerprint
     from warmstart.profile import detect_kind, profile
 
+    from warmstart.cli.remote import server_client
+
     frame = read_data(data, target, keep_columns=keep_columns)
-    archive = get_archive(ctx, write=False)
+    client = server_client(ctx)
     kind = detect_kind(frame[target])
     space = resolve_space(space_path, learner, kind)
     prof = profile(frame, target=target, keep_columns=keep_columns)
+    if client is not None:  # built by the service from its archive; the data stays here
+        found = client.prior(prof, learner, space=space.to_dict(), kind=kind,
+                             exclude_fingerprint=fingerprint(frame, target))
+        if output:
+            fail("-o writes a prior built here; with --server use --json to keep the service's provenance")
+        print_json(found["provenance"]) if as_json else click.echo(found["summary"])
+        return
+    archive = get_archive(ctx, write=False)
     tasks = archive.tasks()
     same = tasks.loc[tasks["fingerprint"] == fingerprint(frame, target), "task_id"].tolist()
     built = archive.build_prior(prof, learner=learner, space=space, exclude_tasks=same)
@@ -72,6 +85,9 @@ def prior(ctx, data, target, learner, space_path, output, keep_columns, as_json)
 @click.option("--gamma", default=0.05, show_default=True, type=click.FloatRange(0.001, 0.5), help="Target set: top share of scores.")
 @click.option("--seed", default=0, show_default=True, type=int)
 @click.option("--workers", default=1, show_default=True, type=click.IntRange(1, 64), help="Processes (tasks run in parallel).")
+@click.option("--cluster", metavar="ADDRESS",
+              help="Replay the held-out tasks on the workers of the Dask scheduler at ADDRESS (needs "
+                   "warmstart[cluster]); the same figures as here for the same --seed.")
 @click.option("--task", "only_tasks", multiple=True, help="Only these held-out tasks (names).")
 @click.option("--replay", "objective", type=click.Choice(["nearest", "surrogate"]), default="nearest",
               show_default=True,
@@ -84,10 +100,11 @@ def prior(ctx, data, target, learner, space_path, output, keep_columns, as_json)
 @click.option("--cv", default=5, show_default=True, type=click.IntRange(min=2), help="With --data: cross-validation folds.")
 @click.option("--report", "report_path", type=click.Path(dir_okay=False), help="Write an HTML report with plots here.")
 @keep_column_option
+@strict_option
 @json_option
 @click.pass_context
-def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, only_tasks, objective, data, target, metric, cv,
-         report_path, keep_columns, as_json):
+def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, cluster, only_tasks, objective, data, target,
+         metric, cv, report_path, keep_columns, as_json):
     """Measure, in bits, whether warm starts beat cold ones on your history.
 
     Leave-one-task-out replay: each archived study is held out in turn and its
@@ -105,6 +122,8 @@ def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, only_tasks, 
     from warmstart.gain.replay import leave_one_task_out
 
     budgets = _budgets(budget_text)
+    if cluster and (data or target):
+        fail("--cluster spreads a replay's held-out tasks; a live comparison (--data) runs here: use --workers N")
     archive = get_archive(ctx, write=False)
     if data or target:
         from click.core import ParameterSource
@@ -129,13 +148,19 @@ def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, only_tasks, 
     for learner in learners:
         if learner not in known:
             fail(f"no studies of learner {learner!r}; learners with studies: {sorted(known)}")
+    executor = None
+    if cluster:
+        from warmstart.evaluate.cluster import ClusterPool
+
+        executor = ClusterPool(cluster)
+        ctx.call_on_close(lambda: executor.shutdown(wait=False, cancel_futures=True))
     results = []
     for learner in learners:
         for budget in budgets:
             bar = Progress(f"{learner} budget {budget}", enabled=not as_json)
             results.append(leave_one_task_out(
                 archive, learner, budget=budget, repeats=repeats, gamma=gamma, seed=seed, workers=workers,
-                progress=bar, tasks=list(only_tasks) or None, objective=objective,
+                progress=bar, tasks=list(only_tasks) or None, objective=objective, executor=executor,
             ))
     _show(results, gamma, report_path, as_json)
 

@@ -19,8 +19,10 @@ import re
 import warnings
 import zipfile
 import zlib
+from contextlib import contextmanager
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 from pandas.api import types as ptypes
 
@@ -45,6 +47,8 @@ DELIMITERS = {",": "comma", ";": "semicolon", "\t": "tab", "|": "pipe"}
 MISSING_MARKERS = ("?", "-", "n/a", "N/A", "NA", "na", "null", "NULL", "")
 _SAMPLE_BYTES = 1 << 16  # decompressed text read to find the delimiter and the header
 _SAMPLE_ROWS = 50
+_LINES_SHOWN = 5  # line numbers a note about short rows gives
+_SCAN_BYTES = 1 << 22  # bytes per block of the scan for short rows
 _COMPRESSIONS = (".gz", ".zip", ".bz2", ".xz", ".zst")
 _UNNAMED = re.compile(r"Unnamed: \d+")
 
@@ -99,7 +103,11 @@ def read_table(path: str | Path) -> pd.DataFrame:
     pandas' own markers become missing. A text column whose every value is a
     number with thousands separators ("6,571", "1,234.5"; "1.234,5" in a
     decimal-comma file) or a plain number becomes numeric. Columns without a
-    header name ("Unnamed: 5" in pandas) that hold no value are dropped.
+    header name ("Unnamed: 5" in pandas) that hold no value are dropped. A
+    row with fewer fields than the header (a *short row*) reads as missing
+    in the fields it lacks, as pandas and R's ``read.csv`` read it, and a note
+    counts such rows and gives the first line numbers; a row with more fields
+    than the header is refused.
 
     Examples
     --------
@@ -215,13 +223,159 @@ def _read_text_table(path: Path, kind: str, notes: list[str]) -> pd.DataFrame:
     if frame.shape[1] == 1:
         _refuse_one_wrong_column(path, kind, str(frame.columns[0]), text, sep)
     empty = [c for c in frame.columns if isinstance(c, str) and _UNNAMED.fullmatch(c) and frame[c].isna().all()]
-    if empty and len(empty) < frame.shape[1]:
+    if len(empty) == frame.shape[1]:
+        empty = []
+    short = _short_rows_note(path, sep, frame, [c not in empty for c in frame.columns])
+    if empty:
         frame = frame.drop(columns=empty)
         notes.append(f"dropped {len(empty)} empty column(s) without a header name")
     converted = _numbers_with_separators(frame, decimal)
     if converted:
         notes.append(f"read column(s) {converted} as numbers with thousands separators")
+    if short:
+        notes.append(short)
     return frame
+
+
+def _short_rows_note(path: Path, sep: str, frame: pd.DataFrame, kept: list[bool]) -> str:
+    """A note counting the rows with fewer fields than the header ("" when none).
+
+    ``frame`` is the table as pandas read it (every header field a column)
+    and ``kept`` says which columns stay. Only a row that lacks a field of a
+    kept column counts (a row lacking only a trailing unnamed empty column
+    loses nothing). pandas does not say which rows were short, so the file
+    is scanned again (:func:`_record_widths`), and only when some row lacks
+    the last kept field.
+    """
+    if not any(kept):
+        return ""
+    needed = max(j for j, keep in enumerate(kept) if keep) + 1
+    if needed < 2 or not frame.iloc[:, needed - 1].isna().any():
+        return ""  # a short row lacks its last fields, so that column is missing there
+    try:
+        lines, widths = _record_widths(path, sep)
+        if not _agrees(frame, widths, needed):  # quotes inside unquoted fields fool the fast scan
+            lines, widths = _record_widths_csv(path, sep)
+    except (csv.Error, OSError, ValueError, EOFError, zlib.error, lzma.LZMAError, zipfile.BadZipFile):
+        return ""  # pandas read the file; a second reading that fails says nothing reliable
+    if len(widths) != len(frame):
+        return ""
+    short = np.flatnonzero(widths < needed)
+    if not short.size:
+        return ""
+    low, high = int(widths[short].min()), int(widths[short].max())
+    fields = f"{low} field{'s' if low != 1 else ''}" if low == high else f"{low} to {high} fields"
+    shown = ", ".join(str(int(line)) for line in lines[short[:_LINES_SHOWN]])
+    shown += " ..." if short.size > _LINES_SHOWN else ""
+    return (f"{short.size} of {len(frame)} rows have fewer fields than the header's {needed} "
+            f"({fields}; line{'s' if short.size > 1 else ''} {shown}): the fields they lack are read as missing")
+
+
+def _agrees(frame: pd.DataFrame, widths: np.ndarray, needed: int) -> bool:
+    """Whether a scan's field counts fit the table pandas read: as many rows,
+    and every row counted short is missing in each field it lacks."""
+    if len(widths) != len(frame):
+        return False
+    short = np.flatnonzero(widths < needed)
+    if not short.size:
+        return True
+    present = frame.iloc[short, :needed].notna().to_numpy()
+    lacking = np.arange(needed)[None, :] >= widths[short][:, None]
+    return not (present & lacking).any()
+
+
+def _record_widths(path: Path, sep: str) -> tuple[np.ndarray, np.ndarray]:
+    """First line and number of fields of every data record of a text table.
+
+    A vectorised scan of the raw bytes in blocks, looking only at the
+    positions of quotes, separators and line breaks: a separator or a line
+    break counts when an even number of double quotes precedes it (outside a
+    quoted field; quotes doubled inside one keep the count even). Records of
+    nothing but spaces are skipped, as pandas skips blank lines; the first
+    record is the header. UTF-8 never uses these bytes inside a multi-byte
+    character.
+    """
+    sep_byte, quote, newline = ord(sep), ord('"'), ord("\n")
+    inside, line = 0, 1  # quote parity and physical line at the start of the block
+    seps, filled, start = 0, False, 1  # the record in progress: separators, a non-blank byte, first line
+    starts: list[np.ndarray] = []
+    counts: list[np.ndarray] = []
+    kept: list[np.ndarray] = []
+    with _open_bytes(path) as handle:
+        while block := handle.read(_SCAN_BYTES):
+            data = np.frombuffer(block, dtype=np.uint8)
+            breaks = np.flatnonzero(data == newline)
+            separators = np.flatnonzero(data == sep_byte)
+            quotes = np.flatnonzero(data == quote)
+            ends = breaks
+            if quotes.size or inside:
+                ends = breaks[((np.searchsorted(quotes, breaks) + inside) & 1) == 0]
+                separators = separators[((np.searchsorted(quotes, separators) + inside) & 1) == 0]
+            if ends.size:
+                before = np.searchsorted(separators, ends)
+                count = np.diff(before, prepend=0)
+                count[0] += seps
+                begins = np.r_[0, ends[:-1] + 1]
+                first = line + np.searchsorted(breaks, begins)
+                first[0] = start
+                nonblank = count > 0
+                for i in np.flatnonzero(~nonblank):  # no separator: a blank line, or a row of one field
+                    nonblank[i] = bool(block[begins[i]:ends[i]].strip()) or (i == 0 and filled)
+                starts.append(first)
+                counts.append(count)
+                kept.append(nonblank)
+                tail = int(ends[-1]) + 1
+                seps, filled = int(separators.size - before[-1]), bool(block[tail:].strip())
+                start = line + int(np.searchsorted(breaks, tail))
+            else:
+                seps, filled = seps + int(separators.size), filled or bool(block.strip())
+            inside = (inside + int(quotes.size)) & 1
+            line += int(breaks.size)
+    if seps or filled:  # a last record without a line break after it
+        starts.append(np.array([start]))
+        counts.append(np.array([seps]))
+        kept.append(np.array([True]))
+    if not counts:
+        return np.empty(0, np.int64), np.empty(0, np.int64)
+    records = np.flatnonzero(np.concatenate(kept))[1:]  # the first non-blank record is the header
+    return np.concatenate(starts)[records], np.concatenate(counts)[records] + 1
+
+
+def _record_widths_csv(path: Path, sep: str) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`_record_widths` with Python's :mod:`csv` reader (slower; a quote
+    inside an unquoted field stays a character, as pandas reads it)."""
+    lines: list[int] = []
+    widths: list[int] = []
+    with _open_bytes(path) as raw, io.TextIOWrapper(raw, encoding="utf-8-sig", errors="replace", newline="") as text:
+        reader = csv.reader(text, delimiter=sep)
+        header_seen, last_line = False, 0
+        for record in reader:
+            start, last_line = last_line + 1, reader.line_num
+            if not record or (len(record) == 1 and not record[0].strip()):
+                continue  # blank lines: pandas skips them too
+            if header_seen:
+                lines.append(start)
+                widths.append(len(record))
+            header_seen = True
+    return np.array(lines, dtype=np.int64), np.array(widths, dtype=np.int64)
+
+
+@contextmanager
+def _open_bytes(path: Path):
+    """The decompressed file as a binary stream."""
+    compression = path.suffix.lower()
+    if compression == ".zip":
+        with zipfile.ZipFile(path) as archive, archive.open(archive.namelist()[0]) as handle:
+            yield handle
+        return
+    if compression == ".zst":
+        import zstandard
+
+        opener = zstandard.open
+    else:
+        opener = {".gz": gzip.open, ".bz2": bz2.open, ".xz": lzma.open}.get(compression, open)
+    with opener(path, "rb") as handle:
+        yield handle
 
 
 def _sample_text(path: Path) -> tuple[str, bool]:

@@ -14,20 +14,35 @@ on platforms without one): the caller may hold DuckDB's threads and may
 have run OpenMP code, and forking such a process can hang the child. A
 child ignores Ctrl-C (the caller handles it and stops the child) and exits
 on its own when the caller's process ends.
+
+A daemonic process may not start ``multiprocessing`` children. Dask's nanny
+starts its worker processes as daemonic, and ``multiprocessing.Pool``
+workers are daemonic too; there the child is a fresh interpreter started
+with :mod:`subprocess` (which a daemonic process may start), given this
+process's ``sys.path`` as ``spawn`` does, and talking over the same kind of
+pipes, inherited by descriptor. Such a child costs an interpreter start and
+the imports of the job, paid once per child, not per run. POSIX only.
 """
 
 from __future__ import annotations
 
+import importlib
+import json
 import multiprocessing
 import multiprocessing.connection as mpc
+from multiprocessing.reduction import ForkingPickler
 import os
 import signal
+import subprocess
+import sys
 import threading
 import time
 import weakref
 from dataclasses import dataclass
 from datetime import datetime, timezone
 from typing import Any, Callable
+
+from warmstart.evaluate.result import error_text
 
 __all__ = ["RunOutcome", "StoppableRunner", "child_context"]
 
@@ -103,11 +118,6 @@ class RunOutcome:
     started_at: datetime | None = None
 
 
-def _error_text(exc: BaseException) -> str:
-    text = str(exc).strip()
-    return f"{type(exc).__name__}: {text}" if text else type(exc).__name__
-
-
 def _exit_when_orphaned(alive: mpc.Connection) -> None:
     """Child thread: end the process when the caller's end of ``alive`` closes."""
     try:
@@ -115,6 +125,82 @@ def _exit_when_orphaned(alive: mpc.Connection) -> None:
     except (EOFError, OSError):
         pass
     os._exit(1)
+
+
+def serve_inherited(conn_fd: int, alive_fd: int) -> None:
+    """Child main of a child started with :mod:`subprocess` (see :class:`_CommandProcess`).
+
+    ``conn_fd`` and ``alive_fd`` are the child's ends of the pipes, inherited
+    by descriptor; the job is the first message on ``conn_fd``.
+    """
+    conn = mpc.Connection(conn_fd)
+    alive = mpc.Connection(alive_fd, writable=False)
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # before the job's imports, which may take a while
+    try:
+        job = conn.recv()
+    except (EOFError, OSError):
+        return
+    for name in _PRELOAD + ["threadpoolctl"]:  # as the fork server does: imports are not paid inside a limit
+        try:
+            importlib.import_module(name)
+        except ImportError:
+            pass
+    _serve(job, conn, alive)
+
+
+#: what the interpreter of a :class:`_CommandProcess` runs: this process's sys.path, then the loop
+_BOOTSTRAP = ("import sys, json; sys.path[:] = json.loads(sys.argv[1]); "
+              "from warmstart.evaluate.deadline import serve_inherited; "
+              "serve_inherited(int(sys.argv[2]), int(sys.argv[3]))")
+
+
+class _CommandProcess:
+    """A child interpreter started with :mod:`subprocess`, with the parts of
+    ``multiprocessing.Process`` that :class:`_Child` uses (``sentinel``,
+    ``is_alive``, ``terminate``, ``kill``, ``join``, ``exitcode``).
+
+    The sentinel is the read end of a pipe whose only write end the child
+    holds and never writes: it reads as end-of-file once the child has ended,
+    as ``multiprocessing``'s own sentinels do on POSIX.
+    """
+
+    def __init__(self, conn_fd: int, alive_fd: int):
+        sentinel_r, sentinel_w = os.pipe()
+        try:
+            self.popen = subprocess.Popen(
+                [sys.executable, "-c", _BOOTSTRAP, json.dumps(sys.path), str(conn_fd), str(alive_fd)],
+                pass_fds=(conn_fd, alive_fd, sentinel_w), stdin=subprocess.DEVNULL,
+            )
+        except BaseException:
+            os.close(sentinel_r)
+            raise
+        finally:
+            os.close(sentinel_w)
+        self.sentinel = sentinel_r
+        self._finalizer = weakref.finalize(self, os.close, sentinel_r)
+
+    @property
+    def exitcode(self) -> int | None:
+        return self.popen.poll()  # negative for a signal, as multiprocessing's exitcode
+
+    def is_alive(self) -> bool:
+        return self.popen.poll() is None
+
+    def terminate(self) -> None:
+        self.popen.terminate()
+
+    def kill(self) -> None:
+        self.popen.kill()
+
+    def join(self, timeout: float | None = None) -> None:
+        try:
+            self.popen.wait(timeout)
+        except subprocess.TimeoutExpired:
+            pass
+
+    def close(self) -> None:
+        """Close the sentinel (once the child has been joined)."""
+        self._finalizer()
 
 
 def _serve(job: Callable, conn: mpc.Connection, alive: mpc.Connection) -> None:
@@ -134,7 +220,7 @@ def _serve(job: Callable, conn: mpc.Connection, alive: mpc.Connection) -> None:
         try:
             value = job(payload, report)
         except Exception as exc:  # the caller records it as a failed run
-            conn.send(("error", _error_text(exc)))
+            conn.send(("error", error_text(exc)))
         else:
             conn.send(("done", value))
 
@@ -153,15 +239,24 @@ def _exit_text(exitcode: int | None) -> str:
 class _Child:
     """One child process serving a job, with the caller's ends of its pipes."""
 
-    def __init__(self, context: multiprocessing.context.BaseContext, job: Callable):
+    def __init__(self, context: multiprocessing.context.BaseContext, job: Callable, command: bool = False):
         self.conn, child_conn = context.Pipe()
         alive_r, self.alive = context.Pipe(duplex=False)
-        self.proc = context.Process(target=_serve, args=(job, child_conn, alive_r),
-                                    name="warmstart-trial", daemon=True)
+        self.command = command
         self.owner = os.getpid()
         try:
-            self.proc.start()
+            if command:  # a daemonic process: a fresh interpreter, sent the job first
+                message = ForkingPickler.dumps(job)  # before starting: a job that cannot be pickled starts nothing
+                self.proc = _CommandProcess(child_conn.fileno(), alive_r.fileno())
+                self.conn.send_bytes(message)
+            else:
+                self.proc = context.Process(target=_serve, args=(job, child_conn, alive_r),
+                                            name="warmstart-trial", daemon=True)
+                self.proc.start()
         except BaseException:
+            if command and hasattr(self, "proc"):
+                self.proc.kill()
+                self.proc.join()
             self.conn.close()
             self.alive.close()
             raise
@@ -182,6 +277,9 @@ class _Child:
         self.proc.join(STOP_WAIT_S if ready else 0)
         if not ready:
             why = f"it was not ready after {timeout:g} s"
+        elif self.command:
+            why = (f"{_exit_text(self.proc.exitcode)}; its error output went to this process's "
+                   "error output (on a Dask worker, the worker's log)")
         else:  # most often a script without the main guard, whose child re-ran the script
             why = (f"{_exit_text(self.proc.exitcode)}; its error output is above (a script that "
                    "evaluates trials with a time limit must do so under `if __name__ == \"__main__\":`, "
@@ -199,6 +297,8 @@ class _Child:
                 self.proc.join()
         elif self.owner == os.getpid():
             self.proc.join()
+        if self.command and self.owner == os.getpid():
+            self.proc.close()
         self.conn.close()
         self.alive.close()
 
@@ -220,6 +320,10 @@ class StoppableRunner:
         and returns a picklable value.
     context : multiprocessing context, optional
         Default :func:`child_context`.
+    command : bool, optional
+        Start children with :mod:`subprocess` (a fresh interpreter given this
+        process's ``sys.path``) instead of ``context``. Default: only in a
+        daemonic process, which may not start ``multiprocessing`` children.
 
     Notes
     -----
@@ -229,14 +333,22 @@ class StoppableRunner:
     the next run starts a new one. :meth:`close` stops the idle children;
     it also runs when the runner is garbage-collected and at exit.
 
-    A daemonic process (a ``multiprocessing.Pool`` worker) cannot start
-    children; runs there end with status ``ended`` and a message saying so.
-    ``concurrent.futures.ProcessPoolExecutor`` workers are not daemonic.
+    In a daemonic process (a worker that Dask's nanny started, a
+    ``multiprocessing.Pool`` worker) children are started with
+    :mod:`subprocess`; the job must then be importable by reference from
+    this process's ``sys.path`` (a module-level function or a method of an
+    object of a module-level class), not only from a ``__main__`` script.
     """
 
-    def __init__(self, job: Callable, context: multiprocessing.context.BaseContext | None = None):
+    def __init__(self, job: Callable, context: multiprocessing.context.BaseContext | None = None,
+                 command: bool | None = None):
+        if command is not None and not isinstance(command, bool):
+            raise TypeError(f"command must be True, False or None (decide by the process), got {command!r}")
+        if command and os.name != "posix":  # pragma: no cover - not POSIX
+            raise ValueError("children started with subprocess (command=True) need POSIX descriptor passing")
         self.job = job
         self.context = context or child_context()
+        self.command = command
         self._idle: list[_Child] = []
         self._lock = threading.Lock()
         self._finalizer = weakref.finalize(self, _stop_all, self._idle)
@@ -248,14 +360,17 @@ class StoppableRunner:
                 if child.owner == os.getpid() and child.proc.is_alive():
                     return child
                 child.stop()
-        if multiprocessing.current_process().daemon:
-            return ("a time limit needs a child process, and this process is daemonic (a "
-                    "multiprocessing.Pool worker), which cannot start one; run trials in "
-                    "concurrent.futures.ProcessPoolExecutor workers or without a time limit")
+        command = self.command
+        if command is None:
+            command = bool(multiprocessing.current_process().daemon)
+        if command and os.name != "posix":  # pragma: no cover - not POSIX
+            return ("a time limit needs a child process, and this process is daemonic (a Dask or "
+                    "multiprocessing.Pool worker), which on this platform cannot start one; run trials "
+                    "in non-daemonic workers (Dask: `dask worker --no-nanny`) or without a time limit")
         try:
-            child = _Child(self.context, self.job)
+            child = _Child(self.context, self.job, command=command)
         except Exception as exc:  # e.g. a job that cannot be pickled
-            return f"the trial process could not start: {_error_text(exc)}"
+            return f"the trial process could not start: {error_text(exc)}"
         try:
             why = child.wait_ready(START_TIMEOUT_S)
         except BaseException:  # Ctrl-C while it starts

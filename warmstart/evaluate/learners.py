@@ -29,10 +29,11 @@ import pandas as pd
 from pandas.api import types as ptypes
 
 from warmstart.evaluate.deadline import StoppableRunner
-from warmstart.evaluate.objective import ObjectiveError, TrialResult, _check_limit, _error_text, _now
+from warmstart.evaluate.metrics import METRICS, metric_direction
+from warmstart.evaluate.result import ObjectiveError, TrialResult, check_time_limit, error_text, utc_now
 from warmstart.profile import detect_kind
 from warmstart.space import Space
-from warmstart.data.features import feature_frame
+from warmstart.data.clean import clean_table
 from warmstart.data.read import TableError
 
 __all__ = [
@@ -51,18 +52,6 @@ __all__ = [
 
 TASK_KINDS = ("classification", "regression")
 
-# metric -> (kind, maximize, scikit-learn scorer name, sign that turns the
-# scorer's value into the metric's natural value)
-METRICS: dict[str, tuple[str, bool, str, float]] = {
-    "accuracy": ("classification", True, "accuracy", 1.0),
-    "balanced_accuracy": ("classification", True, "balanced_accuracy", 1.0),
-    "roc_auc": ("classification", True, "roc_auc", 1.0),  # roc_auc_ovr for > 2 classes
-    "log_loss": ("classification", False, "neg_log_loss", -1.0),
-    "f1_macro": ("classification", True, "f1_macro", 1.0),
-    "r2": ("regression", True, "r2", 1.0),
-    "rmse": ("regression", False, "neg_root_mean_squared_error", -1.0),
-    "mae": ("regression", False, "neg_mean_absolute_error", -1.0),
-}
 _DEFAULT_METRIC = {"classification": "accuracy", "regression": "r2"}
 
 # one-hot encoding of categoricals: levels seen in < 1 % of rows are grouped,
@@ -310,13 +299,6 @@ def default_space(key: str, kind: str) -> Space:
     return get_learner(key, kind).space
 
 
-def metric_direction(metric: str) -> bool:
-    """True when larger values of ``metric`` are better (False for losses and errors)."""
-    if metric not in METRICS:
-        raise ObjectiveError(f"unknown metric {metric!r}; metrics are: {', '.join(METRICS)}")
-    return METRICS[metric][1]
-
-
 def default_metric(kind: str) -> str:
     """``accuracy`` for classification, ``r2`` for regression."""
     return _DEFAULT_METRIC[_check_kind(kind)]
@@ -416,9 +398,9 @@ def _check_metric(metric: str | None, kind: str) -> str:
     if metric is None:
         return default_metric(kind)
     metric_direction(metric)  # unknown metric -> error listing them
-    if METRICS[metric][0] != kind:
-        fitting = ", ".join(m for m, spec in METRICS.items() if spec[0] == kind)
-        raise ObjectiveError(f"metric {metric!r} is for {METRICS[metric][0]} tasks; for {kind} use one of: {fitting}")
+    if METRICS[metric].kind != kind:
+        fitting = ", ".join(m for m, spec in METRICS.items() if spec.kind == kind)
+        raise ObjectiveError(f"metric {metric!r} is for {METRICS[metric].kind} tasks; for {kind} use one of: {fitting}")
     return metric
 
 
@@ -445,11 +427,13 @@ class CVObjective:
     :meth:`close` stops it. Without a time limit trials run in this process.
     Warnings (convergence and others) are silenced inside a trial.
 
-    The features are the table's other columns as
-    :func:`warmstart.data.read.feature_frame` gives them (identifier columns
-    left out, dates written as text as days since 1970-01-01), the same
-    columns a profile of the table uses; ``feature_notes`` says what was
-    done per column.
+    The rows, labels and features are the table as
+    :func:`warmstart.data.clean.clean_table` gives it, the same table a
+    profile uses: identifier columns left out, dates written as text as days
+    since 1970-01-01, rows without a target left out, text labels that
+    differ only in case or surrounding spaces merged, infinite feature values
+    missing. ``feature_notes`` says what was done per column left out or
+    converted, ``data_notes`` what else was done (rows, labels, values).
     """
 
     def __init__(self, frame, target, learner, metric=None, kind=None, cv=5, seed=0,
@@ -459,17 +443,17 @@ class CVObjective:
         if target not in frame.columns:
             raise ObjectiveError(f"target column {target!r} not found; columns are: {', '.join(map(str, frame.columns))}")
         original = [c for c in frame.columns if c != target]
-        try:  # on the table as given, before rows go: the same columns as its profile
-            frame, self.feature_notes = feature_frame(frame, target, keep=keep_columns)
+        try:  # the same rows, labels and columns as its profile
+            cleaned = clean_table(frame, target, keep_columns=keep_columns)
         except TableError as exc:
             raise ObjectiveError(str(exc)) from None
+        frame, self.feature_notes, self.data_notes = cleaned.frame, cleaned.column_notes, cleaned.notes
         if original and frame.shape[1] == 1:
             raise ObjectiveError(
                 "every feature column was left out: "
                 + "; ".join(f"{c!r} {why}" for c, why in self.feature_notes.items())
                 + "; pass the ones that are features with keep_columns (--keep-column on the command line)"
             )
-        frame = frame[frame[target].notna()]
         y = frame[target]
         self.kind = _check_kind(kind) if kind is not None else detect_kind(y)
         self.key = learner
@@ -519,30 +503,30 @@ class CVObjective:
         with warnings.catch_warnings():  # small classes: scikit-learn warns, we go on
             warnings.simplefilter("ignore")
             self.folds = [(tr, te) for tr, te in splitter.split(self.X, self.y)]
-        scorer = METRICS[self.metric][2]
+        scorer = METRICS[self.metric].scorer
         if self.metric == "roc_auc" and len(classes) > 2:
             scorer = "roc_auc_ovr"
-        self.scorer_name, self.sign = scorer, METRICS[self.metric][3]
+        self.scorer_name, self.sign = scorer, METRICS[self.metric].sign
         self.proba = self.metric == "log_loss" or scorer == "roc_auc_ovr"
         self.seed = seed
-        self.time_limit = _check_limit(time_limit)
+        self.time_limit = check_time_limit(time_limit)
         self.threads = threads
         self._runner: StoppableRunner | None = None
 
     def __call__(self, config: Mapping) -> TrialResult:
-        started_at, started = _now(), time.perf_counter()
+        started_at, started = utc_now(), time.perf_counter()
         try:
             config = self.space.normalize(config)
         except Exception as exc:
-            return TrialResult.failed(_error_text(exc), started, started_at)
+            return TrialResult.failed(error_text(exc), started, started_at)
         if self.time_limit is not None:
             return self._call_limited(config)
         try:
             scores = self.fold_scores(config)
         except Exception as exc:  # a failed trial; the search goes on
-            return TrialResult.failed(_error_text(exc), started, started_at)
+            return TrialResult.failed(error_text(exc), started, started_at)
         cost = time.perf_counter() - started
-        return TrialResult(float(np.mean(scores)), "ok", cost, None, started_at, _now(), tuple(scores))
+        return TrialResult(float(np.mean(scores)), "ok", cost, None, started_at, utc_now(), tuple(scores))
 
     def fold_scores(self, config: dict, report: Callable[[int], None] | None = None) -> list[float]:
         """The per-fold scores of a normalized config, in this process.
@@ -582,7 +566,7 @@ class CVObjective:
         if outcome.status == "done":
             scores = outcome.value
             cost = time.perf_counter() - outcome.started
-            return TrialResult(float(np.mean(scores)), "ok", cost, None, outcome.started_at, _now(), tuple(scores))
+            return TrialResult(float(np.mean(scores)), "ok", cost, None, outcome.started_at, utc_now(), tuple(scores))
         if outcome.status == "timeout":
             error = f"trial exceeded its time limit of {self.time_limit:g} s (stopped {where})"
         elif outcome.status == "ended" and outcome.stage is not None:
@@ -653,9 +637,11 @@ def cv_objective(frame: pd.DataFrame, target: str, learner: str, metric: str | N
     Parameters
     ----------
     frame : DataFrame
-        Features and target; rows with a missing target are left out.
-        Identifier columns are left out and dates written as text become
-        days, as in a profile (:func:`warmstart.data.read.feature_frame`).
+        Features and target, used as :func:`warmstart.data.clean.clean_table`
+        gives them, as in a profile: rows with a missing target left out,
+        text labels that differ only in case or surrounding spaces merged,
+        infinite feature values missing, identifier columns left out and
+        dates written as text as days.
     target : str
         Target column.
     learner : str
@@ -687,7 +673,7 @@ def cv_objective(frame: pd.DataFrame, target: str, learner: str, metric: str | N
     keep_columns : iterable of str, default ()
         Columns to use as features exactly as they are, even when they look
         like identifiers or dates written as text (see
-        :func:`warmstart.data.read.feature_frame`).
+        :func:`warmstart.data.features.feature_frame`).
 
     Returns
     -------

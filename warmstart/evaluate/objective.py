@@ -1,7 +1,8 @@
 """Objectives: turn a config into a trial result.
 
-An objective is any callable ``config -> TrialResult``. This module has the
-result type and the two external objectives:
+An objective is any callable ``config -> TrialResult``
+(:class:`~warmstart.evaluate.result.TrialResult`; a bare score works too).
+This module has the two external objectives:
 
 :class:`CommandObjective`
     runs a command once per config, without a shell. The config goes in as
@@ -29,83 +30,23 @@ import shutil
 import signal
 import subprocess
 import time
-from dataclasses import asdict, dataclass
-from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any, Callable, Mapping, Sequence
 
 from warmstart.evaluate.deadline import STOP_WAIT_S, child_context
-from warmstart.errors import WarmstartError
+from warmstart.evaluate.result import ObjectiveError, TrialResult, check_time_limit, error_text, utc_now
 
 __all__ = [
     "ObjectiveError",
     "TrialResult",
     "CallableObjective",
     "CommandObjective",
-    "TrialFailed",
     "local_pool",
     "parse_score",
-    "score_function",
     "stop_pool",
 ]
 
 _TAIL_CHARS = 2000
-
-
-class ObjectiveError(WarmstartError, ValueError):
-    """An objective cannot be set up as asked (unknown command, bad metric ...)."""
-
-
-def _now() -> datetime:
-    return datetime.now(timezone.utc)
-
-
-@dataclass(frozen=True)
-class TrialResult:
-    """The outcome of evaluating one config.
-
-    Attributes
-    ----------
-    score : float or None
-        The score in the metric's natural units (``None`` when failed).
-    status : {"ok", "failed"}
-        ``"failed"`` when no usable score came back.
-    cost_s : float
-        Wall-clock seconds spent on the config.
-    error : str or None
-        What went wrong, for failed trials.
-    started_at, finished_at : datetime or None
-        UTC times the evaluation started and ended.
-    fold_scores : tuple of float
-        Per-fold scores of a cross-validated objective (empty otherwise).
-    """
-
-    score: float | None
-    status: str
-    cost_s: float
-    error: str | None = None
-    started_at: datetime | None = None
-    finished_at: datetime | None = None
-    fold_scores: tuple = ()
-
-    @property
-    def ok(self) -> bool:
-        """True when the trial produced a usable score."""
-        return self.status == "ok"
-
-    def to_dict(self) -> dict:
-        """Plain-data form (times as ISO strings)."""
-        d = asdict(self)
-        for key in ("started_at", "finished_at"):
-            if d[key] is not None:
-                d[key] = d[key].isoformat()
-        d["fold_scores"] = list(self.fold_scores)
-        return d
-
-    @classmethod
-    def failed(cls, error: str, started: float, started_at: datetime | None) -> "TrialResult":
-        """A failed result whose cost runs from ``started`` (perf_counter) to now."""
-        return cls(None, "failed", time.perf_counter() - started, error, started_at, _now())
 
 
 def _finite_score(value: Any, source: str) -> float:
@@ -116,11 +57,6 @@ def _finite_score(value: Any, source: str) -> float:
     if not math.isfinite(value):
         raise ObjectiveError(f"{source} gave a non-finite score ({value}); a score must be finite")
     return value
-
-
-def _error_text(exc: BaseException) -> str:
-    text = str(exc).strip()
-    return f"{type(exc).__name__}: {text}" if text else type(exc).__name__
 
 
 class CallableObjective:
@@ -147,10 +83,10 @@ class CallableObjective:
         if not callable(fn):
             raise ObjectiveError(f"CallableObjective needs a callable, got {type(fn).__name__}")
         self.fn = fn
-        self.time_limit = _check_limit(time_limit)
+        self.time_limit = check_time_limit(time_limit)
 
     def __call__(self, config: Mapping) -> TrialResult:
-        started_at, started = _now(), time.perf_counter()
+        started_at, started = utc_now(), time.perf_counter()
         try:
             out = self.fn(dict(config))
             if isinstance(out, Mapping):
@@ -162,7 +98,7 @@ class CallableObjective:
                 out = out["score"]
             score = _finite_score(out, "objective")
         except Exception as exc:  # a failed trial; the search goes on
-            return TrialResult.failed(_error_text(exc), started, started_at)
+            return TrialResult.failed(error_text(exc), started, started_at)
         cost = time.perf_counter() - started
         if self.time_limit is not None and cost > self.time_limit:
             return TrialResult.failed(
@@ -170,15 +106,7 @@ class CallableObjective:
                 started,
                 started_at,
             )
-        return TrialResult(score, "ok", cost, None, started_at, _now())
-
-
-def _check_limit(time_limit: float | None) -> float | None:
-    if time_limit is None:
-        return None
-    if isinstance(time_limit, bool) or not isinstance(time_limit, (int, float)) or not time_limit > 0:
-        raise ObjectiveError(f"time_limit must be a positive number of seconds, got {time_limit!r}")
-    return float(time_limit)
+        return TrialResult(score, "ok", cost, None, started_at, utc_now())
 
 
 def _arg_value(value: Any) -> str:
@@ -280,7 +208,7 @@ class CommandObjective:
                 f"command {program!r} not found on PATH or as a file; give the program's full path"
             )
         self.argv = argv
-        self.timeout = _check_limit(timeout)
+        self.timeout = check_time_limit(timeout)
         self.cwd = str(cwd) if cwd is not None else None
         self.env = dict(env) if env else None
 
@@ -292,7 +220,7 @@ class CommandObjective:
         return args
 
     def __call__(self, config: Mapping) -> TrialResult:
-        started_at, started = _now(), time.perf_counter()
+        started_at, started = utc_now(), time.perf_counter()
         payload = json.dumps(dict(config), sort_keys=True, separators=(",", ":")) + "\n"
         env = {**os.environ, **self.env} if self.env else None
         try:
@@ -330,40 +258,10 @@ class CommandObjective:
         except ObjectiveError as exc:
             tail = _tail(err)
             return TrialResult.failed(str(exc) + (f"; stderr: {tail}" if tail else ""), started, started_at)
-        return TrialResult(score, "ok", time.perf_counter() - started, None, started_at, _now())
+        return TrialResult(score, "ok", time.perf_counter() - started, None, started_at, utc_now())
 
     def __repr__(self) -> str:
         return f"CommandObjective({shlex.join(self.argv)!r}, timeout={self.timeout})"
-
-
-class TrialFailed(Exception):
-    """Raised by :func:`score_function` wrappers for a failed trial (message = error)."""
-
-
-class _ScoreFunction:
-    """Picklable adapter: ``objective(config) -> TrialResult`` to ``-> float``."""
-
-    def __init__(self, objective: Callable[[dict], TrialResult]):
-        self.objective = objective
-
-    def __call__(self, config: Mapping) -> float:
-        result = self.objective(config)
-        if not isinstance(result, TrialResult):
-            return result  # already a score-returning function
-        if not result.ok:
-            raise TrialFailed(result.error or "failed")
-        return result.score
-
-
-def score_function(objective: Callable[[dict], TrialResult]) -> Callable[[dict], float]:
-    """Wrap an objective for :func:`warmstart.search.density.run_search`.
-
-    The wrapper returns the score of an ok trial and raises
-    :class:`TrialFailed` (with the error text) for a failed one, which the
-    search loop records as a failed trial. It pickles when the objective
-    does, so it can run in worker processes.
-    """
-    return _ScoreFunction(objective)
 
 
 def _kill(proc: subprocess.Popen) -> None:

@@ -1,4 +1,4 @@
-"""Run independent jobs in local worker processes, in order, with progress."""
+"""Run independent jobs in local worker processes (or on a given executor), in order, with progress."""
 
 from __future__ import annotations
 
@@ -32,6 +32,7 @@ def map_jobs(
     progress: Callable[[int, int], None] | None = None,
     done_before: int = 0,
     total: int | None = None,
+    executor: cf.Executor | None = None,
 ) -> list:
     """``[fn(job) for job in jobs]``, in worker processes when ``workers > 1``.
 
@@ -47,6 +48,10 @@ def map_jobs(
         Called after each finished job.
     done_before, total : int
         Offsets for the progress count when these jobs are part of larger work.
+    executor : concurrent.futures.Executor, optional
+        Run every job there instead (a Dask cluster's
+        :class:`~warmstart.evaluate.cluster.ClusterPool`); ``workers`` is then
+        not used. The caller shuts it down.
 
     Returns
     -------
@@ -56,17 +61,19 @@ def map_jobs(
     total = len(jobs) + done_before if total is None else total
     results: list = [None] * len(jobs)
     done = done_before
+    if executor is not None and jobs:
+        futures = {executor.submit(fn, job): i for i, job in enumerate(jobs)}
+        try:
+            _collect(futures, results, done, total, progress)
+        except BaseException:  # Ctrl-C or a failed job: drop what has not started
+            for fut in futures:
+                fut.cancel()
+            raise
+        return results
     if workers > 1 and len(jobs) > 1:
         with cf.ProcessPoolExecutor(max_workers=workers) as pool:
             futures = {pool.submit(fn, job): i for i, job in enumerate(jobs)}
-            pending = set(futures)
-            while pending:
-                for fut in wait_first(pending):
-                    pending.discard(fut)
-                    results[futures[fut]] = fut.result()
-                    done += 1
-                    if progress:
-                        progress(done, total)
+            _collect(futures, results, done, total, progress)
         return results
     for i, job in enumerate(jobs):
         results[i] = fn(job)
@@ -74,3 +81,16 @@ def map_jobs(
         if progress:
             progress(done, total)
     return results
+
+
+def _collect(futures: dict, results: list, done: int, total: int,
+             progress: Callable[[int, int], None] | None) -> None:
+    """Put each future's result at its job's index as it finishes."""
+    pending = set(futures)
+    while pending:
+        for fut in wait_first(pending):
+            pending.discard(fut)
+            results[futures[fut]] = fut.result()
+            done += 1
+            if progress:
+                progress(done, total)

@@ -34,11 +34,14 @@ __all__ = [
     "TaskGain",
     "PooledGain",
     "target_threshold",
+    "in_target",
+    "hits_and_regret",
     "hit_rate",
     "bits",
     "bits_interval",
     "compare",
     "pool",
+    "GainResult",
     "N_BOOT",
     "MIN_RUNS",
     "interval_text",
@@ -81,6 +84,41 @@ def in_target(scores: np.ndarray, threshold: float, maximize: bool = True) -> np
     with np.errstate(invalid="ignore"):
         hit = s >= threshold if maximize else s <= threshold
     return hit & np.isfinite(s)
+
+
+def hits_and_regret(scores: np.ndarray, threshold: float, reference: np.ndarray,
+                    maximize: bool = True) -> tuple[np.ndarray, np.ndarray]:
+    """Hits and normalised best-so-far regret of searches' scores, query by query.
+
+    Parameters
+    ----------
+    scores : ndarray (..., B)
+        Scores of B queries in order (the last axis), e.g. (runs, budget);
+        NaN for a failed query, which never hits and finds nothing.
+    threshold : float
+        Score a query must reach to hit (:func:`target_threshold`).
+    reference : ndarray
+        Scores that span the task: the best of them is regret 0, the worst
+        regret 1 (NaN ignored).
+    maximize : bool, default True
+
+    Returns
+    -------
+    hits : ndarray (..., B) of bool
+        :func:`in_target` of each score.
+    regret : ndarray (..., B)
+        ``(best - best so far) / (best - worst)`` after each query, clipped
+        to [0, 1] (1 until the first successful query); the span is 1 when
+        every reference score is equal.
+    """
+    s = np.asarray(scores, dtype=float)
+    sign = 1.0 if maximize else -1.0
+    ref = sign * np.asarray(reference, dtype=float)
+    best, worst = np.nanmax(ref), np.nanmin(ref)
+    span = best - worst if best > worst else 1.0
+    signed = np.where(np.isnan(s), -np.inf, sign * s)
+    regret = np.clip((best - np.maximum.accumulate(signed, axis=-1)) / span, 0.0, 1.0)
+    return in_target(s, threshold, maximize), regret
 
 
 @dataclass(frozen=True)
@@ -396,11 +434,3 @@ class GainResult:
         frame = pd.DataFrame([t.to_dict() for t in self.tasks])
         frame.insert(0, "learner", self.learner)
         return frame
-
-
-def results_frame(results: Sequence[TaskGain]) -> pd.DataFrame:
-    """Per-task results as a DataFrame."""
-    return pd.DataFrame([r.to_dict() for r in results])
-
-
-__all__ += ["GainResult", "results_frame", "in_target"]

@@ -16,7 +16,9 @@ from typing import Any, Callable
 import numpy as np
 
 from warmstart.evaluate.workers import map_jobs
-from warmstart.gain.bits import GainResult, Runs, compare, in_target, pool, target_threshold
+from warmstart.gain.bits import GainResult, Runs, compare, hits_and_regret, in_target, pool, target_threshold
+from warmstart.search.density import DensitySearch
+from warmstart.search.strategy import run_search
 from warmstart.space import Space
 
 __all__ = ["LiveResult", "live_gain"]
@@ -44,18 +46,22 @@ class _Cached:
         return self.memo[key]
 
 
-def _arm(args) -> tuple[np.ndarray, dict]:
-    from warmstart.search.density import DensitySearch
+@dataclass(frozen=True, eq=False)
+class _ArmJob:
+    """One warm (``prior`` set) or cold search on the live objective."""
 
-    space, evaluate, prior, budget, seed, maximize = args
-    cached = _Cached(space, evaluate)
-    search = DensitySearch(space, prior=prior, seed=seed, maximize=maximize)
-    scores = np.empty(budget)
-    for t in range(budget):
-        config = search.propose()
-        scores[t] = cached(config)
-        search.record(config, None if np.isnan(scores[t]) else scores[t])
-    return scores, cached.memo
+    space: Space
+    evaluate: Callable
+    prior: Any
+    budget: int
+    seed: int
+    maximize: bool
+
+
+def _arm(job: _ArmJob) -> np.ndarray:
+    """Scores of one search, query by query, NaN = failed (module level, so worker processes can run it)."""
+    search = DensitySearch(job.space, prior=job.prior, seed=job.seed, maximize=job.maximize)
+    return run_search(search, _Cached(job.space, job.evaluate), job.budget).scores
 
 
 @dataclass
@@ -113,17 +119,12 @@ def live_gain(
             progress(i + 1, total)
     threshold = target_threshold(ref_scores, gamma, maximize)
     p = float(in_target(ref_scores, threshold, maximize).mean())
-    jobs = [(space, evaluate, prior if arm == "warm" else None, budget, seed + r, maximize)
+    jobs = [_ArmJob(space, evaluate, prior if arm == "warm" else None, budget, seed + r, maximize)
             for arm in ("warm", "cold") for r in range(repeats)]
     outputs = map_jobs(_arm, jobs, workers, progress, done_before=n_reference, total=total)
-    scores = np.array([o[0] for o in outputs])
-    sign = 1.0 if maximize else -1.0
-    every = np.concatenate([ref_scores, scores.ravel()])
-    best, worst = np.nanmax(sign * every), np.nanmin(sign * every)
-    span = best - worst if best > worst else 1.0
-    signed = np.where(np.isnan(scores), -np.inf, sign * scores)
-    regret = np.clip((best - np.maximum.accumulate(signed, axis=1)) / span, 0, 1)
-    hits = in_target(scores, threshold, maximize)
+    scores = np.array(outputs)
+    # regret spans every score seen: the reference sample's and the searches'
+    hits, regret = hits_and_regret(scores, threshold, np.concatenate([ref_scores, scores.ravel()]), maximize)
     warm = Runs(hits[:repeats], regret[:repeats], "warm")
     cold = Runs(hits[repeats:], regret[repeats:], "cold")
     result = compare(task, warm, cold, p, rng=seed)

@@ -1,17 +1,23 @@
-"""A held-out study's recorded trials smoothed into a continuous objective.
+"""A held-out study's recorded trials acting as its objective, in two ways.
 
-The nearest-config replay (:class:`warmstart.gain.replay.ReplayObjective`) scores
-a proposed config by the recorded config nearest to it. Its target set is a
-handful of recorded configs (top 5 % of 96 is 5), so no list of ``B``
-distinct proposals can hit more than ``|T| / B`` of the time, and a search
-that narrows in on a good region is scored as if it kept proposing the same
-point. :class:`SurrogateObjective` fits a Gaussian process regressor
-(scikit-learn) to the recorded trials instead and scores every point of the
-space by its posterior mean. The target set is then a region (the top
-``gamma`` of the surrogate under uniform sampling), as it is for a live
-objective.
+The replay (:mod:`warmstart.gain.replay`) measures transfer without training
+a model: the held-out study's recorded trials score the searches'
+proposals. Both objectives here follow one protocol,
+:class:`HeldOutObjective`:
 
-The regressor is fitted to normal scores of the ranks (a Gaussian copula
+:class:`ReplayObjective` (``nearest``)
+    a proposed config scores what its nearest recorded config scored (unit
+    cube). Its target set is a handful of recorded configs (top 5 % of 96
+    is 5), so no list of ``B`` distinct proposals can hit more than
+    ``|T| / B`` of the time, and a search that narrows in on a good region
+    is scored as if it kept proposing the same point.
+:class:`SurrogateObjective` (``surrogate``)
+    a Gaussian process (:mod:`warmstart.search.gp`) fitted to the recorded
+    trials scores every point of the space by its posterior mean. The
+    target set is then a region (the top ``gamma`` of the surrogate under
+    uniform sampling), as it is for a live objective.
+
+The surrogate is fitted to normal scores of the ranks (a Gaussian copula
 transform), not to raw scores: R² of a bad config can be -10 when good ones
 reach 0.9, and such outliers would flatten the fit where it matters. The
 posterior mean is mapped back to score units through the recorded scores'
@@ -21,54 +27,117 @@ recorded range and ranks exactly as the fitted normal scores rank.
 
 from __future__ import annotations
 
-import warnings
-from typing import Any
+from typing import Any, Protocol, runtime_checkable
 
 import numpy as np
 from scipy.stats import norm, rankdata
-from sklearn.exceptions import ConvergenceWarning
-from sklearn.gaussian_process import GaussianProcessRegressor
-from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
 
-from warmstart.space import Space
+from warmstart.gain.bits import in_target
+from warmstart.search.gp import SURROGATE_KERNEL, fit_gp, gp_features
+from warmstart.space import Space, unit_distances
 
-__all__ = ["SurrogateObjective", "gp_features"]
+__all__ = ["HeldOutObjective", "ReplayObjective", "SurrogateObjective"]
 
 
-def gp_features(space: Space, rows: np.ndarray, conditional: np.ndarray | None = None) -> np.ndarray:
-    """Regressor inputs for encoded rows.
+@runtime_checkable
+class HeldOutObjective(Protocol):
+    """What the replay needs from a held-out study's objective.
 
-    ``real``/``integer`` coordinates keep their unit-cube value; a ``choice``
-    becomes one indicator column per level; an inactive coordinate is 0 and,
-    for the columns flagged in ``conditional``, an extra indicator says
-    whether the parameter was active.
+    Attributes
+    ----------
+    space : Space
+        The study's space.
+    maximize : bool
+        Whether larger scores are better.
+    reference_scores : ndarray
+        The task's scores under uniform sampling of the space; their top
+        ``gamma`` defines the target set (:func:`~warmstart.gain.bits.target_threshold`)
+        and their best and worst span the regret.
+
+    Methods
+    -------
+    values(rows) -> ndarray
+        Scores of encoded rows (n, d), in the recorded score units.
+    __call__(config) -> float
+        The score of one config: ``values`` of its encoded row. This is the
+        objective :func:`~warmstart.search.strategy.run_search` evaluates.
+    uniform_hit_chance(threshold, n, rng) -> float
+        ``p``: the chance that a uniform draw reaches ``threshold``
+        (estimated from ``n`` draws, never 0).
+    max_distinct_hits(threshold, budget) -> int
+        Most hits ``budget`` distinct proposals can score (for the
+        hindsight figure ``ideal_list``).
+    """
+
+    space: Space
+    maximize: bool
+    reference_scores: np.ndarray
+
+    def values(self, rows: np.ndarray) -> np.ndarray: ...
+
+    def __call__(self, config: dict) -> float: ...
+
+    def uniform_hit_chance(self, threshold: float, n: int = 4096, rng: Any = 0) -> float: ...
+
+    def max_distinct_hits(self, threshold: float, budget: int) -> int: ...
+
+
+def _uniform_hit_chance(objective: HeldOutObjective, threshold: float, n: int, rng: Any) -> float:
+    """Share of ``n`` uniform draws whose score reaches ``threshold``, at least ``0.5 / (n + 1)``."""
+    rows = objective.space.sample_unit(n, np.random.default_rng(rng))
+    hit = in_target(objective.values(rows), threshold, objective.maximize)
+    return float(max(hit.mean(), 0.5 / (n + 1)))
+
+
+class ReplayObjective:
+    """A held-out study's recorded trials acting as its objective: the nearest one scores.
+
+    Follows :class:`HeldOutObjective`.
 
     Parameters
     ----------
     space : Space
-    rows : ndarray (n, d)
-        Encoded rows (NaN = inactive).
-    conditional : ndarray (d,) of bool, optional
-        Coordinates that get an "active" indicator.
+    X : ndarray (m, d)
+        Encoded recorded configs (successful trials).
+    scores : ndarray (m,)
+    maximize : bool, default True
     """
-    rows = np.atleast_2d(np.asarray(rows, dtype=float))
-    if conditional is None:
-        conditional = np.zeros(space.dim, dtype=bool)
-    cols = []
-    for j, p in enumerate(space.params):
-        x = rows[:, j]
-        if p.kind == "choice":
-            for level in range(p.n_levels):
-                cols.append((x == level).astype(float))
-        else:
-            cols.append(np.nan_to_num(x, nan=0.0))
-            if conditional[j]:
-                cols.append(np.isfinite(x).astype(float))
-    return np.column_stack(cols)
+
+    def __init__(self, space: Space, X: np.ndarray, scores: np.ndarray, maximize: bool = True):
+        self.space = space
+        self.X = np.asarray(X, dtype=float)
+        self.scores = np.asarray(scores, dtype=float)
+        self.maximize = maximize
+
+    @property
+    def reference_scores(self) -> np.ndarray:
+        """The task's scores under uniform sampling: the recorded ones."""
+        return self.scores
+
+    def nearest(self, rows: np.ndarray) -> np.ndarray:
+        """Index of the nearest recorded config for each encoded row."""
+        return np.argmin(unit_distances(self.space, np.atleast_2d(rows), self.X), axis=1)
+
+    def values(self, rows: np.ndarray) -> np.ndarray:
+        """Scores of encoded rows: those of their nearest recorded configs."""
+        return self.scores[self.nearest(rows)]
+
+    def __call__(self, config: dict) -> float:
+        return float(self.values(self.space.encode([config]))[0])
+
+    def max_distinct_hits(self, threshold: float, budget: int) -> int:
+        """Most hits ``budget`` distinct recorded configs can score: ``min(|T|, B)``."""
+        return min(int(in_target(self.scores, threshold, self.maximize).sum()), budget)
+
+    def uniform_hit_chance(self, threshold: float, n: int = 4096, rng: Any = 0) -> float:
+        """``p``: chance that a uniform draw's nearest recorded config is a hit."""
+        return _uniform_hit_chance(self, threshold, n, rng)
 
 
 class SurrogateObjective:
     """A Gaussian-process surrogate of one study's recorded trials.
+
+    Follows :class:`HeldOutObjective`.
 
     Parameters
     ----------
@@ -109,15 +178,8 @@ class SurrogateObjective:
         order = np.argsort(z, kind="stable")
         self._z_sorted = z[order]
         self._s_sorted = scores[order]
-        features = gp_features(space, X, self._conditional)
-        kernel = (ConstantKernel(1.0, (1e-2, 1e2))
-                  * Matern(length_scale=np.full(features.shape[1], 0.3), length_scale_bounds=(1e-2, 1e2), nu=2.5)
-                  + WhiteKernel(0.1, (1e-5, 1.0)))
-        self._gp = GaussianProcessRegressor(kernel, normalize_y=True, n_restarts_optimizer=2, random_state=seed)
-        with warnings.catch_warnings():
-            # a noise level or length scale at its bound is a fit, not a failure
-            warnings.simplefilter("ignore", ConvergenceWarning)
-            self._gp.fit(features, z)
+        self._gp = fit_gp(gp_features(space, X, self._conditional), z, SURROGATE_KERNEL, n_restarts=2,
+                          random_state=seed)
         self.reference_scores = self.values(space.sample_unit(n_reference, np.random.default_rng(seed)))
 
     def values(self, rows: np.ndarray) -> np.ndarray:
@@ -130,11 +192,7 @@ class SurrogateObjective:
 
     def uniform_hit_chance(self, threshold: float, n: int = 4096, rng: Any = 1) -> float:
         """``p``: chance that a uniform draw reaches ``threshold`` (fresh draws)."""
-        from warmstart.gain.bits import in_target
-
-        rows = self.space.sample_unit(n, np.random.default_rng(rng))
-        hit = in_target(self.values(rows), threshold, self.maximize)
-        return float(max(hit.mean(), 0.5 / (n + 1)))
+        return _uniform_hit_chance(self, threshold, n, rng)
 
     def max_distinct_hits(self, threshold: float, budget: int) -> int:
         """Most hits ``budget`` distinct proposals can score: all of them."""

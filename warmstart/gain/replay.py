@@ -11,77 +11,47 @@ estimated by pushing uniform draws through the same nearest-config map, so
 Baselines computed in the same run:
 
 ``random``
-    uniform sampling;
+    uniform sampling (:class:`~warmstart.search.baselines.RandomSearch`);
 ``defaults``
     the average-rank order of past configs across all other tasks (a
-    static list, "learned defaults");
+    static list, "learned defaults": :func:`~warmstart.search.static.average_rank_list`);
 ``nearest``
     the best configs of the nearest tasks by profile distance, nearest
-    first (the meta-feature nearest-datasets initialisation).
+    first (the meta-feature nearest-datasets initialisation:
+    :func:`~warmstart.search.static.nearest_tasks_list`).
+
+Every one of them, warm and cold included, is a strategy object run through
+:func:`~warmstart.search.strategy.run_search` on the held-out objective; the
+scores it returns give the hits and regret (:func:`~warmstart.gain.bits.hits_and_regret`).
+A static list shorter than the budget stops where it ends, and the queries it
+did not make count as misses.
 """
 
 from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Any, Callable, Sequence
+from typing import Callable, Iterable, Sequence
 
 import numpy as np
+from threadpoolctl import threadpool_limits
 
+from warmstart._checks import check_choice
 from warmstart.errors import WarmstartError
 from warmstart.evaluate.workers import map_jobs
-from warmstart.gain.bits import GainResult, Runs, TaskGain, compare, in_target, pool, target_threshold
-from warmstart.prior import Prior, Source, prior_from_sources, unit_distances
-from warmstart.archive.sources import BANDWIDTH_SCALE, comparable_profiles, load_sources, weight_sources
+from warmstart.gain.bits import (GainResult, Runs, TaskGain, compare, hits_and_regret, in_target, pool,
+                                 target_threshold)
+from warmstart.gain.objectives import HeldOutObjective, ReplayObjective, SurrogateObjective
+from warmstart.prior import Prior, Source, prior_from_sources
+from warmstart.archive.sources import load_sources, prior_info, prior_sources
+from warmstart.search.baselines import RandomSearch
+from warmstart.search.density import DensitySearch
+from warmstart.search.static import FixedListSearch, average_rank_list, nearest_tasks_list
+from warmstart.search.strategy import SearchStrategy, run_search
 from warmstart.space import Space
 
-__all__ = ["ReplayObjective", "ReplayTask", "ReplayResult", "replay_tasks", "leave_one_task_out", "static_order",
+__all__ = ["ReplayTask", "ReplayResult", "replay_tasks", "leave_one_task_out",
            "hindsight_rates", "HINDSIGHT", "OBJECTIVES"]
-
-
-class ReplayObjective:
-    """A held-out study's recorded trials acting as its objective.
-
-    Parameters
-    ----------
-    space : Space
-    X : ndarray (m, d)
-        Encoded recorded configs (successful trials).
-    scores : ndarray (m,)
-    maximize : bool
-    """
-
-    def __init__(self, space: Space, X: np.ndarray, scores: np.ndarray, maximize: bool = True):
-        self.space = space
-        self.X = np.asarray(X, dtype=float)
-        self.scores = np.asarray(scores, dtype=float)
-        self.maximize = maximize
-
-    @property
-    def reference_scores(self) -> np.ndarray:
-        """The task's scores under uniform sampling: the recorded ones."""
-        return self.scores
-
-    def nearest(self, rows: np.ndarray) -> np.ndarray:
-        """Index of the nearest recorded config for each encoded row."""
-        return np.argmin(unit_distances(self.space, np.atleast_2d(rows), self.X), axis=1)
-
-    def values(self, rows: np.ndarray) -> np.ndarray:
-        """Scores of encoded rows: those of their nearest recorded configs."""
-        return self.scores[self.nearest(rows)]
-
-    def __call__(self, config: dict) -> float:
-        return float(self.values(self.space.encode([config]))[0])
-
-    def max_distinct_hits(self, threshold: float, budget: int) -> int:
-        """Most hits ``budget`` distinct recorded configs can score: ``min(|T|, B)``."""
-        return min(int(in_target(self.scores, threshold, self.maximize).sum()), budget)
-
-    def uniform_hit_chance(self, threshold: float, n: int = 4096, rng: Any = 0) -> float:
-        """``p``: chance that a uniform draw's nearest recorded config is a hit."""
-        rows = self.space.sample_unit(n, np.random.default_rng(rng))
-        hit = in_target(self.values(rows), threshold, self.maximize)
-        return float(max(hit.mean(), 0.5 / (n + 1)))
 
 
 @dataclass
@@ -92,7 +62,7 @@ class ReplayTask:
     task: str
     study_id: int
     space: Space
-    objective: ReplayObjective
+    objective: HeldOutObjective
     threshold: float
     p: float
     profile: dict
@@ -102,8 +72,49 @@ class ReplayTask:
 OBJECTIVES = ("nearest", "surrogate")
 
 
-def _replay_specs(archive, learner: str, min_trials: int) -> list[tuple]:
-    """Each task's largest study of ``learner``: (task_id, task, study_id, space, X, scores, maximize)."""
+@dataclass(frozen=True, eq=False)
+class _Study:
+    """One task's largest study of a learner, as read for replay."""
+
+    task_id: int
+    task: str
+    study_id: int
+    space: Space
+    X: np.ndarray  # encoded configs of the successful trials
+    scores: np.ndarray
+    maximize: bool
+
+
+@dataclass(frozen=True, eq=False)
+class _ObjectiveJob:
+    """Build one held-out study's objective (in a worker process)."""
+
+    kind: str  # one of OBJECTIVES
+    study: _Study
+
+
+@dataclass(frozen=True, eq=False)
+class _TaskJob:
+    """Replay one held-out task: every search, ``repeats`` runs of ``budget`` queries."""
+
+    task: ReplayTask
+    prior: Prior
+    budget: int
+    repeats: int
+    seed: int
+
+
+@dataclass(frozen=True, eq=False)
+class _TaskOutcome:
+    """What a worker hands back for one task: its gain and its mean curves
+    (label -> (hit rate per query, regret per query))."""
+
+    gain: TaskGain
+    curves: dict
+
+
+def _replay_studies(archive, learner: str, min_trials: int) -> list[_Study]:
+    """Each task's largest study of ``learner`` with at least ``min_trials`` successful trials."""
     studies = archive.studies()
     studies = studies[(studies["learner"] == learner) & (studies["n_ok"] >= min_trials)]
     studies = studies.sort_values(["task_id", "n_ok"], ascending=[True, False]).drop_duplicates("task_id")
@@ -115,30 +126,26 @@ def _replay_specs(archive, learner: str, min_trials: int) -> list[tuple]:
         trials = archive.trials(int(row.study_id))
         trials = trials[trials["status"] == "ok"]
         space = archive.space(int(row.space_id))
-        out.append((int(row.task_id), str(row.task), int(row.study_id), space,
-                    space.encode(list(trials["config"])), trials["score"].to_numpy(dtype=float),
-                    row.direction == "maximize"))
+        out.append(_Study(int(row.task_id), str(row.task), int(row.study_id), space,
+                          space.encode(list(trials["config"])), trials["score"].to_numpy(dtype=float),
+                          row.direction == "maximize"))
     return out
 
 
-def _build_objective(args):
+def _build_objective(job: _ObjectiveJob) -> HeldOutObjective:
     """The replay objective of one study (module level, so worker processes can run it)."""
-    objective, space, X, scores, maximize, seed = args
-    if objective == "surrogate":
-        from threadpoolctl import threadpool_limits
-
-        from warmstart.gain.objectives import SurrogateObjective
-
+    s = job.study
+    if job.kind == "surrogate":
         # small matrices: one BLAS thread per process is faster than two processes fighting over cores
         with threadpool_limits(limits=1):
-            return SurrogateObjective(space, X, scores, maximize, seed=seed)
-    return ReplayObjective(space, X, scores, maximize)
+            return SurrogateObjective(s.space, s.X, s.scores, s.maximize, seed=s.task_id)
+    return ReplayObjective(s.space, s.X, s.scores, s.maximize)
 
 
 def replay_tasks(archive, learner: str, gamma: float = 0.05, min_trials: int = 20,
                  objective: str = "nearest", only: Sequence[str] | None = None, workers: int = 1,
                  progress: Callable[[int, int], None] | None = None,
-                 total: int | None = None) -> list[ReplayTask]:
+                 total: int | None = None, executor=None) -> list[ReplayTask]:
     """Every task with a study of ``learner`` (its largest study) ready for replay.
 
     Parameters
@@ -163,50 +170,25 @@ def replay_tasks(archive, learner: str, gamma: float = 0.05, min_trials: int = 2
         Called after each surrogate is fitted (not for ``nearest``, which is quick).
     total : int, optional
         Total passed to ``progress`` when the fits are part of larger work.
+    executor : concurrent.futures.Executor, optional
+        Fit the surrogates there instead of in ``workers`` local processes
+        (a Dask cluster's :class:`~warmstart.evaluate.cluster.ClusterPool`).
     """
-    if objective not in OBJECTIVES:
-        raise WarmstartError(f"replay objective must be one of {', '.join(OBJECTIVES)}; got {objective!r}")
-    specs = _replay_specs(archive, learner, min_trials)
+    check_choice("replay objective", objective, OBJECTIVES, error=WarmstartError)
+    studies = _replay_studies(archive, learner, min_trials)
     if only is not None:
-        specs = [sp for sp in specs if sp[1] in set(only)]
+        studies = [s for s in studies if s.task in set(only)]
     surrogate = objective == "surrogate"
-    objectives = map_jobs(_build_objective, [(objective, sp[3], sp[4], sp[5], sp[6], sp[0]) for sp in specs],
-                          workers if surrogate else 1, progress if surrogate else None, total=total)
+    objectives = map_jobs(_build_objective, [_ObjectiveJob(objective, s) for s in studies],
+                          workers if surrogate else 1, progress if surrogate else None, total=total,
+                          executor=executor if surrogate else None)
     out = []
-    for (task_id, task, study_id, space, _, _, maximize), obj in zip(specs, objectives):
-        threshold = target_threshold(obj.reference_scores, gamma, maximize)
+    for s, obj in zip(studies, objectives):
+        threshold = target_threshold(obj.reference_scores, gamma, s.maximize)
         out.append(ReplayTask(
-            task_id, task, study_id, space, obj, threshold,
-            obj.uniform_hit_chance(threshold, rng=task_id + 1), archive.profile_of(task_id),
+            s.task_id, s.task, s.study_id, s.space, obj, threshold,
+            obj.uniform_hit_chance(threshold, rng=s.task_id + 1), archive.profile_of(s.task_id),
         ))
-    return out
-
-
-def static_order(prior: Prior, flat: bool, budget: int) -> list[dict]:
-    """A fixed list of configs from the prior's candidates.
-
-    ``flat=True``: ranked by the mean quantile across all sources (average
-    rank, "learned defaults"). ``flat=False``: the best config of each source
-    in order of profile distance, then the second best of each, and so on.
-    """
-    if flat:
-        scores = prior._Q.mean(axis=1)
-        order = np.argsort(-scores, kind="stable")[:budget]
-        return prior.space.decode(prior._candidates[order])
-    by_distance = sorted(prior.sources, key=lambda s: (s.distance, s.study_id))
-    out, keys, depth = [], set(), 0
-    while len(out) < budget and depth < max(s.X.shape[0] for s in by_distance):
-        for s in by_distance:
-            order = np.argsort(-s.quantile, kind="stable")
-            if depth < len(order):
-                cfg = prior.space.complete(prior.space.decode(s.X[order[depth]][None, :])[0], 0)
-                key = prior.space.canonical_json(cfg)
-                if key not in keys:
-                    keys.add(key)
-                    out.append(cfg)
-            if len(out) >= budget:
-                break
-        depth += 1
     return out
 
 
@@ -226,73 +208,57 @@ def hindsight_rates(task: ReplayTask, prior: Prior, budget: int) -> dict[str, fl
     can reach; a search can exceed it by returning near a hit); 1 under the
     surrogate, whose target set is a region.
     """
-    n_hit = task.objective.max_distinct_hits(task.threshold, budget)
-    best = 0.0
-    for s in prior.sources:
-        order = np.argsort(-s.quantile, kind="stable")[:budget]
-        configs = [prior.space.complete(c, 0) for c in prior.space.decode(s.X[order])]
-        hits, _ = _score_configs(task, configs)
-        best = max(best, float(hits.sum()) / budget)
+    obj = task.objective
+    n_hit = obj.max_distinct_hits(task.threshold, budget)
+    space = prior.space
+    lists = [[space.complete(c, 0) for c in space.decode(s.X[np.argsort(-s.quantile, kind="stable")[:budget]])]
+             for s in prior.sources]
+    # not searches, so not run through run_search: every list is scored at once
+    hits = in_target(obj.values(task.space.encode([c for configs in lists for c in configs])), task.threshold,
+                     obj.maximize)
+    owner = np.repeat(np.arange(len(lists)), [len(configs) for configs in lists])
+    best = float(np.bincount(owner, weights=hits, minlength=len(lists)).max()) / budget
     return {"best_past_task": best, "ideal_list": n_hit / budget}
 
 
-def _score_configs(task: ReplayTask, configs: Sequence[dict]) -> tuple[np.ndarray, np.ndarray]:
-    """Hits and normalised best-so-far regret of a sequence of configs."""
+def _runs(task: ReplayTask, searches: Iterable[SearchStrategy], budget: int) -> Runs:
+    """Run each search on the held-out task through :func:`run_search` and score its queries.
+
+    A search runs ``budget`` queries; a :class:`FixedListSearch` runs as
+    many as its list holds, and the queries it did not make count as misses
+    that find nothing (no hit, regret unchanged).
+    """
+    rows = []
+    for search in searches:
+        n = min(budget, search.remaining) if isinstance(search, FixedListSearch) else budget
+        scores = np.full(budget, np.nan)
+        scores[:n] = run_search(search, task.objective, n).scores
+        rows.append(scores)
     obj = task.objective
-    scores = obj.values(task.space.encode(configs))
-    hits = in_target(scores, task.threshold, obj.maximize)
-    sign = 1.0 if obj.maximize else -1.0
-    best, worst = np.max(sign * obj.reference_scores), np.min(sign * obj.reference_scores)
-    span = best - worst if best > worst else 1.0
-    regret = np.maximum(best - np.maximum.accumulate(sign * scores), 0.0) / span
-    return hits, regret
-
-
-def _run(task: ReplayTask, make: Callable[[int], Any], budget: int, repeats: int, seed: int) -> Runs:
-    hits = np.zeros((repeats, budget), dtype=bool)
-    regret = np.zeros((repeats, budget))
-    for r in range(repeats):
-        search = make(seed + r)
-        configs = []
-        for _ in range(budget):
-            config = search.propose()
-            search.record(config, task.objective(config))
-            configs.append(config)
-        hits[r], regret[r] = _score_configs(task, configs)
+    hits, regret = hits_and_regret(np.array(rows), task.threshold, obj.reference_scores, obj.maximize)
     return Runs(hits, regret)
 
 
-def _uniform_runs(task: ReplayTask, budget: int, repeats: int, seed: int) -> Runs:
-    """Uniform sampling (the random baseline), R independent runs."""
-    hits = np.zeros((repeats, budget), dtype=bool)
-    regret = np.zeros((repeats, budget))
-    for r in range(repeats):
-        hits[r], regret[r] = _score_configs(task, task.space.sample(budget, np.random.default_rng(seed + r)))
-    return Runs(hits, regret)
-
-
-def _one_task(args) -> tuple[TaskGain, dict]:
-    from threadpoolctl import threadpool_limits
-
+def _one_task(job: _TaskJob) -> _TaskOutcome:
+    """Replay one held-out task (module level, so worker processes can run it)."""
     with threadpool_limits(limits=1):  # small matrices: see _build_objective
-        return _replay_one_task(*args)
+        return _replay_one_task(job.task, job.prior, job.budget, job.repeats, job.seed)
 
 
-def _replay_one_task(task: ReplayTask, prior: Prior, budget: int, repeats: int, seed: int) -> tuple[TaskGain, dict]:
-    from warmstart.search.density import DensitySearch
+def _replay_one_task(task: ReplayTask, prior: Prior, budget: int, repeats: int, seed: int) -> _TaskOutcome:
+    space, maximize = task.space, task.objective.maximize
 
-    maximize = task.objective.maximize
-    warm = _run(task, lambda s: DensitySearch(task.space, prior=prior, seed=s, maximize=maximize), budget, repeats, seed)
-    cold = _run(task, lambda s: DensitySearch(task.space, prior=None, seed=s, maximize=maximize), budget, repeats, seed)
-    rand = _uniform_runs(task, budget, repeats, seed)
+    def repeated(make: Callable[[int], SearchStrategy]) -> Runs:
+        return _runs(task, (make(seed + r) for r in range(repeats)), budget)
+
+    warm = repeated(lambda s: DensitySearch(space, prior=prior, seed=s, maximize=maximize))
+    cold = repeated(lambda s: DensitySearch(space, prior=None, seed=s, maximize=maximize))
+    rand = repeated(lambda s: RandomSearch(space, seed=s, maximize=maximize))
     others = {"random": rand}
     curves = {"warm": warm, "cold": cold, "random": rand}
-    for label, flat in (("defaults", True), ("nearest", False)):
-        h, g = _score_configs(task, static_order(prior, flat, budget))
-        h = np.pad(h, (0, budget - len(h)))
-        g = np.pad(g, (0, budget - len(g)), constant_values=g[-1] if len(g) else 1.0)
-        others[label] = Runs(h[None, :], g[None, :])
-        curves[label] = others[label]
+    for label, configs in (("defaults", average_rank_list(prior, budget)),
+                           ("nearest", nearest_tasks_list(prior, budget))):
+        others[label] = curves[label] = _runs(task, [FixedListSearch(space, configs, maximize=maximize)], budget)
     result = compare(task.task, warm, cold, task.p, rng=seed, others=others)
     for label, q in hindsight_rates(task, prior, budget).items():
         result.extra[f"q_{label}"] = q
@@ -303,7 +269,7 @@ def _replay_one_task(task: ReplayTask, prior: Prior, budget: int, repeats: int, 
     result.extra["target_gap"] = gap
     # rule of thumb (common practice): CV estimates on small data move by about a point
     result.extra["within_noise"] = bool(gap < 0.01 * max(abs(best), 1e-12))
-    return result, {k: (v.hits.mean(axis=0), v.regret.mean(axis=0)) for k, v in curves.items()}
+    return _TaskOutcome(result, {k: (v.hits.mean(axis=0), v.regret.mean(axis=0)) for k, v in curves.items()})
 
 
 @dataclass
@@ -327,6 +293,7 @@ def leave_one_task_out(
     progress: Callable[[int, int], None] | None = None,
     tasks: Sequence[str] | None = None,
     objective: str = "nearest",
+    executor=None,
 ) -> ReplayResult:
     """Replay every archived study of ``learner`` with the task held out.
 
@@ -349,14 +316,17 @@ def leave_one_task_out(
     objective : {"nearest", "surrogate"}, default "nearest"
         How the held-out task's recorded trials score a proposal (see
         :func:`replay_tasks`).
+    executor : concurrent.futures.Executor, optional
+        Replay the held-out tasks there instead of in ``workers`` local
+        processes (a Dask cluster's :class:`~warmstart.evaluate.cluster.ClusterPool`).
+        Each task's job carries its seed, so the figures are the same.
 
     Returns
     -------
     ReplayResult
     """
-    if objective not in OBJECTIVES:
-        raise WarmstartError(f"replay objective must be one of {', '.join(OBJECTIVES)}; got {objective!r}")
-    names = [sp[1] for sp in _replay_specs(archive, learner, 20)]
+    check_choice("replay objective", objective, OBJECTIVES, error=WarmstartError)
+    names = [s.task for s in _replay_studies(archive, learner, 20)]
     if len(names) < 2:
         raise WarmstartError(
             f"replay needs studies of {learner!r} on at least 2 tasks with >= 20 successful trials; "
@@ -374,24 +344,23 @@ def leave_one_task_out(
     # a surrogate fit counts as one unit of work, as does replaying a task
     fits = len(names) if objective == "surrogate" else 0
     chosen = replay_tasks(archive, learner, gamma, objective=objective, only=names, workers=workers,
-                          progress=progress, total=fits + len(names))
+                          progress=progress, total=fits + len(names), executor=executor)
     cache: dict[str, list[Source]] = {}
     jobs = []
     for t in chosen:
         key = t.space.content_hash
         if key not in cache:
             cache[key] = load_sources(archive, learner, t.space)
-        weighted = weight_sources(cache[key], comparable_profiles(archive, t.profile), t.profile,
-                                  exclude_tasks=[t.task_id],
-                                  bandwidth_scale=BANDWIDTH_SCALE)
-        prior = prior_from_sources(t.space, weighted, provenance={"learner": learner, "held_out": t.task})
-        jobs.append((t, prior, budget, repeats, seed))
-    results = map_jobs(_one_task, jobs, workers, progress, done_before=fits, total=fits + len(jobs))
-    gains = [r[0] for r in results]
+        weighted = prior_sources(archive, t.profile, learner, t.space, exclude_tasks=[t.task_id], loaded=cache[key])
+        prior = prior_from_sources(t.space, weighted, provenance={**prior_info(learner), "held_out": t.task})
+        jobs.append(_TaskJob(t, prior, budget, repeats, seed))
+    results = map_jobs(_one_task, jobs, workers, progress, done_before=fits, total=fits + len(jobs),
+                       executor=executor)
+    gains = [r.gain for r in results]
     curves = {}
-    for label in results[0][1]:
+    for label in results[0].curves:
         curves[label] = (
-            np.mean([r[1][label][0] for r in results], axis=0),
-            np.mean([r[1][label][1] for r in results], axis=0),
+            np.mean([r.curves[label][0] for r in results], axis=0),
+            np.mean([r.curves[label][1] for r in results], axis=0),
         )
     return ReplayResult(learner, budget, repeats, gamma, gains, pool(gains, rng=seed), curves, objective)

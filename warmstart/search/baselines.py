@@ -9,8 +9,9 @@ and work on the unit-cube encoding of a :class:`~warmstart.space.Space`:
   ``method="Nelder-Mead"`` on the unit cube, driven one point at a time, with
   restarts from a random point when it converges;
 * :class:`GPSearch` — a Gaussian-process regression
-  (:class:`sklearn.gaussian_process.GaussianProcessRegressor`, Matern kernel)
-  with expected improvement maximised over random candidates.
+  (:class:`sklearn.gaussian_process.GaussianProcessRegressor`, Matern kernel;
+  the model of :mod:`warmstart.search.gp`) with expected improvement
+  maximised over random candidates.
 
 Choice coordinates are handled by rounding (``Space.from_unit``); the same
 seed gives the same sequence.
@@ -21,7 +22,6 @@ from __future__ import annotations
 import math
 import queue
 import threading
-import warnings
 from typing import Any
 
 import numpy as np
@@ -29,9 +29,11 @@ from scipy.optimize import minimize
 from scipy.special import ndtr
 from scipy.stats import qmc
 
-from warmstart.search.density import _check_count, default_n_startup
+from warmstart._checks import check_count, check_number
+from warmstart.search.density import default_n_startup
+from warmstart.search.gp import SEARCH_KERNEL, conditional_columns, fit_gp, gp_features
 from warmstart.space import Space
-from warmstart.search.strategy import SearchError, SearchStrategy, Trial, _config_key
+from warmstart.search.strategy import SearchError, SearchStrategy, Trial
 
 __all__ = ["RandomSearch", "SobolSearch", "NelderMeadSearch", "GPSearch", "expected_improvement"]
 
@@ -116,9 +118,8 @@ class NelderMeadSearch(SearchStrategy):
     def __init__(self, space: Space, seed: Any = 0, maximize: bool = True,
                  initial_step: float = 0.2, xatol: float = 1e-4, fatol: float = 1e-8):
         super().__init__(space, seed=seed, maximize=maximize)
-        if not 0 < initial_step <= 1:
-            raise SearchError(f"initial_step must be in (0, 1], got {initial_step!r}")
-        self.initial_step = float(initial_step)
+        self.initial_step = check_number("initial_step", initial_step, 0.0, 1.0, low_open=True, error=SearchError,
+                                         fix="it is the simplex's edge in unit-cube coordinates, e.g. 0.2")
         self.options = {"xatol": float(xatol), "fatol": float(fatol)}
         self._ask: queue.Queue = queue.Queue()
         self._tell: queue.Queue = queue.Queue()
@@ -164,7 +165,7 @@ class NelderMeadSearch(SearchStrategy):
         if kind == "error":
             raise payload
         config = self.space.decode(self.space.from_unit(payload[None, :]))[0]
-        self._waiting = _config_key(config)
+        self._waiting = self.space.canonical_json(config)
         return config, "simplex"
 
     def record(self, config, score=None, status=None) -> Trial:
@@ -173,7 +174,7 @@ class NelderMeadSearch(SearchStrategy):
             value = -trial.score if self.maximize else trial.score  # minimised
             self._worst = max(self._worst, value)
             self._best = min(self._best, value)
-        if self._waiting is not None and _config_key(trial.config) == self._waiting:
+        if self._waiting is not None and self.space.canonical_json(trial.config) == self._waiting:
             self._waiting = None
             if trial.score is None:  # failed: worse than anything seen
                 spread = self._worst - self._best if math.isfinite(self._worst) else 0.0
@@ -225,13 +226,15 @@ class GPSearch(SearchStrategy):
     Starts with the same Sobol design as a cold
     :class:`~warmstart.search.density.DensitySearch`, then fits
     :class:`sklearn.gaussian_process.GaussianProcessRegressor` (constant ×
-    Matern 5/2 with one length scale per coordinate, plus white noise;
-    targets normalised) to the encoded rows and proposes the candidate with
-    the largest expected improvement. Candidates: uniform draws plus
-    Gaussian perturbations of the best configs. Choice coordinates enter as
-    ``(level + 0.5) / k``, inactive ones as 0.5. Failed and pending configs
-    get the worst score seen (a constant liar), so the model steers away
-    from them and a batch spreads.
+    Matern 5/2 with one length scale per input, plus white noise; targets
+    normalised; :data:`~warmstart.search.gp.SEARCH_KERNEL`) to the encoded
+    rows and proposes the candidate with the largest expected improvement.
+    Candidates: uniform draws plus Gaussian perturbations of the best
+    configs. Inputs are :func:`~warmstart.search.gp.gp_features`: a choice
+    becomes one indicator per level, and a parameter with a condition gets
+    an "active" indicator (inactive values enter as 0). Failed and pending
+    configs get the worst score seen (a constant liar), so the model steers
+    away from them and a batch spreads.
 
     Parameters
     ----------
@@ -256,25 +259,19 @@ class GPSearch(SearchStrategy):
                  n_restarts_optimizer: int = 1):
         super().__init__(space, seed=seed, maximize=maximize)
         n_startup = default_n_startup(space.dim) if n_startup is None else n_startup
-        _check_count("n_startup", n_startup, minimum=0)
-        _check_count("n_candidates", n_candidates, minimum=1)
-        _check_count("n_restarts_optimizer", n_restarts_optimizer, minimum=0)
-        if not math.isfinite(xi) or xi < 0:
-            raise SearchError(f"xi must be a number >= 0, got {xi!r}")
-        self.n_startup = int(n_startup)
-        self.n_candidates = int(n_candidates)
-        self.xi = float(xi)
-        self.n_restarts_optimizer = int(n_restarts_optimizer)
+        self.n_startup = check_count("n_startup", n_startup, minimum=0, error=SearchError)
+        self.n_candidates = check_count("n_candidates", n_candidates, minimum=1, error=SearchError)
+        self.xi = check_number("xi", xi, low=0.0, error=SearchError,
+                               fix="it is the exploration margin in normalised units, e.g. 0.0 or 0.01")
+        self.n_restarts_optimizer = check_count("n_restarts_optimizer", n_restarts_optimizer, minimum=0,
+                                                error=SearchError)
         self._design = space.sobol_unit(self.n_startup, self._rng) if self.n_startup else None
         self._design_used = 0
+        self._conditional = conditional_columns(space)
 
     def features(self, X: np.ndarray) -> np.ndarray:
-        """GP inputs of encoded rows (choices scaled into [0, 1], inactive = 0.5)."""
-        Z = np.array(X, dtype=float)
-        lev = self.space.n_levels
-        ch = self.space.is_choice
-        Z[:, ch] = (Z[:, ch] + 0.5) / lev[ch]
-        return np.nan_to_num(Z, nan=0.5)
+        """GP inputs of encoded rows (:func:`~warmstart.search.gp.gp_features`)."""
+        return gp_features(self.space, X, self._conditional)
 
     def _propose_one(self) -> tuple[dict, str]:
         if (self._design is not None and self._design_used < self.n_startup
@@ -286,20 +283,10 @@ class GPSearch(SearchStrategy):
         ok = ~np.isnan(y)
         if ok.sum() < 2:
             return self.space.decode(self.space.sample_unit(1, self._rng))[0], "random"
-        from sklearn.exceptions import ConvergenceWarning
-        from sklearn.gaussian_process import GaussianProcessRegressor
-        from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
-
-        d = self.space.dim
         worst = float(np.nanmin(y))
         X = np.vstack([self.rows(), self.pending_rows()])
         target = np.concatenate([np.where(ok, y, worst), np.full(self.n_pending, worst)])
-        kernel = (ConstantKernel(1.0, (1e-3, 1e3))
-                  * Matern(length_scale=np.full(d, 0.5), length_scale_bounds=(1e-2, 1e2), nu=2.5)
-                  + WhiteKernel(1e-4, (1e-8, 1e-1)))
-        gp = GaussianProcessRegressor(kernel=kernel, normalize_y=True,
-                                      n_restarts_optimizer=self.n_restarts_optimizer,
-                                      random_state=int(self._rng.integers(2**31 - 1)))
+        random_state = int(self._rng.integers(2**31 - 1))  # drawn before the candidates
         best_rows = self.rows()[ok][np.argsort(-y[ok])[:5]]
         n_local = self.n_candidates // 4
         local = best_rows[self._rng.integers(0, best_rows.shape[0], n_local)]
@@ -307,11 +294,8 @@ class GPSearch(SearchStrategy):
         local[:, self.space.is_choice] = np.round(local[:, self.space.is_choice])
         C = np.vstack([self.space.sample_unit(self.n_candidates - n_local, self._rng),
                        self.space.snap(local)])
-        with warnings.catch_warnings():
-            # hyperparameters at their bounds are routine for small samples
-            warnings.simplefilter("ignore", ConvergenceWarning)
-            gp.fit(self.features(X), target)
-            mean, std = gp.predict(self.features(C), return_std=True)
+        gp = fit_gp(self.features(X), target, SEARCH_KERNEL, self.n_restarts_optimizer, random_state)
+        mean, std = gp.predict(self.features(C), return_std=True)
         ei = expected_improvement(mean, std, float(np.max(target)), self.xi * float(np.std(target)))
         ei = np.where(self._known_rows(C), -np.inf, ei)
         return self.space.decode(C[int(np.argmax(ei))][None, :])[0], "model"

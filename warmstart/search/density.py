@@ -25,6 +25,7 @@ import numpy as np
 from scipy.special import ndtr
 from scipy.stats import rankdata
 
+from warmstart._checks import check_count, check_fraction, check_number
 from warmstart.errors import SpaceError
 from warmstart.search.kde import MixedKDE, log_sum_exp, uniform_logpdf
 from warmstart.space import Space, unit_distances
@@ -182,16 +183,16 @@ class DensitySearch(SearchStrategy):
             gamma = 0.25 if warm else 0.15
         if shrink is None:
             shrink = 0.5 if warm else 2.0
-        _check_fraction("gamma", gamma, upper=1.0)
-        _check_fraction("floor", floor, upper=1.0)
-        if floor <= 0:
-            raise SearchError(f"floor must be > 0 so no region is ruled out, got {floor!r}")
+        check_fraction("gamma", gamma, error=SearchError,
+                       fix="it is the share of finished trials in the good set, e.g. 0.15")
+        check_fraction("floor", floor, error=SearchError,
+                       fix="it is the uniform density's weight, above 0 so no region is ruled out, e.g. 0.1")
         for name, value in (("n_candidates", n_candidates), ("max_good", max_good),
                             ("max_rest", max_rest), ("reweight_every", reweight_every)):
-            _check_count(name, value, minimum=1)
+            check_count(name, value, minimum=1, error=SearchError)
         if n_startup is None:
             n_startup = 1 if warm else default_n_startup(space.dim)
-        _check_count("n_startup", n_startup, minimum=0)
+        check_count("n_startup", n_startup, minimum=0, error=SearchError)
         self.gamma = float(gamma)
         self.n_candidates = int(n_candidates)
         self.floor = float(floor)
@@ -218,12 +219,11 @@ class DensitySearch(SearchStrategy):
             strength = float(prior.strength)
             if not math.isfinite(strength) or strength < 0:
                 raise SearchError(f"prior.strength must be a finite number >= 0, got {prior.strength!r}")
-            _check_count("n_seeds", n_seeds, minimum=0)
+            check_count("n_seeds", n_seeds, minimum=0, error=SearchError)
         self.n_seeds = int(n_seeds)
         self.min_trust = float(min_trust)
-        if isinstance(seed_radius, bool) or not isinstance(seed_radius, (int, float)) or seed_radius < 0:
-            raise SearchError(f"seed_radius must be a number >= 0, got {seed_radius!r}")
-        self.seed_radius = float(seed_radius)
+        self.seed_radius = check_number("seed_radius", seed_radius, low=0.0, error=SearchError,
+                                        fix="it is a unit-cube distance, e.g. 0.2 (0 turns it off)")
         self._n_seeded = 0
         self._seed_reweighted_at = -1
         self._design_used = 0
@@ -446,12 +446,3 @@ class DensitySearch(SearchStrategy):
         if self.prior is not None:
             self._update_prior()
 
-
-def _check_fraction(name: str, value: Any, upper: float) -> None:
-    if isinstance(value, bool) or not isinstance(value, (int, float)) or not 0 < value <= upper:
-        raise SearchError(f"{name} must be a number in (0, {upper}], got {value!r}")
-
-
-def _check_count(name: str, value: Any, minimum: int) -> None:
-    if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < minimum:
-        raise SearchError(f"{name} must be a whole number >= {minimum}, got {value!r}")

@@ -34,6 +34,7 @@ from typing import Any
 import numpy as np
 from scipy.special import ndtr, ndtri
 
+from warmstart._checks import check_number
 from warmstart.errors import WarmstartError
 from warmstart.space import Space
 
@@ -199,12 +200,10 @@ class MixedKDE:
         self.centres = X
         self.weights = w
         self.n_eff = float(1.0 / np.dot(w, w))
-        if not math.isfinite(min_bandwidth) or min_bandwidth <= 0:
-            raise KDEError(f"min_bandwidth must be a positive number, got {min_bandwidth!r}")
-        self.min_bandwidth = float(min_bandwidth)
-        if not math.isfinite(shrink) or shrink < 0:
-            raise KDEError(f"shrink must be a number >= 0, got {shrink!r}")
-        self.shrink = float(shrink)
+        self.min_bandwidth = check_number("min_bandwidth", min_bandwidth, low=0.0, low_open=True, error=KDEError,
+                                          fix="it is the smallest kernel width, e.g. 1e-3")
+        self.shrink = check_number("shrink", shrink, low=0.0, error=KDEError,
+                                   fix="it counts pseudo-observations, e.g. 0 (none) or 2")
         self.shrink_to = self._reference_spread(shrink_to)
         self.bandwidths = self._bandwidths(bandwidth)
         self._prepare()

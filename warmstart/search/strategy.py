@@ -5,7 +5,10 @@ their results (:meth:`SearchStrategy.record`); subclasses only say how the
 next config is chosen (``_propose_one``). :func:`run_search` evaluates an
 objective with any strategy, records every trial (an exception in the
 objective becomes a failed trial and the loop goes on) and returns a
-:class:`SearchResult`.
+:class:`SearchResult`. An objective's
+:class:`~warmstart.evaluate.result.TrialResult` reaches the :class:`Trial`
+whole: score, status, the objective's own cost, its error text and its
+per-fold scores.
 """
 
 from __future__ import annotations
@@ -16,12 +19,15 @@ import json
 import math
 import time
 from dataclasses import dataclass
+from datetime import datetime
 from typing import Any, Callable, Mapping
 
 import numpy as np
 import pandas as pd
 
+from warmstart._checks import check_count
 from warmstart.errors import WarmstartError
+from warmstart.evaluate.result import TrialResult, error_text, utc_now
 from warmstart.evaluate.workers import wait_first
 from warmstart.space import Space
 
@@ -52,11 +58,16 @@ class Trial:
         Where the config came from: ``"seed"`` (the prior's seeds),
         ``"design"`` (space-filling start), ``"model"``, ``"random"``,
         ``"simplex"``, ... or ``"external"`` (recorded without a proposal).
-    cost_s, started_at, finished_at : float, optional
-        Wall time of the evaluation and its Unix start/end times (set by
-        :func:`run_search`).
+    cost_s : float, optional
+        Seconds the evaluation took: the objective's own figure when it
+        returns a :class:`~warmstart.evaluate.result.TrialResult`, else the
+        wall time of the call (set by :func:`run_search`).
+    started_at, finished_at : datetime, optional
+        UTC times the evaluation started and ended.
     error : str, optional
-        Error text of a failed evaluation.
+        Error text of a failed evaluation, as the objective gave it.
+    fold_scores : tuple of float
+        Per-fold scores of a cross-validated objective (empty otherwise).
     """
 
     number: int
@@ -65,9 +76,10 @@ class Trial:
     status: str
     source: str = "external"
     cost_s: float | None = None
-    started_at: float | None = None
-    finished_at: float | None = None
+    started_at: datetime | None = None
+    finished_at: datetime | None = None
     error: str | None = None
+    fold_scores: tuple = ()
 
 
 def _row_key(row: np.ndarray) -> bytes:
@@ -152,12 +164,14 @@ class SearchStrategy:
         """
         if k is None:
             return self._propose_and_hold()
-        if isinstance(k, bool) or not isinstance(k, (int, np.integer)) or k < 1:
-            raise SearchError(f"k must be a whole number >= 1, got {k!r}")
-        return [self._propose_and_hold() for _ in range(int(k))]
+        k = check_count("k", k, minimum=1, error=SearchError)
+        return [self._propose_and_hold() for _ in range(k)]
 
     def _propose_and_hold(self) -> dict:
         config, source = self._propose_one()
+        return self._hold_normalized(config, source)
+
+    def _hold_normalized(self, config: dict, source: str) -> dict:
         key = _config_key(config)
         if key in self._pending:
             self._pending[key][3] += 1
@@ -212,6 +226,27 @@ class SearchStrategy:
         self._trials.append(trial)
         self._observe()
         return trial
+
+    def hold(self, config: Mapping, source: str = "external") -> dict:
+        """Mark a config as pending, as if this search had proposed it.
+
+        A search rebuilt from stored history uses it for configs proposed
+        earlier and not recorded yet (the leases of the team service), so new
+        proposals stay apart from them. Returns the normalised config.
+        """
+        return self._hold_normalized(self.space.normalize(config), source)
+
+    def release(self, config: Mapping) -> bool:
+        """Forget one pending copy of a config that will not be recorded
+        (e.g. an expired lease); False when it was not pending."""
+        key = _config_key(self.space.normalize(config))
+        entry = self._pending.get(key)
+        if entry is None:
+            return False
+        entry[3] -= 1
+        if entry[3] == 0:
+            del self._pending[key]
+        return True
 
     # -- state -------------------------------------------------------------
     @property
@@ -332,7 +367,7 @@ class SearchResult:
 
     def to_frame(self) -> pd.DataFrame:
         """One row per trial: number, config, score, status, best_so_far,
-        source, cost_s, started_at, finished_at, error."""
+        source, cost_s, started_at, finished_at, error, fold_scores."""
         frame = pd.DataFrame([dataclasses.asdict(t) for t in self.trials],
                              columns=[f.name for f in dataclasses.fields(Trial)])
         frame["score"] = self.scores
@@ -346,22 +381,21 @@ class SearchResult:
         return f"SearchResult(trial_count={len(self.trials)}, n_failed={n_failed}, best={shown})"
 
 
-def _evaluate(objective: Callable, config: dict) -> dict:
-    """Evaluate one config; never raises (module level so executors can pickle it)."""
-    started = time.time()
-    t0 = time.perf_counter()
-    error = None
+def _evaluate(objective: Callable, config: dict) -> TrialResult:
+    """Evaluate one config; never raises an ``Exception`` (module level so
+    executors can pickle it).
+
+    An objective's own :class:`~warmstart.evaluate.result.TrialResult` is
+    kept whole; a bare score is wrapped with the wall time measured here; an
+    exception, ``None``, NaN, infinity or a non-number is a failed result
+    naming what happened.
+    """
+    started_at, started = utc_now(), time.perf_counter()
     try:
-        score = objective(dict(config))
-        classify_result(score, None)
+        value = objective(dict(config))
     except Exception as exc:  # the objective's failure is a failed trial
-        score, error = None, f"{type(exc).__name__}: {exc}"
-    else:
-        if score is None or not math.isfinite(float(score)):
-            error = f"objective returned {score!r}"
-            score = None
-    return {"score": score, "error": error, "cost_s": time.perf_counter() - t0,
-            "started_at": started, "finished_at": time.time()}
+        return TrialResult.failed(error_text(exc), started, started_at)
+    return TrialResult.from_value(value, started, started_at)
 
 
 def run_search(
@@ -379,9 +413,10 @@ def run_search(
     strategy : SearchStrategy
         Any strategy (:class:`~warmstart.search.density.DensitySearch` or a baseline).
     objective : callable
-        ``objective(config) -> score``. An exception, ``None``, NaN or an
-        infinite value records a failed trial (with the error text); the
-        loop goes on.
+        ``objective(config) -> TrialResult`` (kept whole in the
+        :class:`Trial`: fold scores, cost, error text) or ``-> score``. An
+        exception, ``None``, NaN or an infinite value records a failed trial
+        (with the error text); the loop goes on.
     budget : int
         Number of trials to evaluate.
     callback : callable, optional
@@ -394,8 +429,10 @@ def run_search(
         or a thread pool; results are recorded as they finish, so the order
         can vary between runs.
     executor : concurrent.futures.Executor, optional
-        Where to evaluate when ``n_workers > 1`` (a process pool, a Dask
-        client's executor ...); the objective must then be picklable.
+        Where to evaluate (a process pool, a Dask cluster's
+        :class:`~warmstart.evaluate.cluster.ClusterPool` ...); the objective
+        must then be picklable. Without one, ``n_workers > 1`` evaluates in
+        a thread pool and 1 in this process.
 
     Returns
     -------
@@ -403,21 +440,20 @@ def run_search(
     """
     if not callable(objective):
         raise SearchError(f"objective must be callable, got {objective!r}")
-    for name, value, low in (("budget", budget, 0), ("n_workers", n_workers, 1)):
-        if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < low:
-            raise SearchError(f"{name} must be a whole number >= {low}, got {value!r}")
+    check_count("budget", budget, minimum=0, error=SearchError)
+    check_count("n_workers", n_workers, minimum=1, error=SearchError)
     done: list[Trial] = []
 
-    def finish(config: dict, outcome: dict) -> None:
-        trial = strategy.record(config, outcome["score"], "ok" if outcome["error"] is None else "failed")
-        trial = dataclasses.replace(trial, number=len(done), cost_s=outcome["cost_s"],
-                                    started_at=outcome["started_at"],
-                                    finished_at=outcome["finished_at"], error=outcome["error"])
+    def finish(config: dict, result: TrialResult) -> None:
+        trial = strategy.record(config, result.score, result.status)
+        trial = dataclasses.replace(trial, number=len(done), cost_s=result.cost_s, started_at=result.started_at,
+                                    finished_at=result.finished_at, error=result.error,
+                                    fold_scores=tuple(float(v) for v in result.fold_scores))
         done.append(trial)
         if callback is not None:
             callback(trial)
 
-    if n_workers == 1:
+    if n_workers == 1 and executor is None:
         for _ in range(int(budget)):
             config = strategy.propose()
             finish(config, _evaluate(objective, config))

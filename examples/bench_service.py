@@ -1,0 +1,251 @@
+"""Benchmark: the team service under 32 concurrent training jobs.
+
+The scenario is invented: a fictional grocery cooperative's team tunes one
+model family on many stores at once. A real ``warmstart serve`` runs on
+127.0.0.1 (a free port) over an archive seeded with three invented stores'
+studies (scores from the Branin test function); 32 clients, in 4 processes of
+8 threads, each run 50 propose + record pairs (the "training" is the Branin
+function: no time), first all on one study, then spread over 8 studies.
+
+Printed per scenario: requests/s, records/s, p50/p99 latency of a propose +
+record pair, and the checks: every answered record is in the archive, and
+no config was leased twice while pending (two leases of one config never
+overlap in time). Goals (issue 16): p50 <= 20 ms, p99 <= 100 ms, >= 300
+records/s on 2 cores. Baselines measured in the same run: the same pairs
+in one process without HTTP (``DensitySearch.propose`` + ``Archive.record_trial``),
+and ``GET /api/v1/health`` at 32 clients (the HTTP stack's floor). The
+clients share the 2 cores with the server. A plot of the pair latencies goes
+to ``--plot``.
+
+Run::
+
+    python examples/bench_service.py                      # 32 clients x 50 pairs
+    python examples/bench_service.py --clients 8 --pairs 20
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import multiprocessing as mp
+import os
+import shutil
+import sys
+import tempfile
+import threading
+import time
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parent.parent
+sys.path.insert(0, str(ROOT / "tests"))  # the seeded archive and server helpers of the service tests
+sys.path.insert(0, str(ROOT))
+
+from service_support import SPACE, ServerProcess, branin, new_task, seed_archive  # noqa: E402
+
+from warmstart.client import Client  # noqa: E402
+
+GOALS = {"p50_ms": 20.0, "p99_ms": 100.0, "records_per_s": 300.0}
+PROCESSES = 4
+DEADLINE_S = 600  # the whole load stops by itself after this
+
+
+def _client_thread(url: str, studies: list[int], pairs: int, index: int, out: list, stop_at: float) -> None:
+    rng = np.random.default_rng(index)
+    with Client(url, retries=3, timeout=60) as client:
+        for _ in range(pairs):
+            if time.monotonic() > stop_at:
+                return
+            study = int(studies[rng.integers(len(studies))])
+            t0 = time.perf_counter()
+            lease = client.propose(study)[0]
+            t1 = time.perf_counter()
+            score = branin(lease["config"]["x1"], lease["config"]["x2"])
+            t2 = time.perf_counter()
+            answer = client.record(study, trial=lease["trial"], score=score)
+            t3 = time.perf_counter()
+            out.append({"study": study, "trial": lease["trial"], "number": answer["number"], "score": score,
+                        "config": json.dumps(lease["config"], sort_keys=True), "leased": t1, "recording": t2,
+                        "pair_s": (t1 - t0) + (t3 - t2)})
+
+
+def _client_process(args) -> list[dict]:
+    url, studies, pairs, threads, first, stop_at = args
+    out: list[dict] = []
+    workers = [threading.Thread(target=_client_thread, args=(url, studies, pairs, first + i, out, stop_at))
+               for i in range(threads)]
+    for w in workers:
+        w.start()
+    for w in workers:
+        w.join()
+    return out
+
+
+def _health_thread(url: str, n: int, out: list) -> None:
+    with Client(url) as client:
+        for _ in range(n):
+            t0 = time.perf_counter()
+            client.health()
+            out.append(time.perf_counter() - t0)
+
+
+def _health_process(args) -> list[float]:
+    url, n, threads = args
+    out: list[float] = []
+    workers = [threading.Thread(target=_health_thread, args=(url, n, out)) for _ in range(threads)]
+    for w in workers:
+        w.start()
+    for w in workers:
+        w.join()
+    return out
+
+
+def _warm(_: int) -> int:
+    """Nothing: makes each pool process import the client before anything is timed."""
+    return os.getpid()
+
+
+def run_load(url: str, studies: list[int], clients: int, pairs: int, pool) -> tuple[list[dict], float]:
+    per = clients // PROCESSES
+    stop_at = time.monotonic() + DEADLINE_S
+    jobs = [(url, studies, pairs, per, p * per, stop_at) for p in range(PROCESSES)]
+    t0 = time.perf_counter()
+    results = pool.map(_client_process, jobs)
+    return [r for part in results for r in part], time.perf_counter() - t0
+
+
+def check(url: str, rows: list[dict], studies: list[int]) -> tuple[bool, bool]:
+    """(every answered record is in the archive, no config leased twice while pending)."""
+    with Client(url) as client:
+        recorded = {}
+        for study in studies:
+            trials = client.trials(study)
+            recorded[study] = dict(zip(trials["number"], trials["score"]))
+    all_there = all(abs(recorded[r["study"]].get(r["number"], float("nan")) - r["score"]) < 1e-9 for r in rows)
+    by_key: dict = {}
+    for r in rows:
+        by_key.setdefault((r["study"], r["config"]), []).append((r["leased"], r["recording"]))
+    # a lease is pending from before it was answered until its record was sent: two leases of one
+    # config are a duplicate only if those spans overlap (the clocks of 4 processes are one monotonic clock)
+    distinct = True
+    for spans in by_key.values():
+        spans.sort()
+        for (a0, a1), (b0, b1) in zip(spans, spans[1:]):
+            if b0 < a1:
+                distinct = False
+    return all_there, distinct
+
+
+def baseline_in_process(n: int) -> float:
+    """Seconds per propose + record pair without HTTP: one process, one study."""
+    from warmstart.archive.store import Archive
+    from warmstart.search.density import DensitySearch
+    from warmstart.space import Space
+
+    space = Space.from_dict(SPACE)
+    folder = Path(tempfile.mkdtemp(prefix="bench-local-"))
+    try:
+        with Archive(folder / "local.duckdb") as archive:
+            from service_support import invented_frame
+
+            task = archive.add_task("local", invented_frame(5), "y")
+            study = archive.add_study(task, "bran", space, metric="loss", maximize=False)
+            search = DensitySearch(space, seed=0, maximize=False)
+            t0 = time.perf_counter()
+            for _ in range(n):
+                config = search.propose()
+                score = branin(config["x1"], config["x2"])
+                archive.record_trial(study, config, score)
+                search.record(config, score)
+            return (time.perf_counter() - t0) / n
+    finally:
+        shutil.rmtree(folder, ignore_errors=True)
+
+
+def summary(rows: list[dict], wall: float) -> dict:
+    pair = np.array([r["pair_s"] for r in rows]) * 1000
+    return {"pairs": len(rows), "wall_s": wall, "requests_per_s": 2 * len(rows) / wall,
+            "records_per_s": len(rows) / wall, "p50_ms": float(np.percentile(pair, 50)),
+            "p99_ms": float(np.percentile(pair, 99)), "latencies_ms": pair}
+
+
+def plot(results: dict, path: Path) -> None:
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    fig, ax = plt.subplots(figsize=(7, 4))
+    for label, s in results.items():
+        x = np.sort(s["latencies_ms"])
+        ax.plot(x, np.arange(1, x.size + 1) / x.size, label=f"{label} (p50 {s['p50_ms']:.0f} ms)")
+    for q, goal in (("p50", GOALS["p50_ms"]), ("p99", GOALS["p99_ms"])):
+        ax.axvline(goal, color="grey", linestyle=":", linewidth=1)
+        ax.text(goal, 0.02, f" goal {q}", color="grey", fontsize=8)
+    ax.set_xscale("log")
+    ax.set_xlabel("propose + record pair latency (ms, log scale)")
+    ax.set_ylabel("share of pairs at most this slow")
+    ax.set_title("warmstart serve: 32 concurrent clients (invented scenario)")
+    ax.legend(fontsize=8)
+    fig.tight_layout()
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fig.savefig(path, dpi=110)
+    plt.close(fig)
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    parser.add_argument("--clients", type=int, default=32, help="concurrent clients (a multiple of 4)")
+    parser.add_argument("--pairs", type=int, default=50, help="propose + record pairs per client")
+    parser.add_argument("--plot", default="bench-out/bench_service.png", help="where the latency plot goes")
+    args = parser.parse_args()
+    if args.clients % PROCESSES:
+        parser.error(f"--clients must be a multiple of {PROCESSES}")
+    folder = Path(tempfile.mkdtemp(prefix="bench-service-"))
+    print(f"machine: {os.cpu_count()} cores, load average {os.getloadavg()[0]:.2f}", flush=True)
+    local = baseline_in_process(200)
+    print(f"baseline, one process without HTTP: {local * 1000:.2f} ms per propose + record pair "
+          f"({1 / local:.0f} records/s)", flush=True)
+    path = folder / "team.duckdb"
+    seed_archive(path)
+    results = {}
+    ok = True
+    ctx = mp.get_context("spawn")
+    with ServerProcess(path, log=folder / "server.log") as server, ctx.Pool(PROCESSES) as pool:
+        with Client(server.url) as client:
+            studies = [client.create_study(new_task(seed=10 + i, name=f"store {i + 1}"), "bran", space=SPACE,
+                                           metric="loss", maximize=False)["study_id"] for i in range(8)]
+        pool.map(_warm, range(PROCESSES))
+        t0 = time.perf_counter()
+        health = [x for part in pool.map(_health_process, [(server.url, 20, args.clients // PROCESSES)] * PROCESSES)
+                  for x in part]
+        health_wall = time.perf_counter() - t0
+        print(f"baseline, GET /api/v1/health at {args.clients} clients: p50 {np.percentile(health, 50) * 1000:.1f} ms, "
+              f"{len(health) / health_wall:.0f} requests/s", flush=True)
+        for label, chosen in (("one study", studies[:1]), ("8 studies", studies)):
+            rows, wall = run_load(server.url, chosen, args.clients, args.pairs, pool)
+            s = summary(rows, wall)
+            all_there, distinct = check(server.url, rows, chosen)
+            results[label] = s
+            ok &= all_there and distinct and s["pairs"] == args.clients * args.pairs
+            print(f"\n{label}: {args.clients} clients x {args.pairs} propose + record pairs, {s['pairs']} answered "
+                  f"in {s['wall_s']:.1f} s", flush=True)
+            print(f"  requests/s {s['requests_per_s']:.0f}   records/s {s['records_per_s']:.0f} "
+                  f"(goal >= {GOALS['records_per_s']:.0f}: {s['records_per_s'] / GOALS['records_per_s']:.2f}x)")
+            print(f"  pair latency p50 {s['p50_ms']:.1f} ms (goal <= {GOALS['p50_ms']:.0f}: "
+                  f"{s['p50_ms'] / GOALS['p50_ms']:.1f}x the goal)   p99 {s['p99_ms']:.1f} ms (goal <= "
+                  f"{GOALS['p99_ms']:.0f}: {s['p99_ms'] / GOALS['p99_ms']:.1f}x the goal)")
+            print(f"  vs one process without HTTP: {s['p50_ms'] / (local * 1000):.1f}x its time per pair, "
+                  f"{s['records_per_s'] * local:.2f}x its records/s")
+            print(f"  every answered record in the archive: {all_there}; no config leased twice while pending: "
+                  f"{distinct}")
+    plot(results, Path(args.plot))
+    print(f"\nplot: {args.plot}")
+    shutil.rmtree(folder, ignore_errors=True)
+    if not ok:
+        sys.exit("a check failed (see above)")
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,168 @@
+"""The one writer: every write of the service passes through one thread.
+
+Each write is a function of the archive run inside one DuckDB transaction;
+its answer is handed back only after the commit, so a client that got an
+answer holds a result that survives a crash. A write may carry a client
+request id: its answer is stored in the same transaction, and a retry with
+the same id gets the stored answer and writes nothing (also after a restart,
+since the answer lives in the archive). Reads do not pass through here: they
+run concurrently on cursors of their own (:meth:`Archive.reader`).
+"""
+
+from __future__ import annotations
+
+import concurrent.futures as cf
+import json
+import logging
+import queue
+import threading
+from dataclasses import dataclass
+from datetime import datetime, timedelta, timezone
+from typing import Any, Callable
+
+from warmstart.archive.store import Archive
+from warmstart.service.errors import ServiceError
+
+__all__ = ["Writer", "RequestKey", "Answer", "REQUEST_RETENTION_DAYS"]
+
+log = logging.getLogger("warmstart.service")
+REQUEST_RETENTION_DAYS = 30  # stored answers to request ids older than this are dropped at start-up
+
+
+def _now() -> datetime:
+    return datetime.now(timezone.utc).replace(tzinfo=None)
+
+
+@dataclass(frozen=True)
+class RequestKey:
+    """A client's request id with what identifies the request it was sent with."""
+
+    principal: str
+    request_id: str
+    route: str
+    body_sha256: str
+
+
+@dataclass(frozen=True)
+class Answer:
+    """What a write answered: status and JSON body; ``replayed`` when it is
+    the stored answer of an earlier request with the same id."""
+
+    status: int
+    body: Any
+    replayed: bool = False
+
+
+@dataclass
+class _Job:
+    fn: Callable[[Archive], tuple[int, Any]]
+    key: RequestKey | None
+    future: cf.Future
+
+
+class Writer:
+    """The single writing thread over an archive opened for writing.
+
+    Parameters
+    ----------
+    archive : Archive
+        Opened for writing; only this thread writes to it from now on.
+    on_commit, on_failure : callable, optional
+        Called (in the writer thread) after a write committed, or after it
+        was rolled back, so that caches derived from the archive can follow.
+    """
+
+    def __init__(self, archive: Archive, on_commit: Callable[[], None] | None = None,
+                 on_failure: Callable[[], None] | None = None):
+        self.archive = archive
+        self._on_commit = on_commit
+        self._on_failure = on_failure
+        self._queue: queue.Queue[_Job | None] = queue.Queue()
+        self._thread = threading.Thread(target=self._run, name="warmstart-writer", daemon=True)
+        self._closed = False
+        self._lock = threading.Lock()
+
+    def start(self) -> None:
+        """Start the thread (drops stored answers older than the retention first)."""
+        cutoff = _now() - timedelta(days=REQUEST_RETENTION_DAYS)
+        with self.archive.transaction() as con:
+            con.execute("DELETE FROM requests WHERE created_at < ?", [cutoff])
+        self._thread.start()
+
+    def submit(self, fn: Callable[[Archive], tuple[int, Any]], key: RequestKey | None = None) -> cf.Future:
+        """Queue a write; the future resolves to an :class:`Answer` after the commit.
+
+        ``fn(archive)`` returns ``(status, body)``, body JSON-able; it raises
+        :class:`ServiceError` (or a library error) to refuse, which rolls
+        the transaction back.
+        """
+        future: cf.Future = cf.Future()
+        with self._lock:
+            if self._closed:
+                raise ServiceError(503, "the service is shutting down; try again when it is back")
+            self._queue.put(_Job(fn, key, future))
+        return future
+
+    def close(self, timeout: float = 30.0) -> None:
+        """Finish the queued writes, then stop the thread."""
+        with self._lock:
+            if self._closed:
+                return
+            self._closed = True
+            self._queue.put(None)
+        if self._thread.is_alive():
+            self._thread.join(timeout)
+
+    @property
+    def backlog(self) -> int:
+        """Writes waiting in the queue."""
+        return self._queue.qsize()
+
+    # -- the thread ----------------------------------------------------------
+    def _run(self) -> None:
+        while True:
+            job = self._queue.get()
+            if job is None:
+                return
+            if not job.future.set_running_or_notify_cancel():
+                continue
+            try:
+                answer = self._execute(job)
+            except BaseException as exc:  # handed to the waiting request, never lost
+                if self._on_failure is not None:
+                    try:
+                        self._on_failure()
+                    except Exception:  # pragma: no cover - a cache drop cannot fail in practice
+                        log.exception("dropping caches after a failed write")
+                job.future.set_exception(exc)
+            else:
+                if self._on_commit is not None:
+                    self._on_commit()
+                job.future.set_result(answer)
+
+    def _execute(self, job: _Job) -> Answer:
+        archive = self.archive
+        with archive.transaction() as con:
+            if job.key is not None:
+                k = job.key
+                rows = con.execute(
+                    "SELECT route, body_sha256, status, response FROM requests WHERE principal = ? AND request_id = ?",
+                    [k.principal, k.request_id],
+                ).fetchall()
+                if rows:
+                    route, digest, status, response = rows[0]
+                    if route != k.route or digest != k.body_sha256:
+                        raise ServiceError(
+                            422, f"request id {k.request_id!r} was used before for another request ({route}); "
+                            "a retry must send the same body to the same address, a new request needs a new id",
+                            "Idempotency-Key", k.request_id)
+                    return Answer(int(status), json.loads(response), replayed=True)
+            status, body = job.fn(archive)
+            text = json.dumps(body, allow_nan=False)
+            if job.key is not None:
+                k = job.key
+                con.execute(
+                    "INSERT INTO requests VALUES (?, ?, ?, ?, ?, ?, ?)",
+                    [k.principal, k.request_id, k.route, k.body_sha256, status, text, _now()],
+                )
+        return Answer(status, json.loads(text))
