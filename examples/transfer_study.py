@@ -42,14 +42,15 @@ from pathlib import Path
 import numpy as np
 
 from warmstart.archive import Archive
-from warmstart.archive.sources import BANDWIDTH_SCALE, comparable_profiles, load_sources, weight_sources
+from warmstart.archive.sources import load_sources, prior_info, prior_sources
 from warmstart.gain.bits import Runs, compare, in_target, pool
-from warmstart.gain.replay import hindsight_rates, replay_tasks, static_order
+from warmstart.gain.replay import hindsight_rates, replay_tasks
 from warmstart.gain.verdicts import paired_runs_p, verdicts
 from warmstart.prior import prior_from_sources
-from warmstart.progress import Progress
+from warmstart.cli.progress import Progress
 from warmstart.search.density import DensitySearch
 from warmstart.search.mixture import MixtureSearch
+from warmstart.search.static import average_rank_list, nearest_tasks_list
 from warmstart.search.strategy import run_search
 
 #: Named variants of the mixture search (options of MixtureSearch); every one measured is
@@ -60,6 +61,12 @@ VARIANTS: dict[str, dict] = {
     "v1": {"gamma": 0.25, "source_gamma": 0.15, "n_hedge": 3, "cover_fraction": 0.1, "own_strength": 10.0,
            "uniform": 0.1, "n_candidates": 24, "n_boot": 256, "max_ranked": 40, "prior_power": 0.0,
            "source_score": "ratio", "shrink": 1.0, "explore": 0.1, "cover": "top", "exact_share": 0.0,
+           "cover_pool": 1.0},
+    # the defaults chosen on the design half (issue 18): no hedge, half the candidates from past
+    # tasks are their good configs as they are; the space-filling query is the second
+    "v2": {"gamma": 0.25, "source_gamma": 0.15, "n_hedge": 0, "cover_fraction": 0.1, "own_strength": 10.0,
+           "uniform": 0.1, "n_candidates": 24, "n_boot": 256, "max_ranked": 40, "prior_power": 0.0,
+           "source_score": "ratio", "shrink": 1.0, "explore": 0.1, "cover": "top", "exact_share": 0.5,
            "cover_pool": 1.0},
 }
 
@@ -101,16 +108,17 @@ def study_learner(archive, learner: str, args, options: dict, progress) -> dict:
         key = task.space.content_hash
         if key not in cache:
             cache[key] = load_sources(archive, learner, task.space)
-        weighted = weight_sources(cache[key], comparable_profiles(archive, task.profile), task.profile,
-                                  exclude_tasks=[task.task_id], bandwidth_scale=BANDWIDTH_SCALE)
-        prior = prior_from_sources(task.space, weighted, provenance={"learner": learner, "held_out": task.task})
+        weighted = prior_sources(archive, task.profile, learner, task.space, exclude_tasks=[task.task_id],
+                                 loaded=cache[key])
+        prior = prior_from_sources(task.space, weighted, provenance={**prior_info(learner), "held_out": task.task})
         mx = task.objective.maximize
         base = {"learner": learner, "task": task.task, "replay": args.replay, "budget": args.budget,
                 "repeats": args.repeats, "seed": args.seed}
         cold = cached_hits(args.cache, {**base, "search": "cold"}, lambda: run_hits(
             task, lambda s: DensitySearch(task.space, prior=None, seed=s, maximize=mx),
             args.budget, args.repeats, args.seed))
-        seedlist = cached_hits(args.cache, {**base, "search": "seedlist"}, lambda: run_hits(
+        # the seed list depends on the similarity (one kernel since the restructure of issue 15)
+        seedlist = cached_hits(args.cache, {**base, "search": "seedlist", "similarity": 2}, lambda: run_hits(
             task, lambda s: DensitySearch(task.space, prior=prior, seed=s, maximize=mx),
             args.budget, args.repeats, args.seed))
         warm = run_hits(task, lambda s: MixtureSearch(task.space, prior, seed=s, maximize=mx, **options),
@@ -118,8 +126,8 @@ def study_learner(archive, learner: str, args, options: dict, progress) -> dict:
         for label, h in (("warm", warm), ("cold", cold), ("seedlist", seedlist)):
             curves[label].append(h.mean(axis=0))
         others = {"seedlist": Runs(seedlist)}
-        for label, flat in (("defaults", True), ("nearest", False)):
-            configs = static_order(prior, flat, args.budget)
+        for label, make_list in (("defaults", average_rank_list), ("nearest", nearest_tasks_list)):
+            configs = make_list(prior, args.budget)
             h = in_target(task.objective.values(task.space.encode(configs)), task.threshold, mx)
             others[label] = Runs(np.pad(h, (0, args.budget - len(h)))[None, :])
         result = compare(task.task, Runs(warm), Runs(cold), task.p, rng=args.seed, others=others)

@@ -15,7 +15,8 @@ import pytest
 
 from warmstart.gain.bits import Runs, compare, in_target, pool, target_threshold
 from warmstart.gain.control import markov_bound, permute_task, share_at_least
-from warmstart.gain.replay import ReplayObjective, ReplayTask
+from warmstart.gain.objectives import ReplayObjective
+from warmstart.gain.replay import ReplayTask
 from warmstart.prior import Source, prior_from_sources, within_study_quantiles
 from warmstart.search.density import DensitySearch
 from warmstart.search.mixture import MixtureSearch

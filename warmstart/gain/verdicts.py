@@ -14,6 +14,7 @@ Across tasks the paired Wilcoxon test on per-task bits is the one
 from __future__ import annotations
 
 import math
+import dataclasses
 from dataclasses import dataclass, field
 from typing import Sequence
 
@@ -21,7 +22,7 @@ import numpy as np
 from scipy.special import ndtri
 from scipy.stats import wilcoxon
 
-__all__ = ["ROPE_BITS", "ALPHA", "holm", "wilson_interval", "paired_runs_p", "Verdicts", "verdicts"]
+__all__ = ["ROPE_BITS", "ALPHA", "holm", "wilson_interval", "paired_runs_p", "Verdicts", "verdicts", "judge"]
 
 #: Region of practical equivalence of a per-task gain, in bits (issue 18).
 ROPE_BITS = 0.1
@@ -164,3 +165,28 @@ def verdicts(tasks: Sequence[str], gains: Sequence[float], p_values: Sequence[fl
         significant_losses=int(hurt.sum()), share_significant_loss=float(hurt.mean()) if n else math.nan,
         rope=float(rope), alpha=float(alpha), per_task=per_task,
     )
+
+
+def judge(results: Sequence, rope: float = ROPE_BITS, alpha: float = ALPHA) -> list:
+    """Per-task verdicts by the Holm-corrected paired test, across all given tasks.
+
+    Each :class:`~warmstart.gain.bits.TaskGain` (its ``extra["p_paired"]`` set
+    by :func:`~warmstart.gain.bits.compare`) gets ``verdict`` ``helped`` or
+    ``hurt`` when its corrected p-value is below ``alpha`` (by the sign of its
+    gain), ``no evidence`` otherwise, and keeps ``too few runs``; ``extra``
+    gains ``p_holm`` and ``outcome`` (win/tie/loss against the region of
+    practical equivalence). Returns new objects in the same order.
+    """
+    if not results:
+        return []
+    v = verdicts([r.task for r in results], [r.gain for r in results],
+                 [r.extra.get("p_paired", math.nan) for r in results], rope, alpha)
+    out = []
+    for r, row in zip(results, v.per_task):
+        verdict = r.verdict
+        if verdict != "too few runs":
+            significant = row["p_holm"] < alpha
+            verdict = ("hurt" if r.gain < 0 else "helped") if significant and r.gain != 0 else "no evidence"
+        out.append(dataclasses.replace(r, verdict=verdict,
+                                       extra={**r.extra, "p_holm": row["p_holm"], "outcome": row["outcome"]}))
+    return out
