@@ -61,13 +61,18 @@ VARIANTS: dict[str, dict] = {
     "v1": {"gamma": 0.25, "source_gamma": 0.15, "n_hedge": 3, "cover_fraction": 0.1, "own_strength": 10.0,
            "uniform": 0.1, "n_candidates": 24, "n_boot": 256, "max_ranked": 40, "prior_power": 0.0,
            "source_score": "ratio", "shrink": 1.0, "explore": 0.1, "cover": "top", "exact_share": 0.0,
-           "cover_pool": 1.0},
+           "cover_pool": 1.0, "adaptive_design": False},
     # the defaults chosen on the design half (issue 18): no hedge, half the candidates from past
     # tasks are their good configs as they are; the space-filling query is the second
     "v2": {"gamma": 0.25, "source_gamma": 0.15, "n_hedge": 0, "cover_fraction": 0.1, "own_strength": 10.0,
            "uniform": 0.1, "n_candidates": 24, "n_boot": 256, "max_ranked": 40, "prior_power": 0.0,
            "source_score": "ratio", "shrink": 1.0, "explore": 0.1, "cover": "top", "exact_share": 0.5,
-           "cover_pool": 1.0},
+           "cover_pool": 1.0, "adaptive_design": False},
+    # v2 and, when no past task orders the scores better than chance, the Sobol start of a cold search
+    "v3": {"gamma": 0.25, "source_gamma": 0.15, "n_hedge": 0, "cover_fraction": 0.1, "own_strength": 10.0,
+           "uniform": 0.1, "n_candidates": 24, "n_boot": 256, "max_ranked": 40, "prior_power": 0.0,
+           "source_score": "ratio", "shrink": 1.0, "explore": 0.1, "cover": "top", "exact_share": 0.5,
+           "cover_pool": 1.0, "adaptive_design": True},
 }
 
 

@@ -151,10 +151,29 @@ def test_misleading_source_costs_little_and_loses_its_weight():
     best_cold, _ = runs(cold, budget=20)
     # bound (our choice): the mean best value stays within 1.0 of cold's (Branin spans 0.4 to ~300)
     assert best_mix.mean() <= best_cold.mean() + 1.0
+    # and less than the ranked seed list it replaces (DensitySearch with the same prior)
+    best_list, _ = runs(lambda s: DensitySearch(SPACE, prior=prior, seed=s, maximize=False), budget=10)
+    best_mix10, _ = runs(lambda s: MixtureSearch(SPACE, prior, seed=s, maximize=False), budget=10)
+    assert best_mix10.mean() < best_list.mean()
     search = MixtureSearch(SPACE, prior, seed=0, maximize=False)
-    run_search(search, BRANIN, 20)
+    result = run_search(search, BRANIN, 20)
     w_src, w_own = search.current_weights()
     assert w_src[0] < 0.05 < w_own
+
+
+def test_space_filling_queries_follow_the_distrust_of_the_past_tasks():
+    # no past task orders the scores better than chance: about the Sobol start of a cold search
+    # (five points for two parameters); an identical past task: about the one scheduled query
+    def design_queries(prior):
+        counts = []
+        for seed in range(6):
+            result = run_search(MixtureSearch(SPACE, prior, seed=seed, maximize=False), BRANIN, 10)
+            counts.append(sum(t.source == "design" for t in result.trials))
+        return np.mean(counts)
+
+    misled = design_queries(prior_from_sources(SPACE, [branin_source(2, sign=-1.0)]))
+    trusted = design_queries(prior_from_sources(SPACE, [branin_source(1)]))
+    assert misled >= 3 and trusted <= 2 and trusted < misled
 
 
 def test_the_trusted_source_takes_the_weight():
@@ -239,6 +258,8 @@ def test_bad_arguments_raise_clear_errors():
         MixtureSearch(SPACE, prior, n_hedge=-1)
     with pytest.raises(SearchError, match="explore must be a number in"):
         MixtureSearch(SPACE, prior, explore=2)
+    with pytest.raises(SearchError, match="adaptive_design must be True or False, got 'yes'"):
+        MixtureSearch(SPACE, prior, adaptive_design="yes")
     with pytest.raises(SearchError, match="not a mixture warm search"):
         MixtureSearch.from_dict({"format": "something-else"})
     d = MixtureSearch(SPACE, prior).to_dict()

@@ -44,7 +44,8 @@ import numpy as np
 
 from warmstart.prior import Prior, PriorError
 from warmstart.search.kde import MixedKDE, log_sum_exp, uniform_logpdf
-from warmstart.search.ranking import greedy_cover, ranking_weights
+from warmstart.search.density import default_n_startup
+from warmstart.search.ranking import chance_share, greedy_cover, ranking_losses, weights_from_losses
 from warmstart.search.strategy import SearchError, SearchStrategy
 from warmstart.space import Space, unit_distances
 
@@ -151,6 +152,11 @@ class MixtureSearch(SearchStrategy):
         Share of the coverage candidates (by weighted mean quantile over the
         past tasks) the hedge may pick from: below 1 it covers top sets only
         among configs the weighted past tasks rate highly on average.
+    adaptive_design : bool, default True
+        Also make as many space-filling queries as the Sobol start of a cold
+        search (``min(10, max(5, d + 1))``) times the share of bootstrap
+        resamples in which no past task orders the scores better than
+        chance: past tasks that all mislead turn the search into a cold one.
     """
 
     def __init__(
@@ -175,6 +181,7 @@ class MixtureSearch(SearchStrategy):
         cover: str = "top",
         exact_share: float = 0.5,
         cover_pool: float = 1.0,
+        adaptive_design: bool = True,
     ):
         super().__init__(space, seed=seed, maximize=maximize)
         sources = getattr(prior, "sources", None)
@@ -199,6 +206,8 @@ class MixtureSearch(SearchStrategy):
                 raise SearchError(f"{name} must be a finite number >= 0, got {value!r}")
         if isinstance(exact_share, bool) or not isinstance(exact_share, (int, float)) or not 0 <= exact_share <= 1:
             raise SearchError(f"exact_share must be a number in [0, 1], got {exact_share!r}")
+        if not isinstance(adaptive_design, (bool, np.bool_)):
+            raise SearchError(f"adaptive_design must be True or False, got {adaptive_design!r}")
         if cover not in ("top", "soft"):
             raise SearchError(f"cover must be 'top' or 'soft', got {cover!r}")
         if source_score not in _SCORES:
@@ -211,7 +220,7 @@ class MixtureSearch(SearchStrategy):
             "max_ranked": int(max_ranked), "prior_power": float(prior_power),
             "source_score": source_score, "shrink": float(shrink), "explore": float(explore),
             "cover": cover, "exact_share": float(exact_share),
-            "cover_pool": float(cover_pool),
+            "cover_pool": float(cover_pool), "adaptive_design": bool(adaptive_design),
         }
         self.__dict__.update(self.options)
         kept = [s for s in sources if s.X.shape[0] > 0]
@@ -324,14 +333,16 @@ class MixtureSearch(SearchStrategy):
             own_col = S + 1
         yy = np.where(np.isnan(y[keep]), -np.inf, y[keep])
         rng = np.random.default_rng(self._rng_key(1))
-        w = ranking_weights(P, yy, start, n_boot=self.n_boot, rng=rng, own=own_col)
+        loss = ranking_losses(P, yy, self.n_boot, rng)
+        w = weights_from_losses(loss, start, own_col)
+        chance = chance_share(loss, np.arange(S), S) if keep.size >= 2 else 0.0
         w_own = float(w[own_col]) if own_col is not None else 0.0
         floor = n_ok / (n_ok + self.own_strength) if self.own_strength > 0 else 1.0
         if n_ok and w_own < floor:  # the floor's share comes from the others in proportion
             rest = w[: S + 1]
             w = np.append(rest / rest.sum() * (1.0 - floor) if rest.sum() > 0 else rest, floor)
             w_own = floor
-        self._weights_at = (n, w[:S].copy(), float(w[S]), w_own)
+        self._weights_at = (n, w[:S].copy(), float(w[S]), w_own, chance)
         return self._weights_at[1], self._weights_at[3]
 
     @property
@@ -364,13 +375,26 @@ class MixtureSearch(SearchStrategy):
             return np.random.default_rng(self._rng_key(2))
         return self._rng  # a Generator was given: its own stream
 
-    def _exploring(self, t: int) -> bool:
-        """Whether query ``t`` (from 0) is a space-filling one: the first after the
-        hedge (the second query without a hedge), then one in every ``1 / explore``."""
+    def _design_needed(self, t: int) -> int:
+        """Space-filling queries due by query ``t`` (from 0): one right after the
+        hedge (at the second query without one), then one in every
+        ``1 / explore``; and, with ``adaptive_design``, as many of the points a
+        cold search would start with as the share of bootstrap resamples in
+        which no past task orders the scores better than chance."""
         start = max(self.n_hedge, 1)
-        if self.explore <= 0 or t < start:
-            return False
-        return (t - start) % max(1, round(1.0 / self.explore)) == 0
+        if t < start:
+            return 0
+        due = (t - start) // max(1, round(1.0 / self.explore)) + 1 if self.explore > 0 else 0
+        if self.adaptive_design:
+            self.current_weights()
+            due = max(due, round(default_n_startup(self.space.dim) * self._weights_at[4]))
+        return min(due, t)
+
+    def _design_rows(self, n: int) -> np.ndarray:
+        """The first ``n`` (or more) points of the search's scrambled Sobol sequence."""
+        if self._design is None or self._design.shape[0] < n:
+            self._design = self.space.sobol_unit(max(16, 2 * n), self._design_seed())
+        return self._design
 
     def _propose_one(self) -> tuple[dict, str]:
         rng = self._proposal_rng()
@@ -379,21 +403,14 @@ class MixtureSearch(SearchStrategy):
             config = self._hedge(rng)
             if config is not None:
                 return config, "cover"
-        if self._exploring(t):
-            return self._spread(t), "design"
+        due = self._design_needed(t)
+        if due:
+            rows = self._design_rows(due + 8)
+            known = self._known_rows(rows)
+            if known[:due].sum() < due:  # the next Sobol point not tried yet (a rebuilt search takes the same)
+                fresh = np.flatnonzero(~known)
+                return self.space.decode(rows[fresh[0]][None, :])[0], "design"
         return self._model_proposal(rng), "model"
-
-    def _spread(self, t: int) -> dict:
-        """The next point of the search's scrambled Sobol sequence not tried yet
-        (the ``j``-th space-filling query takes point ``j``, so a rebuilt search
-        takes the same)."""
-        start = max(self.n_hedge, 1)
-        j = (t - start) // max(1, round(1.0 / self.explore))
-        if self._design is None or self._design.shape[0] <= j + 8:
-            self._design = self.space.sobol_unit(2 * (j + 8), self._design_seed())
-        rows = self._design[j:]
-        fresh = np.flatnonzero(~self._known_rows(rows))
-        return self.space.decode(rows[fresh[0] if fresh.size else 0][None, :])[0]
 
     def _design_seed(self):
         if isinstance(self.seed, (int, np.integer)) and not isinstance(self.seed, bool):
@@ -501,4 +518,4 @@ class MixtureSearch(SearchStrategy):
     def _option_names() -> tuple[str, ...]:
         return ("gamma", "source_gamma", "n_hedge", "cover_fraction", "own_strength", "uniform",
                 "n_candidates", "n_boot", "max_ranked", "prior_power", "source_score", "shrink", "explore", "cover",
-                "exact_share", "cover_pool")
+                "exact_share", "cover_pool", "adaptive_design")

@@ -21,7 +21,8 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["misranked_pairs", "ranking_weights", "greedy_cover"]
+__all__ = ["misranked_pairs", "ranking_weights", "ranking_losses", "weights_from_losses", "chance_share",
+           "greedy_cover"]
 
 
 def misranked_pairs(predictions: np.ndarray, scores: np.ndarray) -> np.ndarray:
@@ -97,20 +98,41 @@ def ranking_weights(
     ndarray of shape (m,)
         Non-negative weights summing to one.
     """
-    F = np.asarray(predictions, dtype=float)
-    y = np.asarray(scores, dtype=float)
     start = np.asarray(start, dtype=float)
-    n, m = F.shape
+    m = np.asarray(predictions).shape[1]
     if start.shape != (m,) or (start < 0).any() or not np.isfinite(start).all():
         raise ValueError(f"start must hold {m} finite weights >= 0, got {start!r}")
-    base = start if start.sum() > 0 else np.ones(m)
-    base = base / base.sum()
+    loss = ranking_losses(predictions, scores, n_boot, rng)
+    return weights_from_losses(loss, start, own, dilution_quantile)
+
+
+def ranking_losses(predictions: np.ndarray, scores: np.ndarray, n_boot: int = 256, rng: Any = None) -> np.ndarray:
+    """Misranked pairs of every model in bootstrap resamples of the scored configs.
+
+    Returns an array of shape (n_boot, m); with fewer than two scored configs,
+    (1, m) zeros (no pair to judge). See :func:`ranking_weights`.
+    """
+    F = np.asarray(predictions, dtype=float)
+    y = np.asarray(scores, dtype=float)
+    n, m = F.shape
     if n < 2:
-        return base
+        return np.zeros((1, m))
     rng = np.random.default_rng(rng)
     wrong = misranked_pairs(F, y)
     counts = rng.multinomial(n, np.full(n, 1.0 / n), size=n_boot).astype(float)  # (B, n)
-    loss = np.einsum("sa,kab,sb->sk", counts, wrong, counts, optimize=True)  # (B, m)
+    return np.einsum("sa,kab,sb->sk", counts, wrong, counts, optimize=True)  # (B, m)
+
+
+def weights_from_losses(loss: np.ndarray, start: np.ndarray, own: int | None = None,
+                        dilution_quantile: float = 0.95) -> np.ndarray:
+    """Share of resamples each model wins (ties by ``start``), after weight dilution.
+
+    See :func:`ranking_weights`; ``loss`` is :func:`ranking_losses`' output.
+    """
+    loss = np.array(loss, dtype=float)
+    m = loss.shape[1]
+    base = start if start.sum() > 0 else np.ones(m)
+    base = base / base.sum()
     if own is not None:
         cutoff = np.quantile(loss[:, own], dilution_quantile)
         diluted = np.median(loss, axis=0) > cutoff
@@ -123,6 +145,25 @@ def ranking_weights(
     share = np.where(total > 0, share / np.where(total > 0, total, 1.0), best / best.sum(axis=1, keepdims=True))
     w = share.mean(axis=0)
     return w / w.sum()
+
+
+def chance_share(loss: np.ndarray, sources: np.ndarray, uniform: int) -> float:
+    """Share of resamples in which no past task orders the scores better than chance.
+
+    A resample without a pair of different scores counts as no such evidence.
+
+    Parameters
+    ----------
+    loss : array of shape (B, m)
+        :func:`ranking_losses`.
+    sources : int array
+        Columns of the past tasks.
+    uniform : int
+        Column of a model that predicts a tie everywhere (uniform sampling):
+        its loss is half the pairs, what a random order misranks on average.
+    """
+    judged = loss[:, uniform] > 0  # a resample without a scored pair says nothing either way
+    return float(np.mean(judged & (loss[:, sources].min(axis=1) >= loss[:, uniform])))
 
 
 def greedy_cover(in_top: np.ndarray, quality: np.ndarray, weights: np.ndarray,
