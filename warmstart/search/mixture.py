@@ -38,12 +38,13 @@ and given the same trials proposes the same configs.
 from __future__ import annotations
 
 import math
+import weakref
 from typing import Any, Mapping
 
 import numpy as np
 
 from warmstart.prior import Prior, PriorError
-from warmstart.search.kde import MixedKDE, log_sum_exp, uniform_logpdf
+from warmstart.search.kde import KDEStack, MixedKDE, log_sum_exp, uniform_logpdf
 from warmstart.search.density import default_n_startup
 from warmstart.search.ranking import chance_share, greedy_cover, ranking_losses, weights_from_losses
 from warmstart.search.strategy import SearchError, SearchStrategy
@@ -52,6 +53,9 @@ from warmstart.space import Space, unit_distances
 __all__ = ["MixtureSearch", "MIXTURE_FORMAT"]
 
 MIXTURE_FORMAT = "warmstart-mixture/1"
+#: prior -> {(space, options of the past tasks' densities) -> what _build_sources returns}; the
+#: entries go when the prior does (a replay runs many searches on one prior)
+_BUILT: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
 _SCORES = ("ratio", "nearest")
 
 
@@ -75,10 +79,6 @@ class _SourceModel:
         n_top = max(1, math.ceil(cover_fraction * m))
         self.top_rows = X[order[:n_top]]
         self.top_threshold = float(quantile[order[n_top - 1]])
-
-    def log_ratio(self, rows: np.ndarray, log_u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """``log l_i`` and ``log g_i`` at rows (``g_i`` uniform without a rest set)."""
-        return self.good.logpdf(rows), (log_u if self.rest is None else self.rest.logpdf(rows))
 
 
 class MixtureSearch(SearchStrategy):
@@ -233,17 +233,31 @@ class MixtureSearch(SearchStrategy):
         self.sources = kept
         sim = np.array([max(float(s.similarity), 0.0) for s in kept])
         self.start_weights = sim / sim.sum() if sim.sum() > 0 and np.isfinite(sim).all() else np.full(len(kept), 1 / len(kept))
-        self._models = [_SourceModel(space, s.X, s.quantile, self.source_gamma, self.cover_fraction, self.shrink)
-                        for s in kept]
-        top = space.snap(np.vstack([m.top_rows for m in self._models]))
-        _, first = np.unique(np.round(np.nan_to_num(top, nan=-1.0), 9), axis=0, return_index=True)
-        self._cover_rows = top[np.sort(first)]
-        self._cover_q = self._quantiles(self._cover_rows)
-        self._cover_top = self._in_top(self._cover_q)
+        key = (space.content_hash, self.source_gamma, self.cover_fraction, self.shrink)
+        built = _BUILT.setdefault(prior, {}).get(key)
+        if built is None:  # the past tasks' densities do not depend on the seed: built once per prior
+            built = _BUILT[prior][key] = self._build_sources()
+        (self._models, self._good, self._has_rest, self._rest, self._cover_rows, self._cover_q,
+         self._cover_top) = built
         self._pred = np.empty((0, len(kept)))  # past tasks' scores at recorded rows
-        self._obs_q = np.empty((0, len(kept)))  # their nearest quantiles at recorded rows
         self._weights_at: tuple | None = None
         self._design: np.ndarray | None = None  # scrambled Sobol points of the space-filling queries
+
+    def _build_sources(self) -> tuple:
+        """Every past task's good and rest densities (stacked, evaluated in one pass) and the
+        candidates of the hedge with the quantile each past task gives them."""
+        space = self.space
+        models = [_SourceModel(space, s.X, s.quantile, self.source_gamma, self.cover_fraction, self.shrink)
+                  for s in self.sources]
+        self._models = models
+        has_rest = np.array([m.rest is not None for m in models])
+        rest = KDEStack([m.rest for m in models if m.rest is not None]) if has_rest.any() else None
+        top = space.snap(np.vstack([m.top_rows for m in models]))
+        _, first = np.unique(np.round(np.nan_to_num(top, nan=-1.0), 9), axis=0, return_index=True)
+        cover_rows = top[np.sort(first)]
+        cover_q = self._quantiles(cover_rows)
+        return (models, KDEStack([m.good for m in models]), has_rest, rest, cover_rows, cover_q,
+                self._in_top(cover_q))
 
     # -- past tasks seen at rows ------------------------------------------
     def _quantiles(self, rows: np.ndarray) -> np.ndarray:
@@ -252,24 +266,26 @@ class MixtureSearch(SearchStrategy):
     def _in_top(self, Q: np.ndarray) -> np.ndarray:
         return Q >= np.array([m.top_threshold for m in self._models])[None, :] - 1e-12
 
-    def _source_scores(self, rows: np.ndarray, Q: np.ndarray) -> np.ndarray:
+    def _source_logs(self, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """``log l_i`` and ``log g_i`` of every past task at rows, each (m, n_sources)."""
+        lg = self._good.logpdf(rows)
+        lr = np.repeat(uniform_logpdf(self.space, rows)[:, None], len(self._models), axis=1)
+        if self._rest is not None:
+            lr[:, self._has_rest] = self._rest.logpdf(rows)
+        return lg, lr
+
+    def _source_scores(self, rows: np.ndarray) -> np.ndarray:
         if self.source_score == "nearest":
-            return Q
-        lu = uniform_logpdf(self.space, rows)
-        out = np.empty((rows.shape[0], len(self._models)))
-        for i, m in enumerate(self._models):
-            lg, lr = m.log_ratio(rows, lu)
-            out[:, i] = lg - lr
-        return out
+            return self._quantiles(rows)
+        lg, lr = self._source_logs(rows)
+        return lg - lr
 
     def _observe(self) -> None:
         n = self.trial_count
         have = self._pred.shape[0]
         if have < n:
             rows = self.rows()[have:n]
-            Q = self._quantiles(rows)
-            self._obs_q = np.vstack([self._obs_q, Q])
-            self._pred = np.vstack([self._pred, self._source_scores(rows, Q)])
+            self._pred = np.vstack([self._pred, self._source_scores(rows)])
 
     # -- the new task's own model -------------------------------------------
     def _own_densities(self, rows: np.ndarray, y: np.ndarray, extra_rest: np.ndarray | None = None):
@@ -463,12 +479,9 @@ class MixtureSearch(SearchStrategy):
             draws.append(good0.sample(counts[-1], rng))
         C = np.vstack(draws)
         lu = uniform_logpdf(space, C)
-        L = [lu]
-        G = [lu]
-        for i in active:
-            lg, lr = self._models[i].log_ratio(C, lu)
-            L.append(lg)
-            G.append(lr)
+        LG, LR = self._source_logs(C)
+        L = [lu, *LG[:, active].T]
+        G = [lu, *LR[:, active].T]
         if w_own > 0:
             L.append(good0.logpdf(C))
             G.append(lu if rest0 is None else rest0.logpdf(C))
@@ -478,8 +491,7 @@ class MixtureSearch(SearchStrategy):
         if self.prior_power > 0:
             n_ok = int((~np.isnan(y)).sum())
             sw = self.start_weights
-            pi = log_sum_exp(np.column_stack([lu] + [m.good.logpdf(C) for m in self._models]),
-                             b=np.concatenate([[u], (1 - u) * sw]))
+            pi = log_sum_exp(np.column_stack([lu, LG]), b=np.concatenate([[u], (1 - u) * sw]))
             score = score + self.prior_power / (n_ok + 1) * (pi - lu)
         fresh = ~self._known_rows(C)
         if fresh.any():
