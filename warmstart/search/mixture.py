@@ -157,6 +157,21 @@ class MixtureSearch(SearchStrategy):
         search (``min(10, max(5, d + 1))``) times the share of bootstrap
         resamples in which no past task orders the scores better than
         chance: past tasks that all mislead turn the search into a cold one.
+
+    Examples
+    --------
+    >>> from warmstart.prior import Source, prior_from_sources, within_study_quantiles
+    >>> space = Space.from_dict({"params": {"x": {"type": "real", "low": -2, "high": 2}}})
+    >>> X = space.sobol_unit(32, 0)                      # a past study of (x - 0.5)^2
+    >>> past = (4 * X[:, 0] - 2 - 0.5) ** 2
+    >>> source = Source(1, 1, "past task", X, within_study_quantiles(past, maximize=False),
+    ...                 numbers=np.arange(32), clipped=np.zeros(32, dtype=bool))
+    >>> search = MixtureSearch(space, prior_from_sources(space, [source]), seed=0, maximize=False)
+    >>> for _ in range(6):
+    ...     config = search.propose()
+    ...     _ = search.record(config, (config["x"] - 0.5) ** 2)
+    >>> abs(search.best.config["x"] - 0.5) < 0.2
+    True
     """
 
     def __init__(
