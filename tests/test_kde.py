@@ -235,3 +235,22 @@ def test_samples_are_valid_configs_with_finite_density(data, rule, shrink):
         MIXED.validate(config)
     np.testing.assert_array_equal(np.isnan(S), ~MIXED.active_mask(S))
     assert np.isfinite(kde.logpdf(S)).all()
+
+
+def test_a_stack_of_densities_equals_each_one_evaluated_alone():
+    # reference: MixedKDE.logpdf of every density of the stack, one by one
+    space = Space.from_dict({"params": {
+        "a": {"type": "real", "low": 0.0, "high": 1.0},
+        "n": {"type": "integer", "low": 1, "high": 50, "log": True},
+        "k": {"type": "choice", "choices": ["x", "y", "z"]},
+        "g": {"type": "real", "low": 1e-3, "high": 1.0, "log": True, "when": {"k": ["y"]}},
+    }})
+    rng = np.random.default_rng(0)
+    kdes = [MixedKDE(space, space.sample_unit(n, rng), weights=rng.random(n) + 0.1, shrink=s)
+            for n, s in ((1, 0.0), (5, 1.0), (17, 2.0))]
+    from warmstart.search.kde import KDEStack as Stack
+
+    X = space.sample_unit(40, rng)
+    got = Stack(kdes).logpdf(X)
+    want = np.column_stack([k.logpdf(X) for k in kdes])
+    np.testing.assert_allclose(got, want, rtol=1e-10, atol=1e-10)

@@ -193,3 +193,65 @@ def test_gain_names_the_tasks_it_knows_when_asked_for_an_unknown_one(archive_pat
                                     "--budget", "5", "--repeats", "2"])
     assert res.exit_code == 1 and "Traceback" not in res.output
     assert "'nope'" in res.output and "'family task 0'" in res.output
+
+
+def test_gain_prints_verdicts_and_the_permuted_control(archive_path):
+    runner = CliRunner()
+    base = ["--archive", archive_path, "gain", "--learner", "toy", "--budget", "6", "--repeats", "6"]
+    res = runner.invoke(main, base)
+    assert res.exit_code == 0, res.output
+    assert "win/tie/loss" in res.stdout and "significant losses (paired test over runs, Holm)" in res.stdout
+    assert "warm's hit rate above each baseline's on" in res.stdout
+    res = runner.invoke(main, base + ["--json"])
+    pooled = json.loads(res.stdout)[0]["pooled"]
+    assert pooled["wins"] + pooled["ties"] + pooled["losses"] == pooled["n_tasks"] == 8
+    assert 0 <= pooled["share_loss_low"] <= pooled["share_loss"] <= pooled["share_loss_high"] <= 1
+    task = json.loads(res.stdout)[0]["tasks"][0]
+    assert {"p_paired", "p_holm", "outcome"} <= set(task)
+    res = runner.invoke(main, base + ["--permuted"])
+    assert res.exit_code == 0, res.output
+    assert "CONTROL" in res.stdout and "share of tasks reaching >= 1 bit" in res.stdout
+    bad = runner.invoke(main, ["--archive", archive_path, "gain", "--learner", "toy", "--data", "x.csv",
+                               "--target", "y", "--permuted"])
+    assert bad.exit_code != 0 and "--permuted is a control of the replay" in bad.output
+
+
+def test_permuted_control_gains_nothing(archive_path):
+    # the same family on which transfer helps (test_leave_one_task_out_measures_transfer), with every
+    # held-out task's scores shuffled: pooled gain of warm over cold stays at or below 0 within its interval
+    with Archive(archive_path, read_only=True) as archive:
+        result = leave_one_task_out(archive, "toy", budget=8, repeats=6, gamma=0.1, seed=1, permuted=True)
+    assert result.permuted and result.pooled.gain_low <= 0.0
+    frame = result.to_frame()
+    # fixed lists on random target sets: share of tasks reaching 1 bit at most 2^-1 (binomial slack, 8 tasks)
+    for label in ("defaults", "nearest"):
+        assert (frame[f"bits_{label}"] >= 1.0).mean() <= 0.5 + 3 * np.sqrt(0.25 / len(frame))
+
+
+@pytest.fixture(scope="module")
+def knn_history(tmp_path_factory):
+    """knn studies on iris and wine (tables that ship with scikit-learn), 24 Sobol configs each."""
+    from sklearn.datasets import load_iris, load_wine
+
+    from warmstart.evaluate.learners import cv_objective
+
+    path = tmp_path_factory.mktemp("knn") / "history.duckdb"
+    with Archive(str(path)) as archive:
+        for name, loader in (("iris", load_iris), ("wine", load_wine)):
+            frame = loader(as_frame=True).frame
+            objective = cv_objective(frame, "target", "knn", cv=3, seed=0)
+            configs = objective.space.sobol(24, 0)
+            trials = pd.DataFrame(configs)
+            trials["score"] = [objective(c).score for c in configs]
+            archive.ingest(trials, task=name, data=frame, target="target", learner="knn", space=objective.space,
+                           metric="accuracy")
+    return str(path)
+
+
+def test_replay_of_a_built_in_learner_has_the_library_default_baseline(knn_history):
+    with Archive(knn_history, read_only=True) as archive:
+        result = leave_one_task_out(archive, "knn", budget=4, repeats=3, seed=0)
+    assert "library_default" in result.curves
+    for t in result.tasks:
+        assert np.isfinite(t.extra["bits_library_default"])
+    assert 0 <= result.pooled.extra["share_warm_above_library_default"] <= 1

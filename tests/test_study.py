@@ -204,3 +204,24 @@ def test_sources_changed_since_are_named_in_the_note(warm):
         archive.con.execute("DELETE FROM trials")
         gone = resume_study(archive, study.study_id)
     assert "rebuilt from today's archive" in gone.note and gone.search.prior is None
+
+
+def test_a_warm_study_runs_the_mixture_and_a_resumed_one_proposes_the_same(warm):
+    from warmstart.search.mixture import MixtureSearch
+
+    path, study, record = warm
+    assert isinstance(study.search, MixtureSearch)
+    assert record["search"]["kind"] == "mixture" and record["search"]["seed"] == 0
+    assert record["search"]["options"] == study.search.options
+
+    def objective(config):  # the invented toy landscape of _history, peaking at x = 0.25
+        return 1 - (config["x"] - 0.25) ** 2 - 0.05 * (np.log2(config["k"]) - 3) ** 2
+
+    with Archive(path) as archive:
+        uninterrupted = resume_study(archive, study.study_id)
+        run_study(uninterrupted, objective, 5)
+        then = uninterrupted.search.propose(2)
+    with Archive(path, read_only=True) as archive:  # the same study rebuilt from the archive
+        resumed = resume_study(archive, study.study_id)
+        assert isinstance(resumed.search, MixtureSearch) and resumed.search.trial_count == 5
+        assert resumed.search.propose(2) == then

@@ -47,8 +47,9 @@ def test_tune_is_warm_when_related_studies_exist_and_cold_on_request(tmp_path):
 
 
 def test_tune_seeds_option_is_kept_with_the_study(tmp_path):
-    """`--seeds N` limits how many past configs a warm study tries first; `propose`
-    rebuilds the study's search with the same N (real tables from scikit-learn)."""
+    """`--seeds N` starts a warm study with a ranked list of N past configs (instead of
+    the mixture); `propose` rebuilds the study's search with the same N (real tables
+    from scikit-learn)."""
     runner = CliRunner()
     archive = str(tmp_path / "a.duckdb")
     base = ["--archive", archive, "tune"]
@@ -61,7 +62,7 @@ def test_tune_seeds_option_is_kept_with_the_study(tmp_path):
     assert res.exit_code == 0, res.output
     assert "1 past config(s) first" in res.stderr
     res = runner.invoke(main, base + [iris, "--target", "target", "--learner", "knn", "--budget", "1", "--cv", "3",
-                                      "--task", "iris ten seeds"])
+                                      "--seeds", "10", "--task", "iris ten seeds"])
     assert res.exit_code == 0, res.output
     with Archive(archive, read_only=True) as a:
         one, ten = a.study(2), a.study(3)

@@ -51,6 +51,7 @@ _WHERE = {
     "SearchResult": "warmstart.search.strategy",
     "SearchStrategy": "warmstart.search.strategy",
     "DensitySearch": "warmstart.search.density",
+    "MixtureSearch": "warmstart.search.mixture",
     "RandomSearch": "warmstart.search.baselines",
     "SobolSearch": "warmstart.search.baselines",
     "GPSearch": "warmstart.search.baselines",

@@ -240,7 +240,7 @@ class Client:
 
     # -- writes ----------------------------------------------------------------------
     def create_study(self, task: Mapping, learner: str, space: Mapping | None = None, metric: str = "score",
-                     maximize: bool | None = None, cold: bool = False, n_seeds: int = 10,
+                     maximize: bool | None = None, cold: bool = False, n_seeds: int | None = None,
                      tags: Mapping[str, str] | None = None, owner: str | None = None) -> dict:
         """Create a study; ``task`` from :func:`task_description`. Warm unless ``cold``."""
         return self.request("POST", "/api/v1/studies", {

@@ -27,7 +27,8 @@ from warmstart.archive.sources import recorded_sources, source_identities
 from warmstart.evaluate.objective import local_pool, stop_pool
 from warmstart.prior import Prior, PriorError, prior_from_sources
 from warmstart.search.density import DEFAULT_N_SEEDS, DensitySearch
-from warmstart.search.strategy import Trial, run_search
+from warmstart.search.mixture import MixtureSearch
+from warmstart.search.strategy import SearchStrategy, Trial, run_search
 from warmstart.space import Space
 
 __all__ = ["Study", "StudyRun", "start_study", "resume_study", "run_study", "summary", "warm_or_cold",
@@ -44,8 +45,12 @@ class Study:
     archive : Archive
         Where the study and its trials live.
     study_id : int
-    search : DensitySearch
-        Its search, fed with the trials recorded so far.
+    search : SearchStrategy
+        Its search, fed with the trials recorded so far: a
+        :class:`~warmstart.search.mixture.MixtureSearch` for a warm study (a
+        :class:`~warmstart.search.density.DensitySearch` with a seed list
+        for one started with ``n_seeds`` or by an older warmstart), a
+        :class:`~warmstart.search.density.DensitySearch` for a cold one.
     origin : {"cold", "warm"}
         How it started.
     note : str
@@ -54,7 +59,7 @@ class Study:
 
     archive: Any
     study_id: int
-    search: DensitySearch
+    search: SearchStrategy
     origin: str
     note: str
 
@@ -105,13 +110,15 @@ def warm_or_cold(
     maximize: bool,
     seed: Any = 0,
     cold: bool = False,
-    n_seeds: int = DEFAULT_N_SEEDS,
-) -> tuple[DensitySearch, str, dict | None, str]:
+    n_seeds: int | None = None,
+) -> tuple[SearchStrategy, str, dict | None, str]:
     """The search a new study of ``learner`` on task ``task_id`` starts with.
 
-    Warm by default: a prior from the archive's studies of the same learner
-    on other tasks (the task itself is left out). Cold when ``cold`` is set,
-    when the task has no profile, or when no past study can be used.
+    Warm by default: the archive's studies of the same learner on other
+    tasks (the task itself is left out) as a mixture re-weighted at every
+    result (:class:`~warmstart.search.mixture.MixtureSearch`). Cold when
+    ``cold`` is set, when the task has no profile, or when no past study can
+    be used.
 
     Parameters
     ----------
@@ -124,8 +131,10 @@ def warm_or_cold(
         Seed of the search.
     cold : bool, default False
         Force a cold start.
-    n_seeds : int, default 10
-        Past configs a warm search tries first.
+    n_seeds : int, optional
+        Warm start with a ranked list of this many past configs first (the
+        seed-list search, :class:`~warmstart.search.density.DensitySearch`)
+        instead of the mixture.
 
     Returns
     -------
@@ -147,8 +156,8 @@ def search_for_profile(
     maximize: bool,
     seed: Any = 0,
     cold: bool = False,
-    n_seeds: int = DEFAULT_N_SEEDS,
-) -> tuple[DensitySearch, str, dict | None, str]:
+    n_seeds: int | None = None,
+) -> tuple[SearchStrategy, str, dict | None, str]:
     """:func:`warm_or_cold` for a task known by its profile only (the team
     service starts a study's search before the client's task is stored);
     ``exclude_tasks`` are the archive's tasks of the same data."""
@@ -161,15 +170,22 @@ def search_for_profile(
         # the prior lists exactly n_seeds configs: a search rebuilt by `propose` from recorded trials
         # skips the listed configs already tried, so the list's length is what bounds the seed phase
         prior = archive.build_prior(prof, learner=learner, space=space, exclude_tasks=list(exclude_tasks),
-                                    n_seeds=max(n_seeds, 1))
+                                    n_seeds=max(DEFAULT_N_SEEDS if n_seeds is None else n_seeds, 1))
     except PriorError as exc:
         return DensitySearch(space, prior=None, seed=seed, maximize=maximize), "cold", None, f"cold start: {exc}"
     heaviest = prior.provenance["neighbors"][:3]
     used = ", ".join(f"{n['task']!r} (study {n['study_id']}, weight {n['weight']:.2f})" for n in heaviest)
+    if n_seeds is None:
+        # proposals of the mixture are a function of its seed and the history: the study keeps the seed
+        seed = int(seed.integers(2**31)) if isinstance(seed, np.random.Generator) else int(seed)
+        search = MixtureSearch(space, prior, seed=seed, maximize=maximize)
+        note = (f"warm start from {len(prior.sources)} past studies of {learner!r}, re-weighted at every result; "
+                f"heaviest to start with: {used}")
+        record = warm_start_record(archive, prior, DEFAULT_N_SEEDS)
+        record["search"] = {"kind": "mixture", "seed": seed, "options": dict(search.options)}
+        return search, "warm", record, note
     note = (f"warm start from {len(prior.sources)} past studies of {learner!r}; heaviest: {used}; "
-            f"prior strength n0 = {prior.strength:.1f}")
-    if n_seeds != DEFAULT_N_SEEDS:
-        note += f"; {n_seeds} past config(s) first"
+            f"prior strength n0 = {prior.strength:.1f}; {n_seeds} past config(s) first")
     search = DensitySearch(space, prior=prior, seed=seed, maximize=maximize, n_seeds=n_seeds)
     return search, "warm", warm_start_record(archive, prior, n_seeds), note
 
@@ -220,7 +236,7 @@ def recorded_prior(archive, info: Mapping) -> tuple[Prior | None, str]:
         all gone, is rebuilt from today's archive, and the note says so.
     """
     record = info["prior"] or {}
-    n_seeds = int(record.get("n_seeds", DEFAULT_N_SEEDS))
+    n_seeds = int(record.get("n_seeds", DEFAULT_N_SEEDS)) if "search" not in record else None
     recipe = record.get("recipe")
     older = recipe is None
     if older:
@@ -233,7 +249,7 @@ def recorded_prior(archive, info: Mapping) -> tuple[Prior | None, str]:
         why = "; ".join(problems) or "the study recorded no sources"
         return fresh.prior, f"{note} (rebuilt from today's archive: {why})"
     prior = prior_from_sources(space, sources, top_fraction=recipe["top_fraction"], provenance=recipe["info"],
-                               n_seeds=recipe.get("n_seeds", max(n_seeds, 1)))
+                               n_seeds=recipe.get("n_seeds", max(n_seeds or DEFAULT_N_SEEDS, 1)))
     note = (f"warm start from the {len(sources)} past studies of {info['learner']!r} it started with "
             f"(prior strength n0 = {prior.strength:.1f})")
     if older:
@@ -252,7 +268,7 @@ def start_study(
     maximize: bool = True,
     seed: int = 0,
     cold: bool = False,
-    n_seeds: int = DEFAULT_N_SEEDS,
+    n_seeds: int | None = None,
     owner: str | None = None,
     tags: Mapping[str, str] | None = None,
 ) -> Study:
@@ -272,8 +288,9 @@ def start_study(
         Seed of the search.
     cold : bool, default False
         Force a cold start.
-    n_seeds : int, default 10
-        Past configs a warm search tries first.
+    n_seeds : int, optional
+        Warm start with a ranked list of this many past configs first
+        instead of the mixture (see :func:`warm_or_cold`).
     owner : str, optional
     tags : mapping, optional
 
@@ -309,10 +326,16 @@ def resume_study(archive, study_id: int, seed: int = 0) -> Study:
     trials = archive.trials(study_id)
     rng = np.random.default_rng([seed, study_id, len(trials)])
     prior, note, n_seeds = None, "cold start", DEFAULT_N_SEEDS
+    kept = (info["prior"] or {}).get("search") if info["origin"] == "warm" else None
     if info["origin"] == "warm":
         n_seeds = int((info["prior"] or {}).get("n_seeds", DEFAULT_N_SEEDS))
         prior, note = recorded_prior(archive, info)
-    search = DensitySearch(info["space"], prior=prior, seed=rng, maximize=info["maximize"], n_seeds=n_seeds)
+    if kept and kept.get("kind") == "mixture" and prior is not None:
+        # the mixture's proposals follow from its recorded seed and the history alone
+        search = MixtureSearch(info["space"], prior, seed=int(kept["seed"]), maximize=info["maximize"],
+                               **kept.get("options", {}))
+    else:
+        search = DensitySearch(info["space"], prior=prior, seed=rng, maximize=info["maximize"], n_seeds=n_seeds)
     for config, score, status in zip(trials["config"], trials["score"], trials["status"]):
         search.record(config, None if status == "failed" else float(score), status)
     return Study(archive, int(study_id), search, info["origin"], note)

@@ -99,12 +99,15 @@ def prior(ctx, data, target, learner, space_path, output, keep_columns, as_json)
 @click.option("--metric", help="With --data: a built-in metric (default accuracy or r2).")
 @click.option("--cv", default=5, show_default=True, type=click.IntRange(min=2), help="With --data: cross-validation folds.")
 @click.option("--report", "report_path", type=click.Path(dir_okay=False), help="Write an HTML report with plots here.")
+@click.option("--permuted", is_flag=True,
+              help="Control: shuffle each held-out task's recorded scores among its configs first, so no past "
+                   "task tells anything about it; transfer should gain nothing.")
 @keep_column_option
 @strict_option
 @json_option
 @click.pass_context
 def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, cluster, only_tasks, objective, data, target,
-         metric, cv, report_path, keep_columns, as_json):
+         metric, cv, report_path, permuted, keep_columns, as_json):
     """Measure, in bits, whether warm starts beat cold ones on your history.
 
     Leave-one-task-out replay: each archived study is held out in turn and its
@@ -118,6 +121,12 @@ def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, cluster, onl
     a 64-config Sobol sample of the space defines the target set, then warm and
     cold searches train and cross-validate L on FILE, --repeats times each
     (every model is trained for real: start with --repeats 5).
+
+    The warm search mixes past tasks and re-weights them at every result. A
+    task counts as hurt only when its loss is significant (Wilcoxon test over
+    its runs, Holm's correction across tasks); beside it, win/tie/loss with a
+    region of practical equivalence of 0.1 bit. The library's own default
+    config followed by a cold search is shown as a baseline for built-in learners.
     """
     from warmstart.gain.replay import leave_one_task_out
 
@@ -130,6 +139,8 @@ def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, cluster, onl
 
         if ctx.get_parameter_source("objective") is not ParameterSource.DEFAULT:
             fail("--replay picks how a replay scores proposals; with --data the searches train on the data itself")
+        if permuted:
+            fail("--permuted is a control of the replay (it shuffles archived scores); it has no meaning with --data")
         results = _live(archive, data, target, learners, only_tasks, metric, cv, budgets, repeats, gamma, seed,
                         workers, as_json, keep_columns)
         _show(results, gamma, report_path, as_json)
@@ -161,6 +172,7 @@ def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, cluster, onl
             results.append(leave_one_task_out(
                 archive, learner, budget=budget, repeats=repeats, gamma=gamma, seed=seed, workers=workers,
                 progress=bar, tasks=list(only_tasks) or None, objective=objective, executor=executor,
+                permuted=permuted,
             ))
     _show(results, gamma, report_path, as_json)
 
@@ -189,18 +201,23 @@ def _live(archive, data, target, learners, only_tasks, metric, cv, budgets, repe
                              keep_columns=keep_columns)
     tasks = archive.tasks()
     same = tasks.loc[tasks["fingerprint"] == fingerprint(frame, target), "task_id"].tolist()
-    prior = archive.build_prior(profile(frame, target=target, keep_columns=keep_columns), learner=learner,
-                                space=objective.space, exclude_tasks=same)
+    prof = profile(frame, target=target, keep_columns=keep_columns)
+    prior = archive.build_prior(prof, learner=learner, space=objective.space, exclude_tasks=same)
     if not as_json:
         click.echo(f"live: {learner} on {Path(data).name} ({kind}), {cv}-fold {objective.metric}; "
                    + prior.summary(n=3).splitlines()[0]
                    + ("; the archive's own studies of this dataset were left out" if same else ""))
+    from warmstart.search.default_first import library_default
+
+    default = library_default(learner, kind, objective.space, prof)
+    if not as_json and default.notes():
+        click.echo(f"library default of {learner!r}: {default.notes()}")
     results = []
     for budget in budgets:
         results.append(live_gain(
             objective.space, objective, prior, budget=budget, repeats=repeats, gamma=gamma,
             maximize=objective.maximize, seed=seed, workers=workers, task=Path(data).name, learner=learner,
-            progress=Progress(f"{learner} live, budget {budget}", enabled=not as_json),
+            progress=Progress(f"{learner} live, budget {budget}", enabled=not as_json), default=default.config,
         ))
     return results
 
@@ -235,18 +252,31 @@ def _show(results, gamma, report_path, as_json) -> None:
                        + (" [a search never hit: smoothed]" if t.smoothed else "")
                        + f"; median queries to the first hit: warm {queries_text(t.first_hit_warm)}, "
                        f"cold {queries_text(t.first_hit_cold)}")
+            if "bits_library_default" in t.extra:
+                click.echo(f"the library's default first, then a cold search: {t.extra['bits_library_default']:+.2f} "
+                           "bits over uniform")
             continue
         p = r.pooled
         hurt = f"transfer hurt on {p.share_hurt:.0%} of tasks"
         if p.share_hurt_outside_noise == p.share_hurt_outside_noise:  # not NaN
             hurt += f" ({p.share_hurt_outside_noise:.0%} of those whose target stands out of CV noise)"
+        if getattr(r, "permuted", False):
+            click.echo("CONTROL: every held-out task's scores were shuffled among its configs; transfer should "
+                       "gain nothing here")
         click.echo(
             f"pooled over {p.n_tasks} tasks: warm {p.bits_warm:+.2f} bits, cold {p.bits_cold:+.2f} bits over uniform; "
             f"gain {p.gain:+.2f} bits (95% {p.gain_low:+.2f} to {p.gain_high:+.2f}); Wilcoxon p = {p.wilcoxon_p:.3g}; "
             + hurt
         )
-        base = {k[5:]: v for k, v in p.extra.items() if k[5:] not in HINDSIGHT}
-        seen = {k[5:]: v for k, v in p.extra.items() if k[5:] in HINDSIGHT}
+        click.echo(_verdict_line(p))
+        above = {k[17:]: v for k, v in p.extra.items() if k.startswith("share_warm_above_")}
+        if above:
+            click.echo("warm's hit rate above each baseline's on: "
+                       + "  ".join(f"{k} {v:.0%}" for k, v in above.items()) + " of tasks")
+        if getattr(r, "permuted", False):
+            click.echo(_control_line(r))
+        base = {k[5:]: v for k, v in p.extra.items() if k.startswith("bits_") and k[5:] not in HINDSIGHT}
+        seen = {k[5:]: v for k, v in p.extra.items() if k.startswith("bits_") and k[5:] in HINDSIGHT}
         if base:
             click.echo("baselines, bits over uniform: " + "  ".join(f"{k} {v:+.2f}" for k, v in base.items()))
         if seen:
@@ -257,6 +287,29 @@ def _show(results, gamma, report_path, as_json) -> None:
 
 
 _REPLAY_WORDS = {"nearest": "nearest recorded config", "surrogate": "Gaussian-process surrogate"}
+
+
+def _verdict_line(p) -> str:
+    """Win/tie/loss, the loss share with its Wilson interval, and the Holm-significant losses."""
+    return (f"win/tie/loss {p.wins}/{p.ties}/{p.losses} (equivalence region +-0.1 bit); losses {p.share_loss:.0%} "
+            f"(95% {p.share_loss_low:.0%} to {p.share_loss_high:.0%}); significant losses (paired test over runs, "
+            f"Holm): {p.significant_losses} of {p.n_tasks}")
+
+
+def _control_line(r) -> str:
+    """Share of permuted tasks on which each search reached 1 and 2 bits over uniform, beside 2^-b."""
+    from warmstart.gain.bits import HINDSIGHT_LABELS
+    from warmstart.gain.control import markov_bound, share_at_least
+
+    frame = r.to_frame()
+    labels = ["warm", "cold"] + [c[5:] for c in frame.columns
+                                 if c.startswith("bits_") and c[5:] not in ("warm", "cold", *HINDSIGHT_LABELS)]
+    parts = []
+    for b in (1.0, 2.0):
+        shares = "  ".join(f"{k} {share_at_least(frame[f'bits_{k}'], b):.0%}" for k in labels)
+        parts.append(f">= {b:g} bit: {shares} (a fixed list: at most {markov_bound(b):.0%} in expectation)")
+    return "control, share of tasks reaching " + "; ".join(parts)
+
 
 
 def _noise_notes(results) -> list[str]:

@@ -88,9 +88,9 @@ def _objective_and_space(data, target, learner, kind, space_path, metric, minimi
               help="Evaluate on the workers of the Dask scheduler at ADDRESS (needs warmstart[cluster]); "
                    "--workers defaults to the cluster's threads.")
 @click.option("--cold", is_flag=True, help="Force a cold start (no prior).")
-@click.option("--seeds", "n_seeds", default=DEFAULT_SEEDS, show_default=True, type=click.IntRange(0, DEFAULT_SEEDS),
-              help="Warm start: past configs tried before the search's own model takes over (fewer is bolder: "
-                   "more gain on average, more tasks where it loses to a cold start).")
+@click.option("--seeds", "n_seeds", default=None, type=click.IntRange(0, DEFAULT_SEEDS), metavar="N",
+              help="Warm start with a ranked list of N past configs first, then the search's own model (the warm "
+                   "start before the mixture). Default: the mixture of past tasks, re-weighted at every result.")
 @click.option("--command", help="Evaluate each config by running this command (no shell); see DEVELOPERS.md.")
 @click.option("--minimize", is_flag=True, help="With --command: lower scores are better.")
 @click.option("--cv", default=5, show_default=True, type=click.IntRange(min=2), help="Cross-validation folds.")

@@ -27,6 +27,7 @@ import pandas as pd
 from scipy.stats import wilcoxon
 
 from warmstart.errors import WarmstartError
+from warmstart.gain.verdicts import paired_runs_p, verdicts
 
 __all__ = [
     "GainError",
@@ -46,7 +47,11 @@ __all__ = [
     "MIN_RUNS",
     "interval_text",
     "queries_text",
+    "HINDSIGHT_LABELS",
 ]
+
+#: Figures that peek at the held-out scores (not searches; see :func:`warmstart.gain.replay.hindsight_rates`).
+HINDSIGHT_LABELS = ("best_past_task", "ideal_list")
 
 #: Bootstrap resamples for intervals (common practice: 1,000-10,000).
 N_BOOT = 2000
@@ -307,7 +312,7 @@ def compare(
     if min(warm.n_runs, cold.n_runs) < MIN_RUNS:
         lo = hi = float("nan")
         verdict = "too few runs"
-    extra: dict = {}
+    extra: dict = {"p_paired": paired_runs_p(warm.hits, cold.hits)}
     smoothed = sw or sc
     for label, runs in (others or {}).items():
         q, s = hit_rate(runs.truncate(warm.budget).hits)
@@ -344,13 +349,26 @@ class PooledGain(_FlatFigures):
     share_hurt : float
         Share of tasks whose point gain is below zero.
     share_hurt_clearly : float
-        Share of tasks whose whole interval lies below zero.
+        Share of tasks whose verdict is ``hurt``: after
+        :func:`~warmstart.gain.verdicts.judge`, a loss significant in the
+        paired test over runs with Holm's correction across tasks (before it,
+        the bootstrap interval of :func:`compare` lies below zero).
     share_hurt_outside_noise : float
         ``share_hurt`` among the tasks not flagged ``within_noise`` (their
         target set stands out of cross-validation noise); NaN when no task
         carries the flag or every task does.
+    wins, ties, losses : int
+        Tasks whose point gain is above, within or below the region of
+        practical equivalence (+-0.1 bit, :data:`~warmstart.gain.verdicts.ROPE_BITS`).
+    share_loss, share_loss_low, share_loss_high : float
+        ``losses / n_tasks`` with its Wilson 95 % interval.
+    significant_losses : int
+        Tasks with gain below 0 whose paired test (Wilcoxon over runs) stays
+        significant after Holm's correction across tasks (alpha 0.05).
     extra : dict
-        Pooled bits of further searches (``bits_<label>``).
+        Pooled bits of further searches (``bits_<label>``) and the share of
+        tasks on which warm's hit rate was above each one's
+        (``share_warm_above_<label>``).
     """
 
     n_tasks: int
@@ -363,6 +381,13 @@ class PooledGain(_FlatFigures):
     share_hurt: float
     share_hurt_clearly: float
     share_hurt_outside_noise: float = float("nan")
+    wins: int = 0
+    ties: int = 0
+    losses: int = 0
+    share_loss: float = float("nan")
+    share_loss_low: float = float("nan")
+    share_loss_high: float = float("nan")
+    significant_losses: int = 0
     extra: dict = field(default_factory=dict)
 
 
@@ -401,8 +426,16 @@ def pool(results: Sequence[TaskGain], rng: Any = 0, n_boot: int = N_BOOT) -> Poo
     for label in labels:
         q = np.array([r.extra.get(f"q_{label}", np.nan) for r in results])
         extra[f"bits_{label}"] = float(np.log2(np.nanmean(q) / p.mean()))
+    for label in labels:  # how often warm did better than each other search, task by task
+        if label in HINDSIGHT_LABELS:
+            continue
+        q = np.array([r.extra.get(f"q_{label}", np.nan) for r in results])
+        if np.isfinite(q).any():
+            extra[f"share_warm_above_{label}"] = float(np.mean((qw > q)[np.isfinite(q)]))
     clear = [r for r in results if r.extra.get("within_noise") is False]
     hurt_clear = float(np.mean([r.gain < 0 for r in clear])) if clear else float("nan")
+    v = verdicts([r.task for r in results], [r.gain for r in results],
+                 [r.extra.get("p_paired", math.nan) for r in results])
     return PooledGain(
         n_tasks=n,
         bits_warm=float(np.log2(qw.mean() / p.mean())),
@@ -412,6 +445,9 @@ def pool(results: Sequence[TaskGain], rng: Any = 0, n_boot: int = N_BOOT) -> Poo
         share_hurt=float(np.mean([r.gain < 0 for r in results])),
         share_hurt_clearly=float(np.mean([r.verdict == "hurt" for r in results])),
         share_hurt_outside_noise=hurt_clear,
+        wins=v.wins, ties=v.ties, losses=v.losses, share_loss=v.share_loss,
+        share_loss_low=v.share_loss_low, share_loss_high=v.share_loss_high,
+        significant_losses=v.significant_losses,
         extra=extra,
     )
 

@@ -17,7 +17,10 @@ import numpy as np
 
 from warmstart.evaluate.workers import map_jobs
 from warmstart.gain.bits import GainResult, Runs, compare, hits_and_regret, in_target, pool, target_threshold
+from warmstart.gain.verdicts import judge
+from warmstart.search.default_first import DefaultFirstSearch
 from warmstart.search.density import DensitySearch
+from warmstart.search.mixture import MixtureSearch
 from warmstart.search.strategy import run_search
 from warmstart.space import Space
 
@@ -48,7 +51,8 @@ class _Cached:
 
 @dataclass(frozen=True, eq=False)
 class _ArmJob:
-    """One warm (``prior`` set) or cold search on the live objective."""
+    """One search on the live objective: warm (``prior`` set), cold, or a
+    default config first then cold (``default`` set)."""
 
     space: Space
     evaluate: Callable
@@ -56,11 +60,17 @@ class _ArmJob:
     budget: int
     seed: int
     maximize: bool
+    default: Any = None
 
 
 def _arm(job: _ArmJob) -> np.ndarray:
     """Scores of one search, query by query, NaN = failed (module level, so worker processes can run it)."""
-    search = DensitySearch(job.space, prior=job.prior, seed=job.seed, maximize=job.maximize)
+    if job.prior is not None:
+        search = MixtureSearch(job.space, job.prior, seed=job.seed, maximize=job.maximize)
+    elif job.default is not None:
+        search = DefaultFirstSearch(job.space, job.default, seed=job.seed, maximize=job.maximize)
+    else:
+        search = DensitySearch(job.space, prior=None, seed=job.seed, maximize=job.maximize)
     return run_search(search, _Cached(job.space, job.evaluate), job.budget).scores
 
 
@@ -85,6 +95,7 @@ def live_gain(
     task: str = "new task",
     learner: str = "",
     progress: Callable[[int, int], None] | None = None,
+    default: Any = None,
 ) -> LiveResult:
     """Run warm and cold searches ``repeats`` times each and compare them.
 
@@ -107,11 +118,17 @@ def live_gain(
     task, learner : str
         Labels for reports.
     progress : callable(done, total), optional
+    default : mapping, optional
+        A default config (scikit-learn's for a built-in learner, see
+        :func:`~warmstart.search.default_first.library_default`, or one of the
+        user's): adds the baseline ``library_default``, that config first and
+        then a cold search, ``repeats`` times.
     """
     ref_cfgs = space.sobol(n_reference, np.random.default_rng(seed + 10_007))
     memo: dict[str, float] = {}
     ref_scores = np.empty(n_reference)
-    total = n_reference + 2 * repeats
+    arms = ("warm", "cold") + (("library_default",) if default is not None else ())
+    total = n_reference + len(arms) * repeats
     for i, cfg in enumerate(ref_cfgs):
         key = space.canonical_json(cfg)
         memo[key] = ref_scores[i] = _score(evaluate(cfg))
@@ -119,15 +136,16 @@ def live_gain(
             progress(i + 1, total)
     threshold = target_threshold(ref_scores, gamma, maximize)
     p = float(in_target(ref_scores, threshold, maximize).mean())
-    jobs = [_ArmJob(space, evaluate, prior if arm == "warm" else None, budget, seed + r, maximize)
-            for arm in ("warm", "cold") for r in range(repeats)]
+    jobs = [_ArmJob(space, evaluate, prior if arm == "warm" else None, budget, seed + r, maximize,
+                    default if arm == "library_default" else None)
+            for arm in arms for r in range(repeats)]
     outputs = map_jobs(_arm, jobs, workers, progress, done_before=n_reference, total=total)
     scores = np.array(outputs)
     # regret spans every score seen: the reference sample's and the searches'
     hits, regret = hits_and_regret(scores, threshold, np.concatenate([ref_scores, scores.ravel()]), maximize)
-    warm = Runs(hits[:repeats], regret[:repeats], "warm")
-    cold = Runs(hits[repeats:], regret[repeats:], "cold")
-    result = compare(task, warm, cold, p, rng=seed)
-    curves = {"warm": (warm.hits.mean(axis=0), warm.regret.mean(axis=0)),
-              "cold": (cold.hits.mean(axis=0), cold.regret.mean(axis=0))}
-    return LiveResult(learner, budget, repeats, gamma, [result], pool([result], rng=seed), curves, ref_scores)
+    runs = {arm: Runs(hits[i * repeats:(i + 1) * repeats], regret[i * repeats:(i + 1) * repeats], arm)
+            for i, arm in enumerate(arms)}
+    others = {k: v for k, v in runs.items() if k not in ("warm", "cold")}
+    result = judge([compare(task, runs["warm"], runs["cold"], p, rng=seed, others=others)])
+    curves = {arm: (r.hits.mean(axis=0), r.regret.mean(axis=0)) for arm, r in runs.items()}
+    return LiveResult(learner, budget, repeats, gamma, result, pool(result, rng=seed), curves, ref_scores)

@@ -18,7 +18,18 @@ Baselines computed in the same run:
 ``nearest``
     the best configs of the nearest tasks by profile distance, nearest
     first (the meta-feature nearest-datasets initialisation:
-    :func:`~warmstart.search.static.nearest_tasks_list`).
+    :func:`~warmstart.search.static.nearest_tasks_list`);
+``library_default``
+    for a built-in learner, scikit-learn's default config mapped into the
+    space, then a cold search (:class:`~warmstart.search.default_first.DefaultFirstSearch`):
+    what a practitioner does without any history.
+
+The warm search is the mixture of past tasks re-weighted at every result
+(:class:`~warmstart.search.mixture.MixtureSearch`); the cold search a
+:class:`~warmstart.search.density.DensitySearch` without a prior. With
+``permuted=True`` each held-out task's recorded scores are first shuffled
+among its configs (:func:`~warmstart.gain.control.permute_task`): a control
+on which no transfer should gain.
 
 Every one of them, warm and cold included, is a strategy object run through
 :func:`~warmstart.search.strategy.run_search` on the held-out objective; the
@@ -39,13 +50,16 @@ from threadpoolctl import threadpool_limits
 from warmstart._checks import check_choice
 from warmstart.errors import WarmstartError
 from warmstart.evaluate.workers import map_jobs
-from warmstart.gain.bits import (GainResult, Runs, TaskGain, compare, hits_and_regret, in_target, pool,
-                                 target_threshold)
+from warmstart.gain.bits import (HINDSIGHT_LABELS, GainResult, Runs, TaskGain, compare, hits_and_regret,
+                                 in_target, pool, target_threshold)
+from warmstart.gain.verdicts import judge
 from warmstart.gain.objectives import HeldOutObjective, ReplayObjective, SurrogateObjective
 from warmstart.prior import Prior, Source, prior_from_sources
 from warmstart.archive.sources import load_sources, prior_info, prior_sources
 from warmstart.search.baselines import RandomSearch
+from warmstart.search.default_first import DefaultFirstSearch, library_default
 from warmstart.search.density import DensitySearch
+from warmstart.search.mixture import MixtureSearch
 from warmstart.search.static import FixedListSearch, average_rank_list, nearest_tasks_list
 from warmstart.search.strategy import SearchStrategy, run_search
 from warmstart.space import Space
@@ -102,6 +116,7 @@ class _TaskJob:
     budget: int
     repeats: int
     seed: int
+    default: dict | None = None  # the library default config (None: no such baseline)
 
 
 @dataclass(frozen=True, eq=False)
@@ -194,7 +209,7 @@ def replay_tasks(archive, learner: str, gamma: float = 0.05, min_trials: int = 2
 
 #: Labels of the hindsight figures :func:`hindsight_rates` adds (they are
 #: not searches: each one peeks at the held-out task's scores).
-HINDSIGHT = ("best_past_task", "ideal_list")
+HINDSIGHT = HINDSIGHT_LABELS
 
 
 def hindsight_rates(task: ReplayTask, prior: Prior, budget: int) -> dict[str, float]:
@@ -242,20 +257,24 @@ def _runs(task: ReplayTask, searches: Iterable[SearchStrategy], budget: int) -> 
 def _one_task(job: _TaskJob) -> _TaskOutcome:
     """Replay one held-out task (module level, so worker processes can run it)."""
     with threadpool_limits(limits=1):  # small matrices: see _build_objective
-        return _replay_one_task(job.task, job.prior, job.budget, job.repeats, job.seed)
+        return _replay_one_task(job.task, job.prior, job.budget, job.repeats, job.seed, job.default)
 
 
-def _replay_one_task(task: ReplayTask, prior: Prior, budget: int, repeats: int, seed: int) -> _TaskOutcome:
+def _replay_one_task(task: ReplayTask, prior: Prior, budget: int, repeats: int, seed: int,
+                     default: dict | None = None) -> _TaskOutcome:
     space, maximize = task.space, task.objective.maximize
 
     def repeated(make: Callable[[int], SearchStrategy]) -> Runs:
         return _runs(task, (make(seed + r) for r in range(repeats)), budget)
 
-    warm = repeated(lambda s: DensitySearch(space, prior=prior, seed=s, maximize=maximize))
+    warm = repeated(lambda s: MixtureSearch(space, prior, seed=s, maximize=maximize))
     cold = repeated(lambda s: DensitySearch(space, prior=None, seed=s, maximize=maximize))
     rand = repeated(lambda s: RandomSearch(space, seed=s, maximize=maximize))
     others = {"random": rand}
     curves = {"warm": warm, "cold": cold, "random": rand}
+    if default is not None:
+        others["library_default"] = curves["library_default"] = repeated(
+            lambda s: DefaultFirstSearch(space, default, seed=s, maximize=maximize))
     for label, configs in (("defaults", average_rank_list(prior, budget)),
                            ("nearest", nearest_tasks_list(prior, budget))):
         others[label] = curves[label] = _runs(task, [FixedListSearch(space, configs, maximize=maximize)], budget)
@@ -272,6 +291,16 @@ def _replay_one_task(task: ReplayTask, prior: Prior, budget: int, repeats: int, 
     return _TaskOutcome(result, {k: (v.hits.mean(axis=0), v.regret.mean(axis=0)) for k, v in curves.items()})
 
 
+def _library_default(learner: str, task: ReplayTask) -> dict | None:
+    """scikit-learn's default config of a built-in learner in the task's space (None otherwise)."""
+    from warmstart.profile import profile_kind
+
+    try:
+        return library_default(learner, profile_kind(task.profile), task.space, task.profile).config
+    except WarmstartError:  # a learner label of the user's, or a space its defaults do not fit
+        return None
+
+
 @dataclass
 class ReplayResult(GainResult):
     """Leave-one-task-out replay of one learner (see :class:`~warmstart.gain.bits.GainResult`).
@@ -280,6 +309,7 @@ class ReplayResult(GainResult):
     """
 
     objective: str = "nearest"
+    permuted: bool = False
 
 
 def leave_one_task_out(
@@ -294,6 +324,7 @@ def leave_one_task_out(
     tasks: Sequence[str] | None = None,
     objective: str = "nearest",
     executor=None,
+    permuted: bool = False,
 ) -> ReplayResult:
     """Replay every archived study of ``learner`` with the task held out.
 
@@ -320,6 +351,10 @@ def leave_one_task_out(
         Replay the held-out tasks there instead of in ``workers`` local
         processes (a Dask cluster's :class:`~warmstart.evaluate.cluster.ClusterPool`).
         Each task's job carries its seed, so the figures are the same.
+    permuted : bool, default False
+        The control: shuffle each held-out task's recorded scores among its
+        configs first (:func:`~warmstart.gain.control.permute_task`, seeded
+        by ``seed`` and the task), so no past task can tell anything about it.
 
     Returns
     -------
@@ -345,6 +380,10 @@ def leave_one_task_out(
     fits = len(names) if objective == "surrogate" else 0
     chosen = replay_tasks(archive, learner, gamma, objective=objective, only=names, workers=workers,
                           progress=progress, total=fits + len(names), executor=executor)
+    if permuted:
+        from warmstart.gain.control import permute_task
+
+        chosen = [permute_task(t, np.random.default_rng([seed, t.task_id]), gamma) for t in chosen]
     cache: dict[str, list[Source]] = {}
     jobs = []
     for t in chosen:
@@ -353,14 +392,14 @@ def leave_one_task_out(
             cache[key] = load_sources(archive, learner, t.space)
         weighted = prior_sources(archive, t.profile, learner, t.space, exclude_tasks=[t.task_id], loaded=cache[key])
         prior = prior_from_sources(t.space, weighted, provenance={**prior_info(learner), "held_out": t.task})
-        jobs.append(_TaskJob(t, prior, budget, repeats, seed))
+        jobs.append(_TaskJob(t, prior, budget, repeats, seed, _library_default(learner, t)))
     results = map_jobs(_one_task, jobs, workers, progress, done_before=fits, total=fits + len(jobs),
                        executor=executor)
-    gains = [r.gain for r in results]
+    gains = judge([r.gain for r in results])
     curves = {}
     for label in results[0].curves:
         curves[label] = (
             np.mean([r.curves[label][0] for r in results], axis=0),
             np.mean([r.curves[label][1] for r in results], axis=0),
         )
-    return ReplayResult(learner, budget, repeats, gamma, gains, pool(gains, rng=seed), curves, objective)
+    return ReplayResult(learner, budget, repeats, gamma, gains, pool(gains, rng=seed), curves, objective, permuted)

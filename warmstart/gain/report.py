@@ -18,7 +18,8 @@ import numpy as np  # noqa: E402
 
 __all__ = ["plot_gain_per_task", "plot_curves", "write_report"]
 
-_COLORS = {"warm": "#d9480f", "cold": "#1c7ed6", "random": "#868e96", "defaults": "#2b8a3e", "nearest": "#7048e8"}
+_COLORS = {"warm": "#d9480f", "cold": "#1c7ed6", "random": "#868e96", "defaults": "#2b8a3e", "nearest": "#7048e8",
+           "library_default": "#e67700"}
 
 
 def _png(fig) -> bytes:
@@ -126,7 +127,11 @@ def write_report(results, path: str | Path, title: str = "warmstart: transfer ga
         "region). Replay 'nearest': a proposal scores what the held-out task's nearest recorded config scored. Replay "
         "'surrogate': a Gaussian process fitted to the held-out task's recorded trials scores it. "
         "share_hurt_outside_noise counts only tasks whose "
-        "target set stands out of cross-validation noise.</p>",
+        "target set stands out of cross-validation noise. A task's verdict is 'hurt' (or 'helped') only when the "
+        "Wilcoxon test over its runs stays significant after Holm's correction across tasks (alpha 0.05); "
+        "win/tie/loss compare its gain with a region of practical equivalence of +-0.1 bit, and the share of "
+        "losses carries a Wilson 95 % interval. bits_library_default is scikit-learn's default config first, "
+        "then a cold search; share_warm_above_X is the share of tasks on which warm hit more often than X.</p>",
     ]
     parts.extend(f"<p class='note'>{html.escape(n)}</p>" for n in notes)
     summary = []
@@ -138,8 +143,9 @@ def write_report(results, path: str | Path, title: str = "warmstart: transfer ga
         d["replay"] = getattr(r, "objective", "live")
         summary.append(d)
     cols = ["learner", "budget", "replay", "repeats", "n_tasks", "bits_warm", "bits_cold", "gain", "gain_low", "gain_high",
-            "wilcoxon_p", "share_hurt", "share_hurt_outside_noise"]
-    cols += sorted({k for d in summary for k in d if k.startswith("bits_") and k not in cols})
+            "wilcoxon_p", "share_hurt", "share_hurt_outside_noise", "wins", "ties", "losses", "share_loss",
+            "share_loss_low", "share_loss_high", "significant_losses"]
+    cols += sorted({k for d in summary for k in d if k.startswith(("bits_", "share_warm_above_")) and k not in cols})
     parts.append("<h2>Pooled over tasks</h2>" + _table(summary, cols))
     for r in results:
         replay = getattr(r, "objective", None)
@@ -148,8 +154,8 @@ def write_report(results, path: str | Path, title: str = "warmstart: transfer ga
         parts.append(_img(plot_gain_per_task(r), "gain per task"))
         parts.append(_img(plot_curves(r), "hit rate and regret curves"))
         rows = [t.to_dict() for t in sorted(r.tasks, key=lambda t: -t.gain)]
-        tcols = ["task", "p", "bits_warm", "bits_cold", "gain", "gain_low", "gain_high", "verdict",
-                 "first_hit_warm", "first_hit_cold", "smoothed"]
+        tcols = ["task", "p", "bits_warm", "bits_cold", "gain", "gain_low", "gain_high", "verdict", "p_holm",
+                 "outcome", "first_hit_warm", "first_hit_cold", "smoothed"]
         tcols += sorted({k for row in rows for k in row if k.startswith("bits_") and k not in tcols})
         parts.append(_table(rows, tcols))
     parts.append("</body></html>")

@@ -38,7 +38,7 @@ from warmstart._checks import check_number
 from warmstart.errors import WarmstartError
 from warmstart.space import Space
 
-__all__ = ["MixedKDE", "KDEError", "log_sum_exp", "uniform_logpdf"]
+__all__ = ["MixedKDE", "KDEStack", "KDEError", "log_sum_exp", "uniform_logpdf"]
 
 _LOG_2PI = math.log(2.0 * math.pi)
 #: Smallest bandwidth of a ``real`` coordinate (unit-cube width 1).
@@ -460,3 +460,69 @@ class MixedKDE:
     def __repr__(self) -> str:
         return (f"MixedKDE(n_centres={self.centres.shape[0]}, dim={self.space.dim}, "
                 f"n_eff={self.n_eff:.3g})")
+
+
+class KDEStack:
+    """Several :class:`MixedKDE` over one space, evaluated together.
+
+    ``KDEStack(kdes).logpdf(X)[:, k]`` equals ``kdes[k].logpdf(X)``; the
+    kernels of every density are computed in one set of matrix products
+    (each centre keeps its own density's bandwidths), then summed density by
+    density. A search that mixes many past tasks' densities evaluates them
+    all at once this way.
+
+    Parameters
+    ----------
+    kdes : sequence of MixedKDE
+        Densities over the same space (at least one).
+    """
+
+    def __init__(self, kdes):
+        kdes = list(kdes)
+        if not kdes:
+            raise KDEError("a stack needs at least one kernel density")
+        space = kdes[0].space
+        if any(k.space is not space and k.space != space for k in kdes):
+            raise KDEError("every density of a stack must be over the same space")
+        self.space = space
+        self.n_densities = len(kdes)
+        sizes = [k.centres.shape[0] for k in kdes]
+        self._starts = np.concatenate([[0], np.cumsum(sizes)[:-1]]).astype(int)
+        self._owner = np.repeat(np.arange(len(kdes)), sizes)
+        self._cont_idx = kdes[0]._cont_idx
+        self._choice_idx = kdes[0]._choice_idx
+        self._choice_offsets = kdes[0]._choice_offsets
+        ih = np.vstack([np.broadcast_to(k._inv_h2, (n, k._inv_h2.size)) for k, n in zip(kdes, sizes)])
+        ca = np.vstack([k._ca for k in kdes])
+        self._a = ca * ih
+        self._b = np.vstack([k._c1 for k in kdes]) * ih
+        self._c = np.vstack([k._c2 for k in kdes]) * ih
+        self._norm = np.vstack([k._c_norm for k in kdes])
+        self._choice_table = np.vstack([k._choice_table for k in kdes])
+        self._log_w = np.concatenate([k._log_w for k in kdes])
+
+    def logpdf(self, X) -> np.ndarray:
+        """Log density of every stacked density at encoded rows, shape (m, n_densities)."""
+        X = np.atleast_2d(np.asarray(X, dtype=float))
+        if X.ndim != 2 or X.shape[1] != self.space.dim:
+            raise KDEError(f"rows must have shape (m, {self.space.dim}), got {X.shape}")
+        Q = X[:, self._cont_idx]
+        qa = ~np.isnan(Q)
+        Qz = np.where(qa, Q, 0.0)
+        qaf = qa.astype(float)
+        # as MixedKDE.log_kernel, with each centre's own bandwidths folded into the matrices
+        sq = (qaf * Qz**2) @ self._a.T - 2.0 * Qz @ self._b.T + qaf @ self._c.T
+        out = -0.5 * np.maximum(sq, 0.0) + qaf @ self._norm.T
+        if self._choice_idx.size:
+            onehot = np.zeros((X.shape[0], self._choice_table.shape[1]))
+            for b, j in enumerate(self._choice_idx):
+                col = X[:, j]
+                ok = ~np.isnan(col)
+                onehot[np.flatnonzero(ok), self._choice_offsets[b] + col[ok].astype(int)] = 1.0
+            out += onehot @ self._choice_table.T
+        out += self._log_w
+        top = np.maximum.reduceat(out, self._starts, axis=1)
+        safe = np.where(np.isfinite(top), top, 0.0)
+        with np.errstate(divide="ignore"):
+            return np.log(np.add.reduceat(np.exp(out - safe[:, self._owner]), self._starts, axis=1)) + safe
+

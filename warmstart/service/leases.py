@@ -25,7 +25,7 @@ from datetime import datetime, timedelta, timezone
 from typing import Any
 
 from warmstart.errors import SpaceError, WarmstartError
-from warmstart.search.density import DensitySearch
+from warmstart.search.strategy import SearchStrategy
 from warmstart.service.errors import ServiceError
 from warmstart.service.searches import resume_search
 
@@ -58,11 +58,11 @@ class LeaseBook:
     def __init__(self, lease_seconds: float = DEFAULT_LEASE_SECONDS, query_lock=None):
         self.lease_seconds = float(lease_seconds)
         self.query_lock = query_lock or contextlib.nullcontext()
-        self._searches: dict[int, DensitySearch] = {}
+        self._searches: dict[int, SearchStrategy] = {}
         self._touched: set[int] = set()
 
     # -- cache of searches ---------------------------------------------------
-    def adopt(self, study: int, search: DensitySearch) -> None:
+    def adopt(self, study: int, search: SearchStrategy) -> None:
         """Keep the search a new study starts with."""
         self._searches[int(study)] = search
         self._touched.add(int(study))
@@ -84,7 +84,7 @@ class LeaseBook:
         else:
             self._searches.pop(int(study), None)
 
-    def _search(self, archive, study: int) -> DensitySearch:
+    def _search(self, archive, study: int) -> SearchStrategy:
         self._touched.add(study)
         search = self._searches.get(study)
         if search is None:
@@ -98,7 +98,7 @@ class LeaseBook:
         return search
 
     # -- expiry ----------------------------------------------------------------
-    def _expire(self, archive, study: int, search: DensitySearch | None) -> int:
+    def _expire(self, archive, study: int, search: SearchStrategy | None) -> int:
         rows = archive.con.execute(
             "SELECT trial_id, config FROM leases WHERE study_id = ? AND state = 'pending' AND expires_at <= ?",
             [study, _now()],

@@ -92,7 +92,8 @@ class CreateStudy(_Body):
     metric: Metric = "score"
     maximize: bool | None = None
     cold: bool = False
-    n_seeds: int = Field(default=10, ge=0, le=10)
+    n_seeds: int | None = Field(default=None, ge=0, le=10,
+                                description="a ranked list of N past configs first instead of the mixture of past tasks")
     owner: Owner | None = Field(default=None, description="without tokens only; with tokens the token's name")
     tags: Tags = Field(default_factory=dict)
 

@@ -7,7 +7,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from warmstart.search.density import DEFAULT_N_SEEDS, DensitySearch
+from warmstart.search.strategy import SearchStrategy
 from warmstart.space import Space
 from warmstart.study import resume_study, search_for_profile
 
@@ -16,7 +16,7 @@ __all__ = ["start_search", "resume_search"]
 
 def start_search(archive, profile: dict | None, exclude_tasks: list[int], learner: str, space: Space,
                  maximize: bool, seed: Any = 0, cold: bool = False,
-                 n_seeds: int = DEFAULT_N_SEEDS) -> tuple[DensitySearch, str, dict | None, str]:
+                 n_seeds: int | None = None) -> tuple[SearchStrategy, str, dict | None, str]:
     """The search a new study starts with (:func:`warmstart.study.search_for_profile`).
 
     Returns
@@ -26,7 +26,7 @@ def start_search(archive, profile: dict | None, exclude_tasks: list[int], learne
     return search_for_profile(archive, profile, exclude_tasks, learner, space, maximize, seed, cold, n_seeds)
 
 
-def resume_search(archive, study: int, seed: int = 0) -> tuple[dict, DensitySearch]:
+def resume_search(archive, study: int, seed: int = 0) -> tuple[dict, SearchStrategy]:
     """A search for ``study`` fed with its recorded trials (pending configs are
     for the caller to :meth:`~warmstart.search.strategy.SearchStrategy.hold`).
 

@@ -1,0 +1,105 @@
+"""The permuted-score control: transfer must fail to gain on a task whose
+scores were permuted.
+
+Reference: the conservation-of-information bound (for a fixed search and a
+target set drawn uniformly among sets of its size, the expected hit rate is p,
+so by Markov's inequality the share of target sets where it gains b bits or
+more is at most 2^-b), checked with sampling slack. The held-out study is the
+Branin-Hoo function (Dixon & Szego 1978) on a Sobol design; no invented data.
+"""
+
+import math
+
+import numpy as np
+import pytest
+
+from warmstart.gain.bits import Runs, compare, in_target, pool, target_threshold
+from warmstart.gain.control import markov_bound, permute_task, share_at_least
+from warmstart.gain.objectives import ReplayObjective
+from warmstart.gain.replay import ReplayTask
+from warmstart.prior import Source, prior_from_sources, within_study_quantiles
+from warmstart.search.density import DensitySearch
+from warmstart.search.mixture import MixtureSearch
+from warmstart.search.strategy import run_search
+from warmstart.search.testfunctions import branin
+
+F = branin()
+SPACE = F.space
+
+
+def _values(X):
+    return F.evaluate(np.column_stack([p.from_unit(X[:, j]) for j, p in enumerate(SPACE.params)]))
+
+
+def branin_task(n=96, design_seed=0):
+    X = SPACE.sobol_unit(n, design_seed)
+    obj = ReplayObjective(SPACE, X, _values(X), maximize=False)
+    thr = target_threshold(obj.scores, 0.05, maximize=False)
+    return ReplayTask(0, "branin", 0, SPACE, obj, thr, obj.uniform_hit_chance(thr, rng=1), {})
+
+
+def fixed_list_bits(task, rows):
+    hits = in_target(task.objective.values(rows), task.threshold, maximize=False)
+    q = max(hits.mean(), 0.5 / (hits.size + 1))
+    return math.log2(q / task.p)
+
+
+def test_permuted_task_keeps_scores_and_threshold():
+    task = branin_task()
+    perm = permute_task(task, rng=0)
+    assert sorted(perm.objective.scores) == sorted(task.objective.scores)
+    assert perm.threshold == task.threshold
+    assert not np.array_equal(perm.objective.scores, task.objective.scores)
+    assert 0 < perm.p < 1
+
+
+def test_fixed_list_gains_on_the_task_and_obeys_the_bound_on_permutations():
+    task = branin_task()
+    order = np.argsort(task.objective.scores)[:10]  # the ten best recorded configs: a list that fits the task
+    rows = task.objective.X[order]
+    assert fixed_list_bits(task, rows) > 2.0
+    rng = np.random.default_rng(0)
+    bits, q, p = [], [], []
+    for _ in range(600):
+        perm = permute_task(task, rng)
+        hits = in_target(perm.objective.values(rows), perm.threshold, maximize=False)
+        q.append(hits.mean())
+        p.append(perm.p)
+        bits.append(fixed_list_bits(perm, rows))
+    # expected hit rate equals p: mean q within 4 standard errors of mean p
+    assert abs(np.mean(q) - np.mean(p)) < 4 * np.std(q) / math.sqrt(len(q))
+    for b in (1.0, 2.0, 3.0):
+        slack = 3 * math.sqrt(markov_bound(b) * (1 - markov_bound(b)) / len(bits))
+        assert share_at_least(bits, b) <= markov_bound(b) + slack
+
+
+def test_warm_mixture_does_not_gain_over_cold_on_permuted_tasks():
+    sources = []
+    for i in range(3):
+        X = SPACE.sobol_unit(64, 10 + i)
+        q = within_study_quantiles(_values(X), maximize=False)
+        sources.append(Source(10 + i, 10 + i, f"branin-{i}", X, q, np.arange(64), np.zeros(64, bool), 1.0))
+    prior = prior_from_sources(SPACE, sources)
+    task = branin_task()
+    results = []
+    rng = np.random.default_rng(5)
+    for t in range(12):
+        perm = permute_task(task, rng)
+        runs = {}
+        for label, make in (("warm", lambda s: MixtureSearch(SPACE, prior, seed=s, maximize=False, n_boot=64)),
+                            ("cold", lambda s: DensitySearch(SPACE, prior=None, seed=s, maximize=False))):
+            hits = np.zeros((6, 10), dtype=bool)
+            for r in range(6):
+                result = run_search(make(100 * t + r), perm.objective, 10)
+                hits[r] = in_target(result.scores, perm.threshold, maximize=False)
+            runs[label] = Runs(hits)
+        results.append(compare(f"perm{t}", runs["warm"], runs["cold"], perm.p, rng=t))
+    pooled = pool(results, rng=0)
+    # the sources know Branin, the permuted task is not Branin: no gain within the interval
+    assert pooled.gain_low <= 0.0
+    # on the task itself the same sources make the warm search gain
+    same = []
+    for r in range(6):
+        same.append(in_target(run_search(MixtureSearch(SPACE, prior, seed=r, maximize=False, n_boot=64),
+                                         task.objective, 10).scores, task.threshold, maximize=False))
+    assert math.log2(max(np.mean(same), 1e-3) / task.p) > 1.0

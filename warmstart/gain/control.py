@@ -1,0 +1,73 @@
+"""A control that must fail to gain: replay on tasks whose scores were permuted.
+
+Permuting a held-out study's recorded scores among its configs keeps the
+score distribution (so the target threshold) and breaks every link between
+a config and its score, and so between the task and every past task. On such
+a task a *fixed* list of configs lands in the target set with expected rate
+``p`` (the target set is a uniformly random set of its size), so its bits
+over uniform are at most 0 in expectation, and by Markov's inequality the
+share of permutations on which it gains ``b`` bits or more is at most
+``2**-b`` (the conservation-of-information bound). A warm search has no
+more to learn from the past tasks there than a cold one, so its gain over
+cold stays at or below 0 within its interval.
+
+An adaptive search may still score above uniform on a permuted task: it can
+return next to a config that hit (under the nearest replay a proposal
+scores what its nearest recorded config scored, so a return is a hit again)
+or climb the smooth surface a surrogate fits to permuted scores. That is
+search, not transfer; the control reports it beside the fixed lists.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from typing import Any, Sequence
+
+import numpy as np
+
+from warmstart.gain.bits import target_threshold
+
+__all__ = ["permute_task", "share_at_least", "markov_bound"]
+
+
+def permute_task(task, rng: Any = None, gamma: float = 0.05):
+    """A copy of a replay task whose recorded scores are randomly permuted.
+
+    Parameters
+    ----------
+    task : ReplayTask
+        A task of :func:`warmstart.gain.replay.replay_tasks` (nearest or
+        surrogate objective).
+    rng : seed or numpy Generator
+    gamma : float, default 0.05
+        Size of the target set (as in the replay).
+
+    Returns
+    -------
+    ReplayTask
+        Same task, space and profile; its objective scores each recorded
+        config with another's score; threshold and ``p`` recomputed.
+    """
+    rng = np.random.default_rng(rng)
+    obj = task.objective
+    if hasattr(obj, "recorded_scores"):  # a surrogate: fit it again to the permuted scores
+        from warmstart.gain.objectives import SurrogateObjective
+
+        scores = rng.permutation(obj.recorded_scores)
+        new = SurrogateObjective(task.space, obj.X, scores, obj.maximize, seed=int(rng.integers(2**31 - 1)))
+    else:
+        new = type(obj)(task.space, obj.X, rng.permutation(obj.scores), obj.maximize)
+    threshold = target_threshold(new.reference_scores, gamma, obj.maximize)
+    p = new.uniform_hit_chance(threshold, rng=int(rng.integers(2**31 - 1)))
+    return dataclasses.replace(task, objective=new, threshold=threshold, p=p)
+
+
+def share_at_least(bits: Sequence[float], b: float) -> float:
+    """Share of the values that reach ``b`` bits."""
+    x = np.asarray(bits, dtype=float)
+    return float(np.mean(x >= b)) if x.size else float("nan")
+
+
+def markov_bound(b: float) -> float:
+    """``2**-b``: the most a fixed search may reach ``b`` bits on random target sets."""
+    return float(2.0 ** -b)

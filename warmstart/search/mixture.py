@@ -1,0 +1,548 @@
+"""A warm search that learns, during the search, which past tasks to trust.
+
+:class:`MixtureSearch` (DESIGN.md section 6, "Next step") replaces a ranked
+seed list with a weighted mixture of Parzen estimators:
+
+* every past study (a :class:`~warmstart.prior.Source`) gets its own *good*
+  density ``l_i`` (kernel density of its top ``source_gamma`` configs) and
+  *rest* density ``g_i`` (the others), built once;
+* the new task gets its own ``l_0`` and ``g_0`` from its scored configs
+  (pending configs join ``g_0`` as fantasies, failures join it too);
+* ``l = u U + (1 - u) sum_k w_k l_k`` and ``g = u U + (1 - u) sum_k w_k g_k``
+  with a uniform share ``u``; candidates are drawn from ``l`` and the one
+  with the largest ``l / g`` is proposed (the task-weighted Parzen mixture of
+  Watanabe, Awad, Onishi & Hutter, IJCAI 2023);
+* the weights ``w`` are re-estimated after every result by
+  :func:`~warmstart.search.ranking.ranking_weights`: the share of bootstrap
+  resamples of the scored configs in which a model (a past task's ``l_i /
+  g_i``, or the task's own ratio predicted out of sample) misranks the
+  fewest pairs, with weight dilution (Feurer, Letham & Bakshy, 2018).
+  Profile similarity only sets the starting weights (ties share by it);
+* the new task's own weight never falls below ``n / (n + own_strength)``
+  after ``n`` scored configs;
+* optionally, the first ``n_hedge`` queries cover, greedily, the top sets
+  of as many weighted past tasks as possible (Wistuba, Schilling &
+  Schmidt-Thieme, 2015), with the weights as they stand after each result;
+* a share ``explore`` of the queries are space-filling, so the scores can
+  contradict past tasks that all point to the same wrong region;
+* an optional prior factor ``pi(x) ** (prior_power / (n + 1))`` on the
+  acquisition (``pi`` the similarity-weighted mixture of the past tasks'
+  good densities) decays with the number of results (Hvarfner et al., ICLR
+  2022).
+
+A proposal is a function of the seed and the history alone (recorded trials
+and pending configs), so a search rebuilt with :meth:`MixtureSearch.from_dict`
+and given the same trials proposes the same configs.
+"""
+
+from __future__ import annotations
+
+import math
+import weakref
+from typing import Any, Mapping
+
+import numpy as np
+
+from warmstart.prior import Prior, PriorError
+from warmstart.search.kde import KDEStack, MixedKDE, log_sum_exp, uniform_logpdf
+from warmstart.search.density import default_n_startup
+from warmstart.search.ranking import chance_share, greedy_cover, ranking_losses, weights_from_losses
+from warmstart.search.strategy import SearchError, SearchStrategy
+from warmstart.space import Space, unit_distances
+
+__all__ = ["MixtureSearch", "MIXTURE_FORMAT"]
+
+MIXTURE_FORMAT = "warmstart-mixture/1"
+#: prior -> {(space, options of the past tasks' densities) -> what _build_sources returns}; the
+#: entries go when the prior does (a replay runs many searches on one prior)
+_BUILT: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
+_SCORES = ("ratio", "nearest")
+
+
+def _nearest_quantile(space: Space, X: np.ndarray, quantile: np.ndarray, rows: np.ndarray) -> np.ndarray:
+    """Quantile of the recorded config of a source nearest to each row."""
+    return quantile[np.argmin(unit_distances(space, rows, X), axis=1)]
+
+
+class _SourceModel:
+    """A past study's good and rest densities and its top set (built once)."""
+
+    def __init__(self, space: Space, X: np.ndarray, quantile: np.ndarray, gamma: float,
+                 cover_fraction: float, shrink: float):
+        self.X = X
+        self.quantile = quantile
+        m = X.shape[0]
+        order = np.argsort(-quantile, kind="stable")
+        n_good = max(1, math.ceil(gamma * m))
+        self.good = MixedKDE(space, X[order[:n_good]], shrink=shrink)
+        self.rest = MixedKDE(space, X[order[n_good:]], shrink=shrink) if m > n_good else None
+        n_top = max(1, math.ceil(cover_fraction * m))
+        self.top_rows = X[order[:n_top]]
+        self.top_threshold = float(quantile[order[n_top - 1]])
+
+
+class MixtureSearch(SearchStrategy):
+    """Warm Parzen-estimator search over a weighted mixture of past tasks.
+
+    Parameters
+    ----------
+    space : Space
+        The search space.
+    prior : Prior
+        Where the past tasks come from: its :attr:`~warmstart.prior.Prior.sources`
+        (configs encoded in ``space``, within-study quantiles) and their
+        profile ``similarity`` (the starting weights).
+    seed : int, default 0
+        Source of randomness. Proposals depend only on the seed and the
+        history, so a rebuilt search proposes the same.
+    maximize : bool, default True
+        Whether larger scores are better.
+    gamma : float, default 0.25
+        Share of the new task's scored configs in its good set (at least one).
+    source_gamma : float, default 0.15
+        Share of each past study's configs in its good set (a fixed share
+        between 0.1 and 0.25 is common practice for Parzen estimators).
+    n_hedge : int, default 0
+        Queries chosen by greedy coverage of the past tasks' top sets before
+        the mixture takes over. Measured on the starter history (design half,
+        docs/experiments.md): three hedges raised the gain on gbt and svm and
+        lowered it on knn and forest, with more tasks worse than cold; the
+        mixture's own first proposals hedge by weight, so none is the default.
+    cover_fraction : float, default 0.1
+        Share of each past study's configs that makes its top set.
+    own_strength : float, default 10
+        ``kappa`` of the floor ``n / (n + kappa)`` on the new task's own weight
+        after ``n`` scored configs (a pseudo-count: our choice, the budget at
+        which the task's own model carries half the mixture).
+    uniform : float, default 0.1
+        Uniform share ``u`` of both densities (so no region is ever ruled
+        out, and about that share of candidates are uniform draws).
+    n_candidates : int, default 24
+        Candidates drawn from ``l`` per proposal (common practice for
+        Parzen-estimator searches).
+    n_boot : int, default 256
+        Bootstrap resamples of the ranking-loss weights.
+    max_ranked : int, default 40
+        Most scored configs the weights are estimated on (the latest ones),
+        which bounds the cost of a long search.
+    prior_power : float, default 0
+        ``beta`` of the decaying prior factor ``pi(x) ** (beta / (n + 1))``
+        (0: none).
+    source_score : {"ratio", "nearest"}, default "ratio"
+        How a past task orders configs when it is weighted: by its density
+        ratio ``l_i / g_i``, or by the quantile of its nearest recorded config.
+    shrink : float, default 1
+        Pseudo-observations of the uniform pooled into every density's spread
+        (see :class:`~warmstart.search.kde.MixedKDE`).
+    explore : float, default 0.1
+        Share of space-filling queries (the points of a scrambled Sobol
+        sequence, in order, as a cold search starts): the first query after
+        the hedge (the second without a hedge), then one in every
+        ``1 / explore``. They let the scores contradict past tasks that
+        all point to the same wrong region. 0: none.
+    cover : {"top", "soft"}, default "top"
+        Greedy coverage of the hedge: ``top`` counts the weight of past tasks
+        whose top set (``cover_fraction``) a config enters; ``soft`` the rise
+        of the weighted best quantile reached in every past task.
+    exact_share : float, default 0.5
+        Share of the candidates drawn from a past task's good density that
+        are its good configs themselves, without kernel noise (configs that
+        did well before are candidates as they are).
+    cover_pool : float, default 1
+        Share of the coverage candidates (by weighted mean quantile over the
+        past tasks) the hedge may pick from: below 1 it covers top sets only
+        among configs the weighted past tasks rate highly on average.
+    adaptive_design : bool, default True
+        Also make as many space-filling queries as the Sobol start of a cold
+        search (``min(10, max(5, d + 1))``) times the share of bootstrap
+        resamples in which no past task orders the scores better than
+        chance: past tasks that all mislead turn the search into a cold one.
+
+    Examples
+    --------
+    >>> from warmstart.prior import Source, prior_from_sources, within_study_quantiles
+    >>> space = Space.from_dict({"params": {"x": {"type": "real", "low": -2, "high": 2}}})
+    >>> X = space.sobol_unit(32, 0)                      # a past study of (x - 0.5)^2
+    >>> past = (4 * X[:, 0] - 2 - 0.5) ** 2
+    >>> source = Source(1, 1, "past task", X, within_study_quantiles(past, maximize=False),
+    ...                 numbers=np.arange(32), clipped=np.zeros(32, dtype=bool))
+    >>> search = MixtureSearch(space, prior_from_sources(space, [source]), seed=0, maximize=False)
+    >>> for _ in range(6):
+    ...     config = search.propose()
+    ...     _ = search.record(config, (config["x"] - 0.5) ** 2)
+    >>> abs(search.best.config["x"] - 0.5) < 0.2
+    True
+    """
+
+    def __init__(
+        self,
+        space: Space,
+        prior: Prior,
+        seed: int = 0,
+        maximize: bool = True,
+        gamma: float = 0.25,
+        source_gamma: float = 0.15,
+        n_hedge: int = 0,
+        cover_fraction: float = 0.1,
+        own_strength: float = 10.0,
+        uniform: float = 0.1,
+        n_candidates: int = 24,
+        n_boot: int = 256,
+        max_ranked: int = 40,
+        prior_power: float = 0.0,
+        source_score: str = "ratio",
+        shrink: float = 1.0,
+        explore: float = 0.1,
+        cover: str = "top",
+        exact_share: float = 0.5,
+        cover_pool: float = 1.0,
+        adaptive_design: bool = True,
+    ):
+        super().__init__(space, seed=seed, maximize=maximize)
+        sources = getattr(prior, "sources", None)
+        if not sources:
+            raise SearchError("prior must be a warmstart Prior with at least one source (past study); "
+                              "build one with Archive.build_prior")
+        for name, value in (("gamma", gamma), ("source_gamma", source_gamma),
+                            ("cover_fraction", cover_fraction), ("uniform", uniform),
+                            ("cover_pool", cover_pool)):
+            if isinstance(value, bool) or not isinstance(value, (int, float)) or not 0 < value <= 1:
+                raise SearchError(f"{name} must be a number in (0, 1], got {value!r}")
+        if isinstance(explore, bool) or not isinstance(explore, (int, float)) or not 0 <= explore <= 1:
+            raise SearchError(f"explore must be a number in [0, 1], got {explore!r}")
+        if uniform >= 1:
+            raise SearchError(f"uniform must be below 1 so the past tasks count at all, got {uniform!r}")
+        for name, value, low in (("n_hedge", n_hedge, 0), ("n_candidates", n_candidates, 1),
+                                 ("n_boot", n_boot, 1), ("max_ranked", max_ranked, 2)):
+            if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < low:
+                raise SearchError(f"{name} must be a whole number >= {low}, got {value!r}")
+        for name, value in (("own_strength", own_strength), ("prior_power", prior_power), ("shrink", shrink)):
+            if isinstance(value, bool) or not isinstance(value, (int, float)) or not (value >= 0 and math.isfinite(value)):
+                raise SearchError(f"{name} must be a finite number >= 0, got {value!r}")
+        if isinstance(exact_share, bool) or not isinstance(exact_share, (int, float)) or not 0 <= exact_share <= 1:
+            raise SearchError(f"exact_share must be a number in [0, 1], got {exact_share!r}")
+        if not isinstance(adaptive_design, (bool, np.bool_)):
+            raise SearchError(f"adaptive_design must be True or False, got {adaptive_design!r}")
+        if cover not in ("top", "soft"):
+            raise SearchError(f"cover must be 'top' or 'soft', got {cover!r}")
+        if source_score not in _SCORES:
+            raise SearchError(f"source_score must be one of {', '.join(_SCORES)}, got {source_score!r}")
+        self.prior = prior
+        self.options = {
+            "gamma": float(gamma), "source_gamma": float(source_gamma), "n_hedge": int(n_hedge),
+            "cover_fraction": float(cover_fraction), "own_strength": float(own_strength),
+            "uniform": float(uniform), "n_candidates": int(n_candidates), "n_boot": int(n_boot),
+            "max_ranked": int(max_ranked), "prior_power": float(prior_power),
+            "source_score": source_score, "shrink": float(shrink), "explore": float(explore),
+            "cover": cover, "exact_share": float(exact_share),
+            "cover_pool": float(cover_pool), "adaptive_design": bool(adaptive_design),
+        }
+        self.__dict__.update(self.options)
+        kept = [s for s in sources if s.X.shape[0] > 0]
+        for s in kept:
+            if s.X.ndim != 2 or s.X.shape[1] != space.dim:
+                raise SearchError(f"source study {s.study_id} ({s.task!r}) has configs of {s.X.shape[1]} "
+                                  f"coordinates; the space has {space.dim} (align it onto the space first)")
+        if not kept:
+            raise SearchError("no source of the prior has a scored config")
+        self.sources = kept
+        sim = np.array([max(float(s.similarity), 0.0) for s in kept])
+        self.start_weights = sim / sim.sum() if sim.sum() > 0 and np.isfinite(sim).all() else np.full(len(kept), 1 / len(kept))
+        key = (space.content_hash, self.source_gamma, self.cover_fraction, self.shrink)
+        built = _BUILT.setdefault(prior, {}).get(key)
+        if built is None:  # the past tasks' densities do not depend on the seed: built once per prior
+            built = _BUILT[prior][key] = self._build_sources()
+        (self._models, self._good, self._has_rest, self._rest, self._cover_rows, self._cover_q,
+         self._cover_top) = built
+        self._pred = np.empty((0, len(kept)))  # past tasks' scores at recorded rows
+        self._weights_at: tuple | None = None
+        self._design: np.ndarray | None = None  # scrambled Sobol points of the space-filling queries
+
+    def _build_sources(self) -> tuple:
+        """Every past task's good and rest densities (stacked, evaluated in one pass) and the
+        candidates of the hedge with the quantile each past task gives them."""
+        space = self.space
+        models = [_SourceModel(space, s.X, s.quantile, self.source_gamma, self.cover_fraction, self.shrink)
+                  for s in self.sources]
+        self._models = models
+        has_rest = np.array([m.rest is not None for m in models])
+        rest = KDEStack([m.rest for m in models if m.rest is not None]) if has_rest.any() else None
+        top = space.snap(np.vstack([m.top_rows for m in models]))
+        _, first = np.unique(np.round(np.nan_to_num(top, nan=-1.0), 9), axis=0, return_index=True)
+        cover_rows = top[np.sort(first)]
+        cover_q = self._quantiles(cover_rows)
+        return (models, KDEStack([m.good for m in models]), has_rest, rest, cover_rows, cover_q,
+                self._in_top(cover_q))
+
+    # -- past tasks seen at rows ------------------------------------------
+    def _quantiles(self, rows: np.ndarray) -> np.ndarray:
+        return np.column_stack([_nearest_quantile(self.space, s.X, s.quantile, rows) for s in self.sources])
+
+    def _in_top(self, Q: np.ndarray) -> np.ndarray:
+        return Q >= np.array([m.top_threshold for m in self._models])[None, :] - 1e-12
+
+    def _source_logs(self, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """``log l_i`` and ``log g_i`` of every past task at rows, each (m, n_sources)."""
+        lg = self._good.logpdf(rows)
+        lr = np.repeat(uniform_logpdf(self.space, rows)[:, None], len(self._models), axis=1)
+        if self._rest is not None:
+            lr[:, self._has_rest] = self._rest.logpdf(rows)
+        return lg, lr
+
+    def _source_scores(self, rows: np.ndarray) -> np.ndarray:
+        if self.source_score == "nearest":
+            return self._quantiles(rows)
+        lg, lr = self._source_logs(rows)
+        return lg - lr
+
+    def _observe(self) -> None:
+        n = self.trial_count
+        have = self._pred.shape[0]
+        if have < n:
+            rows = self.rows()[have:n]
+            self._pred = np.vstack([self._pred, self._source_scores(rows)])
+
+    # -- the new task's own model -------------------------------------------
+    def _own_densities(self, rows: np.ndarray, y: np.ndarray, extra_rest: np.ndarray | None = None):
+        """Good and rest densities of scored rows (``y``: NaN = failed, joins the rest)."""
+        ok = np.flatnonzero(~np.isnan(y))
+        if ok.size == 0:
+            good = None
+            rest_idx = np.arange(len(y))
+        else:
+            order = ok[np.argsort(-y[ok], kind="stable")]
+            n_good = max(1, math.ceil(self.gamma * ok.size))
+            good = MixedKDE(self.space, rows[order[:n_good]], shrink=self.shrink)
+            rest_idx = np.concatenate([order[n_good:], np.flatnonzero(np.isnan(y))])
+        rest_rows = rows[rest_idx]
+        if extra_rest is not None and extra_rest.shape[0]:
+            rest_rows = np.vstack([rest_rows, extra_rest])
+        rest = MixedKDE(self.space, rest_rows, shrink=self.shrink) if rest_rows.shape[0] else None
+        return good, rest
+
+    def _own_out_of_sample(self, rows: np.ndarray, y: np.ndarray) -> np.ndarray:
+        """The own ratio ``l_0 / g_0`` at each row, fitted without it (up to 20 folds)."""
+        n = rows.shape[0]
+        folds = np.arange(n) % min(n, 20)
+        out = np.full(n, np.nan)
+        lu = uniform_logpdf(self.space, rows)
+        for f in range(min(n, 20)):
+            test = folds == f
+            good, rest = self._own_densities(rows[~test], y[~test])
+            if good is None:
+                continue
+            lg = good.logpdf(rows[test])
+            lr = lu[test] if rest is None else rest.logpdf(rows[test])
+            out[test] = lg - lr
+        return out
+
+    # -- weights ------------------------------------------------------------
+    def current_weights(self) -> tuple[np.ndarray, float]:
+        """Weights of the past tasks and of the task's own model.
+
+        With :attr:`uniform_weight` they sum to one; the fixed ``uniform``
+        share of the densities comes on top. Computed from the recorded
+        trials only; cached until the next result.
+        """
+        n = self.trial_count
+        if self._weights_at is not None and self._weights_at[0] == n:
+            return self._weights_at[1], self._weights_at[3]
+        y = self.signed_scores()
+        ok = ~np.isnan(y)
+        n_ok = int(ok.sum())
+        keep = np.arange(n)[-self.max_ranked:]
+        S = len(self.sources)
+        own_col = None
+        # the models: every past task, uniform sampling (predicts a tie everywhere, so a
+        # past task that orders the scores worse than chance loses to it), the task's own
+        P = np.column_stack([self._pred[keep], np.zeros(keep.size)])
+        start = np.append(self.start_weights, self.uniform)
+        if n_ok >= 3:  # the own model can be judged out of sample
+            own_pred = self._own_out_of_sample(self.rows()[keep], y[keep])
+            P = np.column_stack([P, own_pred])
+            start = np.append(start, 1.0 / S)
+            own_col = S + 1
+        yy = np.where(np.isnan(y[keep]), -np.inf, y[keep])
+        rng = np.random.default_rng(self._rng_key(1))
+        loss = ranking_losses(P, yy, self.n_boot, rng)
+        w = weights_from_losses(loss, start, own_col)
+        chance = chance_share(loss, np.arange(S), S) if keep.size >= 2 else 0.0
+        w_own = float(w[own_col]) if own_col is not None else 0.0
+        floor = n_ok / (n_ok + self.own_strength) if self.own_strength > 0 else 1.0
+        if n_ok and w_own < floor:  # the floor's share comes from the others in proportion
+            rest = w[: S + 1]
+            w = np.append(rest / rest.sum() * (1.0 - floor) if rest.sum() > 0 else rest, floor)
+            w_own = floor
+        self._weights_at = (n, w[:S].copy(), float(w[S]), w_own, chance)
+        return self._weights_at[1], self._weights_at[3]
+
+    @property
+    def uniform_weight(self) -> float:
+        """Weight the ranking gives uniform sampling (on top of the fixed ``uniform`` share)."""
+        self.current_weights()
+        return self._weights_at[2]
+
+    def weight_table(self):
+        """Current weights as a DataFrame: one row per past study, uniform sampling
+        and the task's own model, heaviest first (the weights sum to one)."""
+        import pandas as pd
+
+        w_src, w_own = self.current_weights()
+        frame = pd.DataFrame({
+            "study_id": [s.study_id for s in self.sources] + [None, None],
+            "task": [s.task for s in self.sources] + ["(uniform)", "(this task)"],
+            "similarity": list(self.start_weights) + [float("nan"), float("nan")],
+            "weight": list(w_src) + [self.uniform_weight, w_own],
+        })
+        return frame.sort_values("weight", ascending=False, kind="stable").reset_index(drop=True)
+
+    # -- proposals ------------------------------------------------------------
+    def _rng_key(self, salt: int) -> list[int]:
+        base = self.seed if isinstance(self.seed, (int, np.integer)) and not isinstance(self.seed, bool) else 0
+        return [int(base) & 0xFFFFFFFF, self.trial_count, self.n_pending, salt]
+
+    def _proposal_rng(self) -> np.random.Generator:
+        if isinstance(self.seed, (int, np.integer)) and not isinstance(self.seed, bool):
+            return np.random.default_rng(self._rng_key(2))
+        return self._rng  # a Generator was given: its own stream
+
+    def _design_needed(self, t: int) -> int:
+        """Space-filling queries due by query ``t`` (from 0): one right after the
+        hedge (at the second query without one), then one in every
+        ``1 / explore``; and, with ``adaptive_design``, as many of the points a
+        cold search would start with as the share of bootstrap resamples in
+        which no past task orders the scores better than chance."""
+        start = max(self.n_hedge, 1)
+        if t < start:
+            return 0
+        due = (t - start) // max(1, round(1.0 / self.explore)) + 1 if self.explore > 0 else 0
+        if self.adaptive_design:
+            self.current_weights()
+            due = max(due, round(default_n_startup(self.space.dim) * self._weights_at[4]))
+        return min(due, t)
+
+    def _design_rows(self, n: int) -> np.ndarray:
+        """The first ``n`` (or more) points of the search's scrambled Sobol sequence."""
+        if self._design is None or self._design.shape[0] < n:
+            self._design = self.space.sobol_unit(max(16, 2 * n), self._design_seed())
+        return self._design
+
+    def _propose_one(self) -> tuple[dict, str]:
+        rng = self._proposal_rng()
+        t = self.trial_count + self.n_pending
+        if t < self.n_hedge:
+            config = self._hedge(rng)
+            if config is not None:
+                return config, "cover"
+        due = self._design_needed(t)
+        if due:
+            rows = self._design_rows(due + 8)
+            known = self._known_rows(rows)
+            if known[:due].sum() < due:  # the next Sobol point not tried yet (a rebuilt search takes the same)
+                fresh = np.flatnonzero(~known)
+                return self.space.decode(rows[fresh[0]][None, :])[0], "design"
+        return self._model_proposal(rng), "model"
+
+    def _design_seed(self):
+        if isinstance(self.seed, (int, np.integer)) and not isinstance(self.seed, bool):
+            return np.random.default_rng([int(self.seed) & 0xFFFFFFFF, 3])
+        return self._rng
+
+    def _hedge(self, rng: np.random.Generator) -> dict | None:
+        w_src, _ = self.current_weights()
+        tried = np.vstack([self.rows(), self.pending_rows()])
+        covered = np.zeros(len(self.sources), dtype=bool)
+        best = np.zeros(len(self.sources))
+        if tried.shape[0]:
+            Q = self._quantiles(tried)
+            covered = self._in_top(Q).any(axis=0)
+            best = Q.max(axis=0)
+        allowed = ~self._known_rows(self._cover_rows)
+        if self.cover_pool < 1:  # only configs the weighted past tasks rate highly on average
+            mean_q = self._cover_q @ w_src
+            cut = np.quantile(mean_q, 1.0 - self.cover_pool)
+            allowed &= mean_q >= cut
+        pick = greedy_cover(self._cover_top, self._cover_q, w_src, covered, allowed,
+                            best=best if self.cover == "soft" else None)
+        if pick is None:
+            return None
+        return self.space.complete(self.space.decode(self._cover_rows[pick][None, :])[0], rng)
+
+    def _model_proposal(self, rng: np.random.Generator) -> dict:
+        space = self.space
+        w_src, w_own = self.current_weights()
+        y = self.signed_scores()
+        w_unif = self.uniform_weight
+        good0, rest0 = self._own_densities(self.rows(), y, self.pending_rows())
+        if good0 is None:  # nothing scored yet: the own share goes to the past tasks
+            w_own = 0.0
+        u = self.uniform
+        active = np.flatnonzero(w_src > 1e-4 * max(w_src.max(), 1e-300))
+        ws = w_src[active]
+        mix = np.concatenate([[u + (1 - u) * w_unif], (1 - u) * ws, [(1 - u) * w_own]])
+        mix = mix / mix.sum()
+        counts = rng.multinomial(self.n_candidates, mix)
+        draws = [space.sample_unit(counts[0], rng)]
+        for k, i in enumerate(active):
+            m = counts[1 + k]
+            if m:
+                good = self._models[i].good
+                exact = rng.binomial(m, self.exact_share)  # centres as they are, the rest with kernel noise
+                draws.append(good.centres[rng.choice(good.centres.shape[0], exact, p=good.weights)])
+                draws.append(good.sample(m - exact, rng))
+        if counts[-1]:
+            draws.append(good0.sample(counts[-1], rng))
+        C = np.vstack(draws)
+        lu = uniform_logpdf(space, C)
+        LG, LR = self._source_logs(C)
+        L = [lu, *LG[:, active].T]
+        G = [lu, *LR[:, active].T]
+        if w_own > 0:
+            L.append(good0.logpdf(C))
+            G.append(lu if rest0 is None else rest0.logpdf(C))
+        b = mix if w_own > 0 else mix[:-1]
+        b = b / b.sum()
+        score = log_sum_exp(np.column_stack(L), b=b) - log_sum_exp(np.column_stack(G), b=b)
+        if self.prior_power > 0:
+            n_ok = int((~np.isnan(y)).sum())
+            sw = self.start_weights
+            pi = log_sum_exp(np.column_stack([lu, LG]), b=np.concatenate([[u], (1 - u) * sw]))
+            score = score + self.prior_power / (n_ok + 1) * (pi - lu)
+        fresh = ~self._known_rows(C)
+        if fresh.any():
+            score = np.where(fresh, score, -np.inf)
+        return space.complete(space.decode(C[int(np.argmax(score))][None, :])[0], rng)
+
+    # -- what it was built from -----------------------------------------------
+    def to_dict(self) -> dict:
+        """Plain data that rebuilds this search (:meth:`from_dict`): the prior it
+        was built from, the options and the seed (the trials are not included)."""
+        if not (isinstance(self.seed, (int, np.integer)) and not isinstance(self.seed, bool)):
+            raise SearchError("only a search with a whole-number seed can be written down and rebuilt")
+        return {"format": MIXTURE_FORMAT, "seed": int(self.seed), "maximize": self.maximize,
+                "options": dict(self.options), "prior": self.prior.to_dict()}
+
+    @classmethod
+    def from_dict(cls, d: Mapping, where: str = "warm search") -> "MixtureSearch":
+        """Rebuild a search written by :meth:`to_dict` (record its trials again to resume)."""
+        if not isinstance(d, Mapping) or d.get("format") != MIXTURE_FORMAT:
+            raise SearchError(f"{where}: not a mixture warm search (expected format {MIXTURE_FORMAT!r}, "
+                              f"got {d.get('format') if isinstance(d, Mapping) else type(d).__name__!r})")
+        unknown = set(d.get("options", {})) - set(cls._option_names())
+        if unknown:
+            raise SearchError(f"{where}: unknown option(s) {', '.join(sorted(unknown))}; "
+                              f"known: {', '.join(cls._option_names())}")
+        try:
+            prior = Prior.from_dict(d["prior"], where=f"{where}: prior")
+        except KeyError as exc:
+            raise SearchError(f"{where}: missing field {exc.args[0]!r}") from None
+        except PriorError as exc:
+            raise SearchError(str(exc)) from None
+        return cls(prior.space, prior, seed=d.get("seed", 0), maximize=d.get("maximize", True),
+                   **d.get("options", {}))
+
+    @staticmethod
+    def _option_names() -> tuple[str, ...]:
+        return ("gamma", "source_gamma", "n_hedge", "cover_fraction", "own_strength", "uniform",
+                "n_candidates", "n_boot", "max_ranked", "prior_power", "source_score", "shrink", "explore", "cover",
+                "exact_share", "cover_pool", "adaptive_design")
