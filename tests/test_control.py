@@ -11,7 +11,6 @@ Branin-Hoo function (Dixon & Szego 1978) on a Sobol design; no invented data.
 import math
 
 import numpy as np
-import pytest
 
 from warmstart.gain.bits import Runs, compare, in_target, pool, target_threshold
 from warmstart.gain.control import markov_bound, permute_task, share_at_least

@@ -207,9 +207,10 @@ def _live(archive, data, target, learners, only_tasks, metric, cv, budgets, repe
         click.echo(f"live: {learner} on {Path(data).name} ({kind}), {cv}-fold {objective.metric}; "
                    + prior.summary(n=3).splitlines()[0]
                    + ("; the archive's own studies of this dataset were left out" if same else ""))
+    from warmstart.evaluate.learners import get_learner
     from warmstart.search.default_first import library_default
 
-    default = library_default(learner, kind, objective.space, prof)
+    default = library_default(get_learner(learner, kind).defaults, objective.space, prof)
     if not as_json and default.notes():
         click.echo(f"library default of {learner!r}: {default.notes()}")
     results = []

@@ -49,6 +49,7 @@ from threadpoolctl import threadpool_limits
 
 from warmstart._checks import check_choice
 from warmstart.errors import WarmstartError
+from warmstart.evaluate.learners import get_learner
 from warmstart.evaluate.workers import map_jobs
 from warmstart.gain.bits import (HINDSIGHT_LABELS, GainResult, Runs, TaskGain, compare, hits_and_regret,
                                  in_target, pool, target_threshold)
@@ -296,7 +297,8 @@ def _library_default(learner: str, task: ReplayTask) -> dict | None:
     from warmstart.profile import profile_kind
 
     try:
-        return library_default(learner, profile_kind(task.profile), task.space, task.profile).config
+        defaults = get_learner(learner, profile_kind(task.profile)).defaults
+        return library_default(defaults, task.space, task.profile).config
     except WarmstartError:  # a learner label of the user's, or a space its defaults do not fit
         return None
 

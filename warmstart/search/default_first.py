@@ -79,15 +79,15 @@ def _resolve(name: str, value: Any, profile: Mapping[str, float] | None) -> tupl
     return value, None
 
 
-def library_default(learner: str, kind: str, space: Space,
+def library_default(defaults: Mapping[str, Any], space: Space,
                     profile: Mapping[str, float] | None = None) -> LibraryDefault:
-    """scikit-learn's default values of a built-in learner, as a config of ``space``.
+    """A learner's default values (scikit-learn's, for a built-in one), as a config of ``space``.
 
     Parameters
     ----------
-    learner : str
-        A built-in learner key (``svm``, ``gbt``, ``forest``, ``knn``, ...).
-    kind : {"classification", "regression"}
+    defaults : mapping
+        Parameter name -> default value, e.g. ``get_learner("svm", kind).defaults``
+        from :mod:`warmstart.evaluate.learners`.
     space : Space
         The space of the search (parameters matched by name).
     profile : mapping, optional
@@ -97,9 +97,6 @@ def library_default(learner: str, kind: str, space: Space,
     -------
     LibraryDefault
     """
-    from warmstart.evaluate.learners import get_learner
-
-    defaults = get_learner(learner, kind).defaults
     config: dict = {}
     clipped, missing, resolved = [], [], {}
     centre = space.decode(np.full((1, space.dim), 0.5))[0]

@@ -39,7 +39,7 @@ from __future__ import annotations
 
 import math
 import weakref
-from typing import Any, Mapping
+from typing import Mapping
 
 import numpy as np
 
@@ -198,6 +198,7 @@ class MixtureSearch(SearchStrategy):
         cover_pool: float = 1.0,
         adaptive_design: bool = True,
     ):
+        # long: one check per option, each naming the option and what it accepts
         super().__init__(space, seed=seed, maximize=maximize)
         sources = getattr(prior, "sources", None)
         if not sources:
