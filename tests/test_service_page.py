@@ -41,6 +41,8 @@ def browser():
 
 def test_the_page_lists_studies_and_a_study_link_opens_its_curve(tmp_path, browser):
     from selenium.webdriver.common.by import By
+    from selenium.webdriver.support import expected_conditions as EC
+    from selenium.webdriver.support.ui import WebDriverWait
 
     path = tmp_path / "team.duckdb"
     studies = seed_archive(path)
@@ -53,9 +55,12 @@ def test_the_page_lists_studies_and_a_study_link_opens_its_curve(tmp_path, brows
         # filter by owner through the form
         browser.find_element(By.NAME, "owner").send_keys("lee")
         browser.find_element(By.CSS_SELECTOR, "form button").click()
+        # the form loads a new page: wait until the old table is gone before reading rows
+        WebDriverWait(browser, 60).until(EC.staleness_of(rows[0]))
         rows = browser.find_elements(By.CSS_SELECTOR, "table#studies tbody tr")
         assert [r.find_elements(By.TAG_NAME, "td")[1].text for r in rows] == ["shop 2"]
         rows[0].find_element(By.LINK_TEXT, str(studies[1])).click()
+        WebDriverWait(browser, 60).until(EC.staleness_of(rows[0]))
         assert browser.title == f"study {studies[1]}: bran on shop 2"
         line = browser.find_element(By.CSS_SELECTOR, "svg#curve polyline.series")
         assert line.get_attribute("data-label") == "best so far"
@@ -63,6 +68,7 @@ def test_the_page_lists_studies_and_a_study_link_opens_its_curve(tmp_path, brows
         assert len(browser.find_elements(By.CSS_SELECTOR, "table#best tbody tr")) == 10
         browser.save_screenshot(str(tmp_path / "study.png"))
         browser.find_element(By.PARTIAL_LINK_TEXT, "shop 2").click()
+        WebDriverWait(browser, 60).until(EC.title_is("neighbors of shop 2"))
         assert browser.title == "neighbors of shop 2"
         assert len(browser.find_elements(By.CSS_SELECTOR, "table#neighbors tbody tr")) == 2
         browser.get(server.url + "/gain")
