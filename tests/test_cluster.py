@@ -74,7 +74,7 @@ log = true
 def cluster():
     """A scheduler and two single-thread worker processes on loopback; yields (address, client)."""
     with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
-                      dashboard_address=None) as local, Client(local) as client:
+                      dashboard_address=":0") as local, Client(local) as client:
         client.wait_for_workers(2, timeout=120)
         yield local.scheduler_address, client
 

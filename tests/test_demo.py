@@ -19,7 +19,7 @@ def test_store_tables_are_reproducible_and_fit_for_profiling():
 
 def test_demo_runs_end_to_end(tmp_path):
     out = tmp_path / "demo"
-    res = CliRunner().invoke(main, ["demo", "--out", str(out), "--stores", "4", "--budget", "4",
+    res = CliRunner().invoke(main, ["demo", "--out", str(out), "--stores", "4", "--configs", "12", "--budget", "4",
                                     "--repeats", "2", "--workers", "1"])
     assert res.exit_code == 0, res.output
     text = res.stdout

@@ -13,10 +13,12 @@ from warmstart.cli.progress import Progress
               help="Folder for the demo archive and report (a previous demo archive there is replaced).")
 @click.option("--stores", "n_history", default=16, show_default=True, type=click.IntRange(3, 24),
               help="Invented stores in the tuning history.")
+@click.option("--configs", "n_configs", default=48, show_default=True, type=click.IntRange(8, 512),
+              help="Configs evaluated on each history store (a Sobol design; fewer is quicker).")
 @click.option("--budget", default=10, show_default=True, type=click.IntRange(2, 200), help="Queries per search.")
 @click.option("--repeats", default=5, show_default=True, type=click.IntRange(2, 100), help="Runs of warm and of cold.")
 @click.option("--workers", default=2, show_default=True, type=click.IntRange(1, 64), help="Processes.")
-def demo(out_dir, n_history, budget, repeats, workers):
+def demo(out_dir, n_history, n_configs, budget, repeats, workers):
     """Run the whole job on an invented grocery cooperative (fixed seed).
 
     Builds a tuning history, profiles a new store, shows its neighbors, builds
@@ -26,5 +28,5 @@ def demo(out_dir, n_history, budget, repeats, workers):
     """
     from warmstart.demo import run_demo
 
-    run_demo(out_dir, n_history=n_history, budget=budget, repeats=repeats, workers=workers, echo=click.echo,
+    run_demo(out_dir, n_history=n_history, n_configs=n_configs, budget=budget, repeats=repeats, workers=workers, echo=click.echo,
              progress=Progress)
