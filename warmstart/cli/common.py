@@ -7,18 +7,25 @@ import json
 import math
 import shlex
 import signal
+import sys
 import threading
-from typing import Any
+from datetime import datetime
+from typing import TYPE_CHECKING, Any, Sequence
 
 import click
-import numpy as np
-import pandas as pd
 
-from warmstart.archive.store import Archive
+if TYPE_CHECKING:
+    import pandas as pd
+
+    from warmstart.archive.store import Archive
+
+# No pandas, numpy or DuckDB at import: `studies`, `show` and `--version` load only what they use
+# (tests/test_quick_commands.py). A value of numpy or pandas type can only exist once that library
+# was imported, so to_jsonable and the table cells look for those types in sys.modules.
 
 __all__ = [
-    "get_archive", "print_table", "print_json", "fail", "json_option", "keep_column_option", "parse_tags", "read_data",
-    "strict_option", "to_jsonable",
+    "get_archive", "print_table", "print_rows", "print_json", "fail", "json_option", "keep_column_option",
+    "parse_tags", "read_data", "strict_option", "to_jsonable",
 ]
 
 json_option = click.option("--json", "as_json", is_flag=True, help="Print JSON instead of a table.")
@@ -53,6 +60,8 @@ def get_archive(ctx: click.Context, write: bool = True) -> Archive:
     when the command ends. ``write=False`` opens it read-only."""
     root = ctx.find_root()
     root.ensure_object(dict)
+    from warmstart.archive.store import Archive
+
     cached = root.obj.get("archive")
     if cached is not None and (write is False or not cached.read_only):
         return cached
@@ -83,27 +92,32 @@ def fail(message: str) -> None:
     raise click.ClickException(message)
 
 
+def _missing(value: Any) -> bool:
+    """None, or pandas' missing markers (NaT, NA) when pandas is loaded."""
+    if value is None:
+        return True
+    pd = sys.modules.get("pandas")
+    return pd is not None and (value is pd.NaT or value is pd.NA)
+
+
 def to_jsonable(value: Any) -> Any:
     """Plain JSON value for numpy/pandas scalars, timestamps and containers."""
     if isinstance(value, dict):
         return {str(k): to_jsonable(v) for k, v in value.items()}
     if isinstance(value, (list, tuple)):
         return [to_jsonable(v) for v in value]
-    if isinstance(value, np.generic):
-        value = value.item()
+    np = sys.modules.get("numpy")
+    if np is not None:
+        if isinstance(value, np.generic):
+            value = value.item()
+        elif isinstance(value, np.ndarray):
+            return [to_jsonable(v) for v in value.tolist()]
     if isinstance(value, float):
         return value if math.isfinite(value) else None
-    if value is None or value is pd.NaT:
+    if _missing(value):
         return None
-    if isinstance(value, pd.Timestamp):
-        return value.isoformat()
     if hasattr(value, "isoformat"):
         return value.isoformat()
-    try:
-        if pd.isna(value):
-            return None
-    except (TypeError, ValueError):
-        pass
     return value
 
 
@@ -115,15 +129,59 @@ def print_json(value: Any) -> None:
 def _cell(value: Any) -> str:
     if isinstance(value, dict):
         return ",".join(f"{k}={v}" for k, v in value.items()) if value else ""
+    np = sys.modules.get("numpy")
+    if np is not None and isinstance(value, np.generic):
+        value = value.item()
     if isinstance(value, float):
         if math.isnan(value):
             return "-"
         return f"{value:.4g}"
-    if value is None or value is pd.NaT:
+    if _missing(value):
         return "-"
-    if isinstance(value, pd.Timestamp):
+    if isinstance(value, datetime):  # pandas' Timestamp too
         return value.strftime("%Y-%m-%d %H:%M")
     return str(value)
+
+
+def _is_number(value: Any) -> bool:
+    np = sys.modules.get("numpy")
+    return isinstance(value, (int, float)) or (np is not None and isinstance(value, np.number))
+
+
+def table_lines(columns: Sequence[str], rows: Sequence[Sequence[Any]],
+                numeric: Sequence[bool] | None = None) -> list[str]:
+    """An aligned text table: a header, a rule, one line per row.
+
+    Numbers are right-aligned (``numeric``: per column; default: a column
+    whose values are all numbers or missing), everything else left-aligned;
+    a missing value shows as ``-``.
+    """
+    cells = [[_cell(v) for v in row] for row in rows]
+    headers = [str(c) for c in columns]
+    widths = [max([len(h)] + [len(r[j]) for r in cells]) for j, h in enumerate(headers)]
+    if numeric is None:
+        numeric = [all(_is_number(row[j]) or _missing(row[j]) for row in rows) and any(_is_number(row[j]) for row in rows)
+                   for j in range(len(headers))]
+
+    def line(values: list[str]) -> str:
+        parts = [v.rjust(w) if num else v.ljust(w) for v, w, num in zip(values, widths, numeric)]
+        return "  ".join(parts).rstrip()
+
+    return [line(headers), "  ".join("-" * w for w in widths)] + [line(row) for row in cells]
+
+
+def print_rows(rows: Sequence[dict], columns: Sequence[str], as_json: bool = False,
+               empty: str = "(nothing to show)") -> None:
+    """Print plain rows (dicts) as an aligned text table of ``columns``, or as
+    JSON records of those columns; no pandas needed."""
+    if as_json:
+        print_json([{c: row.get(c) for c in columns} for row in rows])
+        return
+    if not rows:
+        click.echo(empty)
+        return
+    for text in table_lines(columns, [[row.get(c) for c in columns] for row in rows]):
+        click.echo(text)
 
 
 def print_table(frame: pd.DataFrame, as_json: bool = False, empty: str = "(nothing to show)") -> None:
@@ -134,19 +192,11 @@ def print_table(frame: pd.DataFrame, as_json: bool = False, empty: str = "(nothi
     if frame.empty:
         click.echo(empty)
         return
-    cells = [[_cell(v) for v in row] for row in frame.itertuples(index=False)]
-    headers = [str(c) for c in frame.columns]
-    widths = [max([len(h)] + [len(r[j]) for r in cells]) for j, h in enumerate(headers)]
-    numeric = [pd.api.types.is_numeric_dtype(frame[c]) for c in frame.columns]
+    from pandas.api.types import is_numeric_dtype
 
-    def line(values: list[str]) -> str:
-        parts = [v.rjust(w) if num else v.ljust(w) for v, w, num in zip(values, widths, numeric)]
-        return "  ".join(parts).rstrip()
-
-    click.echo(line(headers))
-    click.echo("  ".join("-" * w for w in widths))
-    for row in cells:
-        click.echo(line(row))
+    numeric = [is_numeric_dtype(frame[c]) for c in frame.columns]
+    for text in table_lines(list(frame.columns), list(frame.itertuples(index=False)), numeric):
+        click.echo(text)
 
 
 def read_data(path: str, target: str | None = None, echo_notes: bool = True, keep_columns=(),
