@@ -28,6 +28,7 @@ import numpy as np
 import pandas as pd
 
 from warmstart.archive import Archive
+from warmstart.errors import WarmstartError
 from warmstart.evaluate.learners import cv_objective, default_space
 from warmstart.evaluate.workers import map_jobs
 from warmstart.gain.bits import interval_text, queries_text
@@ -219,8 +220,12 @@ def run_demo(
 
 
 def _fresh_archive_path(out: Path) -> Path:
-    """``out/demo.duckdb``, with any previous demo archive (and its WAL) removed."""
-    out.mkdir(parents=True, exist_ok=True)
+    """``out/demo.duckdb``, with any previous demo archive (and its WAL) removed;
+    ``out`` is created if missing, inside a directory that exists."""
+    if not out.absolute().parent.is_dir():
+        raise WarmstartError(f"{out}: the directory {out.absolute().parent} does not exist; create it first, "
+                             "or give a folder in an existing directory")
+    out.mkdir(exist_ok=True)
     db = out / "demo.duckdb"
     for stale in (db, Path(str(db) + ".wal")):
         if stale.exists():

@@ -456,11 +456,13 @@ class Prior:
         return cls.from_dict(d, where=where)
 
     def save(self, path: str) -> None:
-        """Write the prior as JSON (missing parent folders are created, as for reports)."""
+        """Write the prior as JSON, into a directory that exists."""
         from pathlib import Path
 
+        if not Path(path).absolute().parent.is_dir():  # never a chain of new folders
+            raise PriorError(f"{path}: the directory {Path(path).absolute().parent} does not exist; create it "
+                             "first, or give a file in an existing directory")
         try:
-            Path(path).parent.mkdir(parents=True, exist_ok=True)
             with open(path, "w", encoding="utf-8") as fh:
                 fh.write(self.to_json())
         except OSError as exc:

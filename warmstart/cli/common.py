@@ -61,12 +61,15 @@ def get_archive(ctx: click.Context, write: bool = True) -> Archive:
     root = ctx.find_root()
     root.ensure_object(dict)
     from warmstart.archive.store import Archive
+    from warmstart.cli.limits import check_archive_folder
 
     cached = root.obj.get("archive")
     if cached is not None and (write is False or not cached.read_only):
         return cached
     if cached is not None:
         cached.close()
+    if write:
+        check_archive_folder(root.obj["archive_path"])
     archive = Archive(root.obj["archive_path"], read_only=not write)
     root.obj["archive"] = archive
     root.call_on_close(archive.close)

@@ -22,7 +22,9 @@ from warmstart.cli.common import (
     strict_option,
     terminate_as_interrupt,
 )
+from warmstart.cli.limits import MAX_PROPOSALS, MAX_TRIALS, MAX_WORKERS
 from warmstart.cli.main import main
+from warmstart.cli.progress import Progress
 from warmstart.evaluate.learners import (
     LEARNERS,
     METRICS,
@@ -36,6 +38,10 @@ from warmstart.profile import detect_kind, profile
 from warmstart.search.density import DEFAULT_N_SEEDS as DEFAULT_SEEDS
 from warmstart.space import Space
 from warmstart.study import resume_study, run_study, start_study, summary
+
+
+#: ``propose -k`` draws a progress bar from this many configs on (a few seconds of work)
+PROGRESS_PROPOSALS = 100
 
 
 def _fmt(score) -> str:
@@ -79,11 +85,13 @@ def _objective_and_space(data, target, learner, kind, space_path, metric, minimi
               help=f"Built-in learner ({', '.join(sorted(LEARNERS))}) or your own label with --command.")
 @click.option("--space", "space_path", type=click.Path(dir_okay=False),
               help="Space file (.toml/.json); built-in learners have a default.")
-@click.option("--budget", default=40, show_default=True, type=click.IntRange(min=0),
-              help="Trials to evaluate (0: only create the study, for propose/record).")
+@click.option("--budget", default=40, show_default=True, type=click.IntRange(0, MAX_TRIALS),
+              help=f"Trials to evaluate (0: only create the study, for propose/record); at most {MAX_TRIALS:,}: "
+                   "each proposal looks at every earlier trial, so split longer work into several studies.")
 @click.option("--metric", help=f"Built-in metric ({', '.join(METRICS)}); default accuracy or r2.")
 @click.option("--seed", default=0, show_default=True, type=int, help="Seed of the search and the CV folds.")
-@click.option("--workers", type=click.IntRange(min=1), help="Trials evaluated at once (local processes).")
+@click.option("--workers", type=click.IntRange(1, MAX_WORKERS),
+              help=f"Trials evaluated at once (local processes, at most {MAX_WORKERS}; more with --cluster).")
 @click.option("--cluster", metavar="ADDRESS",
               help="Evaluate on the workers of the Dask scheduler at ADDRESS (needs warmstart[cluster]); "
                    "--workers defaults to the cluster's threads.")
@@ -196,7 +204,9 @@ def _report(study, run, as_json, budget) -> None:
 # -- propose / record -----------------------------------------------------------
 @main.command()
 @click.option("--study", "study", required=True, type=int, help="Study id (see `warmstart studies`).")
-@click.option("-k", "k", default=1, show_default=True, type=click.IntRange(min=1), help="Configs to propose.")
+@click.option("-k", "k", default=1, show_default=True, type=click.IntRange(1, MAX_PROPOSALS),
+              help=f"Configs to propose, one per parallel job; at most {MAX_PROPOSALS:,} (each waits as a pending "
+                   "config while the next is chosen, so a bigger batch takes minutes).")
 @click.option("--seed", default=0, show_default=True, type=int, help="Seed of the search.")
 @json_option
 @click.pass_context
@@ -213,7 +223,12 @@ def propose(ctx, study, k, seed, as_json):
         return propose_leases(client, study, k, None, as_json)
     archive = get_archive(ctx, write=False)
     resumed = resume_study(archive, study, seed)
-    configs = resumed.search.propose(k)
+    # one at a time, each held as pending: the same configs as search.propose(k), with progress
+    bar = Progress(f"proposing {k} configs", enabled=k >= PROGRESS_PROPOSALS and not as_json)
+    configs = []
+    for i in range(k):
+        configs.append(resumed.search.propose())
+        bar(i + 1, k)
     best = resumed.search.best
     click.echo(f"study {study}: {resumed.search.trial_count} trials recorded, "
                f"best {_fmt(None if best is None else best.score)}; {resumed.note}", err=True)

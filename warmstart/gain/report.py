@@ -16,6 +16,8 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
+from warmstart.errors import WarmstartError  # noqa: E402
+
 __all__ = ["plot_gain_per_task", "plot_curves", "write_report"]
 
 _COLORS = {"warm": "#d9480f", "cold": "#1c7ed6", "random": "#868e96", "defaults": "#2b8a3e", "nearest": "#7048e8",
@@ -159,6 +161,8 @@ def write_report(results, path: str | Path, title: str = "warmstart: transfer ga
         tcols += sorted({k for row in rows for k in row if k.startswith("bits_") and k not in tcols})
         parts.append(_table(rows, tcols))
     parts.append("</body></html>")
-    path.parent.mkdir(parents=True, exist_ok=True)
+    if not path.parent.is_dir():  # never a chain of new folders
+        raise WarmstartError(f"{path}: the directory {path.parent} does not exist; create it first, or give a "
+                             "report path in an existing directory")
     path.write_text("\n".join(parts), encoding="utf-8")
     return path
