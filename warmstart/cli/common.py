@@ -9,10 +9,11 @@ import shlex
 import signal
 import sys
 import threading
-from datetime import datetime
 from typing import TYPE_CHECKING, Any, Sequence
 
 import click
+
+from warmstart.text import is_missing, table_lines
 
 if TYPE_CHECKING:
     import pandas as pd
@@ -21,10 +22,10 @@ if TYPE_CHECKING:
 
 # No pandas, numpy or DuckDB at import: `studies`, `show` and `--version` load only what they use
 # (tests/test_quick_commands.py). A value of numpy or pandas type can only exist once that library
-# was imported, so to_jsonable and the table cells look for those types in sys.modules.
+# was imported, so to_jsonable looks for those types in sys.modules (and warmstart.text's cells too).
 
 __all__ = [
-    "get_archive", "print_table", "print_rows", "print_json", "fail", "json_option", "keep_column_option",
+    "get_archive", "print_table", "print_rows", "print_json", "profile_table", "PROGRESS_CELLS", "fail", "json_option", "keep_column_option",
     "parse_tags", "read_data", "strict_option", "to_jsonable",
 ]
 
@@ -95,14 +96,6 @@ def fail(message: str) -> None:
     raise click.ClickException(message)
 
 
-def _missing(value: Any) -> bool:
-    """None, or pandas' missing markers (NaT, NA) when pandas is loaded."""
-    if value is None:
-        return True
-    pd = sys.modules.get("pandas")
-    return pd is not None and (value is pd.NaT or value is pd.NA)
-
-
 def to_jsonable(value: Any) -> Any:
     """Plain JSON value for numpy/pandas scalars, timestamps and containers."""
     if isinstance(value, dict):
@@ -117,7 +110,7 @@ def to_jsonable(value: Any) -> Any:
             return [to_jsonable(v) for v in value.tolist()]
     if isinstance(value, float):
         return value if math.isfinite(value) else None
-    if _missing(value):
+    if is_missing(value):
         return None
     if hasattr(value, "isoformat"):
         return value.isoformat()
@@ -129,48 +122,26 @@ def print_json(value: Any) -> None:
     click.echo(json.dumps(to_jsonable(value), indent=2))
 
 
-def _cell(value: Any) -> str:
-    if isinstance(value, dict):
-        return ",".join(f"{k}={v}" for k, v in value.items()) if value else ""
-    np = sys.modules.get("numpy")
-    if np is not None and isinstance(value, np.generic):
-        value = value.item()
-    if isinstance(value, float):
-        if math.isnan(value):
-            return "-"
-        return f"{value:.4g}"
-    if _missing(value):
-        return "-"
-    if isinstance(value, datetime):  # pandas' Timestamp too
-        return value.strftime("%Y-%m-%d %H:%M")
-    return str(value)
+#: a table of at least this many cells is profiled with a progress bar on stderr (a few seconds)
+PROGRESS_CELLS = 200_000
 
 
-def _is_number(value: Any) -> bool:
-    np = sys.modules.get("numpy")
-    return isinstance(value, (int, float)) or (np is not None and isinstance(value, np.number))
+def profile_table(frame: pd.DataFrame, target: str, path: str, kind: str | None = None,
+                  keep_columns=()) -> dict[str, float]:
+    """The profile of a data table read from ``path``; a big table (``PROGRESS_CELLS``)
+    gets a progress bar on stderr, one step per group of meta-features."""
+    from warmstart.cli.progress import Progress
+    from warmstart.profile import detect_kind, profile
 
-
-def table_lines(columns: Sequence[str], rows: Sequence[Sequence[Any]],
-                numeric: Sequence[bool] | None = None) -> list[str]:
-    """An aligned text table: a header, a rule, one line per row.
-
-    Numbers are right-aligned (``numeric``: per column; default: a column
-    whose values are all numbers or missing), everything else left-aligned;
-    a missing value shows as ``-``.
-    """
-    cells = [[_cell(v) for v in row] for row in rows]
-    headers = [str(c) for c in columns]
-    widths = [max([len(h)] + [len(r[j]) for r in cells]) for j, h in enumerate(headers)]
-    if numeric is None:
-        numeric = [all(_is_number(row[j]) or _missing(row[j]) for row in rows) and any(_is_number(row[j]) for row in rows)
-                   for j in range(len(headers))]
-
-    def line(values: list[str]) -> str:
-        parts = [v.rjust(w) if num else v.ljust(w) for v, w, num in zip(values, widths, numeric)]
-        return "  ".join(parts).rstrip()
-
-    return [line(headers), "  ".join("-" * w for w in widths)] + [line(row) for row in cells]
+    kind = kind or detect_kind(frame[target])
+    if frame.shape[0] * frame.shape[1] < PROGRESS_CELLS:
+        return profile(frame, target=target, kind=kind, keep_columns=keep_columns)
+    steps = 5 if kind == "regression" else 4  # groups reported by profile(progress=...)
+    bar = Progress(f"profiling {path} ({frame.shape[0]:,} rows x {frame.shape[1]} columns)")
+    bar(0, steps)
+    done = iter(range(1, steps + 1))
+    return profile(frame, target=target, kind=kind, keep_columns=keep_columns,
+                   progress=lambda group: bar(min(next(done, steps), steps), steps))
 
 
 def print_rows(rows: Sequence[dict], columns: Sequence[str], as_json: bool = False,

@@ -5,7 +5,8 @@ from __future__ import annotations
 import click
 
 from warmstart.cli.common import (
-    fail, get_archive, json_option, keep_column_option, print_json, print_table, read_data, strict_option,
+    fail, get_archive, json_option, keep_column_option, print_json, print_table, profile_table, read_data,
+    strict_option,
 )
 from warmstart.cli.limits import (
     MAX_QUERIES, MAX_QUERIES_PER_TASK, MAX_REPEATS, MAX_WORKERS, OutputFile,
@@ -13,6 +14,7 @@ from warmstart.cli.limits import (
 from warmstart.cli.main import main
 from warmstart.cli.progress import Progress
 from warmstart.gain.bits import interval_text, queries_text
+from warmstart.text import bits_in_words
 
 
 def _budgets(text: str) -> list[int]:
@@ -62,7 +64,7 @@ def resolve_space(space_path, learner: str, kind: str):
 def prior(ctx, data, target, learner, space_path, output, keep_columns, as_json):
     """Build a prior for a new dataset DATA from similar past studies."""
     from warmstart.archive.store import fingerprint
-    from warmstart.profile import detect_kind, profile
+    from warmstart.profile import detect_kind
 
     from warmstart.cli.remote import server_client
 
@@ -70,7 +72,7 @@ def prior(ctx, data, target, learner, space_path, output, keep_columns, as_json)
     client = server_client(ctx)
     kind = detect_kind(frame[target])
     space = resolve_space(space_path, learner, kind)
-    prof = profile(frame, target=target, keep_columns=keep_columns)
+    prof = profile_table(frame, target, data, kind, keep_columns)
     if client is not None:  # built by the service from its archive; the data stays here
         found = client.prior(prof, learner, space=space.to_dict(), kind=kind,
                              exclude_fingerprint=fingerprint(frame, target))
@@ -88,7 +90,10 @@ def prior(ctx, data, target, learner, space_path, output, keep_columns, as_json)
         print_json(built.provenance)
         return
     if same:
-        click.echo(f"(this dataset is already in the archive as task id {same}; its own studies were left out)")
+        names = tasks.set_index("task_id")["name"]
+        which = ", ".join(f"{t} ({names[t]!r})" for t in same)
+        click.echo(f"This dataset is already in the archive as task {which}, so that task's own studies were "
+                   "left out of the prior.")
     click.echo(built.summary(n=8))
     if output:
         click.echo(f"prior written to {output}")
@@ -208,7 +213,7 @@ def _live(archive, data, target, learners, only_tasks, metric, cv, budgets, repe
     from warmstart.archive.store import fingerprint
     from warmstart.evaluate.learners import cv_objective
     from warmstart.gain.live import live_gain
-    from warmstart.profile import detect_kind, profile
+    from warmstart.profile import detect_kind
 
     if not data or not target:
         fail("a live comparison needs both --data FILE and --target COL")
@@ -224,7 +229,7 @@ def _live(archive, data, target, learners, only_tasks, metric, cv, budgets, repe
                              keep_columns=keep_columns)
     tasks = archive.tasks()
     same = tasks.loc[tasks["fingerprint"] == fingerprint(frame, target), "task_id"].tolist()
-    prof = profile(frame, target=target, keep_columns=keep_columns)
+    prof = profile_table(frame, target, data, kind, keep_columns)
     prior = archive.build_prior(prof, learner=learner, space=objective.space, exclude_tasks=same)
     if not as_json:
         click.echo(f"live: {learner} on {Path(data).name} ({kind}), {cv}-fold {objective.metric}; "
@@ -259,6 +264,7 @@ def _show(results, gamma, report_path, as_json) -> None:
                      "pooled": r.pooled.to_dict(),
                      "tasks": r.to_frame().to_dict(orient="records")} for r in results])
         return
+    click.echo(bits_in_words(gamma))  # once, before the first figures
     for r in results:
         frame = r.to_frame()
         cols = ["task", "bits_warm", "bits_cold", "gain", "gain_low", "gain_high", "verdict"]
