@@ -188,11 +188,16 @@ def write_report(results, path: str | Path, title: str = "warmstart: transfer ga
         parts.append(f"<h2>{html.escape(r.learner)} — budget {r.budget}{how}, {r.repeats} runs per search</h2>")
         parts.append(_img(plot_gain_per_task(r), "gain per task"))
         parts.append(_img(plot_curves(r), "hit rate and regret curves"))
-        rows = [t.to_dict() for t in sorted(r.tasks, key=lambda t: -t.gain)]
+        rows = [{**t.to_dict(), "task": t.task + ("*" if t.smoothed else "")}
+                for t in sorted(r.tasks, key=lambda t: -t.gain)]
         tcols = ["task", "p", "bits_warm", "bits_cold", "gain", "gain_low", "gain_high", "verdict", "p_holm",
-                 "outcome", "first_hit_warm", "first_hit_cold", "smoothed"]
-        tcols += sorted({k for row in rows for k in row if k.startswith("bits_") and k not in tcols})
+                 "outcome", "first_hit_warm", "first_hit_cold"]
         parts.append(_table(rows, tcols))
+        # the baselines in a table of their own, so that each table fits the page
+        others = sorted({k for row in rows for k in row if k.startswith("bits_") and k not in tcols})
+        if others:
+            parts.append("<p class='note'>Baselines and hindsight figures on each task, bits over uniform:</p>"
+                         + _table(rows, ["task", "bits_warm", *others]))
     parts.append("</body></html>")
     if not path.parent.is_dir():  # never a chain of new folders
         raise WarmstartError(f"{path}: the directory {path.parent} does not exist; create it first, or give a "
