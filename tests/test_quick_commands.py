@@ -111,3 +111,29 @@ def test_show_lists_best_trials_first(archive_path):
     assert [int(r.split()[0]) for r in rows] == [2, 6, 4]
     header = lines[head].split()
     assert header[0] == "number" and header[-2:] == ["score", "cost_s"]
+
+
+def test_help_lists_every_command_without_loading_its_module():
+    # `warmstart --help` lists commands from cli.main.COMMAND_HELP; each line must be the
+    # command's own (the first line of its docstring), and no command module is imported
+    code = ("import sys\nfrom warmstart.cli import main\ntry:\n    main(['--help'])\nexcept SystemExit:\n    pass\n"
+            "print(sorted(m for m in sys.modules if m.startswith('warmstart.cli.') and m.endswith('_cmds')),"
+            f" [m for m in {HEAVY!r} if m in sys.modules])")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
+    assert out.strip().splitlines()[-1] == "[] []"
+    assert "tune" in out and "Tune LEARNER on DATA" in out
+
+
+def test_help_lines_agree_with_the_commands():
+    import importlib
+
+    import click
+
+    from warmstart.cli.main import COMMAND_HELP, COMMAND_MODULES
+
+    for module in set(COMMAND_MODULES.values()):
+        importlib.import_module(f"warmstart.cli.{module}")
+    assert set(COMMAND_HELP) == set(COMMAND_MODULES)
+    ctx = click.Context(main)
+    for name, line in COMMAND_HELP.items():
+        assert main.get_command(ctx, name).get_short_help_str(limit=1000) == line, name
