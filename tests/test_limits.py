@@ -163,6 +163,10 @@ def test_demo_output_in_a_missing_directory_names_it(tmp_path):
     result = run("demo", "--out", tmp_path / "nowhere" / "demo-out")
     assert_usage_error(result, "'--out'", f"the directory {tmp_path / 'nowhere'} does not exist")
     assert list(tmp_path.iterdir()) == []
+    (tmp_path / "notes.txt").write_text("mine")
+    result = run("demo", "--out", tmp_path / "notes.txt")
+    assert result.exit_code == 1 and "notes.txt: is a file; give a folder" in result.stderr, result.output
+    assert "Traceback" not in result.output and (tmp_path / "notes.txt").read_text() == "mine"
 
 
 def test_a_new_archive_may_create_its_own_folder_but_no_more(tmp_path):

@@ -226,6 +226,8 @@ def _fresh_archive_path(out: Path) -> Path:
     if not out.absolute().parent.is_dir():
         raise WarmstartError(f"{out}: the directory {out.absolute().parent} does not exist; create it first, "
                              "or give a folder in an existing directory")
+    if out.exists() and not out.is_dir():
+        raise WarmstartError(f"{out}: is a file; give a folder for the demo's archive and report")
     out.mkdir(exist_ok=True)
     db = out / "demo.duckdb"
     for stale in (db, Path(str(db) + ".wal")):
