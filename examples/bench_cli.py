@@ -21,7 +21,7 @@ import tempfile
 import time
 from pathlib import Path
 
-HEAVY = ("pandas", "scipy", "sklearn", "duckdb", "matplotlib")
+HEAVY = ("pandas", "scipy", "sklearn", "numpy", "duckdb", "matplotlib")
 CLI = [sys.executable, "-c", "from warmstart.cli import main; main()"]
 GOALS = {"--version": 0.3, "studies": 0.6, "show": 0.6}
 

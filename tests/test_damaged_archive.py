@@ -259,10 +259,10 @@ def assert_names_damage(result, path: Path, name: str) -> None:
 def test_every_command_on_a_damaged_archive_names_the_file_and_the_fix(files, inputs, kind, name, tmp_path):
     path = shutil.copyfile(files[kind], tmp_path / f"{kind.replace(' ', '_')}.duckdb")
     before = sha(path)
-    result = cli(path, *commands(files, tmp_path / "out")[name])
+    result = cli(path, *commands(files, tmp_path)[name])  # an export would go to tmp_path/export
     assert_names_damage(result, path, name)
     assert sha(path) == before  # never written
-    assert not (tmp_path / "out" / "export").exists()
+    assert not (tmp_path / "export").exists()
 
 
 @pytest.mark.parametrize("name", [n for n in commands({"data": "", "root": Path("."), "small": ""}) if n not in SLOW])
@@ -272,7 +272,7 @@ def test_a_block_the_command_does_not_read_gives_the_right_answer_or_the_message
     # (`gain` and `prior` are left out: were they not to read the block, they would run for minutes.)
     path = shutil.copyfile(files["key block flipped"], tmp_path / "key.duckdb")
     before = sha(path)
-    result = cli(path, *commands(files, tmp_path / "out")[name])
+    result = cli(path, *commands(files, tmp_path)[name])
     if result.exit_code == 0:
         assert name in READS, f"{name} wrote into a damaged archive or checked nothing: {result.output}"
         assert result.stdout == inputs[name]
@@ -283,7 +283,7 @@ def test_a_block_the_command_does_not_read_gives_the_right_answer_or_the_message
 
 def test_every_write_command_refuses_a_file_with_a_flipped_block(files, inputs, tmp_path):
     refused = []
-    for name, args in commands(files, tmp_path / "out").items():
+    for name, args in commands(files, tmp_path).items():
         path = shutil.copyfile(files["key block flipped"], tmp_path / "key.duckdb")
         if name not in READS and name not in SLOW:
             result = cli(path, *args)

@@ -19,7 +19,7 @@ def test_store_tables_are_reproducible_and_fit_for_profiling():
 
 def test_demo_runs_end_to_end(tmp_path):
     out = tmp_path / "demo"
-    res = CliRunner().invoke(main, ["demo", "--out", str(out), "--stores", "4", "--configs", "12", "--budget", "4",
+    res = CliRunner().invoke(main, ["demo", "--out", str(out), "--stores", "4", "--configs", "20", "--budget", "4",
                                     "--repeats", "2", "--workers", "1"])
     assert res.exit_code == 0, res.output
     text = res.stdout
@@ -27,8 +27,21 @@ def test_demo_runs_end_to_end(tmp_path):
     for step in ("1. Building a tuning history", "3. Its nearest past stores", "4. The prior built from them",
                  "gain of warm over cold", "6. Does transfer help"):
         assert step in text
+    # a bit is explained once, in plain words, before the first figures in bits
+    assert text.count("+1 bit = twice as likely per query") == 1
+    assert text.index("+1 bit = twice") < text.index("warm: ")
+    # the neighbors: a header, a rule and one aligned line per store (numbers right-aligned)
+    lines = text.splitlines()
+    head = lines.index(next(line for line in lines if line.startswith("3. Its nearest past stores"))) + 1
+    table = lines[head:head + 2 + 4]  # 4 history stores
+    assert table[0].split() == ["store", "distance", "similarity", "best"]
+    assert set(table[1].strip()) == {"-", " "}
+    assert len({len(line) for line in table}) == 1, table  # every column lines up
+    # the prior's figures come with their meaning
+    assert "effective: the studies' weights count as much as" in text and "strength n0 = effective x" in text
     html = (out / "report.html").read_text()
     assert html.count("<img") >= 4 and "Larkspur" in html
+    assert ">None<" not in html and ">nan<" not in html.lower()  # missing cells show a dash
     assert (out / "demo.duckdb").exists()
     # the command hands its progress bars to the demo: one per long step, on stderr
     for bar in ("  history [", "  live [", "  replay ["):

@@ -101,6 +101,8 @@ def test_prior_and_gain_commands(archive_path, tmp_path):
                                "--space", str(space_file), "-o", str(out)])
     assert res.exit_code == 0, res.output
     assert "prior over 3 parameter(s) from 8 past studies" in res.stdout
+    for word in ("  effective: ", "  agreement: ", "  strength n0 = effective x agreement"):  # each figure explained
+        assert word in res.stdout
     prior = Prior.load(str(out))
     assert prior.provenance["n_studies"] == 8
     report = tmp_path / "gain.html"
@@ -108,8 +110,12 @@ def test_prior_and_gain_commands(archive_path, tmp_path):
                                "--repeats", "3", "--report", str(report)])
     assert res.exit_code == 0, res.output
     assert "pooled over 8 tasks" in res.stdout and "budget 8" in res.stdout
+    # what a bit means, once, before the first table
+    assert res.stdout.count("+1 bit = twice as likely per query") == 1
+    assert res.stdout.index("+1 bit = twice") < res.stdout.index("budget 5")
     html = report.read_text()
     assert html.count("<img") >= 4 and "family task 3" in html
+    assert ">None<" not in html and ">nan<" not in html.lower() and "+1 bit = twice as likely" in html
     res = runner.invoke(main, ["--archive", archive_path, "gain", "--learner", "toy", "--budget", "5", "--repeats",
                                "3", "--json"])
     assert res.exit_code == 0
@@ -120,7 +126,7 @@ def test_prior_and_gain_commands(archive_path, tmp_path):
 @pytest.mark.parametrize("args, message", [
     (["gain", "--learner", "nope"], "no studies of learner 'nope'"),
     (["gain", "--budget", "a,b"], "not a comma-separated list"),
-    (["gain", "--budget", "0"], "budgets must be whole numbers >= 1"),
+    (["gain", "--budget", "0"], "each budget must be a whole number from 1 to 1,000"),
 ])
 def test_gain_bad_input(archive_path, args, message):
     res = CliRunner().invoke(main, ["--archive", archive_path] + args)

@@ -70,7 +70,7 @@ def test_too_few_runs_give_no_interval_and_say_so():
     assert queries_text(float("inf")) == "never" and queries_text(3.0) == "3"
 
 
-def test_prior_output_into_a_new_folder_and_a_csv_given_as_archive(tmp_path):
+def test_prior_output_only_into_an_existing_folder_and_a_csv_given_as_archive(tmp_path):
     frame = _iris()
     data = tmp_path / "iris.csv"
     frame.to_csv(data, index=False)
@@ -81,7 +81,12 @@ def test_prior_output_into_a_new_folder_and_a_csv_given_as_archive(tmp_path):
         archive.ingest(trials, task="wine past", data=wine, target="target", learner="knn",
                        space=Space.from_dict({"params": {"n_neighbors": {"type": "integer", "low": 1, "high": 50}}}),
                        metric="accuracy")
-    out = tmp_path / "new" / "folder" / "prior.json"
+    out = tmp_path / "new" / "folder" / "prior.json"  # issue 17: never a chain of new folders
+    res = CliRunner().invoke(main, ["--archive", str(archive_path), "prior", str(data), "--target", "target",
+                                    "--learner", "knn", "-o", str(out)])
+    assert res.exit_code == 2 and f"the directory {tmp_path / 'new'} does not exist" in res.stderr, res.output
+    assert not (tmp_path / "new").exists()
+    (tmp_path / "new" / "folder").mkdir(parents=True)
     res = CliRunner().invoke(main, ["--archive", str(archive_path), "prior", str(data), "--target", "target",
                                     "--learner", "knn", "-o", str(out)])
     assert res.exit_code == 0, res.output

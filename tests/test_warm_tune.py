@@ -46,10 +46,10 @@ def test_tune_is_warm_when_related_studies_exist_and_cold_on_request(tmp_path):
     assert len([json.loads(line) for line in res.stdout.splitlines()]) == 2
 
 
-def test_tune_seeds_option_is_kept_with_the_study(tmp_path):
-    """`--seeds N` starts a warm study with a ranked list of N past configs (instead of
+def test_tune_ranked_first_option_is_kept_with_the_study(tmp_path):
+    """`--ranked-first N` starts a warm study with a ranked list of N past configs (instead of
     the mixture); `propose` rebuilds the study's search with the same N (real tables
-    from scikit-learn)."""
+    from scikit-learn). Its old name `--seeds` still works, with a note."""
     runner = CliRunner()
     archive = str(tmp_path / "a.duckdb")
     base = ["--archive", archive, "tune"]
@@ -58,12 +58,14 @@ def test_tune_seeds_option_is_kept_with_the_study(tmp_path):
     assert res.exit_code == 0, res.output
     iris = _csv(tmp_path, "iris", load_iris)
     res = runner.invoke(main, base + [iris, "--target", "target", "--learner", "knn", "--budget", "1", "--cv", "3",
-                                      "--seeds", "1", "--task", "iris one seed"])
+                                      "--ranked-first", "1", "--task", "iris one seed"])
     assert res.exit_code == 0, res.output
     assert "1 past config(s) first" in res.stderr
+    assert "deprecated" not in res.stderr
     res = runner.invoke(main, base + [iris, "--target", "target", "--learner", "knn", "--budget", "1", "--cv", "3",
-                                      "--seeds", "10", "--task", "iris ten seeds"])
+                                      "--seeds", "10", "--task", "iris ten seeds"])  # the old name
     assert res.exit_code == 0, res.output
+    assert "note: --seeds is deprecated and will go; it is now --ranked-first 10" in res.stderr
     with Archive(archive, read_only=True) as a:
         one, ten = a.study(2), a.study(3)
         first_one = a.trials(2)["config"][0]
@@ -79,8 +81,19 @@ def test_tune_seeds_option_is_kept_with_the_study(tmp_path):
     with Archive(archive, read_only=True) as a:
         past = [c for c in a.trials(1)["config"]]
     assert proposals[3] in past and proposals[2] not in past
-    bad = runner.invoke(main, base + [iris, "--target", "target", "--learner", "knn", "--seeds", "11"])
-    assert bad.exit_code != 0 and "--seeds" in bad.output and "Traceback" not in bad.output
+    bad = runner.invoke(main, base + [iris, "--target", "target", "--learner", "knn", "--ranked-first", "11"])
+    assert bad.exit_code == 2 and "'--ranked-first'" in bad.stderr and "0<=x<=10" in bad.stderr
+    both = runner.invoke(main, base + [iris, "--target", "target", "--learner", "knn", "--ranked-first", "2",
+                                       "--seeds", "2"])
+    assert both.exit_code == 2 and "give only --ranked-first" in both.stderr
+
+
+def test_tune_help_shows_ranked_first_beside_seed_and_hides_the_old_name():
+    out = CliRunner().invoke(main, ["tune", "--help"])
+    assert out.exit_code == 0
+    text = " ".join(out.stdout.split())  # click wraps the help
+    assert "--ranked-first N" in text and "(Not a random seed: that is --seed.)" in text
+    assert "--seeds" not in text
 
 
 # -- a warm study keeps the prior it started with --------------------------------------

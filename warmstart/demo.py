@@ -28,6 +28,7 @@ import numpy as np
 import pandas as pd
 
 from warmstart.archive import Archive
+from warmstart.errors import WarmstartError
 from warmstart.evaluate.learners import cv_objective, default_space
 from warmstart.evaluate.workers import map_jobs
 from warmstart.gain.bits import interval_text, queries_text
@@ -39,6 +40,7 @@ from warmstart.profile import profile
 from warmstart.search.static import FixedListSearch
 from warmstart.search.strategy import run_search
 from warmstart.space import Space
+from warmstart.text import bits_in_words, table_lines
 
 __all__ = ["StoreTraits", "store_traits", "store_table", "demo_space", "run_demo", "ORGANISATION"]
 
@@ -219,8 +221,14 @@ def run_demo(
 
 
 def _fresh_archive_path(out: Path) -> Path:
-    """``out/demo.duckdb``, with any previous demo archive (and its WAL) removed."""
-    out.mkdir(parents=True, exist_ok=True)
+    """``out/demo.duckdb``, with any previous demo archive (and its WAL) removed;
+    ``out`` is created if missing, inside a directory that exists."""
+    if not out.absolute().parent.is_dir():
+        raise WarmstartError(f"{out}: the directory {out.absolute().parent} does not exist; create it first, "
+                             "or give a folder in an existing directory")
+    if out.exists() and not out.is_dir():
+        raise WarmstartError(f"{out}: is a file; give a folder for the demo's archive and report")
+    out.mkdir(exist_ok=True)
     db = out / "demo.duckdb"
     for stale in (db, Path(str(db) + ".wal")):
         if stale.exists():
@@ -251,10 +259,12 @@ def _meet_new_store(archive: Archive, new: StoreTraits, table: pd.DataFrame, spa
     shown = ["log_rows", "log_features", "class_entropy", "minority_share", "landmark_1nn", "landmark_lda"]
     echo("   profile: " + ", ".join(f"{k} {prof[k]:.3g}" for k in shown if k in prof))
     neigh = archive.neighbors(prof, learner=learner, k=5)
-    echo("\n3. Its nearest past stores:")
+    echo("\n3. Its nearest past stores (profile distance; similarity: the weight a prior gives each store's "
+         "study; best: its best score):")
     cols = [c for c in ("task", "distance", "similarity", "best_score") if c in neigh.columns]
-    for row in neigh[cols].itertuples(index=False):
-        echo("   " + "  ".join(f"{v:.3f}" if isinstance(v, float) else str(v) for v in row))
+    headers = {"task": "store", "best_score": "best"}
+    for line in table_lines([headers.get(c, c) for c in cols], list(neigh[cols].itertuples(index=False)), digits=3):
+        echo("   " + line)
     built = archive.build_prior(prof, learner=learner, space=space)
     echo("\n4. The prior built from them:")
     echo("\n".join("   " + line for line in built.summary(n=3).splitlines()))
@@ -271,6 +281,7 @@ def _live_step(new: StoreTraits, table: pd.DataFrame, space: Space, learner: str
     live = live_gain(space, objective, prior, budget=budget, repeats=repeats, seed=seed, workers=workers,
                      task=new.name, learner=f"{learner} (live, {new.name})", progress=progress)
     t = live.tasks[0]
+    echo(f"   ({bits_in_words(live.gamma)})")
     echo(f"   warm: {t.bits_warm:+.2f} bits over uniform, cold: {t.bits_cold:+.2f} bits")
     echo(f"   gain of warm over cold: {t.gain:+.2f} bits ({interval_text(t.gain_low, t.gain_high)}; "
          f"{t.verdict}){' [a search never hit: smoothed]' if t.smoothed else ''}")

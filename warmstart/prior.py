@@ -354,14 +354,27 @@ class Prior:
             "centres": centres,
         }
 
-    def summary(self, n: int = 5) -> str:
-        """A few readable lines: where the prior comes from and how strong it is."""
+    def summary(self, n: int = 5, legend: bool = True) -> str:
+        """A few readable lines: where the prior comes from and how strong it is.
+
+        The first line carries the figures; with ``legend`` (default) three
+        short lines say what effective, agreement and strength n0 mean.
+        """
         p = self.provenance
         lines = [
             f"prior over {self.space.dim} parameter(s) from {p['n_studies']} past studies "
             f"(effective {p['effective_studies']:.1f}, agreement {p['agreement']:.2f}, strength n0 = {p['strength']:.1f})",
-            "heaviest sources:",
         ]
+        if legend:
+            lines += [
+                f"  effective: the studies' weights count as much as {p['effective_studies']:.1f} equally weighted "
+                "studies",
+                "  agreement: how alike those studies rank configs (weighted rank correlation: 1 = the same order, "
+                "0 = unrelated)",
+                f"  strength n0 = effective x agreement (at most {MAX_STRENGTH:g}): in a density search the prior "
+                f"counts as {p['strength']:.1f} trials, its share n0 / (n0 + n) fading as n trials are recorded",
+            ]
+        lines.append("heaviest sources:")
         for r in p["neighbors"][:n]:
             dist = "" if r["distance"] is None else f", distance {r['distance']:.2f}"
             lines.append(f"  study {r['study_id']} on {r['task']!r}: weight {r['weight']:.3f}{dist}")
@@ -456,11 +469,13 @@ class Prior:
         return cls.from_dict(d, where=where)
 
     def save(self, path: str) -> None:
-        """Write the prior as JSON (missing parent folders are created, as for reports)."""
+        """Write the prior as JSON, into a directory that exists."""
         from pathlib import Path
 
+        if not Path(path).absolute().parent.is_dir():  # never a chain of new folders
+            raise PriorError(f"{path}: the directory {Path(path).absolute().parent} does not exist; create it "
+                             "first, or give a file in an existing directory")
         try:
-            Path(path).parent.mkdir(parents=True, exist_ok=True)
             with open(path, "w", encoding="utf-8") as fh:
                 fh.write(self.to_json())
         except OSError as exc:

@@ -19,22 +19,27 @@ from __future__ import annotations
 import contextlib
 import hashlib
 import json
+import math
 import os
 import uuid
 from datetime import datetime, timezone
 from importlib import resources
 from pathlib import Path
-from typing import Any, Iterator, Mapping
+from typing import TYPE_CHECKING, Any, Iterator, Mapping
 
 import duckdb
-import numpy as np
-import pandas as pd
 
 from warmstart.archive.faults import archive_error, check_blocks, damaged_error, first_line, translated
-from warmstart.archive.ingest import param_columns, prepare_trials, study_direction
 from warmstart.archive.location import DEFAULT_ARCHIVE, default_archive_path
 from warmstart.errors import ArchiveError
-from warmstart.space import Space
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+    from warmstart.space import Space
+
+# numpy, pandas and the modules that need them (space, ingest) are imported where a method uses
+# them: opening an archive and listing its studies (`warmstart studies`) stay quick.
 
 __all__ = [
     "Archive", "SCHEMA_VERSION", "DEFAULT_ARCHIVE", "ARCHIVE_TABLES", "DATA_TABLES", "default_archive_path",
@@ -65,6 +70,8 @@ def fingerprint(frame: pd.DataFrame, target: str) -> str:
     Row order matters; the index does not. Uses pandas' vectorised row
     hashing, so a million rows take well under a second.
     """
+    import pandas as pd
+
     h = hashlib.sha256()
     h.update(json.dumps([str(c) for c in frame.columns]).encode())
     h.update(json.dumps([str(t) for t in frame.dtypes]).encode())
@@ -199,7 +206,7 @@ class Archive:
             return self.con.execute(sql, params or []).fetchall()
 
     def _df(self, sql: str, params: Any = None) -> pd.DataFrame:
-        with translated(self.path):
+        with translated(self.path):  # DuckDB imports pandas for .df()
             return self.con.execute(sql, params or []).df()
 
     def _check_not_cut_short(self) -> None:
@@ -408,9 +415,11 @@ class Archive:
 
     def _write_profile(self, task_id: int, prof: Mapping[str, float], version: str) -> None:
         values = {str(k): float(v) for k, v in prof.items()}
-        bad = [k for k, v in values.items() if not np.isfinite(v)]
+        bad = [k for k, v in values.items() if not math.isfinite(v)]
         if bad:
             raise ArchiveError(f"profile of task {task_id} has non-finite value(s) for {bad}")
+        import pandas as pd
+
         frame = pd.DataFrame(
             {"task_id": task_id, "feature": list(values), "value": list(values.values()), "version": version}
         )
@@ -436,6 +445,8 @@ class Archive:
     def profiles(self) -> pd.DataFrame:
         """Profiles as a wide table: index task_id, one column per meta-feature,
         plus ``profile_version``."""
+        import pandas as pd
+
         long = self._df("SELECT task_id, feature, value, version FROM profiles")
         if long.empty:
             return pd.DataFrame(index=pd.Index([], name="task_id", dtype="int64"))
@@ -472,6 +483,8 @@ class Archive:
             raise ArchiveError(f"no space with id {space_id} in {self.path}")
         d = json.loads(rows[0][0])
         d["learner"] = rows[0][1]
+        from warmstart.space import Space
+
         return Space.from_dict(d, where=f"space {space_id}")
 
     def add_study(
@@ -536,12 +549,36 @@ class Archive:
         frame["tags"] = [json.loads(t) if isinstance(t, str) else {} for t in frame["tags"]]
         return frame
 
+    def _records(self, sql: str, params: Any = None) -> list[dict]:
+        """Rows of one statement as dicts keyed by column name (no pandas)."""
+        with translated(self.path):
+            cursor = self.con.execute(sql, params or [])
+            names = [d[0] for d in cursor.description]
+            return [dict(zip(names, row)) for row in cursor.fetchall()]
+
+    def study_rows(self) -> list[dict]:
+        """The rows of :meth:`studies` as plain dicts (no pandas: quick listings).
+
+        A study without successful trials has ``best_score`` None; ``tags``
+        is a dict.
+        """
+        rows = self._records(self._STUDY_SQL + " ORDER BY s.study_id")
+        for row in rows:
+            del row["prior"]
+            row["tags"] = json.loads(row["tags"]) if isinstance(row["tags"], str) else {}
+        return rows
+
     def study(self, study: int) -> dict:
-        """One study as a dict, with its ``space`` (Space) and ``prior`` (dict or None)."""
-        frame = self._df(self._STUDY_SQL + " WHERE s.study_id = ?", [int(study)])
-        if frame.empty:
+        """One study as a dict, with its ``space`` (Space) and ``prior`` (dict or None).
+
+        ``best_score`` is NaN when no trial succeeded.
+        """
+        rows = self._records(self._STUDY_SQL + " WHERE s.study_id = ?", [int(study)])
+        if not rows:
             raise ArchiveError(f"no study with id {study} in {self.path}; `warmstart studies` lists them")
-        row = frame.iloc[0].to_dict()
+        row = rows[0]
+        if row["best_score"] is None:
+            row["best_score"] = float("nan")
         row["tags"] = json.loads(row["tags"]) if isinstance(row["tags"], str) else {}
         row["prior"] = json.loads(row["prior"]) if isinstance(row["prior"], str) else None
         row["space"] = self.space(int(row["space_id"]))
@@ -582,6 +619,8 @@ class Archive:
         int
             Number of trials added.
         """
+        from warmstart.archive.ingest import prepare_trials
+
         space, fp, learner = self._study_keys(study)
         prepared = prepare_trials(space, frame, where=where, metric=self._study_metric(study))
         with self.transaction():
@@ -606,12 +645,16 @@ class Archive:
         ``fold_scores`` (finite numbers) are the per-fold scores of a
         cross-validated objective.
         """
+        import pandas as pd
+
+        from warmstart.archive.ingest import prepare_trials
+
         space, fp, learner = self._study_keys(study)
         config = space.normalize(config)
         folds = _fold_scores(fold_scores, f"trial of study {study}")
         row: dict[str, Any] = {name: [config.get(name)] for name in space.names}
         row.update(
-            score=[np.nan if score is None else score], status=[status], cost_s=[cost_s],
+            score=[math.nan if score is None else score], status=[status], cost_s=[cost_s],
             started_at=[started_at], finished_at=[finished_at or utc_now()], error=[error],
         )
         prepared = prepare_trials(space, pd.DataFrame(row), where=f"trial of study {study}",
@@ -631,6 +674,8 @@ class Archive:
         (study, fingerprint, learner) comes before the sub-query that holds the
         JSON keys.
         """
+        from warmstart.archive.ingest import param_columns
+
         cols = param_columns(space)
         order = sorted(range(space.dim), key=lambda j: space.params[j].name)
         parts, keys = [], []
@@ -641,7 +686,7 @@ class Archive:
         config_sql = "'{' || concat_ws(',', " + ", ".join(parts) + ") || '}'"
         con = self.con
         start = int(con.execute("SELECT coalesce(max(number), 0) FROM trials WHERE study_id = ?", [study]).fetchall()[0][0])
-        numbered = prepared.assign(_number=np.arange(start + 1, start + len(prepared) + 1, dtype=np.int64))
+        numbered = prepared.assign(_number=range(start + 1, start + len(prepared) + 1))
         view = f"_incoming_{uuid.uuid4().hex}"
         con.register(view, numbered)
         folds = "fold_scores" if "fold_scores" in prepared.columns else "NULL"  # one of two fixed names
@@ -683,8 +728,21 @@ class Archive:
         frame["config"] = [json.loads(c) for c in frame["config"]]
         return frame
 
+    def trial_rows(self, study: int) -> list[dict]:
+        """Trials of a study as plain dicts (no pandas): number, config (dict),
+        score (None when failed), status, cost_s, error; by number."""
+        rows = self._records(
+            "SELECT number, config, score, status, cost_s, error FROM trials WHERE study_id = ? ORDER BY number",
+            [int(study)],
+        )
+        for row in rows:
+            row["config"] = json.loads(row["config"])
+        return rows
+
     def trial_table(self, study: int) -> pd.DataFrame:
         """Trials of a study with one column per parameter (inactive = missing)."""
+        import pandas as pd
+
         frame = self.trials(study)
         space = self.space(int(self._q("SELECT space_id FROM studies WHERE study_id = ?", [int(study)])[0][0]))
         values = pd.DataFrame(list(frame["config"]), columns=space.names, index=frame.index)
@@ -718,6 +776,7 @@ class Archive:
         -------
         (task_id, study_id, trial_count)
         """
+        from warmstart.archive.ingest import prepare_trials, study_direction
         from warmstart.profile import PROFILE_VERSION, detect_kind
         from warmstart.profile import profile as compute_profile
 
@@ -773,7 +832,7 @@ def _fold_scores(values: Any, where: str) -> list[float] | None:
         folds = [float(v) for v in values]
     except (TypeError, ValueError):
         raise ArchiveError(f"{where}: fold_scores must be a list of numbers, got {values!r}") from None
-    if not all(np.isfinite(folds)):
+    if not all(map(math.isfinite, folds)):
         raise ArchiveError(f"{where}: fold_scores must be finite numbers, got {folds}")
     return folds or None
 

@@ -3,17 +3,25 @@
 
 from __future__ import annotations
 
+import math
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import click
-import pandas as pd
 
 from warmstart.cli.common import (
-    fail, get_archive, json_option, keep_column_option, parse_tags, print_json, print_table, read_data,
+    fail, get_archive, json_option, keep_column_option, parse_tags, print_json, print_rows, read_data,
     strict_option,
 )
 from warmstart.cli.main import main
-from warmstart.space import Space
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+    from warmstart.space import Space
+
+# `studies` and `show` format DuckDB's rows themselves: this module imports no pandas,
+# so they answer in a fraction of a second (examples/bench_cli.py).
 
 
 @main.command()
@@ -42,6 +50,8 @@ def init(ctx: click.Context, starter: bool, starter_learners: tuple[str, ...]) -
 
 
 def _load_space(space_path: str | None, learner: str, data: pd.DataFrame, target: str) -> Space:
+    from warmstart.space import Space
+
     if space_path:
         return Space.load(space_path)
     try:
@@ -156,21 +166,19 @@ def studies(ctx, learner, task, owner, tags, as_json):
                        "and `warmstart ingest` or `warmstart tune` fill it")
         return
     archive = get_archive(ctx, write=False)
-    frame = everything = archive.studies()
-    if learner:
-        frame = frame[frame["learner"] == learner]
-    if task:
-        frame = frame[frame["task"] == task]
-    if owner is not None or tags:
-        from warmstart.archive.curate import filter_studies
-
-        frame = filter_studies(frame, owner=owner, tags=parse_tags(tags))
+    everything = archive.study_rows()
+    wanted = {"learner": learner, "task": task, "owner": owner}
+    want_tags = parse_tags(tags)
+    # the filters of warmstart.archive.labels.filter_studies (exact matches; every tag given), on plain rows
+    rows = [row for row in everything
+            if all(value is None or row[key] == value for key, value in wanted.items())
+            and all(row["tags"].get(k) == v for k, v in want_tags.items())]
     cols = ["study_id", "task", "learner", "metric", "direction", "origin", "trial_count", "best_score", "owner", "tags", "created_at"]
     filtered = bool(learner or task or owner is not None or tags)
     empty = ("no study matches these filters (`warmstart studies` without filters lists them all)"
-             if filtered and len(everything) else
+             if filtered and everything else
              "no studies yet: add some with `warmstart ingest` or `warmstart tune`")
-    print_table(frame[cols], as_json, empty=empty)
+    print_rows(rows, cols, as_json, empty=empty)
 
 
 @main.command()
@@ -187,29 +195,36 @@ def show(ctx, study, top, as_json):
         return show_study(client, study, top, as_json)
     archive = get_archive(ctx, write=False)
     row = archive.study(study)
-    table = archive.trial_table(study)
-    ok = table[table["status"] == "ok"].sort_values("score", ascending=not row["maximize"])
-    if top:
-        ok = ok.head(top)
     if as_json:
         info = {k: v for k, v in row.items() if k != "space"}
         info["space"] = row["space"].to_dict()
         info["trials"] = archive.trial_table(study).drop(columns=["content_key"]).to_dict(orient="records")
         print_json(info)
         return
+    trials = archive.trial_rows(study)
+    ok = [t for t in trials if t["status"] == "ok"]
+    ok.sort(key=lambda t: t["score"], reverse=row["maximize"])  # stable: ties keep trial order
+    if top:
+        ok = ok[:top]
     click.echo(f"study {row['study_id']}: {row['learner']} on task {row['task']!r} ({row['origin']})")
     click.echo(f"  metric    {row['metric']} ({row['direction']})")
     click.echo(f"  trials    {row['trial_count']} ({row['trial_count'] - row['n_ok']} failed)")
-    failed = table.loc[table["status"] == "failed", "error"].fillna("no error text")
-    for text, n in failed.value_counts().head(2).items():  # why trials failed, most common first
+    failed: dict[str, int] = {}
+    for t in trials:
+        if t["status"] == "failed":
+            text = t["error"] or "no error text"
+            failed[text] = failed.get(text, 0) + 1
+    for text, n in sorted(failed.items(), key=lambda item: -item[1])[:2]:  # why trials failed, most common first
         click.echo(f"  failure   {n} x {text}")
     best = row["best_score"]
-    click.echo(f"  best      {best:.4g}" if pd.notna(best) else "  best      -")
+    click.echo(f"  best      {best:.4g}" if not math.isnan(best) else "  best      -")
     if row["owner"]:
         click.echo(f"  owner     {row['owner']}")
     if row["tags"]:
         click.echo("  tags      " + ", ".join(f"{k}={v}" for k, v in row["tags"].items()))
     click.echo("  space     " + "; ".join(f"{p.name}: {p.describe()}" for p in row["space"]))
     click.echo("")
-    cols = ["number"] + row["space"].names + ["score", "cost_s"]
-    print_table(ok[cols], empty="no successful trials")
+    names = row["space"].names
+    cols = ["number"] + names + ["score", "cost_s"]
+    print_rows([{**{n: None for n in names}, **t["config"], **t} for t in ok], cols,
+               empty="no successful trials")

@@ -7,18 +7,26 @@ import json
 import math
 import shlex
 import signal
+import sys
 import threading
-from typing import Any
+from typing import TYPE_CHECKING, Any, Sequence
 
 import click
-import numpy as np
-import pandas as pd
 
-from warmstart.archive.store import Archive
+from warmstart.text import is_missing, table_lines
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+    from warmstart.archive.store import Archive
+
+# No pandas, numpy or DuckDB at import: `studies`, `show` and `--version` load only what they use
+# (tests/test_quick_commands.py). A value of numpy or pandas type can only exist once that library
+# was imported, so to_jsonable looks for those types in sys.modules (and warmstart.text's cells too).
 
 __all__ = [
-    "get_archive", "print_table", "print_json", "fail", "json_option", "keep_column_option", "parse_tags", "read_data",
-    "strict_option", "to_jsonable",
+    "get_archive", "print_table", "print_rows", "print_json", "profile_table", "PROGRESS_CELLS", "fail", "json_option", "keep_column_option",
+    "parse_tags", "read_data", "strict_option", "to_jsonable",
 ]
 
 json_option = click.option("--json", "as_json", is_flag=True, help="Print JSON instead of a table.")
@@ -53,11 +61,16 @@ def get_archive(ctx: click.Context, write: bool = True) -> Archive:
     when the command ends. ``write=False`` opens it read-only."""
     root = ctx.find_root()
     root.ensure_object(dict)
+    from warmstart.archive.store import Archive
+    from warmstart.cli.limits import check_archive_folder
+
     cached = root.obj.get("archive")
     if cached is not None and (write is False or not cached.read_only):
         return cached
     if cached is not None:
         cached.close()
+    if write:
+        check_archive_folder(root.obj["archive_path"])
     archive = Archive(root.obj["archive_path"], read_only=not write)
     root.obj["archive"] = archive
     root.call_on_close(archive.close)
@@ -89,21 +102,18 @@ def to_jsonable(value: Any) -> Any:
         return {str(k): to_jsonable(v) for k, v in value.items()}
     if isinstance(value, (list, tuple)):
         return [to_jsonable(v) for v in value]
-    if isinstance(value, np.generic):
-        value = value.item()
+    np = sys.modules.get("numpy")
+    if np is not None:
+        if isinstance(value, np.generic):
+            value = value.item()
+        elif isinstance(value, np.ndarray):
+            return [to_jsonable(v) for v in value.tolist()]
     if isinstance(value, float):
         return value if math.isfinite(value) else None
-    if value is None or value is pd.NaT:
+    if is_missing(value):
         return None
-    if isinstance(value, pd.Timestamp):
-        return value.isoformat()
     if hasattr(value, "isoformat"):
         return value.isoformat()
-    try:
-        if pd.isna(value):
-            return None
-    except (TypeError, ValueError):
-        pass
     return value
 
 
@@ -112,18 +122,40 @@ def print_json(value: Any) -> None:
     click.echo(json.dumps(to_jsonable(value), indent=2))
 
 
-def _cell(value: Any) -> str:
-    if isinstance(value, dict):
-        return ",".join(f"{k}={v}" for k, v in value.items()) if value else ""
-    if isinstance(value, float):
-        if math.isnan(value):
-            return "-"
-        return f"{value:.4g}"
-    if value is None or value is pd.NaT:
-        return "-"
-    if isinstance(value, pd.Timestamp):
-        return value.strftime("%Y-%m-%d %H:%M")
-    return str(value)
+#: a table of at least this many cells is profiled with a progress bar on stderr (a few seconds)
+PROGRESS_CELLS = 200_000
+
+
+def profile_table(frame: pd.DataFrame, target: str, path: str, kind: str | None = None,
+                  keep_columns=()) -> dict[str, float]:
+    """The profile of a data table read from ``path``; a big table (``PROGRESS_CELLS``)
+    gets a progress bar on stderr, one step per group of meta-features."""
+    from warmstart.cli.progress import Progress
+    from warmstart.profile import detect_kind, profile
+
+    kind = kind or detect_kind(frame[target])
+    if frame.shape[0] * frame.shape[1] < PROGRESS_CELLS:
+        return profile(frame, target=target, kind=kind, keep_columns=keep_columns)
+    steps = 5 if kind == "regression" else 4  # groups reported by profile(progress=...)
+    bar = Progress(f"profiling {path} ({frame.shape[0]:,} rows x {frame.shape[1]} columns)")
+    bar(0, steps)
+    done = iter(range(1, steps + 1))
+    return profile(frame, target=target, kind=kind, keep_columns=keep_columns,
+                   progress=lambda group: bar(min(next(done, steps), steps), steps))
+
+
+def print_rows(rows: Sequence[dict], columns: Sequence[str], as_json: bool = False,
+               empty: str = "(nothing to show)") -> None:
+    """Print plain rows (dicts) as an aligned text table of ``columns``, or as
+    JSON records of those columns; no pandas needed."""
+    if as_json:
+        print_json([{c: row.get(c) for c in columns} for row in rows])
+        return
+    if not rows:
+        click.echo(empty)
+        return
+    for text in table_lines(columns, [[row.get(c) for c in columns] for row in rows]):
+        click.echo(text)
 
 
 def print_table(frame: pd.DataFrame, as_json: bool = False, empty: str = "(nothing to show)") -> None:
@@ -134,19 +166,11 @@ def print_table(frame: pd.DataFrame, as_json: bool = False, empty: str = "(nothi
     if frame.empty:
         click.echo(empty)
         return
-    cells = [[_cell(v) for v in row] for row in frame.itertuples(index=False)]
-    headers = [str(c) for c in frame.columns]
-    widths = [max([len(h)] + [len(r[j]) for r in cells]) for j, h in enumerate(headers)]
-    numeric = [pd.api.types.is_numeric_dtype(frame[c]) for c in frame.columns]
+    from pandas.api.types import is_numeric_dtype
 
-    def line(values: list[str]) -> str:
-        parts = [v.rjust(w) if num else v.ljust(w) for v, w, num in zip(values, widths, numeric)]
-        return "  ".join(parts).rstrip()
-
-    click.echo(line(headers))
-    click.echo("  ".join("-" * w for w in widths))
-    for row in cells:
-        click.echo(line(row))
+    numeric = [is_numeric_dtype(frame[c]) for c in frame.columns]
+    for text in table_lines(list(frame.columns), list(frame.itertuples(index=False)), numeric):
+        click.echo(text)
 
 
 def read_data(path: str, target: str | None = None, echo_notes: bool = True, keep_columns=(),

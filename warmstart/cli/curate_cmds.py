@@ -22,6 +22,7 @@ from warmstart.archive.exchange import export_archive, import_export
 from warmstart.archive.faults import translated
 from warmstart.archive.merge import MERGE_STEPS, merge_archive
 from warmstart.cli.common import get_archive, json_option, parse_tags, print_json, print_table
+from warmstart.cli.limits import OutputFolder
 from warmstart.cli.main import main
 from warmstart.errors import ArchiveDamagedError, ArchiveError, ArchiveLockedError
 
@@ -304,13 +305,13 @@ def prune(ctx, failed, before, learner, tags, owner, yes, as_json):
 
 
 @curate.command("export")
-@click.argument("directory", metavar="DIR")
+@click.argument("directory", metavar="DIR", type=OutputFolder())
 @json_option
 @click.pass_context
 def export_cmd(ctx, directory, as_json):
     """Export the archive to DIR as Parquet partitioned by learner, plus a manifest.
 
-    DIR must be new (or empty). DuckDB queries the store in place, e.g.
+    DIR must be new (or empty), in a directory that exists. DuckDB queries the store in place, e.g.
     SELECT * FROM read_parquet('DIR/trials/**/*.parquet', hive_partitioning = true).
     """
     archive = get_archive(ctx, write=False)

@@ -27,6 +27,28 @@ COMMAND_MODULES = {
     "serve": "serve_cmds",
 }
 
+#: each command's one-line help, so that ``warmstart --help`` lists the commands without
+#: importing their modules (seconds of pandas, SciPy and scikit-learn); it is the first line
+#: of the command's docstring (tests/test_quick_commands.py checks that they agree)
+COMMAND_HELP = {
+    "curate": "Check, clean up, merge, prune, export, import and salvage the archive.",
+    "defaults": "List configs of a learner that ranked well across many past tasks.",
+    "demo": "Run the whole job on an invented grocery cooperative (fixed seed).",
+    "gain": "Measure, in bits, whether warm starts beat cold ones on your history.",
+    "ingest": "Add past TRIALS (one column per parameter plus 'score') as a study.",
+    "init": "Create the archive (or check an existing one) and print where it is.",
+    "neighbors": "List the past tasks most similar to DATA that have studies of a learner.",
+    "prior": "Build a prior for a new dataset DATA from similar past studies.",
+    "profile": "Print the meta-features of DATA (CSV, TSV, Parquet or JSON lines).",
+    "propose": "Propose the next config(s) of a STUDY whose trials run elsewhere.",
+    "record": "Record the result of one config of a STUDY (committed at once).",
+    "serve": "Serve the archive to the team over HTTP: one process owns the file.",
+    "show": "Show one STUDY (its id): task, space and its best trials.",
+    "studies": "List studies: task, learner, metric, trial count, best score.",
+    "tag": "Tag STUDY with KEY=VALUE pairs and/or set its owner.",
+    "tune": "Tune LEARNER on DATA and record every trial in the archive as it finishes.",
+}
+
 
 class _Group(click.Group):
     """The top group: loads a command's module on first use, and turns
@@ -44,6 +66,26 @@ class _Group(click.Group):
 
     def list_commands(self, ctx: click.Context) -> list[str]:
         return sorted(set(self.commands) | set(COMMAND_MODULES))
+
+    def format_commands(self, ctx: click.Context, formatter: click.HelpFormatter) -> None:
+        """The command list of ``--help``: a command not loaded yet shows its line of
+        :data:`COMMAND_HELP` (its module is not imported just to be listed)."""
+        names = self.list_commands(ctx)
+        if not names:
+            return
+        limit = formatter.width - 6 - max(len(name) for name in names)
+        rows = []
+        for name in names:
+            if name in self.commands or name not in COMMAND_HELP:
+                cmd = self.get_command(ctx, name)
+                if cmd is None or cmd.hidden:
+                    continue
+                rows.append((name, cmd.get_short_help_str(limit)))
+            else:
+                stand_in = click.Command(name, help=COMMAND_HELP[name])  # shortened as click shortens the real one
+                rows.append((name, stand_in.get_short_help_str(limit)))
+        with formatter.section("Commands"):
+            formatter.write_dl(rows)
 
     def invoke(self, ctx: click.Context):
         try:

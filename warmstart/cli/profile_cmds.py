@@ -3,19 +3,15 @@
 from __future__ import annotations
 
 import json
-import sys
-import time
 
 import click
 import pandas as pd
 
 from warmstart.cli.common import (
-    get_archive, json_option, keep_column_option, print_json, print_table, read_data, strict_option,
+    get_archive, json_option, keep_column_option, print_json, print_table, profile_table, read_data, strict_option,
 )
 from warmstart.cli.main import main
-from warmstart.profile import FEATURE_GROUPS, PROFILE_VERSION, detect_kind, profile
-
-PROGRESS_CELLS = 200_000  # show progress on stderr when the table has at least this many cells
+from warmstart.profile import FEATURE_GROUPS, PROFILE_VERSION, detect_kind
 
 _kind_option = click.option(
     "--kind",
@@ -29,17 +25,7 @@ def _profile_file(path: str, target: str, kind: str | None, keep_columns=()) -> 
     frame = read_data(path, target, keep_columns=keep_columns)
     kind = kind or detect_kind(frame[target])
     _warn_odd_target(frame[target], target, kind)
-    cells = frame.shape[0] * frame.shape[1]
-    if cells < PROGRESS_CELLS:
-        return profile(frame, target=target, kind=kind, keep_columns=keep_columns), kind
-    start = time.perf_counter()
-    label = f"profiling {path} ({frame.shape[0]:,} rows x {frame.shape[1]} columns)"
-    steps = 5 if kind == "regression" else 4  # groups reported by profile(progress=...)
-    with click.progressbar(length=steps, label=label, file=sys.stderr, show_eta=False) as bar:
-        prof = profile(frame, target=target, kind=kind, progress=lambda group: bar.update(1),
-                       keep_columns=keep_columns)
-    click.echo(f"profiled in {time.perf_counter() - start:.1f} s", err=True)
-    return prof, kind
+    return profile_table(frame, target, path, kind, keep_columns), kind
 
 
 def _warn_odd_target(y: pd.Series, target: str, kind: str) -> None:

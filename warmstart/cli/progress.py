@@ -7,7 +7,17 @@ import time
 
 import click
 
-__all__ = ["Progress"]
+__all__ = ["Progress", "duration_text"]
+
+
+def duration_text(seconds: float) -> str:
+    """A duration people read at a glance: ``42s``, ``7m05s``, ``3h12m``."""
+    seconds = max(0, int(round(seconds)))
+    if seconds < 60:
+        return f"{seconds}s"
+    if seconds < 3600:
+        return f"{seconds // 60}m{seconds % 60:02d}s"
+    return f"{seconds // 3600}h{seconds % 3600 // 60:02d}m"
 
 
 class Progress:
@@ -31,6 +41,7 @@ class Progress:
         self.start = time.monotonic()
         self.tty = sys.stderr.isatty()
         self._last_tenth = -1
+        self._shown = 0  # length of the line last drawn in place
 
     def __call__(self, done: int, total: int) -> None:
         if not self.enabled:
@@ -41,11 +52,12 @@ class Progress:
             return
         self._last_tenth = tenth
         elapsed = time.monotonic() - self.start
-        left = f"{elapsed / done * (total - done):4.0f}s left" if done else "   ? left"
+        left = duration_text(elapsed / done * (total - done)) if done else "?"
         fill = int(self.width * done / total)
         line = (f"{self.label} [{'#' * fill}{'.' * (self.width - fill)}] {done}/{total}  "
-                f"{elapsed:4.0f}s elapsed, {left}")
-        if self.tty:
-            click.echo("\r" + line, err=True, nl=done >= total)
+                f"{duration_text(elapsed)} elapsed, {left} left")
+        if self.tty:  # padded: a shorter line must cover the last one
+            click.echo("\r" + line.ljust(self._shown), err=True, nl=done >= total)
+            self._shown = len(line)
         else:
             click.echo(line, err=True)

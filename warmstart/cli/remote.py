@@ -11,7 +11,6 @@ from __future__ import annotations
 import json
 
 import click
-import pandas as pd
 
 from warmstart.cli.common import print_json, print_table
 
@@ -36,6 +35,8 @@ def server_client(ctx: click.Context):
 
 
 def print_remote_studies(client, learner, task, owner, tags: dict, as_json: bool) -> None:
+    import pandas as pd  # here, not at the top: every command that may talk to a service imports this module
+
     frame = client.studies(learner=learner, task=task, owner=owner, tags=tags)
     cols = ["study_id", "task", "learner", "metric", "direction", "origin", "trial_count", "best_score", "owner",
             "tags", "created_at"]
@@ -66,6 +67,8 @@ def show_study(client, study: int, top: int, as_json: bool) -> None:
     space = Space.from_dict(row["space"])
     click.echo("  space     " + "; ".join(f"{p.name}: {p.describe()}" for p in space))
     click.echo("")
+    import pandas as pd
+
     trials = pd.DataFrame(row["best_trials"])
     cols = ["number"] + space.names + ["score", "cost_s"]
     print_table(trials[cols] if len(trials) else trials, empty="no successful trials")

@@ -5,21 +5,38 @@ from __future__ import annotations
 import click
 
 from warmstart.cli.common import (
-    fail, get_archive, json_option, keep_column_option, print_json, print_table, read_data, strict_option,
+    fail, get_archive, json_option, keep_column_option, print_json, print_table, profile_table, read_data,
+    strict_option,
+)
+from warmstart.cli.limits import (
+    MAX_QUERIES, MAX_QUERIES_PER_TASK, MAX_REPEATS, MAX_WORKERS, OutputFile,
 )
 from warmstart.cli.main import main
-from warmstart.gain.bits import interval_text, queries_text
 from warmstart.cli.progress import Progress
+from warmstart.gain.bits import interval_text, queries_text
+from warmstart.text import bits_in_words
 
 
 def _budgets(text: str) -> list[int]:
     try:
         values = [int(v) for v in text.split(",") if v.strip()]
     except ValueError:
-        raise click.BadParameter(f"{text!r} is not a comma-separated list of whole numbers, e.g. 10,20") from None
-    if not values or any(v < 1 for v in values):
-        raise click.BadParameter(f"{text!r}: budgets must be whole numbers >= 1, e.g. 10,20")
+        raise click.BadParameter(f"{text!r} is not a comma-separated list of whole numbers, e.g. 10,20",
+                                 param_hint="'--budget'") from None
+    if not values or any(v < 1 or v > MAX_QUERIES for v in values):
+        raise click.BadParameter(f"{text!r}: each budget must be a whole number from 1 to {MAX_QUERIES:,}, "
+                                 "e.g. 10,20", param_hint="'--budget'")
     return values
+
+
+def _check_work(budgets: list[int], repeats: int) -> None:
+    """Refuse budgets x repeats that no replay finishes in a working day (MAX_QUERIES_PER_TASK)."""
+    queries = sum(budgets) * repeats
+    if queries > MAX_QUERIES_PER_TASK:
+        raise click.UsageError(
+            f"--budget {','.join(map(str, budgets))} with --repeats {repeats} asks each search for {queries:,} "
+            f"queries per held-out task; at most {MAX_QUERIES_PER_TASK:,} (100 times the usual --budget 10 "
+            "--repeats 30, which takes minutes on 2 cores): lower --repeats or --budget")
 
 
 def resolve_space(space_path, learner: str, kind: str):
@@ -38,7 +55,8 @@ def resolve_space(space_path, learner: str, kind: str):
 @click.option("--target", required=True, help="Target column of DATA.")
 @click.option("--learner", required=True, help="Learner whose past studies feed the prior.")
 @click.option("--space", "space_path", type=click.Path(dir_okay=False), help="Space of the new search (default: the learner's built-in space).")
-@click.option("-o", "--output", type=click.Path(dir_okay=False), help="Write the prior as JSON here.")
+@click.option("-o", "--output", type=OutputFile(),
+              help="Write the prior as JSON here (into an existing directory).")
 @keep_column_option
 @strict_option
 @json_option
@@ -46,7 +64,7 @@ def resolve_space(space_path, learner: str, kind: str):
 def prior(ctx, data, target, learner, space_path, output, keep_columns, as_json):
     """Build a prior for a new dataset DATA from similar past studies."""
     from warmstart.archive.store import fingerprint
-    from warmstart.profile import detect_kind, profile
+    from warmstart.profile import detect_kind
 
     from warmstart.cli.remote import server_client
 
@@ -54,7 +72,7 @@ def prior(ctx, data, target, learner, space_path, output, keep_columns, as_json)
     client = server_client(ctx)
     kind = detect_kind(frame[target])
     space = resolve_space(space_path, learner, kind)
-    prof = profile(frame, target=target, keep_columns=keep_columns)
+    prof = profile_table(frame, target, data, kind, keep_columns)
     if client is not None:  # built by the service from its archive; the data stays here
         found = client.prior(prof, learner, space=space.to_dict(), kind=kind,
                              exclude_fingerprint=fingerprint(frame, target))
@@ -72,7 +90,10 @@ def prior(ctx, data, target, learner, space_path, output, keep_columns, as_json)
         print_json(built.provenance)
         return
     if same:
-        click.echo(f"(this dataset is already in the archive as task id {same}; its own studies were left out)")
+        names = tasks.set_index("task_id")["name"]
+        which = ", ".join(f"{t} ({names[t]!r})" for t in same)
+        click.echo(f"This dataset is already in the archive as task {which}, so that task's own studies were "
+                   "left out of the prior.")
     click.echo(built.summary(n=8))
     if output:
         click.echo(f"prior written to {output}")
@@ -80,11 +101,16 @@ def prior(ctx, data, target, learner, space_path, output, keep_columns, as_json)
 
 @main.command()
 @click.option("--learner", "learners", multiple=True, help="Learner(s) to measure (default: every learner with studies on 2+ tasks).")
-@click.option("--budget", "budget_text", default="10", show_default=True, help="Queries per search, comma-separated for several.")
-@click.option("--repeats", default=30, show_default=True, type=click.IntRange(2, 10_000), help="Runs per search and task.")
+@click.option("--budget", "budget_text", default="10", show_default=True,
+              help=f"Queries per search, comma-separated for several; each at most {MAX_QUERIES:,} (a held-out "
+                   "task holds a few hundred recorded configs at most, which longer replays only revisit).")
+@click.option("--repeats", default=30, show_default=True, type=click.IntRange(2, MAX_REPEATS),
+              help=f"Runs per search and task; at most {MAX_REPEATS:,} (intervals narrow with the square root of "
+                   f"the runs), and budgets x repeats at most {MAX_QUERIES_PER_TASK:,}.")
 @click.option("--gamma", default=0.05, show_default=True, type=click.FloatRange(0.001, 0.5), help="Target set: top share of scores.")
 @click.option("--seed", default=0, show_default=True, type=int)
-@click.option("--workers", default=1, show_default=True, type=click.IntRange(1, 64), help="Processes (tasks run in parallel).")
+@click.option("--workers", default=1, show_default=True, type=click.IntRange(1, MAX_WORKERS),
+              help=f"Processes (tasks run in parallel); at most {MAX_WORKERS}.")
 @click.option("--cluster", metavar="ADDRESS",
               help="Replay the held-out tasks on the workers of the Dask scheduler at ADDRESS (needs "
                    "warmstart[cluster]); the same figures as here for the same --seed.")
@@ -98,7 +124,8 @@ def prior(ctx, data, target, learner, space_path, output, keep_columns, as_json)
 @click.option("--target", help="With --data: the target column.")
 @click.option("--metric", help="With --data: a built-in metric (default accuracy or r2).")
 @click.option("--cv", default=5, show_default=True, type=click.IntRange(min=2), help="With --data: cross-validation folds.")
-@click.option("--report", "report_path", type=click.Path(dir_okay=False), help="Write an HTML report with plots here.")
+@click.option("--report", "report_path", type=OutputFile(),
+              help="Write an HTML report with plots here (into an existing directory).")
 @click.option("--permuted", is_flag=True,
               help="Control: shuffle each held-out task's recorded scores among its configs first, so no past "
                    "task tells anything about it; transfer should gain nothing.")
@@ -131,6 +158,7 @@ def gain(ctx, learners, budget_text, repeats, gamma, seed, workers, cluster, onl
     from warmstart.gain.replay import leave_one_task_out
 
     budgets = _budgets(budget_text)
+    _check_work(budgets, repeats)
     if cluster and (data or target):
         fail("--cluster spreads a replay's held-out tasks; a live comparison (--data) runs here: use --workers N")
     archive = get_archive(ctx, write=False)
@@ -185,7 +213,7 @@ def _live(archive, data, target, learners, only_tasks, metric, cv, budgets, repe
     from warmstart.archive.store import fingerprint
     from warmstart.evaluate.learners import cv_objective
     from warmstart.gain.live import live_gain
-    from warmstart.profile import detect_kind, profile
+    from warmstart.profile import detect_kind
 
     if not data or not target:
         fail("a live comparison needs both --data FILE and --target COL")
@@ -201,7 +229,7 @@ def _live(archive, data, target, learners, only_tasks, metric, cv, budgets, repe
                              keep_columns=keep_columns)
     tasks = archive.tasks()
     same = tasks.loc[tasks["fingerprint"] == fingerprint(frame, target), "task_id"].tolist()
-    prof = profile(frame, target=target, keep_columns=keep_columns)
+    prof = profile_table(frame, target, data, kind, keep_columns)
     prior = archive.build_prior(prof, learner=learner, space=objective.space, exclude_tasks=same)
     if not as_json:
         click.echo(f"live: {learner} on {Path(data).name} ({kind}), {cv}-fold {objective.metric}; "
@@ -236,6 +264,7 @@ def _show(results, gamma, report_path, as_json) -> None:
                      "pooled": r.pooled.to_dict(),
                      "tasks": r.to_frame().to_dict(orient="records")} for r in results])
         return
+    click.echo(bits_in_words(gamma))  # once, before the first figures
     for r in results:
         frame = r.to_frame()
         cols = ["task", "bits_warm", "bits_cold", "gain", "gain_low", "gain_high", "verdict"]

@@ -18,11 +18,15 @@ from warmstart.cli.common import (
     json_option,
     keep_column_option,
     print_json,
+    PROGRESS_CELLS,
+    profile_table,
     read_data,
     strict_option,
     terminate_as_interrupt,
 )
+from warmstart.cli.limits import MAX_PROPOSALS, MAX_TRIALS, MAX_WORKERS
 from warmstart.cli.main import main
+from warmstart.cli.progress import Progress
 from warmstart.evaluate.learners import (
     LEARNERS,
     METRICS,
@@ -32,10 +36,14 @@ from warmstart.evaluate.learners import (
     metric_direction,
 )
 from warmstart.evaluate.objective import CommandObjective
-from warmstart.profile import detect_kind, profile
+from warmstart.profile import detect_kind
 from warmstart.search.density import DEFAULT_N_SEEDS as DEFAULT_SEEDS
 from warmstart.space import Space
 from warmstart.study import resume_study, run_study, start_study, summary
+
+
+#: ``propose -k`` draws a progress bar from this many configs on (a few seconds of work)
+PROGRESS_PROPOSALS = 100
 
 
 def _fmt(score) -> str:
@@ -79,18 +87,23 @@ def _objective_and_space(data, target, learner, kind, space_path, metric, minimi
               help=f"Built-in learner ({', '.join(sorted(LEARNERS))}) or your own label with --command.")
 @click.option("--space", "space_path", type=click.Path(dir_okay=False),
               help="Space file (.toml/.json); built-in learners have a default.")
-@click.option("--budget", default=40, show_default=True, type=click.IntRange(min=0),
-              help="Trials to evaluate (0: only create the study, for propose/record).")
+@click.option("--budget", default=40, show_default=True, type=click.IntRange(0, MAX_TRIALS),
+              help=f"Trials to evaluate (0: only create the study, for propose/record); at most {MAX_TRIALS:,}: "
+                   "each proposal looks at every earlier trial, so split longer work into several studies.")
 @click.option("--metric", help=f"Built-in metric ({', '.join(METRICS)}); default accuracy or r2.")
 @click.option("--seed", default=0, show_default=True, type=int, help="Seed of the search and the CV folds.")
-@click.option("--workers", type=click.IntRange(min=1), help="Trials evaluated at once (local processes).")
+@click.option("--workers", type=click.IntRange(1, MAX_WORKERS),
+              help=f"Trials evaluated at once (local processes, at most {MAX_WORKERS}; more with --cluster).")
 @click.option("--cluster", metavar="ADDRESS",
               help="Evaluate on the workers of the Dask scheduler at ADDRESS (needs warmstart[cluster]); "
                    "--workers defaults to the cluster's threads.")
 @click.option("--cold", is_flag=True, help="Force a cold start (no prior).")
-@click.option("--seeds", "n_seeds", default=None, type=click.IntRange(0, DEFAULT_SEEDS), metavar="N",
-              help="Warm start with a ranked list of N past configs first, then the search's own model (the warm "
-                   "start before the mixture). Default: the mixture of past tasks, re-weighted at every result.")
+@click.option("--ranked-first", "n_seeds", default=None, type=click.IntRange(0, DEFAULT_SEEDS), metavar="N",
+              help="Warm start by trying N of the prior's ranked past configs first, then the search's own model "
+                   "(the warm start before the mixture). Default: the mixture of past tasks, re-weighted at every "
+                   "result. (Not a random seed: that is --seed.)")
+@click.option("--seeds", "old_seeds", default=None, type=click.IntRange(0, DEFAULT_SEEDS), hidden=True,
+              help="Deprecated name of --ranked-first.")
 @click.option("--command", help="Evaluate each config by running this command (no shell); see DEVELOPERS.md.")
 @click.option("--minimize", is_flag=True, help="With --command: lower scores are better.")
 @click.option("--cv", default=5, show_default=True, type=click.IntRange(min=2), help="Cross-validation folds.")
@@ -102,8 +115,8 @@ def _objective_and_space(data, target, learner, kind, space_path, metric, minimi
 @strict_option
 @json_option
 @click.pass_context
-def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, cluster, cold, n_seeds, command,
-         minimize, cv, time_limit, task_name, kind, keep_columns, as_json):
+def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, cluster, cold, n_seeds, old_seeds,
+         command, minimize, cv, time_limit, task_name, kind, keep_columns, as_json):
     """Tune LEARNER on DATA and record every trial in the archive as it finishes.
 
     The study keeps what it finished if the search is interrupted (Ctrl-C).
@@ -118,6 +131,7 @@ def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, 
       130  stopped by Ctrl-C (SIGINT); 143 stopped by SIGTERM
     A stopped run prints the same summary either way, and keeps what it finished.
     """
+    n_seeds = _ranked_first(n_seeds, old_seeds)
     frame = read_data(data, target, keep_columns=keep_columns)
     kind = kind or detect_kind(frame[target])
     n_workers = workers or 1
@@ -145,7 +159,8 @@ def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, 
         n_workers = workers or executor.cores
     archive = get_archive(ctx, write=True)
     # the task (its fingerprint) is the table as read; its profile sees the features the learner sees
-    prof = profile(frame, target=target, kind=kind, keep_columns=keep_columns) if keep_columns else None
+    big = frame.shape[0] * frame.shape[1] >= PROGRESS_CELLS  # profiled here, with a progress bar
+    prof = profile_table(frame, target, data, kind, keep_columns) if keep_columns or big else None
     task_id = archive.add_task(task_name or Path(data).stem, frame, target, kind=kind, source=str(data), profile=prof)
     study = start_study(archive, task_id, learner, space, metric=metric, maximize=maximize, seed=seed, cold=cold,
                         n_seeds=n_seeds)
@@ -169,6 +184,17 @@ def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, 
     if budget and len(run.trials) == run.n_failed:
         click.echo(f"error: every trial failed ({run.n_failed} of {run.n_failed}); exit status 1", err=True)
         ctx.exit(1)
+
+
+def _ranked_first(n_ranked: int | None, old_seeds: int | None) -> int | None:
+    """``--ranked-first N``, or its deprecated name ``--seeds N`` with a note on stderr."""
+    if old_seeds is None:
+        return n_ranked
+    if n_ranked is not None:
+        raise click.UsageError("--seeds is the old name of --ranked-first; give only --ranked-first")
+    click.echo(f"note: --seeds is deprecated and will go; it is now --ranked-first {old_seeds} (try {old_seeds} of "
+               "the prior's ranked past configs first; the random seed is --seed)", err=True)
+    return old_seeds
 
 
 def _report(study, run, as_json, budget) -> None:
@@ -196,7 +222,9 @@ def _report(study, run, as_json, budget) -> None:
 # -- propose / record -----------------------------------------------------------
 @main.command()
 @click.option("--study", "study", required=True, type=int, help="Study id (see `warmstart studies`).")
-@click.option("-k", "k", default=1, show_default=True, type=click.IntRange(min=1), help="Configs to propose.")
+@click.option("-k", "k", default=1, show_default=True, type=click.IntRange(1, MAX_PROPOSALS),
+              help=f"Configs to propose, one per parallel job; at most {MAX_PROPOSALS:,} (each waits as a pending "
+                   "config while the next is chosen, so a bigger batch takes minutes).")
 @click.option("--seed", default=0, show_default=True, type=int, help="Seed of the search.")
 @json_option
 @click.pass_context
@@ -213,7 +241,12 @@ def propose(ctx, study, k, seed, as_json):
         return propose_leases(client, study, k, None, as_json)
     archive = get_archive(ctx, write=False)
     resumed = resume_study(archive, study, seed)
-    configs = resumed.search.propose(k)
+    # one at a time, each held as pending: the same configs as search.propose(k), with progress
+    bar = Progress(f"proposing {k} configs", enabled=k >= PROGRESS_PROPOSALS and not as_json)
+    configs = []
+    for i in range(k):
+        configs.append(resumed.search.propose())
+        bar(i + 1, k)
     best = resumed.search.best
     click.echo(f"study {study}: {resumed.search.trial_count} trials recorded, "
                f"best {_fmt(None if best is None else best.score)}; {resumed.note}", err=True)

@@ -45,7 +45,8 @@ def map_jobs(
     workers : int, default 1
         Processes; 1 runs in this process.
     progress : callable(done, total), optional
-        Called after each finished job.
+        Called after each finished job, and once before the first starts
+        (with ``done_before``), so a long first job shows its bar at once.
     done_before, total : int
         Offsets for the progress count when these jobs are part of larger work.
     executor : concurrent.futures.Executor, optional
@@ -61,6 +62,8 @@ def map_jobs(
     total = len(jobs) + done_before if total is None else total
     results: list = [None] * len(jobs)
     done = done_before
+    if progress and jobs:
+        progress(done, total)
     if executor is not None and jobs:
         futures = {executor.submit(fn, job): i for i, job in enumerate(jobs)}
         try:

@@ -16,6 +16,15 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
+from warmstart.errors import WarmstartError  # noqa: E402
+from warmstart.text import bits_in_words  # noqa: E402
+
+
+def _gamma(results) -> float:
+    """The target share of the results (the default 5 % when they differ or there are none)."""
+    shares = {float(r.gamma) for r in results if getattr(r, "gamma", None) is not None}
+    return shares.pop() if len(shares) == 1 else 0.05
+
 __all__ = ["plot_gain_per_task", "plot_curves", "write_report"]
 
 _COLORS = {"warm": "#d9480f", "cold": "#1c7ed6", "random": "#868e96", "defaults": "#2b8a3e", "nearest": "#7048e8",
@@ -82,6 +91,13 @@ def _img(data: bytes, alt: str) -> str:
 
 
 def _fmt(v) -> str:
+    """A cell: numbers to 3 significant digits; missing (None, NaN) as a dash, never 'None'."""
+    if isinstance(v, (bool, np.bool_)):
+        return "yes" if v else ""
+    if isinstance(v, np.generic):
+        v = v.item()
+    if v is None:
+        return "–"
     if isinstance(v, float):
         if math.isnan(v):
             return "–"
@@ -91,10 +107,26 @@ def _fmt(v) -> str:
     return html.escape(str(v))
 
 
+def _head(name: str) -> str:
+    """A column name that may wrap at its underscores (a narrow column for a long name)."""
+    return "_<wbr>".join(html.escape(part) for part in name.split("_"))
+
+
 def _table(rows: Sequence[dict], columns: Sequence[str]) -> str:
-    head = "".join(f"<th>{html.escape(c)}</th>" for c in columns)
+    head = "".join(f"<th>{_head(c)}</th>" for c in columns)
     body = "".join("<tr>" + "".join(f"<td>{_fmt(r.get(c))}</td>" for c in columns) + "</tr>" for r in rows)
-    return f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
+    return f"<div class='wide'><table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table></div>"
+
+
+def _pooled_table(summary: Sequence[dict], measures: Sequence[str]) -> str:
+    """The pooled figures with one column per result and one row per measure, so that
+    twenty-odd measures fit the page (a measure a result lacks shows a dash)."""
+    head = "<th>measure</th>" + "".join(
+        f"<th>{html.escape(str(d['learner']))}<br>budget {d['budget']}<br>{html.escape(str(d['replay']))}</th>"
+        for d in summary)
+    body = "".join(f"<tr><td>{html.escape(m)}</td>" + "".join(f"<td>{_fmt(d.get(m))}</td>" for d in summary)
+                   + "</tr>" for m in measures)
+    return f"<div class='wide'><table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table></div>"
 
 
 def write_report(results, path: str | Path, title: str = "warmstart: transfer gain", notes: Sequence[str] = ()) -> Path:
@@ -112,11 +144,13 @@ def write_report(results, path: str | Path, title: str = "warmstart: transfer ga
     parts = [
         "<!doctype html><html><head><meta charset='utf-8'>",
         f"<title>{html.escape(title)}</title>",
-        "<style>body{font-family:system-ui,sans-serif;max-width:1100px;margin:2em auto;color:#212529}"
-        "table{border-collapse:collapse;font-size:13px;margin:1em 0}td,th{border:1px solid #dee2e6;padding:3px 8px;"
-        "text-align:right}th{background:#f1f3f5}td:first-child{text-align:left}img{max-width:100%}"
+        "<style>body{font-family:system-ui,sans-serif;max-width:1100px;margin:2em auto;padding:0 1em;color:#212529}"
+        "table{border-collapse:collapse;font-size:12px;margin:1em 0}td,th{border:1px solid #dee2e6;padding:2px 6px;"
+        "text-align:right}th{background:#f1f3f5;vertical-align:bottom}td{white-space:nowrap}"
+        "td:first-child,th:first-child{text-align:left}img{max-width:100%}.wide{max-width:100%;overflow-x:auto}"
         ".note{color:#495057;font-size:14px}</style></head><body>",
         f"<h1>{html.escape(title)}</h1>",
+        f"<p><b>{html.escape(bits_in_words(_gamma(results)))}.</b></p>",
         f"<p class='note'>Written {datetime.now(timezone.utc):%Y-%m-%d %H:%M} UTC. Bits over uniform = log2(q/p): q is a "
         "search's per-query chance of landing in the target set (the top share of the task's scores under uniform "
         "sampling), p the same chance for a uniform draw. Gain = log2(q_warm/q_cold). Intervals are 95 % bootstraps "
@@ -146,19 +180,27 @@ def write_report(results, path: str | Path, title: str = "warmstart: transfer ga
             "wilcoxon_p", "share_hurt", "share_hurt_outside_noise", "wins", "ties", "losses", "share_loss",
             "share_loss_low", "share_loss_high", "significant_losses"]
     cols += sorted({k for d in summary for k in d if k.startswith(("bits_", "share_warm_above_")) and k not in cols})
-    parts.append("<h2>Pooled over tasks</h2>" + _table(summary, cols))
+    measures = [c for c in cols if c not in ("learner", "budget", "replay") and any(c in d for d in summary)]
+    parts.append("<h2>Pooled over tasks</h2>" + _pooled_table(summary, measures))
     for r in results:
         replay = getattr(r, "objective", None)
         how = f", replay {html.escape(replay)}" if replay else ""
         parts.append(f"<h2>{html.escape(r.learner)} — budget {r.budget}{how}, {r.repeats} runs per search</h2>")
         parts.append(_img(plot_gain_per_task(r), "gain per task"))
         parts.append(_img(plot_curves(r), "hit rate and regret curves"))
-        rows = [t.to_dict() for t in sorted(r.tasks, key=lambda t: -t.gain)]
+        rows = [{**t.to_dict(), "task": t.task + ("*" if t.smoothed else "")}
+                for t in sorted(r.tasks, key=lambda t: -t.gain)]
         tcols = ["task", "p", "bits_warm", "bits_cold", "gain", "gain_low", "gain_high", "verdict", "p_holm",
-                 "outcome", "first_hit_warm", "first_hit_cold", "smoothed"]
-        tcols += sorted({k for row in rows for k in row if k.startswith("bits_") and k not in tcols})
+                 "outcome", "first_hit_warm", "first_hit_cold"]
         parts.append(_table(rows, tcols))
+        # the baselines in a table of their own, so that each table fits the page
+        others = sorted({k for row in rows for k in row if k.startswith("bits_") and k not in tcols})
+        if others:
+            parts.append("<p class='note'>Baselines and hindsight figures on each task, bits over uniform:</p>"
+                         + _table(rows, ["task", "bits_warm", *others]))
     parts.append("</body></html>")
-    path.parent.mkdir(parents=True, exist_ok=True)
+    if not path.parent.is_dir():  # never a chain of new folders
+        raise WarmstartError(f"{path}: the directory {path.parent} does not exist; create it first, or give a "
+                             "report path in an existing directory")
     path.write_text("\n".join(parts), encoding="utf-8")
     return path
