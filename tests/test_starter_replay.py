@@ -18,7 +18,7 @@ def replays(tmp_path_factory):
     path = tmp_path_factory.mktemp("starter") / "starter.duckdb"
     with Archive(str(path)) as archive:
         load_starter(archive)
-        return {learner: leave_one_task_out(archive, learner, budget=10, repeats=6, seed=3, workers=2)
+        return {learner: leave_one_task_out(archive, learner, budget=10, repeats=3, seed=3, workers=2)
                 for learner in LEARNERS}
 
 
