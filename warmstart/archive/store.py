@@ -31,7 +31,7 @@ import numpy as np
 import pandas as pd
 
 from warmstart.archive.faults import archive_error, check_blocks, damaged_error, first_line, translated
-from warmstart.archive.ingest import param_columns, prepare_trials, study_direction
+from warmstart.archive.ingest import param_columns, prepare_trial, prepare_trials, study_direction
 from warmstart.archive.location import DEFAULT_ARCHIVE, default_archive_path
 from warmstart.errors import ArchiveError
 from warmstart.space import Space
@@ -107,6 +107,8 @@ class Archive:
         self.path = str(path)
         self.read_only = read_only
         self._depth = 0
+        self._heads: dict[int, tuple[int, str]] = {}
+        self._spaces: dict[int, Space] = {}
         memory = self.path == ":memory:"
         if not memory:
             p = Path(self.path)
@@ -167,6 +169,7 @@ class Archive:
         """
         view = object.__new__(Archive)
         view.path, view.read_only, view._depth = self.path, True, 0
+        view._heads, view._spaces = {}, {}
         view.con = self.con.cursor()
         return view
 
@@ -605,21 +608,58 @@ class Archive:
         A score that is None, NaN or infinite records a failed trial.
         ``fold_scores`` (finite numbers) are the per-fold scores of a
         cross-validated objective.
+
+        One parameterised INSERT (no table is built): the same checks as
+        :meth:`add_trials` (:func:`~warmstart.archive.ingest.prepare_trial`),
+        and the config text and content key come from the same SQL
+        expression, so a trial recorded here and the same trial added in a
+        table are stored byte for byte alike.
         """
-        space, fp, learner = self._study_keys(study)
-        config = space.normalize(config)
-        folds = _fold_scores(fold_scores, f"trial of study {study}")
-        row: dict[str, Any] = {name: [config.get(name)] for name in space.names}
-        row.update(
-            score=[np.nan if score is None else score], status=[status], cost_s=[cost_s],
-            started_at=[started_at], finished_at=[finished_at or utc_now()], error=[error],
+        space_id, metric = self._study_head(study)
+        space = self._space_cached(space_id)
+        where = f"trial of study {study}"
+        folds = _fold_scores(fold_scores, where)
+        row = prepare_trial(space, config, score, status, cost_s, started_at, finished_at, error, where=where,
+                            metric=metric)
+        config_sql, keys = _config_sql(space)
+        casts = ["VARCHAR" if p.kind == "choice" else "BIGINT" if p.kind == "integer" else "DOUBLE"
+                 for p in space.params]
+        given = ", ".join(f"?::{cast} AS {col}" for cast, col in zip(casts, param_columns(space)))
+        # placeholders bind in text order: the row's cells, the keys (inside cfg), the values, the study
+        sql = (
+            "INSERT INTO trials (study_id, number, config, score, status, cost_s, started_at, finished_at, "
+            "error, content_key, fold_scores) "
+            "SELECT s.study_id, (SELECT coalesce(max(number), 0) + 1 FROM trials WHERE study_id = s.study_id), "
+            "v.cfg, ?::DOUBLE, ?, ?::DOUBLE, ?::TIMESTAMP, ?::TIMESTAMP, ?, "
+            "sha256(t.fingerprint || '|' || s.learner || '|' || v.cfg), ?::DOUBLE[] "
+            f"FROM studies s JOIN tasks t USING (task_id), (SELECT {config_sql} AS cfg FROM (SELECT {given})) v "
+            "WHERE s.study_id = ? RETURNING number"
         )
-        prepared = prepare_trials(space, pd.DataFrame(row), where=f"trial of study {study}",
-                                  metric=self._study_metric(study))
-        if folds is not None:
-            prepared = prepared.assign(fold_scores=[folds])
-        with self.transaction():
-            return self._insert_trials(int(study), space, fp, learner, prepared)
+        params = [row["score"], row["status"], row["cost_s"], row["started_at"], row["finished_at"] or utc_now(),
+                  row["error"], folds, *keys, *row["values"], int(study)]
+        with translated(self.path), self.transaction() as con:
+            done = con.execute(sql, params).fetchall()
+            if not done:  # the study went away since its keys were read
+                self._heads.pop(int(study), None)
+                raise ArchiveError(f"no study with id {study} in {self.path}; `warmstart studies` lists them")
+        return int(done[0][0])
+
+    def _study_head(self, study: int) -> tuple[int, str]:
+        """(space id, metric) of a study; both are fixed once a study exists, so they are kept."""
+        head = self._heads.get(int(study))
+        if head is None:
+            rows = self._q("SELECT space_id, metric FROM studies WHERE study_id = ?", [int(study)])
+            if not rows:
+                raise ArchiveError(f"no study with id {study} in {self.path}; `warmstart studies` lists them")
+            head = self._heads[int(study)] = (int(rows[0][0]), rows[0][1])
+        return head
+
+    def _space_cached(self, space_id: int) -> Space:
+        """:meth:`space`, kept per id (a stored space never changes: its id names its content)."""
+        space = self._spaces.get(space_id)
+        if space is None:
+            space = self._spaces[space_id] = self.space(space_id)
+        return space
 
     def _insert_trials(self, study: int, space: Space, fp: str, learner: str, prepared: pd.DataFrame) -> int:
         """Bulk insert of prepared trials; config JSON and content key built in SQL.
@@ -631,14 +671,7 @@ class Archive:
         (study, fingerprint, learner) comes before the sub-query that holds the
         JSON keys.
         """
-        cols = param_columns(space)
-        order = sorted(range(space.dim), key=lambda j: space.params[j].name)
-        parts, keys = [], []
-        for j in order:
-            value = f"to_json({cols[j]})::VARCHAR" if space.params[j].kind != "choice" else f"{cols[j]}::VARCHAR"
-            parts.append(f"CASE WHEN {cols[j]} IS NULL THEN NULL ELSE ? || {value} END")
-            keys.append(json.dumps(space.params[j].name) + ":")
-        config_sql = "'{' || concat_ws(',', " + ", ".join(parts) + ") || '}'"
+        config_sql, keys = _config_sql(space)
         con = self.con
         start = int(con.execute("SELECT coalesce(max(number), 0) FROM trials WHERE study_id = ?", [study]).fetchall()[0][0])
         numbered = prepared.assign(_number=np.arange(start + 1, start + len(prepared) + 1, dtype=np.int64))
@@ -776,6 +809,21 @@ def _fold_scores(values: Any, where: str) -> list[float] | None:
     if not all(np.isfinite(folds)):
         raise ArchiveError(f"{where}: fold_scores must be finite numbers, got {folds}")
     return folds or None
+
+
+def _config_sql(space: Space) -> tuple[str, list[str]]:
+    """The SQL expression of a trial's config text over the columns ``p0 ..``
+    (real DOUBLE, integer BIGINT, choice the level's JSON text) and the JSON
+    keys it binds, in order. Canonical JSON: keys sorted, no spaces, inactive
+    parameters left out. The one place both inserts build the text from."""
+    cols = param_columns(space)
+    order = sorted(range(space.dim), key=lambda j: space.params[j].name)
+    parts, keys = [], []
+    for j in order:
+        value = f"to_json({cols[j]})::VARCHAR" if space.params[j].kind != "choice" else f"{cols[j]}::VARCHAR"
+        parts.append(f"CASE WHEN {cols[j]} IS NULL THEN NULL ELSE ? || {value} END")
+        keys.append(json.dumps(space.params[j].name) + ":")
+    return "'{' || concat_ws(',', " + ", ".join(parts) + ") || '}'", keys
 
 
 def _insert_frame(con: duckdb.DuckDBPyConnection, table: str, frame: pd.DataFrame, columns: list[str]) -> None:

@@ -169,7 +169,7 @@ def api_router(service: Service, authorize) -> APIRouter:
         return answer(await service.write(
             lambda archive: (200, service.leases.record(archive, study_id, body.trial, body.config, body.score,
                                                         body.status, body.error, body.cost_s, who.name)),
-            key))
+            key, early=True))
 
     @router.post("/studies/{study_id}/finish", summary="Mark a study finished")
     async def finish(study_id: StudyId, who: Principal = Depends(writers),

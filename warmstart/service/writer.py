@@ -7,6 +7,15 @@ request id: its answer is stored in the same transaction, and a retry with
 the same id gets the stored answer and writes nothing (also after a restart,
 since the answer lives in the archive). Reads do not pass through here: they
 run concurrently on cursors of their own (:meth:`Archive.reader`).
+
+Group commit: the writes waiting in the queue when the thread gets to them
+(up to :data:`MAX_BATCH`) run in one transaction, so one commit (one flush of
+DuckDB's log) serves many requests; each is still answered only after that
+commit. Results (``early`` writes) run before proposals in a batch, so a
+search learns every new score once, before it proposes. When one write of
+a batch fails, the batch is rolled back and every write of it runs again
+alone, in its own transaction: the failing one fails by itself, the others
+commit as if they had come one by one.
 """
 
 from __future__ import annotations
@@ -23,10 +32,11 @@ from typing import Any, Callable
 from warmstart.archive.store import Archive
 from warmstart.service.errors import ServiceError
 
-__all__ = ["Writer", "RequestKey", "Answer", "REQUEST_RETENTION_DAYS"]
+__all__ = ["Writer", "RequestKey", "Answer", "REQUEST_RETENTION_DAYS", "MAX_BATCH"]
 
 log = logging.getLogger("warmstart.service")
 REQUEST_RETENTION_DAYS = 30  # stored answers to request ids older than this are dropped at start-up
+MAX_BATCH = 64  # writes committed together at most (a batch waits for nothing: it is what is queued)
 
 
 def _now() -> datetime:
@@ -58,6 +68,7 @@ class _Job:
     fn: Callable[[Archive], tuple[int, Any]]
     key: RequestKey | None
     future: cf.Future
+    early: bool = False
 
 
 class Writer:
@@ -89,18 +100,20 @@ class Writer:
             con.execute("DELETE FROM requests WHERE created_at < ?", [cutoff])
         self._thread.start()
 
-    def submit(self, fn: Callable[[Archive], tuple[int, Any]], key: RequestKey | None = None) -> cf.Future:
+    def submit(self, fn: Callable[[Archive], tuple[int, Any]], key: RequestKey | None = None,
+               early: bool = False) -> cf.Future:
         """Queue a write; the future resolves to an :class:`Answer` after the commit.
 
         ``fn(archive)`` returns ``(status, body)``, body JSON-able; it raises
         :class:`ServiceError` (or a library error) to refuse, which rolls
-        the transaction back.
+        the transaction back. ``early`` writes (results) go before the
+        others of their batch.
         """
         future: cf.Future = cf.Future()
         with self._lock:
             if self._closed:
                 raise ServiceError(503, "the service is shutting down; try again when it is back")
-            self._queue.put(_Job(fn, key, future))
+            self._queue.put(_Job(fn, key, future, early))
         return future
 
     def close(self, timeout: float = 30.0) -> None:
@@ -120,25 +133,62 @@ class Writer:
 
     # -- the thread ----------------------------------------------------------
     def _run(self) -> None:
-        while True:
+        stop = False
+        while not stop:
             job = self._queue.get()
             if job is None:
                 return
-            if not job.future.set_running_or_notify_cancel():
-                continue
+            batch = [job]
+            while len(batch) < MAX_BATCH:
+                try:
+                    more = self._queue.get_nowait()
+                except queue.Empty:
+                    break
+                if more is None:
+                    stop = True
+                    break
+                batch.append(more)
+            batch = [j for j in batch if j.future.set_running_or_notify_cancel()]
+            batch.sort(key=lambda j: not j.early)  # stable: results first, else in arrival order
+            if len(batch) > 1:
+                self._run_batch(batch)
+            elif batch:
+                self._run_alone(batch[0])
+
+    def _run_batch(self, batch: list[_Job]) -> None:
+        """The batch in one transaction; on any failure, each of its writes alone."""
+        try:
+            with self.archive.transaction():
+                answers = [self._execute(job) for job in batch]
+        except BaseException:  # rolled back: nothing of the batch stands
+            self._dropped()
+            for job in batch:
+                self._run_alone(job)
+            return
+        self._committed()
+        for job, answer in zip(batch, answers):
+            job.future.set_result(answer)
+
+    def _run_alone(self, job: _Job) -> None:
+        try:
+            answer = self._execute(job)
+        except BaseException as exc:  # handed to the waiting request, never lost
+            self._dropped()
+            job.future.set_exception(exc)
+        else:
+            self._committed()
+            job.future.set_result(answer)
+
+    def _committed(self) -> None:
+        if self._on_commit is not None:
+            self._on_commit()
+
+    def _dropped(self) -> None:
+        if self._on_failure is not None:
             try:
-                answer = self._execute(job)
-            except BaseException as exc:  # handed to the waiting request, never lost
-                if self._on_failure is not None:
-                    try:
-                        self._on_failure()
-                    except Exception:  # pragma: no cover - a cache drop cannot fail in practice
-                        log.exception("dropping caches after a failed write")
-                job.future.set_exception(exc)
-            else:
-                if self._on_commit is not None:
-                    self._on_commit()
-                job.future.set_result(answer)
+                self._on_failure()
+            except Exception:  # pragma: no cover - a cache drop cannot fail in practice
+                log.exception("dropping caches after a failed write")
 
     def _execute(self, job: _Job) -> Answer:
         archive = self.archive
