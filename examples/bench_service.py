@@ -51,7 +51,8 @@ PROCESSES = 4
 DEADLINE_S = 600  # the whole load stops by itself after this
 
 
-def _client_thread(url: str, studies: list[int], pairs: int, index: int, out: list, stop_at: float) -> None:
+def _client_thread(url: str, studies: list[int], pairs: int, index: int, out: list, stop_at: float,
+                   train_s: float = 0.0) -> None:
     rng = np.random.default_rng(index)
     with Client(url, retries=3, timeout=60) as client:
         for _ in range(pairs):
@@ -62,6 +63,8 @@ def _client_thread(url: str, studies: list[int], pairs: int, index: int, out: li
             lease = client.propose(study)[0]
             t1 = time.perf_counter()
             score = branin(lease["config"]["x1"], lease["config"]["x2"])
+            if train_s:
+                time.sleep(train_s)
             t2 = time.perf_counter()
             answer = client.record(study, trial=lease["trial"], score=score)
             t3 = time.perf_counter()
@@ -71,9 +74,9 @@ def _client_thread(url: str, studies: list[int], pairs: int, index: int, out: li
 
 
 def _client_process(args) -> list[dict]:
-    url, studies, pairs, threads, first, stop_at = args
+    url, studies, pairs, threads, first, stop_at, train_s = args
     out: list[dict] = []
-    workers = [threading.Thread(target=_client_thread, args=(url, studies, pairs, first + i, out, stop_at))
+    workers = [threading.Thread(target=_client_thread, args=(url, studies, pairs, first + i, out, stop_at, train_s))
                for i in range(threads)]
     for w in workers:
         w.start()
@@ -106,10 +109,11 @@ def _warm(_: int) -> int:
     return os.getpid()
 
 
-def run_load(url: str, studies: list[int], clients: int, pairs: int, pool) -> tuple[list[dict], float]:
+def run_load(url: str, studies: list[int], clients: int, pairs: int, pool,
+             train_s: float = 0.0) -> tuple[list[dict], float]:
     per = clients // PROCESSES
     stop_at = time.monotonic() + DEADLINE_S
-    jobs = [(url, studies, pairs, per, p * per, stop_at) for p in range(PROCESSES)]
+    jobs = [(url, studies, pairs, per, p * per, stop_at, train_s) for p in range(PROCESSES)]
     t0 = time.perf_counter()
     results = pool.map(_client_process, jobs)
     return [r for part in results for r in part], time.perf_counter() - t0
@@ -199,6 +203,8 @@ def main() -> None:
     parser.add_argument("--clients", type=int, default=32, help="concurrent clients (a multiple of 4)")
     parser.add_argument("--pairs", type=int, default=50, help="propose + record pairs per client")
     parser.add_argument("--plot", default="bench-out/bench_service.png", help="where the latency plot goes")
+    parser.add_argument("--train-ms", type=float, default=0.0,
+                        help="pause between propose and record, standing for training (default: none)")
     args = parser.parse_args()
     if args.clients % PROCESSES:
         parser.error(f"--clients must be a multiple of {PROCESSES}")
@@ -216,6 +222,8 @@ def main() -> None:
         with Client(server.url) as client:
             studies = [client.create_study(new_task(seed=10 + i, name=f"store {i + 1}"), "bran", space=SPACE,
                                            metric="loss", maximize=False)["study_id"] for i in range(8)]
+            cold = client.create_study(new_task(seed=30, name="store cold"), "bran", space=SPACE, metric="loss",
+                                       maximize=False, cold=True)["study_id"]
         pool.map(_warm, range(PROCESSES))
         t0 = time.perf_counter()
         health = [x for part in pool.map(_health_process, [(server.url, 20, args.clients // PROCESSES)] * PROCESSES)
@@ -223,14 +231,16 @@ def main() -> None:
         health_wall = time.perf_counter() - t0
         print(f"baseline, GET /api/v1/health at {args.clients} clients: p50 {np.percentile(health, 50) * 1000:.1f} ms, "
               f"{len(health) / health_wall:.0f} requests/s", flush=True)
-        for label, chosen in (("one study", studies[:1]), ("8 studies", studies)):
-            rows, wall = run_load(server.url, chosen, args.clients, args.pairs, pool)
+        for label, chosen in (("one cold study", [cold]), ("one warm study", studies[:1]),
+                              ("8 warm studies", studies)):
+            rows, wall = run_load(server.url, chosen, args.clients, args.pairs, pool, args.train_ms / 1000)
             s = summary(rows, wall)
             all_there, distinct = check(server.url, rows, chosen)
             results[label] = s
             ok &= all_there and distinct and s["pairs"] == args.clients * args.pairs
-            print(f"\n{label}: {args.clients} clients x {args.pairs} propose + record pairs, {s['pairs']} answered "
-                  f"in {s['wall_s']:.1f} s", flush=True)
+            print(f"\n{label}: {args.clients} clients x {args.pairs} propose + record pairs"
+                  + (f" ({args.train_ms:g} ms training each)" if args.train_ms else "")
+                  + f", {s['pairs']} answered in {s['wall_s']:.1f} s", flush=True)
             print(f"  requests/s {s['requests_per_s']:.0f}   records/s {s['records_per_s']:.0f} "
                   f"(goal >= {GOALS['records_per_s']:.0f}: {s['records_per_s'] / GOALS['records_per_s']:.2f}x)")
             print(f"  pair latency p50 {s['p50_ms']:.1f} ms (goal <= {GOALS['p50_ms']:.0f}: "

@@ -5,7 +5,12 @@ message naming the culprit, a non-zero exit code, no traceback, nothing lost).""
 from __future__ import annotations
 
 import json
+import os
 import re
+import subprocess
+import sys
+import time
+from pathlib import Path
 from types import SimpleNamespace
 
 import duckdb
@@ -17,6 +22,7 @@ from warmstart.archive import SCHEMA_VERSION
 from warmstart.cli import main
 from warmstart.space import Space
 
+REPO = Path(__file__).resolve().parent.parent
 TRIALS = (
     "C,tol,n_trees,depth,kernel,degree,score,status,cost_s\n"
     "1.0,0.1,100,3,rbf,,0.8,ok,1.5\n"
@@ -303,9 +309,10 @@ def test_second_writer(files, table_dump, held_open):
     before = table_dump(files.archive)
     with held_open(files.archive) as pid:
         for args in (ingest_args(files), ["init"], ["studies"]):
-            result = run(*args, archive=files.archive)
+            result = run("--wait", "0.3", *args, archive=files.archive)
             assert_clean_failure(result, str(files.archive), "another process is writing to this archive",
-                                 f"held by process {pid}", "nothing was changed")
+                                 f"held by process {pid}", "still busy after the 0.3 s this command waited",
+                                 "--wait SECONDS", "`warmstart serve`", "nothing was changed")
     assert table_dump(files.archive) == before
     result = run(*ingest_args(files), archive=files.archive)  # free again once the other process is done
     assert result.exit_code == 0, result.stderr
@@ -319,3 +326,64 @@ def test_help_lists_the_commands():
     for command in ("init", "ingest", "studies", "show"):
         assert re.search(rf"^\s+{command}\s", result.stdout, re.MULTILINE)
     assert "WARMSTART_ARCHIVE" in result.stdout
+
+
+# -- taking turns on one file without a service (--wait; tune holds the file only to write) ----
+_SLOW_TRIAL = (  # an invented objective: reads the config on stdin, "trains" for a moment, prints a score
+    "import json, sys, time\n"
+    "config = json.load(sys.stdin)\n"
+    "time.sleep(0.3)\n"
+    "print(json.dumps({'score': 1.0 / (1.0 + abs(config['C'] - 1.0))}))\n"
+)
+
+
+def _tune(files, task: str, budget: int) -> subprocess.Popen:
+    script = files.root / "slow_trial.py"
+    script.write_text(_SLOW_TRIAL)
+    args = [sys.executable, "-c", "from warmstart.cli import main; main()", "--archive", str(files.archive),
+            "--wait", "30", "tune", str(files.data), "--target", "y", "--learner", "mine", "--space", str(files.space),
+            "--command", f"{sys.executable} {script}", "--budget", str(budget), "--task", task, "--cold"]
+    env = {**os.environ, "PYTHONPATH": str(REPO) + os.pathsep + os.environ.get("PYTHONPATH", "")}  # this checkout
+    return subprocess.Popen(args, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env)
+
+
+def test_commands_wait_for_a_busy_archive_and_go_on_when_it_is_free(files):
+    assert_ok(run(*ingest_args(files), archive=files.archive))
+    code = ("import sys, time, duckdb; con = duckdb.connect(sys.argv[1]); print('ready', flush=True); "
+            "time.sleep(1.0); con.close()")
+    holder = subprocess.Popen([sys.executable, "-c", code, str(files.archive)], stdout=subprocess.PIPE, text=True)
+    try:
+        assert holder.stdout.readline().strip() == "ready"
+        result = run("--wait", "30", "studies", "--json", archive=files.archive)  # waits the second out
+        assert holder.poll() is not None  # it got in only after the holder had gone
+    finally:
+        holder.wait(30)
+        holder.stdout.close()
+    assert_ok(result)
+    assert [s["task"] for s in json.loads(result.stdout)] == ["churn north"]
+
+
+def test_studies_run_while_two_tunes_train_on_one_archive_and_both_finish(files):
+    assert_ok(run("init", archive=files.archive))
+    tunes = [_tune(files, "north", 3), _tune(files, "south", 3)]
+    try:
+        seen = []
+        deadline = time.monotonic() + 60
+        while time.monotonic() < deadline and any(t.poll() is None for t in tunes):
+            result = run("--wait", "30", "studies", "--json", archive=files.archive)
+            assert result.exit_code == 0, result.stderr
+            seen.append((any(t.poll() is None for t in tunes), json.loads(result.stdout)))
+            time.sleep(0.2)
+        outs = [t.communicate(timeout=60) for t in tunes]
+    finally:
+        for t in tunes:
+            if t.poll() is None:
+                t.kill()
+                t.communicate()
+    for t, (out, err) in zip(tunes, outs):
+        assert t.returncode == 0, err
+    # a read answered while a tune was running, part way through its trials (before: refused at once)
+    assert any(running and any(0 < s["trial_count"] < 3 for s in studies) for running, studies in seen), seen
+    result = run("studies", "--json", archive=files.archive)
+    assert_ok(result)
+    assert sorted((s["task"], s["trial_count"]) for s in json.loads(result.stdout)) == [("north", 3), ("south", 3)]

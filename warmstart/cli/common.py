@@ -15,9 +15,10 @@ import numpy as np
 import pandas as pd
 
 from warmstart.archive.store import Archive
+from warmstart.archive.turns import DEFAULT_WAIT_SECONDS, open_archive
 
 __all__ = [
-    "get_archive", "print_table", "print_json", "fail", "json_option", "keep_column_option", "parse_tags", "read_data",
+    "get_archive", "release_archive", "wait_seconds", "print_table", "print_json", "fail", "json_option", "keep_column_option", "parse_tags", "read_data",
     "strict_option", "to_jsonable",
 ]
 
@@ -50,7 +51,9 @@ strict_option = click.option(
 
 def get_archive(ctx: click.Context, write: bool = True) -> Archive:
     """The archive named by ``--archive``, opened once per command and closed
-    when the command ends. ``write=False`` opens it read-only."""
+    when the command ends. ``write=False`` opens it read-only. While another
+    process holds the file, waits up to ``--wait`` seconds
+    (:func:`~warmstart.archive.turns.open_archive`)."""
     root = ctx.find_root()
     root.ensure_object(dict)
     cached = root.obj.get("archive")
@@ -58,10 +61,25 @@ def get_archive(ctx: click.Context, write: bool = True) -> Archive:
         return cached
     if cached is not None:
         cached.close()
-    archive = Archive(root.obj["archive_path"], read_only=not write)
+    archive = open_archive(root.obj["archive_path"], read_only=not write, wait=wait_seconds(ctx))
     root.obj["archive"] = archive
     root.call_on_close(archive.close)
     return archive
+
+
+def wait_seconds(ctx: click.Context) -> float:
+    """The group's ``--wait SECONDS`` (the default when the group was not run, e.g. in a test)."""
+    obj = ctx.find_root().obj or {}
+    return float(obj.get("wait", DEFAULT_WAIT_SECONDS))
+
+
+def release_archive(ctx: click.Context) -> str:
+    """Close the command's archive now (a later :func:`get_archive` opens it again); returns its path."""
+    root = ctx.find_root()
+    archive = (root.obj or {}).pop("archive", None)
+    if archive is not None:
+        archive.close()
+    return root.obj["archive_path"]
 
 
 def parse_tags(values: tuple[str, ...]) -> dict[str, str]:

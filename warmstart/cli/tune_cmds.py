@@ -19,9 +19,12 @@ from warmstart.cli.common import (
     keep_column_option,
     print_json,
     read_data,
+    release_archive,
     strict_option,
     terminate_as_interrupt,
+    wait_seconds,
 )
+from warmstart.archive.turns import ArchiveTurns
 from warmstart.cli.main import main
 from warmstart.evaluate.learners import (
     LEARNERS,
@@ -149,6 +152,9 @@ def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, 
     task_id = archive.add_task(task_name or Path(data).stem, frame, target, kind=kind, source=str(data), profile=prof)
     study = start_study(archive, task_id, learner, space, metric=metric, maximize=maximize, seed=seed, cold=cold,
                         n_seeds=n_seeds)
+    # from here on the file is held only while a result is written: other commands (and other tunes)
+    # use the archive while this one trains
+    study.archive = ArchiveTurns(release_archive(ctx), notice=wait_seconds(ctx), on_busy=_busy_note)
     click.echo(f"study {study.study_id}: {learner} on {Path(data).name} ({kind}), {metric} "
                f"({'maximize' if maximize else 'minimize'}), budget {budget}; {study.note}", err=True)
     failed = 0
@@ -169,6 +175,11 @@ def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, 
     if budget and len(run.trials) == run.n_failed:
         click.echo(f"error: every trial failed ({run.n_failed} of {run.n_failed}); exit status 1", err=True)
         ctx.exit(1)
+
+
+def _busy_note(path: str) -> None:
+    click.echo(f"note: {path}: another process holds the archive; this result waits for it (Ctrl-C stops; "
+               "`warmstart serve` shares one archive among many processes)", err=True)
 
 
 def _report(study, run, as_json, budget) -> None:
