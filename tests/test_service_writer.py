@@ -99,3 +99,17 @@ def test_a_retry_in_the_same_batch_gets_the_first_answer(held):
     a, b = one.result(30), two.result(30)
     assert not a.replayed and b.replayed and b.body == a.body
     assert log == ["once"] and _names(archive) == ["once", "req-1"]  # its row, and the stored answer
+
+
+def test_a_request_id_reused_for_another_request_fails_alone_in_its_batch(held):
+    writer, archive, release, first, commits, drops = held
+    log: list = []
+    one = writer.submit(_note("first", log), RequestKey("dana", "req-2", "POST /x", "00"))
+    other = writer.submit(_note("other", log), RequestKey("dana", "req-2", "POST /y", "11"))
+    fine = writer.submit(_note("fine", log))
+    release.set()
+    assert one.result(30).body["name"] == "first" and fine.result(30).body["name"] == "fine"
+    with pytest.raises(ServiceError, match=r"request id 'req-2' was used before for another request \(POST /x\)"):
+        other.result(30)
+    assert log == ["first", "fine"] and not drops  # nothing rolled back: the reuse wrote nothing
+    assert _names(archive) == ["fine", "first", "req-2"]

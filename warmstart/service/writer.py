@@ -150,34 +150,28 @@ class Writer:
                 batch.append(more)
             batch = [j for j in batch if j.future.set_running_or_notify_cancel()]
             batch.sort(key=lambda j: not j.early)  # stable: results first, else in arrival order
-            if len(batch) > 1:
+            if batch:
                 self._run_batch(batch)
-            elif batch:
-                self._run_alone(batch[0])
 
     def _run_batch(self, batch: list[_Job]) -> None:
-        """The batch in one transaction; on any failure, each of its writes alone."""
+        """The batch in one transaction; when a write of it fails, each of its writes alone."""
         try:
             with self.archive.transaction():
-                answers = [self._execute(job) for job in batch]
-        except BaseException:  # rolled back: nothing of the batch stands
+                outcomes = self._execute(batch)
+        except BaseException as exc:  # rolled back: nothing of the batch stands
             self._dropped()
-            for job in batch:
-                self._run_alone(job)
+            if len(batch) == 1:
+                batch[0].future.set_exception(exc)  # handed to the waiting request, never lost
+            else:
+                for job in batch:
+                    self._run_batch([job])
             return
         self._committed()
-        for job, answer in zip(batch, answers):
-            job.future.set_result(answer)
-
-    def _run_alone(self, job: _Job) -> None:
-        try:
-            answer = self._execute(job)
-        except BaseException as exc:  # handed to the waiting request, never lost
-            self._dropped()
-            job.future.set_exception(exc)
-        else:
-            self._committed()
-            job.future.set_result(answer)
+        for job, outcome in zip(batch, outcomes):
+            if isinstance(outcome, BaseException):
+                job.future.set_exception(outcome)
+            else:
+                job.future.set_result(outcome)
 
     def _committed(self) -> None:
         if self._on_commit is not None:
@@ -190,29 +184,52 @@ class Writer:
             except Exception:  # pragma: no cover - a cache drop cannot fail in practice
                 log.exception("dropping caches after a failed write")
 
-    def _execute(self, job: _Job) -> Answer:
-        archive = self.archive
-        with archive.transaction() as con:
-            if job.key is not None:
-                k = job.key
-                rows = con.execute(
-                    "SELECT route, body_sha256, status, response FROM requests WHERE principal = ? AND request_id = ?",
-                    [k.principal, k.request_id],
-                ).fetchall()
-                if rows:
-                    route, digest, status, response = rows[0]
-                    if route != k.route or digest != k.body_sha256:
-                        raise ServiceError(
-                            422, f"request id {k.request_id!r} was used before for another request ({route}); "
-                            "a retry must send the same body to the same address, a new request needs a new id",
-                            "Idempotency-Key", k.request_id)
-                    return Answer(int(status), json.loads(response), replayed=True)
-            status, body = job.fn(archive)
+    def _execute(self, batch: list[_Job]) -> list[Answer | ServiceError]:
+        """Run the writes of a batch in the open transaction.
+
+        Stored answers of their request ids are read in one query and the new
+        ones written in one statement at the end; a retry (a request id seen
+        before, also earlier in this batch) gets its stored answer and runs
+        nothing, a request id reused for another request gets a 422 (both
+        write nothing, so they fail no other write of the batch).
+        """
+        con = self.archive.con
+        keys = [job.key for job in batch if job.key is not None]
+        stored: dict[tuple[str, str], tuple[str, str, int, str]] = {}
+        if keys:
+            rows = con.execute(
+                "SELECT r.principal, r.request_id, r.route, r.body_sha256, r.status, r.response FROM requests r "
+                "JOIN (SELECT unnest(?::VARCHAR[]) AS p, unnest(?::VARCHAR[]) AS i) k "
+                "ON r.principal = k.p AND r.request_id = k.i",
+                [[k.principal for k in keys], [k.request_id for k in keys]],
+            ).fetchall()
+            stored = {(p, i): (route, digest, int(status), text) for p, i, route, digest, status, text in rows}
+        outcomes: list[Answer | ServiceError] = []
+        fresh: list[tuple[RequestKey, int, str]] = []
+        for job in batch:
+            k = job.key
+            if k is not None and (k.principal, k.request_id) in stored:
+                route, digest, status, text = stored[(k.principal, k.request_id)]
+                if route != k.route or digest != k.body_sha256:
+                    outcomes.append(ServiceError(
+                        422, f"request id {k.request_id!r} was used before for another request ({route}); "
+                        "a retry must send the same body to the same address, a new request needs a new id",
+                        "Idempotency-Key", k.request_id))
+                else:
+                    outcomes.append(Answer(status, json.loads(text), replayed=True))
+                continue
+            status, body = job.fn(self.archive)
             text = json.dumps(body, allow_nan=False)
-            if job.key is not None:
-                k = job.key
-                con.execute(
-                    "INSERT INTO requests VALUES (?, ?, ?, ?, ?, ?, ?)",
-                    [k.principal, k.request_id, k.route, k.body_sha256, status, text, _now()],
-                )
-        return Answer(status, json.loads(text))
+            if k is not None:
+                stored[(k.principal, k.request_id)] = (k.route, k.body_sha256, status, text)
+                fresh.append((k, status, text))
+            outcomes.append(Answer(status, json.loads(text)))
+        if fresh:
+            con.execute(
+                "INSERT INTO requests SELECT unnest(?::VARCHAR[]), unnest(?::VARCHAR[]), unnest(?::VARCHAR[]), "
+                "unnest(?::VARCHAR[]), unnest(?::INTEGER[]), unnest(?::VARCHAR[]), ?",
+                [[k.principal for k, _, _ in fresh], [k.request_id for k, _, _ in fresh],
+                 [k.route for k, _, _ in fresh], [k.body_sha256 for k, _, _ in fresh],
+                 [status for _, status, _ in fresh], [text for _, _, text in fresh], _now()],
+            )
+        return outcomes
