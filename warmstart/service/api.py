@@ -318,11 +318,11 @@ def api_router(service: Service, authorize) -> APIRouter:
     @router.get("/gain/jobs/{job_id}", summary="A gain replay's state, progress and (when done) result")
     def gain_job(job_id: Annotated[str, PathParam(pattern=r"^[0-9a-f]{16}$")],
                  who: Principal = Depends(readers)) -> dict:
-        job = service.jobs.get(job_id)
-        if job is None:
-            raise ServiceError(404, f"no gain job {job_id} on this server (jobs are kept in memory until a "
-                               "restart; finished reports stay: GET /api/v1/gain/latest)", "job_id", job_id)
-        return job.to_dict()
+        state = service.jobs.lookup(job_id, service.reader())
+        if state is None:
+            raise ServiceError(404, f"no gain job {job_id} on this server (POST /api/v1/gain starts one; "
+                               "finished reports: GET /api/v1/gain/latest)", "job_id", job_id)
+        return state
 
     @router.get("/gain/latest", summary="The latest finished gain report")
     def gain_latest(who: Principal = Depends(readers)) -> dict:
