@@ -387,3 +387,62 @@ def test_studies_run_while_two_tunes_train_on_one_archive_and_both_finish(files)
     result = run("studies", "--json", archive=files.archive)
     assert_ok(result)
     assert sorted((s["task"], s["trial_count"]) for s in json.loads(result.stdout)) == [("north", 3), ("south", 3)]
+
+
+# -- the service's tables: removed with what they name, never carried to another archive --------
+def _served_archive(path: Path) -> dict:
+    """An archive a service wrote to: a study with a recorded lease (ok), a failed one and a pending
+    one, a stored request id, through the real API in process (FastAPI's test client)."""
+    from fastapi.testclient import TestClient
+    from service_support import SPACE, new_task, seed_archive
+
+    from warmstart.archive.store import Archive
+    from warmstart.service import create_app
+
+    seed_archive(path)
+    with TestClient(create_app(Archive(path))) as c:
+        study = c.post("/api/v1/studies", json={"task": new_task(), "learner": "bran", "space": SPACE,
+                                                "metric": "loss", "maximize": False, "cold": True}).json()["study_id"]
+        leases = c.post(f"/api/v1/studies/{study}/propose", json={"k": 3}).json()["leases"]
+        c.post(f"/api/v1/studies/{study}/trials", json={"trial": leases[0]["trial"], "score": 1.5},
+               headers={"Idempotency-Key": "job-7-result-1"}).raise_for_status()
+        c.post(f"/api/v1/studies/{study}/trials", json={"trial": leases[1]["trial"], "status": "failed"})
+    return {"study": study, "leases": [lease["trial"] for lease in leases]}
+
+
+def _service_rows(path: Path) -> dict[str, int]:
+    con = duckdb.connect(str(path), read_only=True)
+    try:
+        return {t: con.execute(f"SELECT count(*) FROM {t}").fetchall()[0][0] for t in ("leases", "requests")}
+    finally:
+        con.close()
+
+
+def test_prune_removes_the_leases_of_what_it_removes(tmp_path):
+    path = tmp_path / "served.duckdb"
+    made = _served_archive(path)
+    assert_ok(run("curate", "prune", "--failed", "--learner", "bran", "--yes", archive=path))
+    con = duckdb.connect(str(path), read_only=True)
+    states = dict(con.execute("SELECT trial_id, state FROM leases").fetchall())
+    con.close()
+    # the failed trial's lease went with it; the recorded ok one and the pending one stay
+    assert states == {made["leases"][0]: "recorded", made["leases"][2]: "pending"}
+    assert_ok(run("curate", "prune", "--learner", "bran", "--yes", archive=path))  # every bran study
+    assert _service_rows(path)["leases"] == 0
+
+
+def test_export_import_and_merge_carry_history_but_not_the_service_tables(tmp_path):
+    path = tmp_path / "served.duckdb"
+    _served_archive(path)
+    assert _service_rows(path) == {"leases": 3, "requests": 1}
+    for args, target in ((("curate", "export", tmp_path / "store"), path),
+                         (("curate", "import", tmp_path / "store"), tmp_path / "imported.duckdb"),
+                         (("curate", "merge", path), tmp_path / "merged.duckdb")):
+        result = run(*args, archive=target)
+        assert result.exit_code == 0, (args, result.stderr)
+    for target in ("imported.duckdb", "merged.duckdb"):
+        result = run("studies", "--json", archive=tmp_path / target)
+        assert_ok(result)
+        assert sum(s["trial_count"] for s in json.loads(result.stdout)) == 3 * 24 + 2  # history: all of it
+        # leases and request ids are promises of the service that owns an archive: they stay with it
+        assert _service_rows(tmp_path / target) == {"leases": 0, "requests": 0}

@@ -50,7 +50,9 @@ READABLE_FROM = 1
 #: every table of the archive (schema_v1.sql, schema_v2.sql, schema_v3.sql), the allow-list of table names used in statements
 ARCHIVE_TABLES = ("schema_version", "archive_info", "tasks", "profiles", "spaces", "studies", "trials",
                   "leases", "requests", "gain_reports")
-#: the tables that hold history (what a merge, an export and an import carry)
+#: the tables that hold history (what a merge, an export and an import carry); the service's
+#: tables (leases, requests, gain_reports) are promises and records of the one service that owns
+#: an archive, so they stay with it and are never carried (tests/test_cli_archive.py checks it)
 DATA_TABLES = ("tasks", "profiles", "spaces", "studies", "trials")
 
 
