@@ -13,7 +13,7 @@ import threading
 import pytest
 
 from warmstart.archive.store import Archive
-from warmstart.service.errors import ServiceError
+from warmstart.service.errors import Refused, ServiceError
 from warmstart.service.writer import RequestKey, Writer
 
 
@@ -113,3 +113,23 @@ def test_a_request_id_reused_for_another_request_fails_alone_in_its_batch(held):
         other.result(30)
     assert log == ["first", "fine"] and not drops  # nothing rolled back: the reuse wrote nothing
     assert _names(archive) == ["fine", "first", "req-2"]
+
+
+def test_a_write_refused_before_it_changed_anything_undoes_nothing(held):
+    writer, archive, release, first, commits, drops = held
+    log: list = []
+
+    def refuse(archive):
+        archive.con.execute("SELECT count(*) FROM requests").fetchall()  # reads only
+        log.append("refused")
+        raise Refused(404, "no trial with id 99; trial ids come from propose", "trial", 99)
+
+    a = writer.submit(_note("a", log))
+    bad = writer.submit(refuse)
+    b = writer.submit(_note("b", log))
+    release.set()
+    with pytest.raises(Refused, match="no trial with id 99"):
+        bad.result(30)
+    assert a.result(30).body["txid"] == b.result(30).body["txid"]  # still one transaction
+    assert log == ["a", "refused", "b"] and not drops  # nothing run twice, no cache dropped
+    assert _names(archive) == ["a", "b"]

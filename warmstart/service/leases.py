@@ -26,7 +26,7 @@ from typing import Any
 
 from warmstart.errors import SpaceError, WarmstartError
 from warmstart.search.strategy import SearchStrategy
-from warmstart.service.errors import ServiceError
+from warmstart.service.errors import Refused, ServiceError
 from warmstart.service.searches import resume_search
 
 __all__ = ["LeaseBook", "DEFAULT_LEASE_SECONDS"]
@@ -173,10 +173,10 @@ class LeaseBook:
         """Record a result by lease (``trial``) or by ``config``; returns the answer body."""
         search = self._search(archive, study)
         if (trial is None) == (config is None):
-            raise ServiceError(422, "give either trial (the id of a lease) or config (a config never proposed)",
+            raise Refused(422, "give either trial (the id of a lease) or config (a config never proposed)",
                                "trial", trial)
         if status == "ok" and score is None:
-            raise ServiceError(422, "score is required for status 'ok'; send status 'failed' for a failed trial",
+            raise Refused(422, "score is required for status 'ok'; send status 'failed' for a failed trial",
                                "score", None)
         if status == "failed":
             score = None
@@ -187,16 +187,16 @@ class LeaseBook:
                 "SELECT study_id, config, state, number, status, score FROM leases WHERE trial_id = ?", [trial]
             ).fetchall()
             if not rows:
-                raise ServiceError(404, f"no trial with id {trial}; trial ids come from propose", "trial", trial)
+                raise Refused(404, f"no trial with id {trial}; trial ids come from propose", "trial", trial)
             owner_study, key, state, number, was_status, was_score = rows[0]
             if int(owner_study) != study:
-                raise ServiceError(409, f"trial {trial} is a lease of study {owner_study}, not of study {study}",
+                raise Refused(409, f"trial {trial} is a lease of study {owner_study}, not of study {study}",
                                    "trial", trial)
             if state == "recorded":
                 if was_status == status and _same(was_score, score):
                     repeat = True
                 else:
-                    raise ServiceError(
+                    raise Refused(
                         409, f"trial {trial} was recorded already with {_result(was_status, was_score)}; "
                         f"a different result ({_result(status, score)}) is refused", "score", score)
             else:
@@ -205,7 +205,7 @@ class LeaseBook:
             try:
                 key = search.space.canonical_json(config)
             except SpaceError as exc:
-                raise ServiceError(422, f"config: {exc}", "config", config) from None
+                raise Refused(422, f"config: {exc}", "config", config) from None
             config = json.loads(key)
         if not repeat:
             self._expire(archive, study, search)
@@ -247,4 +247,4 @@ def _result(status: str, score: Any) -> str:
 
 def _exists_or_404(archive, study: int) -> None:
     if not archive.con.execute("SELECT 1 FROM studies WHERE study_id = ?", [study]).fetchall():
-        raise ServiceError(404, f"no study with id {study}; GET /api/v1/studies lists them", "study_id", study)
+        raise Refused(404, f"no study with id {study}; GET /api/v1/studies lists them", "study_id", study)

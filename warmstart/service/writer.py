@@ -15,7 +15,10 @@ commit. Results (``early`` writes) run before proposals in a batch, so a
 search learns every new score once, before it proposes. When one write of
 a batch fails, the batch is rolled back and every write of it runs again
 alone, in its own transaction: the failing one fails by itself, the others
-commit as if they had come one by one.
+commit as if they had come one by one. A write refused before it changed
+anything (:class:`~warmstart.service.errors.Refused`: an unknown study or
+trial, a repeat with another result ...) fails alone without undoing its
+batch.
 """
 
 from __future__ import annotations
@@ -30,7 +33,7 @@ from datetime import datetime, timedelta, timezone
 from typing import Any, Callable
 
 from warmstart.archive.store import Archive
-from warmstart.service.errors import ServiceError
+from warmstart.service.errors import Refused, ServiceError
 
 __all__ = ["Writer", "RequestKey", "Answer", "REQUEST_RETENTION_DAYS", "MAX_BATCH"]
 
@@ -218,7 +221,11 @@ class Writer:
                 else:
                     outcomes.append(Answer(status, json.loads(text), replayed=True))
                 continue
-            status, body = job.fn(self.archive)
+            try:
+                status, body = job.fn(self.archive)
+            except Refused as exc:  # refused before it changed anything: the batch goes on
+                outcomes.append(exc)
+                continue
             text = json.dumps(body, allow_nan=False)
             if k is not None:
                 stored[(k.principal, k.request_id)] = (k.route, k.body_sha256, status, text)
