@@ -13,7 +13,8 @@ no config was leased twice while pending (two leases of one config never
 overlap in time). Goals (issue 16): p50 <= 20 ms, p99 <= 100 ms, >= 300
 records/s on 2 cores. Baselines measured in the same run: the same pairs
 in one process without HTTP (``DensitySearch.propose`` + ``Archive.record_trial``),
-and ``GET /api/v1/health`` at 32 clients (the HTTP stack's floor). The
+``GET /api/v1/health`` at 32 clients (the HTTP stack's floor), and one trial
+recorded alone by the one-row INSERT against a one-row table (the earlier path). The
 clients share the 2 cores with the server. A plot of the pair latencies goes
 to ``--plot``.
 
@@ -167,6 +168,38 @@ def baseline_in_process(n: int) -> float:
         shutil.rmtree(folder, ignore_errors=True)
 
 
+def record_paths(n: int) -> tuple[float, float]:
+    """Seconds per trial recorded alone (its own commit): the one-row INSERT of
+    ``Archive.record_trial`` and the table path (``Archive.add_trials`` of a one-row frame,
+    what ``record_trial`` did before), on one file, same configs."""
+    import pandas as pd
+
+    from service_support import invented_frame
+
+    from warmstart.archive.store import Archive
+    from warmstart.space import Space
+
+    space = Space.from_dict(SPACE)
+    folder = Path(tempfile.mkdtemp(prefix="bench-record-"))
+    try:
+        with Archive(folder / "record.duckdb") as archive:
+            task = archive.add_task("local", invented_frame(5), "y")
+            one, table = (archive.add_study(task, "bran", space, metric="loss", maximize=False) for _ in range(2))
+            configs = space.sample(n + 1, rng=0)
+            archive.record_trial(one, configs[0], 1.0)
+            archive.add_trials(table, pd.DataFrame([configs[0]]).assign(score=1.0))
+            t0 = time.perf_counter()
+            for c in configs[1:]:
+                archive.record_trial(one, c, branin(c["x1"], c["x2"]))
+            t1 = time.perf_counter()
+            for c in configs[1:]:
+                archive.add_trials(table, pd.DataFrame([c]).assign(score=branin(c["x1"], c["x2"])))
+            t2 = time.perf_counter()
+        return (t1 - t0) / n, (t2 - t1) / n
+    finally:
+        shutil.rmtree(folder, ignore_errors=True)
+
+
 def summary(rows: list[dict], wall: float) -> dict:
     pair = np.array([r["pair_s"] for r in rows]) * 1000
     return {"pairs": len(rows), "wall_s": wall, "requests_per_s": 2 * len(rows) / wall,
@@ -210,6 +243,9 @@ def main() -> None:
         parser.error(f"--clients must be a multiple of {PROCESSES}")
     folder = Path(tempfile.mkdtemp(prefix="bench-service-"))
     print(f"machine: {os.cpu_count()} cores, load average {os.getloadavg()[0]:.2f}", flush=True)
+    row, table = record_paths(100)
+    print(f"one trial recorded alone: Archive.record_trial {row * 1000:.1f} ms, a one-row table through "
+          f"Archive.add_trials {table * 1000:.1f} ms ({table / row:.1f}x)", flush=True)
     local = baseline_in_process(200)
     print(f"baseline, one process without HTTP: {local * 1000:.2f} ms per propose + record pair "
           f"({1 / local:.0f} records/s)", flush=True)
