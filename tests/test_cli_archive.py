@@ -447,3 +447,22 @@ def test_export_import_and_merge_carry_history_but_not_the_service_tables(tmp_pa
         assert sum(s["trial_count"] for s in json.loads(result.stdout)) == 3 * 24 + 2  # history: all of it
         # leases and request ids are promises of the service that owns an archive: they stay with it
         assert _service_rows(tmp_path / target) == {"leases": 0, "requests": 0}
+
+
+def test_archive_turns_hold_the_file_only_during_a_call(tmp_path, space, small_frame):
+    from warmstart.archive.store import Archive
+    from warmstart.archive.turns import ArchiveTurns, open_archive
+
+    path = tmp_path / "turns.duckdb"
+    with Archive(path) as archive:
+        study = archive.add_study(archive.add_task("invented", small_frame, "y"), "svm", space)
+    turns = ArchiveTurns(path)
+    config = space.sample(1, rng=3)[0]
+    assert turns.record_trial(study, config, 0.5) == 1 and turns.record_trial(study, config, 0.25) == 2
+    # DuckDB refuses a read-only connection to a file this process still holds read-write: none is left
+    duckdb.connect(str(path), read_only=True).close()
+    assert turns.study(study)["trial_count"] == 2
+    with pytest.raises(AttributeError, match="passes on Archive methods only, not '_q'"):
+        turns._q
+    with pytest.raises(ValueError, match=r"wait must be a number of seconds >= 0, got -1"):
+        open_archive(path, wait=-1)

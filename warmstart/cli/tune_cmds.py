@@ -154,7 +154,8 @@ def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, 
                         n_seeds=n_seeds)
     # from here on the file is held only while a result is written: other commands (and other tunes)
     # use the archive while this one trains
-    study.archive = ArchiveTurns(release_archive(ctx), notice=wait_seconds(ctx), on_busy=_busy_note)
+    if archive.path != ":memory:":  # a throw-away archive lives only in this connection: kept open
+        study.archive = ArchiveTurns(release_archive(ctx), notice=wait_seconds(ctx), on_busy=_busy_note)
     click.echo(f"study {study.study_id}: {learner} on {Path(data).name} ({kind}), {metric} "
                f"({'maximize' if maximize else 'minimize'}), budget {budget}; {study.note}", err=True)
     failed = 0
