@@ -13,7 +13,8 @@ no config was leased twice while pending (two leases of one config never
 overlap in time). Goals (issue 16): p50 <= 20 ms, p99 <= 100 ms, >= 300
 records/s on 2 cores. Baselines measured in the same run: the same pairs
 in one process without HTTP (``DensitySearch.propose`` + ``Archive.record_trial``),
-and ``GET /api/v1/health`` at 32 clients (the HTTP stack's floor). The
+``GET /api/v1/health`` at 32 clients (the HTTP stack's floor), and one trial
+recorded alone by the one-row INSERT against a one-row table (the earlier path). The
 clients share the 2 cores with the server. A plot of the pair latencies goes
 to ``--plot``.
 
@@ -51,7 +52,8 @@ PROCESSES = 4
 DEADLINE_S = 600  # the whole load stops by itself after this
 
 
-def _client_thread(url: str, studies: list[int], pairs: int, index: int, out: list, stop_at: float) -> None:
+def _client_thread(url: str, studies: list[int], pairs: int, index: int, out: list, stop_at: float,
+                   train_s: float = 0.0) -> None:
     rng = np.random.default_rng(index)
     with Client(url, retries=3, timeout=60) as client:
         for _ in range(pairs):
@@ -62,6 +64,8 @@ def _client_thread(url: str, studies: list[int], pairs: int, index: int, out: li
             lease = client.propose(study)[0]
             t1 = time.perf_counter()
             score = branin(lease["config"]["x1"], lease["config"]["x2"])
+            if train_s:
+                time.sleep(train_s)
             t2 = time.perf_counter()
             answer = client.record(study, trial=lease["trial"], score=score)
             t3 = time.perf_counter()
@@ -71,9 +75,9 @@ def _client_thread(url: str, studies: list[int], pairs: int, index: int, out: li
 
 
 def _client_process(args) -> list[dict]:
-    url, studies, pairs, threads, first, stop_at = args
+    url, studies, pairs, threads, first, stop_at, train_s = args
     out: list[dict] = []
-    workers = [threading.Thread(target=_client_thread, args=(url, studies, pairs, first + i, out, stop_at))
+    workers = [threading.Thread(target=_client_thread, args=(url, studies, pairs, first + i, out, stop_at, train_s))
                for i in range(threads)]
     for w in workers:
         w.start()
@@ -106,10 +110,11 @@ def _warm(_: int) -> int:
     return os.getpid()
 
 
-def run_load(url: str, studies: list[int], clients: int, pairs: int, pool) -> tuple[list[dict], float]:
+def run_load(url: str, studies: list[int], clients: int, pairs: int, pool,
+             train_s: float = 0.0) -> tuple[list[dict], float]:
     per = clients // PROCESSES
     stop_at = time.monotonic() + DEADLINE_S
-    jobs = [(url, studies, pairs, per, p * per, stop_at) for p in range(PROCESSES)]
+    jobs = [(url, studies, pairs, per, p * per, stop_at, train_s) for p in range(PROCESSES)]
     t0 = time.perf_counter()
     results = pool.map(_client_process, jobs)
     return [r for part in results for r in part], time.perf_counter() - t0
@@ -163,6 +168,38 @@ def baseline_in_process(n: int) -> float:
         shutil.rmtree(folder, ignore_errors=True)
 
 
+def record_paths(n: int) -> tuple[float, float]:
+    """Seconds per trial recorded alone (its own commit): the one-row INSERT of
+    ``Archive.record_trial`` and the table path (``Archive.add_trials`` of a one-row frame,
+    what ``record_trial`` did before), on one file, same configs."""
+    import pandas as pd
+
+    from service_support import invented_frame
+
+    from warmstart.archive.store import Archive
+    from warmstart.space import Space
+
+    space = Space.from_dict(SPACE)
+    folder = Path(tempfile.mkdtemp(prefix="bench-record-"))
+    try:
+        with Archive(folder / "record.duckdb") as archive:
+            task = archive.add_task("local", invented_frame(5), "y")
+            one, table = (archive.add_study(task, "bran", space, metric="loss", maximize=False) for _ in range(2))
+            configs = space.sample(n + 1, rng=0)
+            archive.record_trial(one, configs[0], 1.0)
+            archive.add_trials(table, pd.DataFrame([configs[0]]).assign(score=1.0))
+            t0 = time.perf_counter()
+            for c in configs[1:]:
+                archive.record_trial(one, c, branin(c["x1"], c["x2"]))
+            t1 = time.perf_counter()
+            for c in configs[1:]:
+                archive.add_trials(table, pd.DataFrame([c]).assign(score=branin(c["x1"], c["x2"])))
+            t2 = time.perf_counter()
+        return (t1 - t0) / n, (t2 - t1) / n
+    finally:
+        shutil.rmtree(folder, ignore_errors=True)
+
+
 def summary(rows: list[dict], wall: float) -> dict:
     pair = np.array([r["pair_s"] for r in rows]) * 1000
     return {"pairs": len(rows), "wall_s": wall, "requests_per_s": 2 * len(rows) / wall,
@@ -199,11 +236,16 @@ def main() -> None:
     parser.add_argument("--clients", type=int, default=32, help="concurrent clients (a multiple of 4)")
     parser.add_argument("--pairs", type=int, default=50, help="propose + record pairs per client")
     parser.add_argument("--plot", default="bench-out/bench_service.png", help="where the latency plot goes")
+    parser.add_argument("--train-ms", type=float, default=0.0,
+                        help="pause between propose and record, standing for training (default: none)")
     args = parser.parse_args()
     if args.clients % PROCESSES:
         parser.error(f"--clients must be a multiple of {PROCESSES}")
     folder = Path(tempfile.mkdtemp(prefix="bench-service-"))
     print(f"machine: {os.cpu_count()} cores, load average {os.getloadavg()[0]:.2f}", flush=True)
+    row, table = record_paths(100)
+    print(f"one trial recorded alone: Archive.record_trial {row * 1000:.1f} ms, a one-row table through "
+          f"Archive.add_trials {table * 1000:.1f} ms ({table / row:.1f}x)", flush=True)
     local = baseline_in_process(200)
     print(f"baseline, one process without HTTP: {local * 1000:.2f} ms per propose + record pair "
           f"({1 / local:.0f} records/s)", flush=True)
@@ -216,6 +258,8 @@ def main() -> None:
         with Client(server.url) as client:
             studies = [client.create_study(new_task(seed=10 + i, name=f"store {i + 1}"), "bran", space=SPACE,
                                            metric="loss", maximize=False)["study_id"] for i in range(8)]
+            cold = client.create_study(new_task(seed=30, name="store cold"), "bran", space=SPACE, metric="loss",
+                                       maximize=False, cold=True)["study_id"]
         pool.map(_warm, range(PROCESSES))
         t0 = time.perf_counter()
         health = [x for part in pool.map(_health_process, [(server.url, 20, args.clients // PROCESSES)] * PROCESSES)
@@ -223,14 +267,16 @@ def main() -> None:
         health_wall = time.perf_counter() - t0
         print(f"baseline, GET /api/v1/health at {args.clients} clients: p50 {np.percentile(health, 50) * 1000:.1f} ms, "
               f"{len(health) / health_wall:.0f} requests/s", flush=True)
-        for label, chosen in (("one study", studies[:1]), ("8 studies", studies)):
-            rows, wall = run_load(server.url, chosen, args.clients, args.pairs, pool)
+        for label, chosen in (("one cold study", [cold]), ("one warm study", studies[:1]),
+                              ("8 warm studies", studies)):
+            rows, wall = run_load(server.url, chosen, args.clients, args.pairs, pool, args.train_ms / 1000)
             s = summary(rows, wall)
             all_there, distinct = check(server.url, rows, chosen)
             results[label] = s
             ok &= all_there and distinct and s["pairs"] == args.clients * args.pairs
-            print(f"\n{label}: {args.clients} clients x {args.pairs} propose + record pairs, {s['pairs']} answered "
-                  f"in {s['wall_s']:.1f} s", flush=True)
+            print(f"\n{label}: {args.clients} clients x {args.pairs} propose + record pairs"
+                  + (f" ({args.train_ms:g} ms training each)" if args.train_ms else "")
+                  + f", {s['pairs']} answered in {s['wall_s']:.1f} s", flush=True)
             print(f"  requests/s {s['requests_per_s']:.0f}   records/s {s['records_per_s']:.0f} "
                   f"(goal >= {GOALS['records_per_s']:.0f}: {s['records_per_s'] / GOALS['records_per_s']:.2f}x)")
             print(f"  pair latency p50 {s['p50_ms']:.1f} ms (goal <= {GOALS['p50_ms']:.0f}: "

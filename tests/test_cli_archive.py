@@ -5,7 +5,12 @@ message naming the culprit, a non-zero exit code, no traceback, nothing lost).""
 from __future__ import annotations
 
 import json
+import os
 import re
+import subprocess
+import sys
+import time
+from pathlib import Path
 from types import SimpleNamespace
 
 import duckdb
@@ -17,6 +22,7 @@ from warmstart.archive import SCHEMA_VERSION
 from warmstart.cli import main
 from warmstart.space import Space
 
+REPO = Path(__file__).resolve().parent.parent
 TRIALS = (
     "C,tol,n_trees,depth,kernel,degree,score,status,cost_s\n"
     "1.0,0.1,100,3,rbf,,0.8,ok,1.5\n"
@@ -303,9 +309,10 @@ def test_second_writer(files, table_dump, held_open):
     before = table_dump(files.archive)
     with held_open(files.archive) as pid:
         for args in (ingest_args(files), ["init"], ["studies"]):
-            result = run(*args, archive=files.archive)
+            result = run("--wait", "0.3", *args, archive=files.archive)
             assert_clean_failure(result, str(files.archive), "another process is writing to this archive",
-                                 f"held by process {pid}", "nothing was changed")
+                                 f"held by process {pid}", "still busy after the 0.3 s this command waited",
+                                 "--wait SECONDS", "`warmstart serve`", "nothing was changed")
     assert table_dump(files.archive) == before
     result = run(*ingest_args(files), archive=files.archive)  # free again once the other process is done
     assert result.exit_code == 0, result.stderr
@@ -319,3 +326,143 @@ def test_help_lists_the_commands():
     for command in ("init", "ingest", "studies", "show"):
         assert re.search(rf"^\s+{command}\s", result.stdout, re.MULTILINE)
     assert "WARMSTART_ARCHIVE" in result.stdout
+
+
+# -- taking turns on one file without a service (--wait; tune holds the file only to write) ----
+_SLOW_TRIAL = (  # an invented objective: reads the config on stdin, "trains" for a moment, prints a score
+    "import json, sys, time\n"
+    "config = json.load(sys.stdin)\n"
+    "time.sleep(0.3)\n"
+    "print(json.dumps({'score': 1.0 / (1.0 + abs(config['C'] - 1.0))}))\n"
+)
+
+
+def _tune(files, task: str, budget: int) -> subprocess.Popen:
+    script = files.root / "slow_trial.py"
+    script.write_text(_SLOW_TRIAL)
+    args = [sys.executable, "-c", "from warmstart.cli import main; main()", "--archive", str(files.archive),
+            "--wait", "30", "tune", str(files.data), "--target", "y", "--learner", "mine", "--space", str(files.space),
+            "--command", f"{sys.executable} {script}", "--budget", str(budget), "--task", task, "--cold"]
+    env = {**os.environ, "PYTHONPATH": str(REPO) + os.pathsep + os.environ.get("PYTHONPATH", "")}  # this checkout
+    return subprocess.Popen(args, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env)
+
+
+def test_commands_wait_for_a_busy_archive_and_go_on_when_it_is_free(files):
+    assert_ok(run(*ingest_args(files), archive=files.archive))
+    code = ("import sys, time, duckdb; con = duckdb.connect(sys.argv[1]); print('ready', flush=True); "
+            "time.sleep(1.0); con.close()")
+    holder = subprocess.Popen([sys.executable, "-c", code, str(files.archive)], stdout=subprocess.PIPE, text=True)
+    try:
+        assert holder.stdout.readline().strip() == "ready"
+        result = run("--wait", "30", "studies", "--json", archive=files.archive)  # waits the second out
+        assert holder.poll() is not None  # it got in only after the holder had gone
+    finally:
+        holder.wait(30)
+        holder.stdout.close()
+    assert_ok(result)
+    assert [s["task"] for s in json.loads(result.stdout)] == ["churn north"]
+
+
+def test_studies_run_while_two_tunes_train_on_one_archive_and_both_finish(files):
+    assert_ok(run("init", archive=files.archive))
+    tunes = [_tune(files, "north", 2), _tune(files, "south", 2)]
+    try:
+        seen = []
+        deadline = time.monotonic() + 60
+        while time.monotonic() < deadline and any(t.poll() is None for t in tunes):
+            result = run("--wait", "30", "studies", "--json", archive=files.archive)
+            assert result.exit_code == 0, result.stderr
+            seen.append((any(t.poll() is None for t in tunes), json.loads(result.stdout)))
+            time.sleep(0.2)
+        outs = [t.communicate(timeout=60) for t in tunes]
+    finally:
+        for t in tunes:
+            if t.poll() is None:
+                t.kill()
+                t.communicate()
+    for t, (out, err) in zip(tunes, outs):
+        assert t.returncode == 0, err
+    # a read answered while a tune was running, its study short of its trials (before: refused until it ended)
+    assert any(running and any(s["task"] in ("north", "south") and s["trial_count"] < 2 for s in studies)
+               for running, studies in seen), seen
+    result = run("studies", "--json", archive=files.archive)
+    assert_ok(result)
+    assert sorted((s["task"], s["trial_count"]) for s in json.loads(result.stdout)) == [("north", 2), ("south", 2)]
+
+
+# -- the service's tables: removed with what they name, never carried to another archive --------
+def _served_archive(path: Path) -> dict:
+    """An archive a service wrote to: a study with a recorded lease (ok), a failed one and a pending
+    one, a stored request id, through the real API in process (FastAPI's test client)."""
+    from fastapi.testclient import TestClient
+    from service_support import SPACE, new_task, seed_archive
+
+    from warmstart.archive.store import Archive
+    from warmstart.service import create_app
+
+    seed_archive(path)
+    with TestClient(create_app(Archive(path))) as c:
+        study = c.post("/api/v1/studies", json={"task": new_task(), "learner": "bran", "space": SPACE,
+                                                "metric": "loss", "maximize": False, "cold": True}).json()["study_id"]
+        leases = c.post(f"/api/v1/studies/{study}/propose", json={"k": 3}).json()["leases"]
+        c.post(f"/api/v1/studies/{study}/trials", json={"trial": leases[0]["trial"], "score": 1.5},
+               headers={"Idempotency-Key": "job-7-result-1"}).raise_for_status()
+        c.post(f"/api/v1/studies/{study}/trials", json={"trial": leases[1]["trial"], "status": "failed"})
+    return {"study": study, "leases": [lease["trial"] for lease in leases]}
+
+
+def _service_rows(path: Path) -> dict[str, int]:
+    con = duckdb.connect(str(path), read_only=True)
+    try:
+        return {t: con.execute(f"SELECT count(*) FROM {t}").fetchall()[0][0] for t in ("leases", "requests")}
+    finally:
+        con.close()
+
+
+def test_prune_removes_the_leases_of_what_it_removes(tmp_path):
+    path = tmp_path / "served.duckdb"
+    made = _served_archive(path)
+    assert_ok(run("curate", "prune", "--failed", "--learner", "bran", "--yes", archive=path))
+    con = duckdb.connect(str(path), read_only=True)
+    states = dict(con.execute("SELECT trial_id, state FROM leases").fetchall())
+    con.close()
+    # the failed trial's lease went with it; the recorded ok one and the pending one stay
+    assert states == {made["leases"][0]: "recorded", made["leases"][2]: "pending"}
+    assert_ok(run("curate", "prune", "--learner", "bran", "--yes", archive=path))  # every bran study
+    assert _service_rows(path)["leases"] == 0
+
+
+def test_export_import_and_merge_carry_history_but_not_the_service_tables(tmp_path):
+    path = tmp_path / "served.duckdb"
+    _served_archive(path)
+    assert _service_rows(path) == {"leases": 3, "requests": 1}
+    for args, target in ((("curate", "export", tmp_path / "store"), path),
+                         (("curate", "import", tmp_path / "store"), tmp_path / "imported.duckdb"),
+                         (("curate", "merge", path), tmp_path / "merged.duckdb")):
+        result = run(*args, archive=target)
+        assert result.exit_code == 0, (args, result.stderr)
+    for target in ("imported.duckdb", "merged.duckdb"):
+        result = run("studies", "--json", archive=tmp_path / target)
+        assert_ok(result)
+        assert sum(s["trial_count"] for s in json.loads(result.stdout)) == 3 * 24 + 2  # history: all of it
+        # leases and request ids are promises of the service that owns an archive: they stay with it
+        assert _service_rows(tmp_path / target) == {"leases": 0, "requests": 0}
+
+
+def test_archive_turns_hold_the_file_only_during_a_call(tmp_path, space, small_frame):
+    from warmstart.archive.store import Archive
+    from warmstart.archive.turns import ArchiveTurns, open_archive
+
+    path = tmp_path / "turns.duckdb"
+    with Archive(path) as archive:
+        study = archive.add_study(archive.add_task("invented", small_frame, "y"), "svm", space)
+    turns = ArchiveTurns(path)
+    config = space.sample(1, rng=3)[0]
+    assert turns.record_trial(study, config, 0.5) == 1 and turns.record_trial(study, config, 0.25) == 2
+    # DuckDB refuses a read-only connection to a file this process still holds read-write: none is left
+    duckdb.connect(str(path), read_only=True).close()
+    assert turns.study(study)["trial_count"] == 2
+    with pytest.raises(AttributeError, match="passes on Archive methods only, not '_q'"):
+        turns._q
+    with pytest.raises(ValueError, match=r"wait must be a number of seconds >= 0, got -1"):
+        open_archive(path, wait=-1)

@@ -312,7 +312,7 @@ def test_check_statuses_sound_unsound_busy_damaged_and_cannot(files, held_open, 
     result = cli(unsound, "curate", "check")
     assert result.exit_code == 1 and "scores_out_of_range" in result.stdout
     with held_open(sound) as pid:
-        result = cli(sound, "curate", "check")
+        result = cli(sound, "--wait", "0", "curate", "check")
         assert result.exit_code == 3, result.output
         assert f"{sound}: another process is writing to this archive (held by process {pid})" in result.stderr
     result = cli(files["middle flipped"], "curate", "check", "--json")

@@ -202,9 +202,11 @@ def test_a_second_writer_gets_a_clear_message_and_changes_nothing(world, tmp_pat
                      ["ingest", world["root"] / "trials.parquet", "--task", "stores", "--data",
                       world["root"] / "data.csv", "--target", "y", "--learner", "svm", "--space",
                       world["root"] / "space.json"]):
-            result = cli(path, *args)
+            result = cli(path, "--wait", "0.2", *args)
             assert result.exit_code == 1, (args, result.output)
             assert f"{path}: another process is writing to this archive" in result.stderr
+            assert "still busy after the 0.2 s this command waited" in result.stderr
+            assert "`warmstart serve`" in result.stderr
             assert "wait for it to finish" in result.stderr and "Traceback" not in result.output
         # the other way round: the archive to merge from is the one being written
         result = cli(other, "curate", "merge", path)

@@ -208,6 +208,31 @@ def test_curate_check_export_and_gain_job(client, tmp_path):
     assert latest["result"] == state["result"] and latest["report_id"] == state["report_id"]
 
 
+def test_gain_jobs_after_a_restart_read_done_or_failed_never_running(seeded):
+    path, _ = seeded
+    with TestClient(create_app(Archive(path)), raise_server_exceptions=False) as c:
+        done = c.post("/api/v1/gain", json={"learner": "bran", "budget": 3, "repeats": 2}).json()
+        deadline = time.monotonic() + 120
+        while c.get(done["url"]).json()["state"] not in ("done", "failed") and time.monotonic() < deadline:
+            time.sleep(0.2)
+        first = c.get(done["url"]).json()
+        assert first["state"] == "done", first
+        # two more, the second still queued behind the first when the service stops (a restart)
+        c.post("/api/v1/gain", json={"learner": "bran", "budget": 3, "repeats": 2})
+        cut = c.post("/api/v1/gain", json={"learner": "bran", "budget": 3, "repeats": 2}).json()
+    with TestClient(create_app(Archive(path)), raise_server_exceptions=False) as c:  # the service again
+        again = c.get(done["url"]).json()  # finished before: its stored report
+        assert again["state"] == "done" and again["result"] == first["result"]
+        assert again["report_id"] == first["report_id"]
+        lost = c.get(cut["url"])
+        assert lost.status_code == 200 and lost.json()["state"] == "failed"
+        assert "stopped (a restart or a crash) before it finished" in lost.json()["error"]
+        mine = c.app.state.service.jobs.run_id + "0" * 8  # this run never gave that id
+        unknown = c.get(f"/api/v1/gain/jobs/{mine}")
+        assert unknown.status_code == 404 and unknown.json()["field"] == "job_id"
+        assert "job" not in c.get("/api/v1/gain/latest").json()["options"]
+
+
 # -- tokens and roles ---------------------------------------------------------------------
 def test_tokens_roles_and_owner(token_client, caplog):
     c = token_client

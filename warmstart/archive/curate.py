@@ -425,7 +425,13 @@ def _delete_duplicates(archive: Archive) -> tuple[int, int]:
         chunk = emptied[start:start + 1000]
         studies += rows_changed(archive.con, f"DELETE FROM studies WHERE study_id IN ({', '.join('?' * len(chunk))})", chunk
         )
+    if studies:
+        archive.con.execute(_ORPHAN_LEASES)
     return trials, studies
+
+
+#: the service's leases (schema version 2) of studies no longer in the archive
+_ORPHAN_LEASES = "DELETE FROM leases WHERE study_id NOT IN (SELECT study_id FROM studies)"
 
 
 def fix_archive(archive: Archive) -> list[tuple[str, int]]:
@@ -478,6 +484,7 @@ def fix_archive(archive: Archive) -> list[tuple[str, int]]:
         n = rows_changed(archive.con, "DELETE FROM studies WHERE study_id NOT IN (SELECT study_id FROM trials)") + emptied
         if n:
             done.append(("deleted studies with no trials", n))
+        archive.con.execute(_ORPHAN_LEASES)  # the service's leases of the studies deleted
     return done
 
 

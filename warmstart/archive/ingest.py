@@ -20,7 +20,7 @@ from warmstart.errors import IngestError
 from warmstart.evaluate.metrics import METRICS, metric_bounds, metric_direction
 from warmstart.space import Param, Space
 
-__all__ = ["prepare_trials", "EXTRA_COLUMNS", "param_columns", "study_direction"]
+__all__ = ["prepare_trials", "prepare_trial", "EXTRA_COLUMNS", "param_columns", "study_direction"]
 
 EXTRA_COLUMNS = ("score", "status", "cost_s", "started_at", "finished_at", "error")
 _STATUS = ("ok", "failed")
@@ -378,3 +378,87 @@ def _error_texts(frame: pd.DataFrame, columns: list[str], finite: np.ndarray) ->
         errors = np.full(len(frame), None, dtype=object)
     errors[~finite & pd.isna(errors)] = "score is missing or not finite"
     return errors
+
+
+def prepare_trial(space: Space, config: Any, score: Any, status: Any = "ok", cost_s: Any = None,
+                  started_at: Any = None, finished_at: Any = None, error: Any = None, where: str = "trial",
+                  metric: str | None = None) -> dict[str, Any]:
+    """Validate one trial as :func:`prepare_trials` validates a row, for a one-row insert.
+
+    The same rules and messages as a one-row table, without building one:
+    ``config`` must be a valid config of ``space`` (exactly its active
+    parameters); a score that is None, NaN or infinite, or status
+    ``failed``, makes a failed trial (score None); a successful score of a
+    built-in metric must lie in its range; ``cost_s`` is None or a finite
+    number >= 0; times are date-times (naive ones are taken as UTC).
+
+    Returns
+    -------
+    dict
+        ``values``: one entry per parameter in space order (the canonical
+        value; a choice as its level's JSON text, as the batch insert writes
+        it; None where inactive), then ``score`` (float or None), ``status``,
+        ``cost_s``, ``started_at``, ``finished_at`` (naive UTC datetimes or
+        None) and ``error``.
+
+    Raises
+    ------
+    SpaceError
+        The config is not a config of the space.
+    IngestError
+        A bad score, status, cost or time.
+    """
+    config = space.normalize(config)
+    values: list[Any] = []
+    for p in space.params:
+        value = config.get(p.name)
+        values.append(json.dumps(value) if p.kind == "choice" and p.name in config else value)
+    value = _one_number(score, where, "score", "a score must be a number (empty, NaN or inf mark a failed trial)")
+    finite = value is not None and np.isfinite(value)
+    text = "ok" if status is None else str(status).strip().lower()
+    if text not in _STATUS:
+        raise _fail(where, 0, "status", status, f"is not a status; use one of {list(_STATUS)}")
+    failed = text == "failed" or not finite
+    bounds = metric_bounds(metric)
+    if bounds is not None and not failed and not bounds[0] <= value <= bounds[1]:
+        raise _fail(where, 0, "score", score, f"is impossible for metric {metric!r}: its scores are "
+                    f"{_describe_range(*bounds)} (scikit-learn's metric definitions)")
+    cost = _one_number(cost_s, where, "cost_s", "cost_s is the trial's cost in seconds (a number >= 0)")
+    if cost is not None and (cost < 0 or np.isinf(cost)):
+        raise _fail(where, 0, "cost_s", cost_s, "is not a cost in seconds (a finite number >= 0)")
+    if cost is not None and np.isnan(cost):
+        cost = None
+    if error is not None and not pd.isna(error):
+        error = str(error)
+    else:
+        error = None if finite else "score is missing or not finite"
+    return {"values": values, "score": None if failed else float(value), "status": "failed" if failed else "ok",
+            "cost_s": cost, "started_at": _one_moment(started_at, where, "started_at"),
+            "finished_at": _one_moment(finished_at, where, "finished_at"), "error": error}
+
+
+def _one_number(value: Any, where: str, name: str, what: str) -> float | None:
+    """A cell as a float (None when missing), refused as :func:`_numeric` refuses it."""
+    if value is None or (isinstance(value, str) and value.strip() == ""):
+        return None
+    if isinstance(value, (bool, np.bool_)):
+        raise _fail(where, 0, name, value, f"is a boolean; {what}")
+    if isinstance(value, str) and value.strip().lower() in ("nan", "na", "null", "none"):
+        return None
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        raise _fail(where, 0, name, value, f"is not a number; {what}") from None
+    return number
+
+
+def _one_moment(value: Any, where: str, name: str):
+    """A time as a naive UTC datetime with microseconds (as the batch insert stores it), or None."""
+    if value is None:
+        return None
+    stamp = pd.to_datetime(value, errors="coerce", utc=True)
+    if pd.isna(stamp):
+        if pd.isna(value):
+            return None
+        raise _fail(where, 0, name, value, "is not a date-time (use ISO 8601, e.g. 2026-03-01T12:00:00)")
+    return stamp.tz_convert(None).to_pydatetime(warn=False)

@@ -155,6 +155,12 @@ def apply_prune(archive: Archive, plan: PrunePlan) -> tuple[int, int]:
                 f"DELETE FROM studies WHERE study_id IN (SELECT study_id FROM {view}) "
                 "AND study_id NOT IN (SELECT study_id FROM trials)",
             )
+            # the service's leases go with what they name: every lease of a study removed, and the
+            # recorded leases of the failed trials removed (pending leases of a study kept stay)
+            con.execute(
+                f"DELETE FROM leases WHERE study_id IN (SELECT study_id FROM {view}) AND "
+                "(study_id NOT IN (SELECT study_id FROM studies) OR "
+                "(state = 'recorded' AND status = 'failed' AND ?))", [plan.failed_only])
         finally:
             con.unregister(view)
     return trials, studies

@@ -55,7 +55,9 @@ READABLE_FROM = 1
 #: every table of the archive (schema_v1.sql, schema_v2.sql, schema_v3.sql), the allow-list of table names used in statements
 ARCHIVE_TABLES = ("schema_version", "archive_info", "tasks", "profiles", "spaces", "studies", "trials",
                   "leases", "requests", "gain_reports")
-#: the tables that hold history (what a merge, an export and an import carry)
+#: the tables that hold history (what a merge, an export and an import carry); the service's
+#: tables (leases, requests, gain_reports) are promises and records of the one service that owns
+#: an archive, so they stay with it and are never carried (tests/test_cli_archive.py checks it)
 DATA_TABLES = ("tasks", "profiles", "spaces", "studies", "trials")
 
 
@@ -114,6 +116,8 @@ class Archive:
         self.path = str(path)
         self.read_only = read_only
         self._depth = 0
+        self._heads: dict[int, tuple[int, str, str, str]] = {}
+        self._spaces: dict[int, Space] = {}
         memory = self.path == ":memory:"
         if not memory:
             p = Path(self.path)
@@ -174,6 +178,7 @@ class Archive:
         """
         view = object.__new__(Archive)
         view.path, view.read_only, view._depth = self.path, True, 0
+        view._heads, view._spaces = {}, {}
         view.con = self.con.cursor()
         return view
 
@@ -644,25 +649,64 @@ class Archive:
         A score that is None, NaN or infinite records a failed trial.
         ``fold_scores`` (finite numbers) are the per-fold scores of a
         cross-validated objective.
+
+        One parameterised INSERT (no table is built): the same checks as
+        :meth:`add_trials` (:func:`~warmstart.archive.ingest.prepare_trial`),
+        and the config text and content key come from the same SQL
+        expression, so a trial recorded here and the same trial added in a
+        table are stored byte for byte alike.
         """
-        import pandas as pd
+        from warmstart.archive.ingest import param_columns, prepare_trial
 
-        from warmstart.archive.ingest import prepare_trials
-
-        space, fp, learner = self._study_keys(study)
-        config = space.normalize(config)
-        folds = _fold_scores(fold_scores, f"trial of study {study}")
-        row: dict[str, Any] = {name: [config.get(name)] for name in space.names}
-        row.update(
-            score=[math.nan if score is None else score], status=[status], cost_s=[cost_s],
-            started_at=[started_at], finished_at=[finished_at or utc_now()], error=[error],
+        space_id, metric, fp, learner = self._study_head(study)
+        space = self._space_cached(space_id)
+        where = f"trial of study {study}"
+        folds = _fold_scores(fold_scores, where)
+        row = prepare_trial(space, config, score, status, cost_s, started_at, finished_at, error, where=where,
+                            metric=metric)
+        config_sql, keys = _config_sql(space)
+        casts = ["VARCHAR" if p.kind == "choice" else "BIGINT" if p.kind == "integer" else "DOUBLE"
+                 for p in space.params]
+        given = ", ".join(f"?::{cast} AS {col}" for cast, col in zip(casts, param_columns(space)))
+        # placeholders bind in text order: the row's cells, the keys (inside cfg), then the values;
+        # plain statements only (a join or a sub-query in the INSERT costs DuckDB several times as much)
+        sql = (
+            "INSERT INTO trials (study_id, number, config, score, status, cost_s, started_at, finished_at, "
+            "error, content_key, fold_scores) "
+            "SELECT ?, ?, v.cfg, ?::DOUBLE, ?, ?::DOUBLE, ?::TIMESTAMP, ?::TIMESTAMP, ?, "
+            "sha256(? || v.cfg), ?::DOUBLE[] "
+            f"FROM (SELECT {config_sql} AS cfg FROM (SELECT {given})) v"
         )
-        prepared = prepare_trials(space, pd.DataFrame(row), where=f"trial of study {study}",
-                                  metric=self._study_metric(study))
-        if folds is not None:
-            prepared = prepared.assign(fold_scores=[folds])
-        with self.transaction():
-            return self._insert_trials(int(study), space, fp, learner, prepared)
+        with translated(self.path), self.transaction() as con:
+            if not con.execute("SELECT 1 FROM studies WHERE study_id = ?", [int(study)]).fetchall():
+                self._heads.pop(int(study), None)  # the study went away since its keys were read
+                raise ArchiveError(f"no study with id {study} in {self.path}; `warmstart studies` lists them")
+            number = int(con.execute("SELECT coalesce(max(number), 0) + 1 FROM trials WHERE study_id = ?",
+                                     [int(study)]).fetchall()[0][0])
+            con.execute(sql, [int(study), number, row["score"], row["status"], row["cost_s"], row["started_at"],
+                              row["finished_at"] or utc_now(), row["error"], f"{fp}|{learner}|", folds,
+                              *keys, *row["values"]])
+        return number
+
+    def _study_head(self, study: int) -> tuple[int, str, str, str]:
+        """(space id, metric, task fingerprint, learner) of a study; all fixed once a
+        study exists, so they are kept."""
+        head = self._heads.get(int(study))
+        if head is None:
+            rows = self._q("SELECT s.space_id, s.metric, t.fingerprint, s.learner FROM studies s "
+                           "JOIN tasks t USING (task_id) WHERE s.study_id = ?", [int(study)])
+            if not rows:
+                raise ArchiveError(f"no study with id {study} in {self.path}; `warmstart studies` lists them")
+            space_id, metric, fp, learner = rows[0]
+            head = self._heads[int(study)] = (int(space_id), metric, fp, learner)
+        return head
+
+    def _space_cached(self, space_id: int) -> Space:
+        """:meth:`space`, kept per id (a stored space never changes: its id names its content)."""
+        space = self._spaces.get(space_id)
+        if space is None:
+            space = self._spaces[space_id] = self.space(space_id)
+        return space
 
     def _insert_trials(self, study: int, space: Space, fp: str, learner: str, prepared: pd.DataFrame) -> int:
         """Bulk insert of prepared trials; config JSON and content key built in SQL.
@@ -674,16 +718,7 @@ class Archive:
         (study, fingerprint, learner) comes before the sub-query that holds the
         JSON keys.
         """
-        from warmstart.archive.ingest import param_columns
-
-        cols = param_columns(space)
-        order = sorted(range(space.dim), key=lambda j: space.params[j].name)
-        parts, keys = [], []
-        for j in order:
-            value = f"to_json({cols[j]})::VARCHAR" if space.params[j].kind != "choice" else f"{cols[j]}::VARCHAR"
-            parts.append(f"CASE WHEN {cols[j]} IS NULL THEN NULL ELSE ? || {value} END")
-            keys.append(json.dumps(space.params[j].name) + ":")
-        config_sql = "'{' || concat_ws(',', " + ", ".join(parts) + ") || '}'"
+        config_sql, keys = _config_sql(space)
         con = self.con
         start = int(con.execute("SELECT coalesce(max(number), 0) FROM trials WHERE study_id = ?", [study]).fetchall()[0][0])
         numbered = prepared.assign(_number=range(start + 1, start + len(prepared) + 1))
@@ -835,6 +870,23 @@ def _fold_scores(values: Any, where: str) -> list[float] | None:
     if not all(map(math.isfinite, folds)):
         raise ArchiveError(f"{where}: fold_scores must be finite numbers, got {folds}")
     return folds or None
+
+
+def _config_sql(space: Space) -> tuple[str, list[str]]:
+    """The SQL expression of a trial's config text over the columns ``p0 ..``
+    (real DOUBLE, integer BIGINT, choice the level's JSON text) and the JSON
+    keys it binds, in order. Canonical JSON: keys sorted, no spaces, inactive
+    parameters left out. The one place both inserts build the text from."""
+    from warmstart.archive.ingest import param_columns
+
+    cols = param_columns(space)
+    order = sorted(range(space.dim), key=lambda j: space.params[j].name)
+    parts, keys = [], []
+    for j in order:
+        value = f"to_json({cols[j]})::VARCHAR" if space.params[j].kind != "choice" else f"{cols[j]}::VARCHAR"
+        parts.append(f"CASE WHEN {cols[j]} IS NULL THEN NULL ELSE ? || {value} END")
+        keys.append(json.dumps(space.params[j].name) + ":")
+    return "'{' || concat_ws(',', " + ", ".join(parts) + ") || '}'", keys
 
 
 def _insert_frame(con: duckdb.DuckDBPyConnection, table: str, frame: pd.DataFrame, columns: list[str]) -> None:

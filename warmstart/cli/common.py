@@ -25,7 +25,7 @@ if TYPE_CHECKING:
 # was imported, so to_jsonable looks for those types in sys.modules (and warmstart.text's cells too).
 
 __all__ = [
-    "get_archive", "print_table", "print_rows", "print_json", "profile_table", "PROGRESS_CELLS", "fail", "json_option", "keep_column_option",
+    "get_archive", "release_archive", "wait_seconds", "print_table", "print_rows", "print_json", "profile_table", "PROGRESS_CELLS", "fail", "json_option", "keep_column_option",
     "parse_tags", "read_data", "strict_option", "to_jsonable",
 ]
 
@@ -58,10 +58,12 @@ strict_option = click.option(
 
 def get_archive(ctx: click.Context, write: bool = True) -> Archive:
     """The archive named by ``--archive``, opened once per command and closed
-    when the command ends. ``write=False`` opens it read-only."""
+    when the command ends. ``write=False`` opens it read-only. While another
+    process holds the file, waits up to ``--wait`` seconds
+    (:func:`~warmstart.archive.turns.open_archive`)."""
     root = ctx.find_root()
     root.ensure_object(dict)
-    from warmstart.archive.store import Archive
+    from warmstart.archive.turns import open_archive
     from warmstart.cli.limits import check_archive_folder
 
     cached = root.obj.get("archive")
@@ -71,10 +73,27 @@ def get_archive(ctx: click.Context, write: bool = True) -> Archive:
         cached.close()
     if write:
         check_archive_folder(root.obj["archive_path"])
-    archive = Archive(root.obj["archive_path"], read_only=not write)
+    archive = open_archive(root.obj["archive_path"], read_only=not write, wait=wait_seconds(ctx))
     root.obj["archive"] = archive
     root.call_on_close(archive.close)
     return archive
+
+
+def wait_seconds(ctx: click.Context) -> float:
+    """The group's ``--wait SECONDS`` (the default when the group was not run, e.g. in a test)."""
+    obj = ctx.find_root().obj or {}
+    from warmstart.archive.turns import DEFAULT_WAIT_SECONDS
+
+    return float(obj.get("wait", DEFAULT_WAIT_SECONDS))
+
+
+def release_archive(ctx: click.Context) -> str:
+    """Close the command's archive now (a later :func:`get_archive` opens it again); returns its path."""
+    root = ctx.find_root()
+    archive = (root.obj or {}).pop("archive", None)
+    if archive is not None:
+        archive.close()
+    return root.obj["archive_path"]
 
 
 def parse_tags(values: tuple[str, ...]) -> dict[str, str]:

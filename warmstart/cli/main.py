@@ -119,11 +119,22 @@ class _Group(click.Group):
          "defaults, prior, ingest, tag, propose, record, tune. Also from WARMSTART_SERVER; the token from "
          "WARMSTART_TOKEN.",
 )
+@click.option(
+    "--wait",
+    "wait_seconds",
+    default=5.0,
+    show_default=True,
+    type=click.FloatRange(min=0),
+    metavar="SECONDS",
+    help="How long to wait for the archive file while another process holds it (a tune holds it only while "
+         "it writes) before giving up; `warmstart serve` shares one archive among many processes.",
+)
 @click.version_option(__version__, prog_name="warmstart")
 @click.pass_context
-def main(ctx: click.Context, archive_path: str, server: str | None) -> None:
+def main(ctx: click.Context, archive_path: str, server: str | None, wait_seconds: float) -> None:
     """Keep your team's tuning history, start new searches from what worked on
     similar tasks, and measure in bits whether that helped."""
     ctx.ensure_object(dict)
     ctx.obj["archive_path"] = archive_path
     ctx.obj["server"] = server
+    ctx.obj["wait"] = wait_seconds

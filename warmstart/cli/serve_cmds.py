@@ -9,7 +9,7 @@ import sys
 
 import click
 
-from warmstart.cli.common import fail
+from warmstart.cli.common import fail, wait_seconds
 from warmstart.cli.main import main
 
 LOOPBACK_NAMES = ("localhost",)
@@ -53,9 +53,9 @@ def serve(ctx, host, port, token_file, lease_seconds):
         fail(f"--host {host} is not a loopback address: anyone who reaches it could write to the archive; "
              "give --token-file FILE (or serve on 127.0.0.1)")
     tokens = Tokens.load(token_file) if token_file else None
-    from warmstart.archive.store import Archive
+    from warmstart.archive.turns import open_archive
 
-    archive = Archive(ctx.find_root().obj["archive_path"])
+    archive = open_archive(ctx.find_root().obj["archive_path"], wait=wait_seconds(ctx))
     app = create_app(archive, tokens=tokens, lease_seconds=lease_seconds)
     handler = logging.StreamHandler(sys.stderr)
     handler.setFormatter(logging.Formatter("%(asctime)s %(message)s", "%Y-%m-%dT%H:%M:%S"))

@@ -21,9 +21,12 @@ from warmstart.cli.common import (
     PROGRESS_CELLS,
     profile_table,
     read_data,
+    release_archive,
     strict_option,
     terminate_as_interrupt,
+    wait_seconds,
 )
+from warmstart.archive.turns import ArchiveTurns
 from warmstart.cli.limits import MAX_PROPOSALS, MAX_TRIALS, MAX_WORKERS
 from warmstart.cli.main import main
 from warmstart.cli.progress import Progress
@@ -164,6 +167,10 @@ def tune(ctx, data, target, learner, space_path, budget, metric, seed, workers, 
     task_id = archive.add_task(task_name or Path(data).stem, frame, target, kind=kind, source=str(data), profile=prof)
     study = start_study(archive, task_id, learner, space, metric=metric, maximize=maximize, seed=seed, cold=cold,
                         n_seeds=n_seeds)
+    # from here on the file is held only while a result is written: other commands (and other tunes)
+    # use the archive while this one trains
+    if archive.path != ":memory:":  # a throw-away archive lives only in this connection: kept open
+        study.archive = ArchiveTurns(release_archive(ctx), notice=wait_seconds(ctx), on_busy=_busy_note)
     click.echo(f"study {study.study_id}: {learner} on {Path(data).name} ({kind}), {metric} "
                f"({'maximize' if maximize else 'minimize'}), budget {budget}; {study.note}", err=True)
     failed = 0
@@ -195,6 +202,11 @@ def _ranked_first(n_ranked: int | None, old_seeds: int | None) -> int | None:
     click.echo(f"note: --seeds is deprecated and will go; it is now --ranked-first {old_seeds} (try {old_seeds} of "
                "the prior's ranked past configs first; the random seed is --seed)", err=True)
     return old_seeds
+
+
+def _busy_note(path: str) -> None:
+    click.echo(f"note: {path}: another process holds the archive; this result waits for it (Ctrl-C stops; "
+               "`warmstart serve` shares one archive among many processes)", err=True)
 
 
 def _report(study, run, as_json, budget) -> None:

@@ -169,7 +169,7 @@ def api_router(service: Service, authorize) -> APIRouter:
         return answer(await service.write(
             lambda archive: (200, service.leases.record(archive, study_id, body.trial, body.config, body.score,
                                                         body.status, body.error, body.cost_s, who.name)),
-            key))
+            key, early=True))
 
     @router.post("/studies/{study_id}/finish", summary="Mark a study finished")
     async def finish(study_id: StudyId, who: Principal = Depends(writers),
@@ -318,11 +318,11 @@ def api_router(service: Service, authorize) -> APIRouter:
     @router.get("/gain/jobs/{job_id}", summary="A gain replay's state, progress and (when done) result")
     def gain_job(job_id: Annotated[str, PathParam(pattern=r"^[0-9a-f]{16}$")],
                  who: Principal = Depends(readers)) -> dict:
-        job = service.jobs.get(job_id)
-        if job is None:
-            raise ServiceError(404, f"no gain job {job_id} on this server (jobs are kept in memory until a "
-                               "restart; finished reports stay: GET /api/v1/gain/latest)", "job_id", job_id)
-        return job.to_dict()
+        state = service.jobs.lookup(job_id, service.reader())
+        if state is None:
+            raise ServiceError(404, f"no gain job {job_id} on this server (POST /api/v1/gain starts one; "
+                               "finished reports: GET /api/v1/gain/latest)", "job_id", job_id)
+        return state
 
     @router.get("/gain/latest", summary="The latest finished gain report")
     def gain_latest(who: Principal = Depends(readers)) -> dict:

@@ -124,8 +124,10 @@ class Service:
             return fn(self._query_view)
 
     # -- writes ----------------------------------------------------------------
-    async def write(self, fn: Callable[[Archive], tuple[int, Any]], key: RequestKey | None = None) -> Answer:
+    async def write(self, fn: Callable[[Archive], tuple[int, Any]], key: RequestKey | None = None,
+                    early: bool = False) -> Answer:
         """Run ``fn`` in the writer thread, in one transaction; the answer
-        comes back after the commit."""
-        future = self.writer.submit(fn, key)
+        comes back after the commit (``early``: a result, run before the
+        proposals committed with it)."""
+        future = self.writer.submit(fn, key, early=early)
         return await asyncio.wrap_future(future)

@@ -20,7 +20,7 @@ from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from warmstart.errors import WarmstartError
 
-__all__ = ["ServiceError", "install_handlers", "error_body", "shown"]
+__all__ = ["ServiceError", "Refused", "install_handlers", "error_body", "shown"]
 
 log = logging.getLogger("warmstart.service")
 MAX_SHOWN = 200  # characters of a received value echoed back
@@ -50,6 +50,12 @@ class ServiceError(Exception):
         self.message = message
         self.field = field
         self.value = value
+
+
+class Refused(ServiceError):
+    """A :class:`ServiceError` raised by a write before it changed anything
+    (no statement but reads, nothing in memory): the writer hands it to the
+    request without undoing the other writes of its batch."""
 
 
 def shown(value: Any) -> Any:

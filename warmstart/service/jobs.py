@@ -1,8 +1,12 @@
 """Gain replays as background jobs: started by a request, run one at a time
 in a thread of their own on a read-only view, with progress to poll and a
 result to fetch. A finished replay is stored in the archive (table
-``gain_reports``, through the writer) so the web page shows the latest one
-after a restart too; the jobs themselves live in memory.
+``gain_reports``, through the writer, with its job id) so the web page shows
+the latest one after a restart too, and its job still reads ``done``; the
+jobs themselves live in memory. A job id starts with the id of the service
+run that took it, so after a restart (or a crash) a job of an earlier run
+that never finished reads ``failed``, saying that the service stopped
+before it finished -- never ``running`` for ever.
 """
 
 from __future__ import annotations
@@ -78,6 +82,9 @@ class GainJobs:
 
     def __init__(self, service: "Service"):
         self.service = service
+        #: the id of this service run: the first 8 hex digits of every job id it gives
+        self.run_id = uuid.uuid4().hex[:8]
+        self.started_at = _now_text()
         self._jobs: dict[str, GainJob] = {}
         self._order: list[str] = []
         self._lock = threading.Lock()
@@ -87,7 +94,7 @@ class GainJobs:
 
     def submit(self, options: dict, owner: str | None) -> GainJob:
         """Queue a replay (options as :class:`~warmstart.service.models.GainBody`)."""
-        job = GainJob(uuid.uuid4().hex[:16], owner, dict(options))
+        job = GainJob(self.run_id + uuid.uuid4().hex[:8], owner, dict(options))
         with self._lock:
             self._jobs[job.job_id] = job
             self._order.append(job.job_id)
@@ -104,6 +111,38 @@ class GainJobs:
     def get(self, job_id: str) -> GainJob | None:
         with self._lock:
             return self._jobs.get(job_id)
+
+    def lookup(self, job_id: str, view) -> dict | None:
+        """A job's state as the API answers it, also for a job of an earlier run
+        of the service (``view``: a read-only view of the archive); None when
+        no run of this service gave that id.
+
+        A job of this run is as it is now. A job of an earlier run whose
+        replay finished reads ``done`` with its stored report; any other job
+        of an earlier run reads ``failed``: that run stopped (a restart, a
+        crash) before the replay finished, and its progress is lost.
+        """
+        job = self.get(job_id)
+        if job is not None:
+            return job.to_dict()
+        rows = view.con.execute(
+            "SELECT report_id, created_at, owner, options, result FROM gain_reports "
+            "WHERE json_extract_string(options, '$.job') = ? ORDER BY report_id DESC LIMIT 1", [job_id]).fetchall()
+        if rows:
+            report_id, created_at, owner, options, result = rows[0]
+            options = json.loads(options)
+            options.pop("job", None)
+            stamp = created_at.replace(microsecond=0).isoformat() + "Z"
+            return {"job": job_id, "state": "done", "owner": owner, "options": options,
+                    "progress": None, "created_at": None, "started_at": None, "finished_at": stamp,
+                    "error": None, "report_id": int(report_id), "result": json.loads(result)}
+        if job_id.startswith(self.run_id):
+            return None
+        return {"job": job_id, "state": "failed", "owner": None, "options": None, "progress": None,
+                "created_at": None, "started_at": None, "finished_at": None, "report_id": None, "result": None,
+                "error": f"the service run that took this replay stopped (a restart or a crash) before it finished; "
+                         f"its progress is lost: start it again (this run of the service started at "
+                         f"{self.started_at})"}
 
     def list(self) -> list[GainJob]:
         with self._lock:
@@ -126,7 +165,13 @@ class GainJobs:
                 if job is None:
                     return
                 continue
-            self._one(job)
+            try:
+                self._one(job)
+            except BaseException as exc:  # never left "running": the job says what stopped it
+                job.state, job.finished_at = "failed", _now_text()
+                job.error = f"the replay stopped: {type(exc).__name__}: {exc}"
+                if not isinstance(exc, Exception):
+                    raise
 
     def _progress(self, job: GainJob):
         def progress(done: int, total: int, *_: Any) -> None:
@@ -168,7 +213,7 @@ class GainJobs:
             con.execute(
                 "INSERT INTO gain_reports VALUES (?, ?, ?, ?, ?)",
                 [report_id, datetime.now(timezone.utc).replace(tzinfo=None), job.owner,
-                 json.dumps(job.options, sort_keys=True), json.dumps(body, allow_nan=False)],
+                 json.dumps({**job.options, "job": job.job_id}, sort_keys=True), json.dumps(body, allow_nan=False)],
             )
             return 200, report_id
 
@@ -185,8 +230,10 @@ def latest_report(archive) -> dict | None:
     if not rows:
         return None
     report_id, created_at, owner, options, result = rows[0]
+    options = json.loads(options)
+    job = options.pop("job", None)
     return {"report_id": int(report_id), "created_at": created_at.isoformat() + "Z", "owner": owner,
-            "options": json.loads(options), "result": json.loads(result)}
+            "options": options, "job": job, "result": json.loads(result)}
 
 
 __all__ += ["latest_report"]

@@ -7,6 +7,18 @@ request id: its answer is stored in the same transaction, and a retry with
 the same id gets the stored answer and writes nothing (also after a restart,
 since the answer lives in the archive). Reads do not pass through here: they
 run concurrently on cursors of their own (:meth:`Archive.reader`).
+
+Group commit: the writes waiting in the queue when the thread gets to them
+(up to :data:`MAX_BATCH`) run in one transaction, so one commit (one flush of
+DuckDB's log) serves many requests; each is still answered only after that
+commit. Results (``early`` writes) run before proposals in a batch, so a
+search learns every new score once, before it proposes. When one write of
+a batch fails, the batch is rolled back and every write of it runs again
+alone, in its own transaction: the failing one fails by itself, the others
+commit as if they had come one by one. A write refused before it changed
+anything (:class:`~warmstart.service.errors.Refused`: an unknown study or
+trial, a repeat with another result ...) fails alone without undoing its
+batch.
 """
 
 from __future__ import annotations
@@ -21,12 +33,13 @@ from datetime import datetime, timedelta, timezone
 from typing import Any, Callable
 
 from warmstart.archive.store import Archive
-from warmstart.service.errors import ServiceError
+from warmstart.service.errors import Refused, ServiceError
 
-__all__ = ["Writer", "RequestKey", "Answer", "REQUEST_RETENTION_DAYS"]
+__all__ = ["Writer", "RequestKey", "Answer", "REQUEST_RETENTION_DAYS", "MAX_BATCH"]
 
 log = logging.getLogger("warmstart.service")
 REQUEST_RETENTION_DAYS = 30  # stored answers to request ids older than this are dropped at start-up
+MAX_BATCH = 64  # writes committed together at most (a batch waits for nothing: it is what is queued)
 
 
 def _now() -> datetime:
@@ -58,6 +71,7 @@ class _Job:
     fn: Callable[[Archive], tuple[int, Any]]
     key: RequestKey | None
     future: cf.Future
+    early: bool = False
 
 
 class Writer:
@@ -89,18 +103,20 @@ class Writer:
             con.execute("DELETE FROM requests WHERE created_at < ?", [cutoff])
         self._thread.start()
 
-    def submit(self, fn: Callable[[Archive], tuple[int, Any]], key: RequestKey | None = None) -> cf.Future:
+    def submit(self, fn: Callable[[Archive], tuple[int, Any]], key: RequestKey | None = None,
+               early: bool = False) -> cf.Future:
         """Queue a write; the future resolves to an :class:`Answer` after the commit.
 
         ``fn(archive)`` returns ``(status, body)``, body JSON-able; it raises
         :class:`ServiceError` (or a library error) to refuse, which rolls
-        the transaction back.
+        the transaction back. ``early`` writes (results) go before the
+        others of their batch.
         """
         future: cf.Future = cf.Future()
         with self._lock:
             if self._closed:
                 raise ServiceError(503, "the service is shutting down; try again when it is back")
-            self._queue.put(_Job(fn, key, future))
+            self._queue.put(_Job(fn, key, future, early))
         return future
 
     def close(self, timeout: float = 30.0) -> None:
@@ -120,49 +136,107 @@ class Writer:
 
     # -- the thread ----------------------------------------------------------
     def _run(self) -> None:
-        while True:
+        stop = False
+        while not stop:
             job = self._queue.get()
             if job is None:
                 return
-            if not job.future.set_running_or_notify_cancel():
+            batch = [job]
+            while len(batch) < MAX_BATCH:
+                try:
+                    more = self._queue.get_nowait()
+                except queue.Empty:
+                    break
+                if more is None:
+                    stop = True
+                    break
+                batch.append(more)
+            batch = [j for j in batch if j.future.set_running_or_notify_cancel()]
+            batch.sort(key=lambda j: not j.early)  # stable: results first, else in arrival order
+            if batch:
+                self._run_batch(batch)
+
+    def _run_batch(self, batch: list[_Job]) -> None:
+        """The batch in one transaction; when a write of it fails, each of its writes alone."""
+        try:
+            with self.archive.transaction():
+                outcomes = self._execute(batch)
+        except BaseException as exc:  # rolled back: nothing of the batch stands
+            self._dropped()
+            if len(batch) == 1:
+                batch[0].future.set_exception(exc)  # handed to the waiting request, never lost
+            else:
+                for job in batch:
+                    self._run_batch([job])
+            return
+        self._committed()
+        for job, outcome in zip(batch, outcomes):
+            if isinstance(outcome, BaseException):
+                job.future.set_exception(outcome)
+            else:
+                job.future.set_result(outcome)
+
+    def _committed(self) -> None:
+        if self._on_commit is not None:
+            self._on_commit()
+
+    def _dropped(self) -> None:
+        if self._on_failure is not None:
+            try:
+                self._on_failure()
+            except Exception:  # pragma: no cover - a cache drop cannot fail in practice
+                log.exception("dropping caches after a failed write")
+
+    def _execute(self, batch: list[_Job]) -> list[Answer | ServiceError]:
+        """Run the writes of a batch in the open transaction.
+
+        Stored answers of their request ids are read in one query and the new
+        ones written in one statement at the end; a retry (a request id seen
+        before, also earlier in this batch) gets its stored answer and runs
+        nothing, a request id reused for another request gets a 422 (both
+        write nothing, so they fail no other write of the batch).
+        """
+        con = self.archive.con
+        keys = [job.key for job in batch if job.key is not None]
+        stored: dict[tuple[str, str], tuple[str, str, int, str]] = {}
+        if keys:
+            rows = con.execute(
+                "SELECT r.principal, r.request_id, r.route, r.body_sha256, r.status, r.response FROM requests r "
+                "JOIN (SELECT unnest(?::VARCHAR[]) AS p, unnest(?::VARCHAR[]) AS i) k "
+                "ON r.principal = k.p AND r.request_id = k.i",
+                [[k.principal for k in keys], [k.request_id for k in keys]],
+            ).fetchall()
+            stored = {(p, i): (route, digest, int(status), text) for p, i, route, digest, status, text in rows}
+        outcomes: list[Answer | ServiceError] = []
+        fresh: list[tuple[RequestKey, int, str]] = []
+        for job in batch:
+            k = job.key
+            if k is not None and (k.principal, k.request_id) in stored:
+                route, digest, status, text = stored[(k.principal, k.request_id)]
+                if route != k.route or digest != k.body_sha256:
+                    outcomes.append(ServiceError(
+                        422, f"request id {k.request_id!r} was used before for another request ({route}); "
+                        "a retry must send the same body to the same address, a new request needs a new id",
+                        "Idempotency-Key", k.request_id))
+                else:
+                    outcomes.append(Answer(status, json.loads(text), replayed=True))
                 continue
             try:
-                answer = self._execute(job)
-            except BaseException as exc:  # handed to the waiting request, never lost
-                if self._on_failure is not None:
-                    try:
-                        self._on_failure()
-                    except Exception:  # pragma: no cover - a cache drop cannot fail in practice
-                        log.exception("dropping caches after a failed write")
-                job.future.set_exception(exc)
-            else:
-                if self._on_commit is not None:
-                    self._on_commit()
-                job.future.set_result(answer)
-
-    def _execute(self, job: _Job) -> Answer:
-        archive = self.archive
-        with archive.transaction() as con:
-            if job.key is not None:
-                k = job.key
-                rows = con.execute(
-                    "SELECT route, body_sha256, status, response FROM requests WHERE principal = ? AND request_id = ?",
-                    [k.principal, k.request_id],
-                ).fetchall()
-                if rows:
-                    route, digest, status, response = rows[0]
-                    if route != k.route or digest != k.body_sha256:
-                        raise ServiceError(
-                            422, f"request id {k.request_id!r} was used before for another request ({route}); "
-                            "a retry must send the same body to the same address, a new request needs a new id",
-                            "Idempotency-Key", k.request_id)
-                    return Answer(int(status), json.loads(response), replayed=True)
-            status, body = job.fn(archive)
+                status, body = job.fn(self.archive)
+            except Refused as exc:  # refused before it changed anything: the batch goes on
+                outcomes.append(exc)
+                continue
             text = json.dumps(body, allow_nan=False)
-            if job.key is not None:
-                k = job.key
-                con.execute(
-                    "INSERT INTO requests VALUES (?, ?, ?, ?, ?, ?, ?)",
-                    [k.principal, k.request_id, k.route, k.body_sha256, status, text, _now()],
-                )
-        return Answer(status, json.loads(text))
+            if k is not None:
+                stored[(k.principal, k.request_id)] = (k.route, k.body_sha256, status, text)
+                fresh.append((k, status, text))
+            outcomes.append(Answer(status, json.loads(text)))
+        if fresh:
+            con.execute(
+                "INSERT INTO requests SELECT unnest(?::VARCHAR[]), unnest(?::VARCHAR[]), unnest(?::VARCHAR[]), "
+                "unnest(?::VARCHAR[]), unnest(?::INTEGER[]), unnest(?::VARCHAR[]), ?",
+                [[k.principal for k, _, _ in fresh], [k.request_id for k, _, _ in fresh],
+                 [k.route for k, _, _ in fresh], [k.body_sha256 for k, _, _ in fresh],
+                 [status for _, status, _ in fresh], [text for _, _, text in fresh], _now()],
+            )
+        return outcomes

@@ -1,0 +1,135 @@
+"""The service's one writer: group commit, results before proposals, and a
+failing write that takes nothing else down.
+
+Real DuckDB files in tmp_path. The writer thread is held on a first write
+(an event) so that the writes after it queue up and form one batch; which
+transaction a write ran in comes from DuckDB's own ``txid_current()``.
+"""
+
+from __future__ import annotations
+
+import threading
+
+import pytest
+
+from warmstart.archive.store import Archive
+from warmstart.service.errors import Refused, ServiceError
+from warmstart.service.writer import RequestKey, Writer
+
+
+def _note(name: str, log: list):
+    def write(archive):
+        archive.con.execute("INSERT INTO requests VALUES ('test', ?, 'r', 'd', 200, '{}', now()::TIMESTAMP)", [name])
+        log.append(name)
+        return 200, {"name": name, "txid": int(archive.con.execute("SELECT txid_current()").fetchall()[0][0])}
+    return write
+
+
+def _failing(log: list):
+    def write(archive):
+        archive.con.execute("INSERT INTO requests VALUES ('test', 'half', 'r', 'd', 200, '{}', now()::TIMESTAMP)")
+        log.append("failing")
+        raise ServiceError(409, "refused on purpose", "trial", 7)
+    return write
+
+
+def _names(archive: Archive) -> list[str]:
+    return sorted(r[0] for r in archive.con.execute("SELECT request_id FROM requests").fetchall())
+
+
+@pytest.fixture
+def held(tmp_path):
+    """A started writer whose thread waits in a first write until ``release`` is set."""
+    archive = Archive(tmp_path / "w.duckdb")
+    commits, drops = [], []
+    writer = Writer(archive, on_commit=lambda: commits.append(1), on_failure=lambda: drops.append(1))
+    writer.start()
+    release, entered = threading.Event(), threading.Event()
+
+    def hold(archive):
+        entered.set()
+        assert release.wait(30)
+        return 200, {}
+
+    first = writer.submit(hold)
+    assert entered.wait(30)
+    yield writer, archive, release, first, commits, drops
+    release.set()
+    writer.close()
+    archive.close()
+
+
+def test_queued_writes_commit_together_results_first(held):
+    writer, archive, release, first, commits, drops = held
+    log: list = []
+    futures = [writer.submit(_note(f"p{i}", log)) for i in range(3)]
+    futures += [writer.submit(_note(f"r{i}", log), early=True) for i in range(2)]
+    release.set()
+    answers = [f.result(30) for f in futures]
+    first.result(30)
+    assert log == ["r0", "r1", "p0", "p1", "p2"]  # results first, each group in arrival order
+    assert len({a.body["txid"] for a in answers}) == 1  # one transaction for the whole batch
+    assert len(commits) == 2 and not drops  # the held write, then the batch: one commit each
+    assert _names(archive) == ["p0", "p1", "p2", "r0", "r1"]
+
+
+def test_a_failing_write_fails_alone_and_leaves_nothing_half_written(held):
+    writer, archive, release, first, commits, drops = held
+    log: list = []
+    before = writer.submit(_note("a", log))
+    bad = writer.submit(_failing(log))
+    after = writer.submit(_note("b", log))
+    release.set()
+    assert before.result(30).body["name"] == "a" and after.result(30).body["name"] == "b"
+    with pytest.raises(ServiceError, match="refused on purpose"):
+        bad.result(30)
+    # the batch ran, failed and rolled back; then each write again on its own
+    assert log == ["a", "failing", "a", "failing", "b"]
+    assert _names(archive) == ["a", "b"]  # the failing write's row is in no transaction that committed
+    assert len(drops) == 2  # caches dropped after the batch's rollback and after the lone failure
+
+
+def test_a_retry_in_the_same_batch_gets_the_first_answer(held):
+    writer, archive, release, first, commits, drops = held
+    log: list = []
+    key = RequestKey("dana", "req-1", "POST /x", "00")
+    one = writer.submit(_note("once", log), key)
+    two = writer.submit(_note("twice", log), key)
+    release.set()
+    a, b = one.result(30), two.result(30)
+    assert not a.replayed and b.replayed and b.body == a.body
+    assert log == ["once"] and _names(archive) == ["once", "req-1"]  # its row, and the stored answer
+
+
+def test_a_request_id_reused_for_another_request_fails_alone_in_its_batch(held):
+    writer, archive, release, first, commits, drops = held
+    log: list = []
+    one = writer.submit(_note("first", log), RequestKey("dana", "req-2", "POST /x", "00"))
+    other = writer.submit(_note("other", log), RequestKey("dana", "req-2", "POST /y", "11"))
+    fine = writer.submit(_note("fine", log))
+    release.set()
+    assert one.result(30).body["name"] == "first" and fine.result(30).body["name"] == "fine"
+    with pytest.raises(ServiceError, match=r"request id 'req-2' was used before for another request \(POST /x\)"):
+        other.result(30)
+    assert log == ["first", "fine"] and not drops  # nothing rolled back: the reuse wrote nothing
+    assert _names(archive) == ["fine", "first", "req-2"]
+
+
+def test_a_write_refused_before_it_changed_anything_undoes_nothing(held):
+    writer, archive, release, first, commits, drops = held
+    log: list = []
+
+    def refuse(archive):
+        archive.con.execute("SELECT count(*) FROM requests").fetchall()  # reads only
+        log.append("refused")
+        raise Refused(404, "no trial with id 99; trial ids come from propose", "trial", 99)
+
+    a = writer.submit(_note("a", log))
+    bad = writer.submit(refuse)
+    b = writer.submit(_note("b", log))
+    release.set()
+    with pytest.raises(Refused, match="no trial with id 99"):
+        bad.result(30)
+    assert a.result(30).body["txid"] == b.result(30).body["txid"]  # still one transaction
+    assert log == ["a", "refused", "b"] and not drops  # nothing run twice, no cache dropped
+    assert _names(archive) == ["a", "b"]
