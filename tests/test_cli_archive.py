@@ -432,6 +432,32 @@ def test_prune_removes_the_leases_of_what_it_removes(tmp_path):
     assert _service_rows(path)["leases"] == 0
 
 
+def test_check_fix_keeps_a_study_whose_only_rows_are_pending_proposals(tmp_path):
+    # a study the service just created and handed proposals out of has no trial yet, but it is in use
+    from fastapi.testclient import TestClient
+    from service_support import SPACE, new_task, seed_archive
+
+    from warmstart.archive.curate import check_archive, fix_archive
+    from warmstart.archive.store import Archive
+    from warmstart.service import create_app
+
+    path = tmp_path / "served.duckdb"
+    seed_archive(path)
+    with TestClient(create_app(Archive(path))) as c:
+        study = c.post("/api/v1/studies", json={"task": new_task(), "learner": "bran", "space": SPACE,
+                                                "metric": "loss", "maximize": False, "cold": True}).json()["study_id"]
+        c.post(f"/api/v1/studies/{study}/propose", json={"k": 2}).raise_for_status()
+    with Archive(path) as archive:
+        frame = pd.DataFrame({"x": [1.0, 2.0, 3.0], "y": [0, 1, 0]})
+        empty = archive.add_study(archive.add_task("never tuned", frame, "y"), "bran", Space.from_dict(SPACE))
+        found = {f.check: f for f in check_archive(archive).findings}["studies_without_trials"]
+        assert (found.count, list(found.examples)) == (1, [f"study {empty}"])  # the study with leases is not one
+        fix_archive(archive)
+        assert {s["study_id"] for s in archive.studies().to_dict("records")} >= {study}
+        assert empty not in set(archive.studies()["study_id"])
+    assert _service_rows(path)["leases"] == 2
+
+
 def test_export_import_and_merge_carry_history_but_not_the_service_tables(tmp_path):
     path = tmp_path / "served.duckdb"
     _served_archive(path)

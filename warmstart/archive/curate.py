@@ -348,9 +348,9 @@ def _coverage_findings(archive: Archive) -> list[Finding]:
                  "GROUP BY k.task_id, k.name HAVING min(p.version) <> ? OR max(p.version) <> ? ORDER BY k.task_id",
                  lambda r: f"task {r[1]!r} (version {r[2]}" + (f"..{r[3]}" if r[3] != r[2] else "") + ")",
                  [str(PROFILE_VERSION)] * 2),
-        _finding(archive, "studies_without_trials", True, "studies with no trials",
-                 "SELECT study_id FROM studies WHERE study_id NOT IN (SELECT study_id FROM trials) ORDER BY study_id",
-                 lambda r: f"study {r[0]}"),
+        _finding(archive, "studies_without_trials", True, "studies with no trials (nor a service's proposals)",
+                 f"SELECT study_id FROM studies WHERE {_EMPTY_STUDY if _has_leases(archive) else _NO_TRIALS} "
+                 "ORDER BY study_id", lambda r: f"study {r[0]}"),
         _finding(archive, "tasks_without_profiles", False,
                  "tasks with no profile (needs the dataset: ingest it again to profile it)",
                  "SELECT task_id, name FROM tasks WHERE task_id NOT IN (SELECT task_id FROM profiles) ORDER BY task_id",
@@ -432,6 +432,16 @@ def _delete_duplicates(archive: Archive) -> tuple[int, int]:
 
 #: the service's leases (schema version 2) of studies no longer in the archive
 _ORPHAN_LEASES = "DELETE FROM leases WHERE study_id NOT IN (SELECT study_id FROM studies)"
+#: a study with no trial; one the service created and handed out proposals of (leases) is in use
+_NO_TRIALS = "study_id NOT IN (SELECT study_id FROM trials)"
+_EMPTY_STUDY = _NO_TRIALS + " AND study_id NOT IN (SELECT study_id FROM leases)"
+
+
+def _has_leases(archive: Archive) -> bool:
+    """Whether the archive has the service's lease table (schema 2 on; a read-only version-1 file has not)."""
+    return bool(archive.con.execute(
+        "SELECT count(*) FROM duckdb_tables() WHERE database_name = current_database() AND schema_name = 'main' "
+        "AND table_name = 'leases'").fetchall()[0][0])
 
 
 def fix_archive(archive: Archive) -> list[tuple[str, int]]:
@@ -481,7 +491,7 @@ def fix_archive(archive: Archive) -> list[tuple[str, int]]:
         trials, emptied = _delete_duplicates(archive)
         if trials:
             done.append(("deleted trials repeating an earlier study's (kept the earliest study's copies)", trials))
-        n = rows_changed(archive.con, "DELETE FROM studies WHERE study_id NOT IN (SELECT study_id FROM trials)") + emptied
+        n = rows_changed(archive.con, f"DELETE FROM studies WHERE {_EMPTY_STUDY}") + emptied
         if n:
             done.append(("deleted studies with no trials", n))
         archive.con.execute(_ORPHAN_LEASES)  # the service's leases of the studies deleted
