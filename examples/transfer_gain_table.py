@@ -41,7 +41,6 @@ import argparse
 import dataclasses
 import hashlib
 import json
-import math
 from pathlib import Path
 
 import numpy as np

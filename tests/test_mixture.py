@@ -156,7 +156,7 @@ def test_misleading_source_costs_little_and_loses_its_weight():
     best_mix10, _ = runs(lambda s: MixtureSearch(SPACE, prior, seed=s, maximize=False), budget=10)
     assert best_mix10.mean() < best_list.mean()
     search = MixtureSearch(SPACE, prior, seed=0, maximize=False)
-    result = run_search(search, BRANIN, 20)
+    run_search(search, BRANIN, 20)
     w_src, w_own = search.current_weights()
     assert w_src[0] < 0.05 < w_own
 
