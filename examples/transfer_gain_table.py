@@ -41,6 +41,8 @@ import argparse
 import dataclasses
 import hashlib
 import json
+import math
+import re
 from pathlib import Path
 
 import numpy as np
@@ -63,19 +65,46 @@ def _number(v):
     return float("nan") if v is None else v
 
 
-def task_gain(row: dict) -> TaskGain:
-    """A per-task row of ``gain --json`` back as a :class:`TaskGain`."""
+#: searches run ``repeats`` times; the static lists once
+_RUN_ONCE = ("defaults", "nearest")
+
+
+def _unsmoothed(q: float, n_queries: int) -> float:
+    """0 where ``q`` is the Jeffreys-smoothed rate of ``n_queries`` misses, else ``q``.
+
+    Files written before the pooled figures used unsmoothed rates (2026-12-03)
+    carry smoothed per-task rates; a real rate ``k / n`` never equals
+    ``0.5 / (n + 1)``, so newer files pass through unchanged.
+    """
+    return 0.0 if math.isclose(q, 0.5 / (n_queries + 1), rel_tol=1e-9) else q
+
+
+def task_gain(row: dict, repeats: int, budget: int) -> TaskGain:
+    """A per-task row of ``gain --json`` back as a :class:`TaskGain` (rates of the others unsmoothed)."""
     core = {k: _number(row[k]) for k in _FIELDS}
     extra = {k: _number(v) for k, v in row.items() if k not in _FIELDS and k != "learner"}
+    for k in list(extra):
+        if k.startswith("q_") and k[2:] not in ("best_past_task", "ideal_list"):
+            extra[k] = _unsmoothed(extra[k], budget * (1 if k[2:] in _RUN_ONCE else repeats))
+    extra.setdefault("raw_q_warm", _unsmoothed(core["q_warm"], budget * repeats))
     return TaskGain(**core, extra=extra)
 
 
 def load(paths: list[Path]) -> dict:
-    """(learner, replay, budget) -> list of TaskGain, from gain --json files (the latest file wins)."""
+    """(learner, replay, budget) -> list of TaskGain, from gain --json files (the latest file wins).
+
+    The number of runs is read from the file name (``..._r30_...``), as the
+    JSON of ``gain`` does not carry it.
+    """
     out = {}
     for path in paths:
+        found = re.search(r"_r(\d+)_", path.name)
+        if not found:
+            raise SystemExit(f"{path}: name the file with its runs, e.g. b10_r30_nearest_svm.json")
+        repeats = int(found.group(1))
         for result in json.loads(path.read_text()):
-            out[(result["learner"], result["replay"], result["budget"])] = [task_gain(r) for r in result["tasks"]]
+            out[(result["learner"], result["replay"], result["budget"])] = [
+                task_gain(r, repeats, result["budget"]) for r in result["tasks"]]
     return out
 
 
@@ -139,14 +168,15 @@ def control(runs: dict) -> None:
               f"{np.mean([g.gain >= 1 for g in gains]):.0%} | {np.mean([g.gain >= 2 for g in gains]):.0%} |")
         p = np.array([g.p for g in gains])
         for label in ("warm", "cold", "library_default", "defaults", "nearest", "random"):
-            q = np.array([g.q_warm if label == "warm" else g.q_cold if label == "cold" else g.extra.get(f"q_{label}",
-                          float("nan")) for g in gains], dtype=float)
+            q = np.array([g.extra["raw_q_warm"] if label == "warm" else g.extra.get(f"q_{label}", float("nan"))
+                          for g in gains], dtype=float)
+            if label == "cold":
+                q = np.array([g.q_cold for g in gains])
             if not np.isfinite(q).all():
                 continue
-            # a list that never hit has q = 0: smoothed as the replay smooths (Jeffreys, over B queries)
-            q = np.where(q > 0, q, 0.5 / (budget + 1))
-            bits, low, high = pooled_bits_interval(q, p, rng=0)
-            per_task = np.log2(q / p)
+            bits, low, high = pooled_bits_interval(q, p, rng=0)  # unsmoothed rates, pooled
+            with np.errstate(divide="ignore"):
+                per_task = np.log2(q / p)  # a task without a hit: -inf, below every b
             print(f"| {learner} | {replay} | {budget} | {label} | {bits:+.2f} ({low:+.2f} to {high:+.2f}) | "
                   f"{'yes' if low <= 0 else 'NO'} | {share_at_least(per_task, 1):.0%} "
                   f"({'ok' if share_at_least(per_task, 1) <= markov_bound(1) else 'ABOVE'}) | "

@@ -127,8 +127,12 @@ def test_pooled_bits_interval_of_a_search_at_uniform_chance_is_zero():
     assert pooled_bits_interval(p, p, rng=0, n_boot=200) == pytest.approx((0.0, 0.0, 0.0), abs=1e-12)
 
 
-def test_pooled_bits_interval_rejects_a_zero_hit_rate():
+def test_pooled_bits_interval_rejects_no_hit_at_all():
     with pytest.raises(GainError, match="smooth zero hit rates first"):
-        pooled_bits_interval([0.0, 0.1], [0.05, 0.05])
+        pooled_bits_interval([0.0, 0.0], [0.05, 0.05])
+    with pytest.raises(GainError, match=r"every q must lie in \[0, 1\]"):
+        pooled_bits_interval([-0.1, 0.2], [0.05, 0.05])
+    # a task without a hit is a zero, not an error: pooled over tasks
+    assert pooled_bits_interval([0.0, 0.1], [0.05, 0.05], n_boot=50)[0] == pytest.approx(0.0)
     with pytest.raises(GainError, match="one value per task"):
         pooled_bits_interval([0.1, 0.1], [0.05])

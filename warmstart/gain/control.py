@@ -85,7 +85,9 @@ def pooled_bits_interval(q: Sequence[float], p: Sequence[float], rng: Any = 0,
     Parameters
     ----------
     q : sequence of float
-        Per-task hit rates of the search (each in (0, 1]).
+        Per-task hit rates of the search (each in [0, 1], unsmoothed: a
+        smoothed miss of a list run once is about ``p`` itself and would lift
+        the pooled figure).
     p : sequence of float
         Per-task uniform hit chances, same order (each in (0, 1]).
     rng : seed or numpy Generator, default 0
@@ -99,10 +101,13 @@ def pooled_bits_interval(q: Sequence[float], p: Sequence[float], rng: Any = 0,
     p = np.asarray(p, dtype=float)
     if q.ndim != 1 or q.shape != p.shape or q.size == 0:
         raise GainError(f"q and p need one value per task each; got shapes {q.shape} and {p.shape}")
-    if not (np.all((q > 0) & (q <= 1)) and np.all((p > 0) & (p <= 1))):
-        raise GainError("every q and p must lie in (0, 1]; smooth zero hit rates first "
-                        f"(smallest q {q.min()!r}, smallest p {p.min()!r})")
+    if not (np.all((q >= 0) & (q <= 1)) and np.all((p > 0) & (p <= 1))):
+        raise GainError(f"every q must lie in [0, 1] and every p in (0, 1]; got q from {q.min()!r} to "
+                        f"{q.max()!r}, p from {p.min()!r} to {p.max()!r}")
+    if not q.any():
+        raise GainError("no task has a hit: smooth zero hit rates first (the pooled bits would be -inf)")
     idx = np.random.default_rng(rng).integers(0, q.size, size=(n_boot, q.size))
-    boot = np.log2(q[idx].mean(axis=1) / p[idx].mean(axis=1))
-    low, high = np.percentile(boot, [2.5, 97.5])
+    with np.errstate(divide="ignore"):  # a resample of tasks without a hit: -inf bits, a valid lower end
+        boot = np.log2(q[idx].mean(axis=1) / p[idx].mean(axis=1))
+    low, high = np.percentile(boot, [2.5, 97.5], method="inverted_cdf")  # no interpolation with -inf
     return float(np.log2(q.mean() / p.mean())), float(low), float(high)
