@@ -11,9 +11,12 @@ Branin-Hoo function (Dixon & Szego 1978) on a Sobol design; no invented data.
 import math
 
 import numpy as np
+import pytest
+from scipy.stats import bootstrap
 
 from warmstart.gain.bits import Runs, compare, in_target, pool, target_threshold
-from warmstart.gain.control import markov_bound, permute_task, share_at_least
+from warmstart.gain.bits import GainError
+from warmstart.gain.control import markov_bound, permute_task, pooled_bits_interval, share_at_least
 from warmstart.gain.objectives import ReplayObjective
 from warmstart.gain.replay import ReplayTask
 from warmstart.prior import Source, prior_from_sources, within_study_quantiles
@@ -102,3 +105,34 @@ def test_warm_mixture_does_not_gain_over_cold_on_permuted_tasks():
         same.append(in_target(run_search(MixtureSearch(SPACE, prior, seed=r, maximize=False, n_boot=64),
                                          task.objective, 10).scores, task.threshold, maximize=False))
     assert math.log2(max(np.mean(same), 1e-3) / task.p) > 1.0
+
+
+def test_pooled_bits_interval_matches_scipy_bootstrap():
+    # reference: scipy.stats.bootstrap, percentile method, tasks resampled with their p (paired)
+    rng = np.random.default_rng(7)
+    p = rng.uniform(0.03, 0.08, size=40)
+    q = np.clip(p * rng.lognormal(0.3, 0.8, size=40), 1e-3, 1.0)
+    bits, low, high = pooled_bits_interval(q, p, rng=1, n_boot=4000)
+    assert bits == pytest.approx(math.log2(q.mean() / p.mean()))
+    ref = bootstrap((q, p), lambda a, b, axis: np.log2(a.mean(axis=axis) / b.mean(axis=axis)), paired=True,
+                    vectorized=True, n_resamples=4000, method="percentile", rng=2)
+    assert low == pytest.approx(ref.confidence_interval.low, abs=0.05)
+    assert high == pytest.approx(ref.confidence_interval.high, abs=0.05)
+    assert low < bits < high
+
+
+def test_pooled_bits_interval_of_a_search_at_uniform_chance_is_zero():
+    # analytic: q equal to p on every task is 0 bits on every resample
+    p = np.linspace(0.02, 0.1, 9)
+    assert pooled_bits_interval(p, p, rng=0, n_boot=200) == pytest.approx((0.0, 0.0, 0.0), abs=1e-12)
+
+
+def test_pooled_bits_interval_rejects_no_hit_at_all():
+    with pytest.raises(GainError, match="smooth zero hit rates first"):
+        pooled_bits_interval([0.0, 0.0], [0.05, 0.05])
+    with pytest.raises(GainError, match=r"every q must lie in \[0, 1\]"):
+        pooled_bits_interval([-0.1, 0.2], [0.05, 0.05])
+    # a task without a hit is a zero, not an error: pooled over tasks
+    assert pooled_bits_interval([0.0, 0.1], [0.05, 0.05], n_boot=50)[0] == pytest.approx(0.0)
+    with pytest.raises(GainError, match="one value per task"):
+        pooled_bits_interval([0.1, 0.1], [0.05])

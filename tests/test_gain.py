@@ -171,3 +171,26 @@ def test_regret_never_rises_stays_in_unit_interval_and_is_zero_at_the_best(value
     assert (np.diff(regret) <= 0).all() and ((0 <= regret) & (regret <= 1)).all()
     assert regret[-1] == 0.0
     assert (hits == in_target(scores, float(np.median(scores)), maximize)).all()
+
+
+def test_a_list_at_the_uniform_rate_pools_to_zero_bits_though_its_misses_are_smoothed():
+    # analytic case (DESIGN.md section 9): a search that hits at the uniform rate p scores 0 bits in
+    # expectation. A fixed list runs once (B = 10 queries), so most tasks see no hit; smoothing
+    # each miss to 0.5 / 11 (about p) before pooling would lift the pooled figure by some 0.6 bit.
+    rng = np.random.default_rng(3)
+    p, budget, results = 0.05, 10, []
+    for i in range(1000):
+        warm = Runs(rng.random((10, budget)) < p)  # cold = warm: the paired test is skipped (fast)
+        listed = Runs(rng.random((1, budget)) < p)
+        results.append(compare(f"t{i}", warm, warm, p, rng=i, n_boot=10, others={"list": listed}))
+    assert any(r.extra["bits_list"] == pytest.approx(math.log2(0.5 / 11 / p)) for r in results)  # per task: smoothed
+    pooled = pool(results, n_boot=200)
+    # the pooled list's hit count is binomial(1000 * 10, p): 4 standard errors of its log2 are 0.25 bit
+    assert abs(pooled.extra["bits_list"]) < 0.25
+    assert abs(pooled.bits_warm) < 0.25
+    # a task where neither hit does not count as warm doing better
+    nothing = compare("none", Runs(np.zeros((10, budget), bool)), Runs(np.zeros((10, budget), bool)), p,
+                      others={"list": Runs(np.zeros((1, budget), bool))})
+    assert pool([nothing, results[0]], n_boot=50).extra["share_warm_above_list"] <= 0.5
+    # no task hit at all: the pooled figure falls back to the smoothed rates, finite
+    assert math.isfinite(pool([nothing], n_boot=50).extra["bits_list"])

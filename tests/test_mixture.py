@@ -19,7 +19,7 @@ from scipy import stats
 from warmstart.prior import Source, prior_from_sources, within_study_quantiles
 from warmstart.search.density import DensitySearch
 from warmstart.search.mixture import MixtureSearch
-from warmstart.search.ranking import greedy_cover, misranked_pairs, ranking_weights
+from warmstart.search.ranking import greedy_cover, luck_losses, misranked_pairs, ranking_weights
 from warmstart.search.strategy import SearchError, run_search
 from warmstart.search.testfunctions import branin
 
@@ -260,6 +260,8 @@ def test_bad_arguments_raise_clear_errors():
         MixtureSearch(SPACE, prior, explore=2)
     with pytest.raises(SearchError, match="adaptive_design must be True or False, got 'yes'"):
         MixtureSearch(SPACE, prior, adaptive_design="yes")
+    with pytest.raises(SearchError, match="chance must be one of tie, luck, got 'best'"):
+        MixtureSearch(SPACE, prior, chance="best")
     with pytest.raises(SearchError, match="not a mixture warm search"):
         MixtureSearch.from_dict({"format": "something-else"})
     d = MixtureSearch(SPACE, prior).to_dict()
@@ -268,3 +270,61 @@ def test_bad_arguments_raise_clear_errors():
         MixtureSearch.from_dict(d)
     with pytest.raises(SearchError, match="whole-number seed"):
         MixtureSearch(SPACE, prior, seed=np.random.default_rng(0)).to_dict()
+
+
+# -- the bar of chance with many past tasks ---------------------------------------
+
+def test_luck_losses_match_an_exhaustive_permutation_null():
+    # reference: brute force over every bootstrap resample (multinomial probabilities) and every
+    # permutation of the scores, the best model's misranked pairs (Westfall-Young's max-T null)
+    rng = np.random.default_rng(4)
+    n = 4
+    y = rng.normal(size=n)
+    F = rng.normal(size=(n, 3))
+    expected = 0.0
+    for perm in itertools.permutations(range(n)):
+        wrong = misranked_pairs(F, y[list(perm)])
+        for combo in itertools.combinations_with_replacement(range(n), n):
+            c = np.bincount(combo, minlength=n).astype(float)
+            prob = math.factorial(n) / np.prod([math.factorial(int(k)) for k in c]) / n**n
+            expected += prob * np.einsum("a,kab,b->k", c, wrong, c).min() / math.factorial(n)
+    sampled = luck_losses(F, y, n_boot=4000, rng=0, n_perm=800)
+    assert sampled.shape == (4000,)
+    # slack: 4 standard errors, counted over the 800 permutations (the resamples of one share it)
+    assert sampled.mean() == pytest.approx(expected, abs=4 * sampled.std() / math.sqrt(800))
+    assert luck_losses(F[:1], y[:1]).tolist() == [0.0]
+
+
+def _noise_source(study_id, n=64):
+    """A past study whose scores are Branin's shuffled among its configs: it says nothing."""
+    X = SPACE.sobol_unit(n, study_id)
+    values = BRANIN.evaluate(np.column_stack([p.from_unit(X[:, j]) for j, p in enumerate(SPACE.params)]))
+    q = within_study_quantiles(np.random.default_rng(study_id).permutation(values), maximize=False)
+    return Source(study_id, study_id, f"noise-{study_id}", X, q, np.arange(n), np.zeros(n, bool), 1.0)
+
+
+def _chance_after_sobol(prior, chance, seeds=range(4), n=8):
+    """Mean uniform weight and share of resamples where no past task beats chance, after n Sobol points."""
+    uniform, share = [], []
+    for seed in seeds:
+        search = MixtureSearch(SPACE, prior, seed=seed, maximize=False, n_boot=128, chance=chance)
+        for row in SPACE.sobol_unit(n, 100 + seed):
+            config = SPACE.decode(row[None, :])[0]
+            search.record(config, BRANIN(config))
+        uniform.append(search.uniform_weight)
+        share.append(search.chance_share)
+    return np.mean(uniform), np.mean(share)
+
+
+def test_with_many_uninformative_past_tasks_only_the_luck_bar_sees_chance():
+    # 20 past tasks that know nothing about Branin (Dixon & Szego 1978): under "tie" one of them
+    # beats half the pairs by luck in nearly every resample, so uniform sampling gets no weight
+    noise = prior_from_sources(SPACE, [_noise_source(20 + i) for i in range(20)])
+    tie_uniform, tie_share = _chance_after_sobol(noise, "tie")
+    luck_uniform, luck_share = _chance_after_sobol(noise, "luck")
+    assert tie_uniform < 0.02 and tie_share < 0.05
+    assert luck_uniform > 0.1 and luck_share > 0.15
+    # 20 past studies of Branin itself: they beat the luck bar, uniform sampling stays small
+    known = prior_from_sources(SPACE, [branin_source(40 + i, n=64) for i in range(20)])
+    known_uniform, known_share = _chance_after_sobol(known, "luck")
+    assert known_uniform < 0.08 and known_share < 0.1

@@ -25,9 +25,9 @@ from typing import Any, Sequence
 
 import numpy as np
 
-from warmstart.gain.bits import target_threshold
+from warmstart.gain.bits import N_BOOT, GainError, target_threshold
 
-__all__ = ["permute_task", "share_at_least", "markov_bound"]
+__all__ = ["permute_task", "share_at_least", "markov_bound", "pooled_bits_interval"]
 
 
 def permute_task(task, rng: Any = None, gamma: float = 0.05):
@@ -71,3 +71,43 @@ def share_at_least(bits: Sequence[float], b: float) -> float:
 def markov_bound(b: float) -> float:
     """``2**-b``: the most a fixed search may reach ``b`` bits on random target sets."""
     return float(2.0 ** -b)
+
+
+def pooled_bits_interval(q: Sequence[float], p: Sequence[float], rng: Any = 0,
+                         n_boot: int = N_BOOT) -> tuple[float, float, float]:
+    """Pooled bits over uniform of one search across tasks, with a bootstrap 95 % interval.
+
+    The pooled figure is ``log2(mean q / mean p)`` (as in
+    :func:`~warmstart.gain.bits.pool`); the interval is the percentile
+    bootstrap over tasks (tasks resampled with their ``p``). The control
+    passes when the interval's low end is at or below 0.
+
+    Parameters
+    ----------
+    q : sequence of float
+        Per-task hit rates of the search (each in [0, 1], unsmoothed: a
+        smoothed miss of a list run once is about ``p`` itself and would lift
+        the pooled figure).
+    p : sequence of float
+        Per-task uniform hit chances, same order (each in (0, 1]).
+    rng : seed or numpy Generator, default 0
+    n_boot : int, default N_BOOT
+
+    Returns
+    -------
+    (bits, low, high)
+    """
+    q = np.asarray(q, dtype=float)
+    p = np.asarray(p, dtype=float)
+    if q.ndim != 1 or q.shape != p.shape or q.size == 0:
+        raise GainError(f"q and p need one value per task each; got shapes {q.shape} and {p.shape}")
+    if not (np.all((q >= 0) & (q <= 1)) and np.all((p > 0) & (p <= 1))):
+        raise GainError(f"every q must lie in [0, 1] and every p in (0, 1]; got q from {q.min()!r} to "
+                        f"{q.max()!r}, p from {p.min()!r} to {p.max()!r}")
+    if not q.any():
+        raise GainError("no task has a hit: smooth zero hit rates first (the pooled bits would be -inf)")
+    idx = np.random.default_rng(rng).integers(0, q.size, size=(n_boot, q.size))
+    with np.errstate(divide="ignore"):  # a resample of tasks without a hit: -inf bits, a valid lower end
+        boot = np.log2(q[idx].mean(axis=1) / p[idx].mean(axis=1))
+    low, high = np.percentile(boot, [2.5, 97.5], method="inverted_cdf")  # no interpolation with -inf
+    return float(np.log2(q.mean() / p.mean())), float(low), float(high)

@@ -46,7 +46,7 @@ import numpy as np
 from warmstart.prior import Prior, PriorError
 from warmstart.search.kde import KDEStack, MixedKDE, log_sum_exp, uniform_logpdf
 from warmstart.search.density import default_n_startup
-from warmstart.search.ranking import chance_share, greedy_cover, ranking_losses, weights_from_losses
+from warmstart.search.ranking import chance_share, greedy_cover, luck_losses, ranking_losses, weights_from_losses
 from warmstart.search.strategy import SearchError, SearchStrategy
 from warmstart.space import Space, unit_distances
 
@@ -57,6 +57,7 @@ MIXTURE_FORMAT = "warmstart-mixture/1"
 #: entries go when the prior does (a replay runs many searches on one prior)
 _BUILT: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
 _SCORES = ("ratio", "nearest")
+_CHANCE = ("tie", "luck")
 
 
 def _nearest_quantile(space: Space, X: np.ndarray, quantile: np.ndarray, rows: np.ndarray) -> np.ndarray:
@@ -157,6 +158,16 @@ class MixtureSearch(SearchStrategy):
         search (``min(10, max(5, d + 1))``) times the share of bootstrap
         resamples in which no past task orders the scores better than
         chance: past tasks that all mislead turn the search into a cold one.
+    chance : {"tie", "luck"}, default "tie"
+        The bar a past task must pass to order the scores "better than
+        chance" (for the uniform-sampling competitor of the weights and for
+        ``adaptive_design``). ``tie``: a model that predicts a tie
+        everywhere (half the pairs misranked). ``luck``: the fewest pairs
+        the best of the past tasks misranks on shuffled scores
+        (:func:`~warmstart.search.ranking.luck_losses`). With many past
+        tasks one of them beats ``tie`` by luck in almost every resample,
+        so under ``tie`` uniform sampling and the space-filling design never
+        win weight however uninformative the past tasks are.
 
     Examples
     --------
@@ -197,6 +208,7 @@ class MixtureSearch(SearchStrategy):
         exact_share: float = 0.5,
         cover_pool: float = 1.0,
         adaptive_design: bool = True,
+        chance: str = "tie",
     ):
         # long: one check per option, each naming the option and what it accepts
         super().__init__(space, seed=seed, maximize=maximize)
@@ -226,6 +238,8 @@ class MixtureSearch(SearchStrategy):
             raise SearchError(f"adaptive_design must be True or False, got {adaptive_design!r}")
         if cover not in ("top", "soft"):
             raise SearchError(f"cover must be 'top' or 'soft', got {cover!r}")
+        if chance not in _CHANCE:
+            raise SearchError(f"chance must be one of {', '.join(_CHANCE)}, got {chance!r}")
         if source_score not in _SCORES:
             raise SearchError(f"source_score must be one of {', '.join(_SCORES)}, got {source_score!r}")
         self.prior = prior
@@ -236,7 +250,7 @@ class MixtureSearch(SearchStrategy):
             "max_ranked": int(max_ranked), "prior_power": float(prior_power),
             "source_score": source_score, "shrink": float(shrink), "explore": float(explore),
             "cover": cover, "exact_share": float(exact_share),
-            "cover_pool": float(cover_pool), "adaptive_design": bool(adaptive_design),
+            "cover_pool": float(cover_pool), "adaptive_design": bool(adaptive_design), "chance": chance,
         }
         self.__dict__.update(self.options)
         kept = [s for s in sources if s.X.shape[0] > 0]
@@ -366,6 +380,8 @@ class MixtureSearch(SearchStrategy):
         yy = np.where(np.isnan(y[keep]), -np.inf, y[keep])
         rng = np.random.default_rng(self._rng_key(1))
         loss = ranking_losses(P, yy, self.n_boot, rng)
+        if self.chance == "luck" and keep.size >= 2:  # the competitor: the best past task on shuffled scores
+            loss[:, S] = luck_losses(self._pred[keep], yy, self.n_boot, rng)
         w = weights_from_losses(loss, start, own_col)
         chance = chance_share(loss, np.arange(S), S) if keep.size >= 2 else 0.0
         w_own = float(w[own_col]) if own_col is not None else 0.0
@@ -382,6 +398,13 @@ class MixtureSearch(SearchStrategy):
         """Weight the ranking gives uniform sampling (on top of the fixed ``uniform`` share)."""
         self.current_weights()
         return self._weights_at[2]
+
+    @property
+    def chance_share(self) -> float:
+        """Share of bootstrap resamples of the scored configs in which no past task
+        orders the scores better than chance (the bar set by ``chance``)."""
+        self.current_weights()
+        return self._weights_at[4]
 
     def weight_table(self):
         """Current weights as a DataFrame: one row per past study, uniform sampling
@@ -546,4 +569,4 @@ class MixtureSearch(SearchStrategy):
     def _option_names() -> tuple[str, ...]:
         return ("gamma", "source_gamma", "n_hedge", "cover_fraction", "own_strength", "uniform",
                 "n_candidates", "n_boot", "max_ranked", "prior_power", "source_score", "shrink", "explore", "cover",
-                "exact_share", "cover_pool", "adaptive_design")
+                "exact_share", "cover_pool", "adaptive_design", "chance")

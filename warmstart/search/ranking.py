@@ -21,8 +21,8 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["misranked_pairs", "ranking_weights", "ranking_losses", "weights_from_losses", "chance_share",
-           "greedy_cover"]
+__all__ = ["misranked_pairs", "ranking_weights", "ranking_losses", "luck_losses", "weights_from_losses",
+           "chance_share", "greedy_cover"]
 
 
 def misranked_pairs(predictions: np.ndarray, scores: np.ndarray) -> np.ndarray:
@@ -121,6 +121,50 @@ def ranking_losses(predictions: np.ndarray, scores: np.ndarray, n_boot: int = 25
     wrong = misranked_pairs(F, y)
     counts = rng.multinomial(n, np.full(n, 1.0 / n), size=n_boot).astype(float)  # (B, n)
     return np.einsum("sa,kab,sb->sk", counts, wrong, counts, optimize=True)  # (B, m)
+
+
+def luck_losses(predictions: np.ndarray, scores: np.ndarray, n_boot: int = 256, rng: Any = None,
+                n_perm: int = 16) -> np.ndarray:
+    """Fewest misranked pairs any of the models reaches when the scores are shuffled.
+
+    The level a model must beat to count as ordering the scores better than
+    chance when it is the best of ``m`` models: with many models, one of them
+    orders a handful of scores well by luck alone, so half the pairs (what a
+    single random order misranks on average) is too easy a bar. Each of
+    ``n_boot`` bootstrap resamples of the configs (as in
+    :func:`ranking_losses`) is scored against one of ``n_perm`` random
+    permutations of ``scores`` (a permutation test's null, with the
+    maximum taken over the models as in Westfall & Young's step for many
+    comparisons), and the smallest loss over the models is kept.
+
+    Parameters
+    ----------
+    predictions : array of shape (n, m)
+    scores : array of shape (n,)
+        Observed scores, larger is better, ``-inf`` for failures.
+    n_boot : int, default 256
+    rng : seed or numpy Generator
+    n_perm : int, default 16
+        Permutations of the scores the resamples are spread over.
+
+    Returns
+    -------
+    ndarray of shape (n_boot,)
+        ``(1,)`` zeros with fewer than two scored configs.
+    """
+    F = np.asarray(predictions, dtype=float)
+    y = np.asarray(scores, dtype=float)
+    n = F.shape[0]
+    if n < 2:
+        return np.zeros(1)
+    rng = np.random.default_rng(rng)
+    counts = rng.multinomial(n, np.full(n, 1.0 / n), size=n_boot).astype(float)  # (B, n)
+    out = np.empty(n_boot)
+    for group in np.array_split(np.arange(n_boot), max(1, min(n_perm, n_boot))):
+        wrong = misranked_pairs(F, rng.permutation(y))
+        c = counts[group]
+        out[group] = np.einsum("sa,kab,sb->sk", c, wrong, c, optimize=True).min(axis=1)
+    return out
 
 
 def weights_from_losses(loss: np.ndarray, start: np.ndarray, own: int | None = None,
