@@ -52,7 +52,21 @@ def missing_folder(path: str | Path) -> Path | None:
     return missing
 
 
-class OutputFile(click.Path):
+class _Output(click.Path):
+    """A path a command creates: the directory it goes in must exist (a usage error names it)."""
+
+    kind = "file"
+
+    def convert(self, value, param, ctx):
+        value = super().convert(value, param, ctx)
+        folder = missing_folder(value)
+        if folder is not None:
+            self.fail(f"{value}: the directory {folder} does not exist; create it first, or give a {self.kind} in "
+                      "an existing directory", param, ctx)
+        return value
+
+
+class OutputFile(_Output):
     """A file a command writes: its directory must exist (a usage error names it)."""
 
     name = "output file"
@@ -60,30 +74,15 @@ class OutputFile(click.Path):
     def __init__(self) -> None:
         super().__init__(dir_okay=False, writable=False)
 
-    def convert(self, value, param, ctx):
-        value = super().convert(value, param, ctx)
-        folder = missing_folder(value)
-        if folder is not None:
-            self.fail(f"{value}: the directory {folder} does not exist; create it first, or give a file in an "
-                      "existing directory", param, ctx)
-        return value
 
-
-class OutputFolder(click.Path):
+class OutputFolder(_Output):
     """A folder a command creates (or fills, when empty): its parent must exist."""
 
     name = "output folder"
+    kind = "folder"
 
     def __init__(self) -> None:
         super().__init__()  # an existing file or a used folder: the command's own message says so
-
-    def convert(self, value, param, ctx):
-        value = super().convert(value, param, ctx)
-        folder = missing_folder(value)
-        if folder is not None:
-            self.fail(f"{value}: the directory {folder} does not exist; create it first, or give a folder in "
-                      "an existing directory", param, ctx)
-        return value
 
 
 def check_archive_folder(path: str) -> None:
