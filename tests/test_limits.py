@@ -112,6 +112,30 @@ def test_a_big_propose_batch_shows_progress_and_proposes_what_one_call_would(stu
     assert "proposing" not in small.stderr  # a small batch draws no bar
 
 
+def test_a_big_ingest_and_an_export_show_progress_and_json_stays_clean(tmp_path, monkeypatch):
+    import warmstart.cli.archive_cmds as archive_cmds
+
+    monkeypatch.setattr(archive_cmds, "PROGRESS_TRIALS", 20)  # the bar from 20 trials on, to keep the test fast
+    space = Space.from_dict(SPACE_DICT)
+    rng = np.random.default_rng(3)
+    data, trials, space_file = tmp_path / "d.csv", tmp_path / "t.csv", tmp_path / "s.json"
+    pd.DataFrame({"a": rng.normal(size=40), "y": rng.integers(0, 2, 40)}).to_csv(data, index=False)
+    space_file.write_text(json.dumps(SPACE_DICT))
+    pd.DataFrame(space.sample(25, rng)).assign(score=rng.uniform(0.5, 0.9, 25)).to_csv(trials, index=False)
+    common = ["--task", "invented", "--data", data, "--target", "y", "--learner", "mine", "--space", space_file]
+    result = run("ingest", trials, *common, archive=tmp_path / "a.duckdb")
+    assert result.exit_code == 0, result.output
+    assert "ingesting 25 trials [" in result.stderr and "2/2" in result.stderr
+    quiet = run("ingest", trials, *common, "--json", archive=tmp_path / "b.duckdb")
+    assert quiet.exit_code == 0 and "ingesting" not in quiet.stderr
+    json.loads(quiet.stdout)  # the JSON is whole
+    out = tmp_path / "store"
+    exported = run("curate", "export", out, archive=tmp_path / "a.duckdb")
+    assert exported.exit_code == 0, exported.output
+    assert f"exporting to {out} [" in exported.stderr and "5/5" in exported.stderr  # five tables, trials last
+    assert "25 trials" in exported.stdout
+
+
 def test_progress_line_counts_and_time_left(capsys, monkeypatch):
     clock = iter([100.0, 100.0, 110.0, 130.0])  # construction, then one reading per call
     monkeypatch.setattr("warmstart.cli.progress.time.monotonic", lambda: next(clock))

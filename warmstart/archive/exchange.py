@@ -30,7 +30,8 @@ EXPORT_FORMAT = "warmstart-export"
 _ORDER = {"tasks": "task_id", "profiles": "task_id, feature", "spaces": "space_id", "studies": "study_id"}
 
 
-def export_archive(archive: Archive, directory: str | Path) -> dict:
+def export_archive(archive: Archive, directory: str | Path,
+                   progress: Callable[[int, int], None] | None = None) -> dict:
     """Write the archive as a partitioned Parquet store plus a manifest.
 
     Layout of ``directory`` (created; it must not exist or be empty)::
@@ -45,6 +46,10 @@ def export_archive(archive: Archive, directory: str | Path) -> dict:
     hidden sibling directory and renamed into place when complete, so a
     crash never leaves a half export under ``directory``.
 
+    ``progress(done, total)``, when given, is called before the first table
+    and after each of the five tables is written (the trials last: the
+    longest step).
+
     Returns
     -------
     dict
@@ -53,7 +58,7 @@ def export_archive(archive: Archive, directory: str | Path) -> dict:
     target = Path(directory)
     staging = _staging_directory(target)
     try:
-        counts, left_out = _write_tables(archive.con, staging)
+        counts, left_out = _write_tables(archive.con, staging, progress)
         manifest = {
             "format": EXPORT_FORMAT,
             "schema_version": archive.schema_version,
@@ -98,16 +103,20 @@ def _staging_directory(target: Path) -> Path:
         raise ArchiveError(f"{target}: cannot create the export directory ({exc.strerror})") from None
 
 
-def _write_tables(con: duckdb.DuckDBPyConnection, staging: Path) -> tuple[dict[str, int], int]:
+def _write_tables(con: duckdb.DuckDBPyConnection, staging: Path,
+                  progress: Callable[[int, int], None] | None = None) -> tuple[dict[str, int], int]:
     """Write the four small tables and the partitioned trials into ``staging``; returns
     the row counts written and the number of orphan trials (no study) left out."""
+    step = progress or (lambda done, total: None)
     counts = {}
-    for table in ("tasks", "profiles", "spaces", "studies"):
+    step(0, 5)
+    for k, table in enumerate(("tasks", "profiles", "spaces", "studies"), start=1):
         con.execute(
             f"COPY (SELECT * FROM {table} ORDER BY {_ORDER[table]}) TO ? (FORMAT parquet)",
             [str(staging / f"{table}.parquet")],
         )
         counts[table] = int(fetch(con, f"SELECT count(*) FROM {table}")[0][0])
+        step(k, 5)
     (staging / "trials").mkdir()
     # Partitioned writes buffer up to this many rows per thread before flushing: the
     # default (524,288) took 1.3 GB for 1.5M trials, 65,536 about 0.45 GB at the same speed.
@@ -128,6 +137,7 @@ def _write_tables(con: duckdb.DuckDBPyConnection, staging: Path) -> tuple[dict[s
         "SELECT count(*) FILTER (WHERE study_id IN (SELECT study_id FROM studies)), "
         "count(*) FILTER (WHERE study_id NOT IN (SELECT study_id FROM studies)) FROM trials",
     )[0])
+    step(5, 5)
     return counts, left_out
 
 

@@ -14,6 +14,7 @@ from warmstart.cli.common import (
     strict_option,
 )
 from warmstart.cli.main import main
+from warmstart.cli.progress import Progress
 
 if TYPE_CHECKING:
     import pandas as pd
@@ -23,6 +24,9 @@ if TYPE_CHECKING:
 # `studies` and `show` format DuckDB's rows themselves: this module imports no pandas,
 # so they answer in a fraction of a second (examples/bench_cli.py).
 
+
+#: a trials file this long (about a second's work to check and write) gets a progress bar in `ingest`
+PROGRESS_TRIALS = 50_000
 
 @main.command()
 @click.option("--starter", is_flag=True, help="Also load the shipped starter history (real studies on open datasets).")
@@ -93,8 +97,13 @@ def ingest(ctx, trials, task, data_path, target, learner, space_path, metric, mi
     tag_map = parse_tags(tags)
     maximize = study_direction(metric, minimize)
     trial_frame = read_data(trials)  # its notes (a guessed delimiter, short rows) too
+    # a large file: reading the data, then checking and writing the trials, each a step of a bar
+    bar = Progress(f"ingesting {len(trial_frame):,} trials",
+                   enabled=len(trial_frame) >= PROGRESS_TRIALS and not as_json)
+    bar(0, 2)
     data = read_data(data_path, target, keep_columns=keep_columns)
     space = _load_space(space_path, learner, data, target)
+    bar(1, 2)
     from warmstart.cli.remote import server_client
 
     if (client := server_client(ctx)) is not None:  # the data stays here: its fingerprint and profile go
@@ -104,6 +113,7 @@ def ingest(ctx, trials, task, data_path, target, learner, space_path, metric, mi
                                                            source=str(data_path)),
                              learner, space=space.to_dict(), metric=metric, maximize=maximize, tags=tag_map,
                              owner=owner)
+        bar(2, 2)
         if as_json:
             print_json(done)
         else:
@@ -122,6 +132,7 @@ def ingest(ctx, trials, task, data_path, target, learner, space_path, metric, mi
             trial_frame, task=task, data=data, target=target, learner=learner, space=space, metric=metric,
             maximize=maximize, where=str(trials), source=str(data_path), owner=owner, tags=tag_map,
         )
+    bar(2, 2)
     row = archive.study(study_id)
     from warmstart.archive.curate import copies_elsewhere
 

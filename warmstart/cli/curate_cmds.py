@@ -24,6 +24,7 @@ from warmstart.archive.merge import MERGE_STEPS, merge_archive
 from warmstart.cli.common import get_archive, json_option, parse_tags, print_json, print_table
 from warmstart.cli.limits import OutputFolder
 from warmstart.cli.main import main
+from warmstart.cli.progress import Progress
 from warmstart.errors import ArchiveDamagedError, ArchiveError, ArchiveLockedError
 
 _SHOW = 20  # studies listed by prune before "... and N more"
@@ -315,7 +316,7 @@ def export_cmd(ctx, directory, as_json):
     SELECT * FROM read_parquet('DIR/trials/**/*.parquet', hive_partitioning = true).
     """
     archive = get_archive(ctx, write=False)
-    manifest = export_archive(archive, directory)
+    manifest = export_archive(archive, directory, progress=Progress(f"exporting to {directory}", enabled=not as_json))
     if as_json:
         print_json(manifest)
         return
