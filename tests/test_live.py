@@ -90,7 +90,7 @@ def test_gain_live_command_table_and_json(knn_archive, iris_csv, tmp_path):
                                "--learner", "knn", "--budget", "4", "--repeats", "2", "--cv", "3", "--json"])
     assert res.exit_code == 0, res.output
     (only,) = json.loads(res.stdout)
-    assert only["replay"] == "live" and only["budget"] == 4
+    assert (only["replay"], only["budget"], only["repeats"], only["permuted"]) == ("live", 4, 2, False)
     (task,) = only["tasks"]
     assert 1 / 64 <= task["p"] <= 1 and 0 <= task["q_warm"] <= 1 and 0 <= task["q_cold"] <= 1
     assert 0 <= task["q_library_default"] <= 1

@@ -189,7 +189,10 @@ def test_gain_command_with_the_surrogate_replay(archive_path):
     res = CliRunner().invoke(main, ["--archive", archive_path, "gain", "--learner", "toy", "--budget", "5",
                                     "--repeats", "3", "--replay", "surrogate", "--json"])
     assert res.exit_code == 0, res.output
-    assert json.loads(res.stdout)[0]["replay"] == "surrogate"
+    (shown,) = json.loads(res.stdout)
+    # the JSON says how it was run, so a saved file can be read without its command line
+    assert (shown["replay"], shown["budget"], shown["repeats"], shown["target_share"], shown["permuted"]) == \
+        ("surrogate", 5, 3, 0.05, False)
     res = CliRunner().invoke(main, ["--archive", archive_path, "gain", "--learner", "toy", "--replay", "table"])
     assert res.exit_code != 0 and "'table' is not one of 'nearest', 'surrogate'" in res.output
 

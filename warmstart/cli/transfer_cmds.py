@@ -260,7 +260,8 @@ def _show(results, gamma, report_path, as_json) -> None:
 
         write_report(results, report_path, notes=_noise_notes(results))
     if as_json:
-        print_json([{"learner": r.learner, "budget": r.budget, "replay": getattr(r, "objective", "live"),
+        print_json([{"learner": r.learner, "budget": r.budget, "repeats": r.repeats, "target_share": r.gamma,
+                     "replay": getattr(r, "objective", "live"), "permuted": bool(getattr(r, "permuted", False)),
                      "pooled": r.pooled.to_dict(),
                      "tasks": r.to_frame().to_dict(orient="records")} for r in results])
         return
