@@ -256,9 +256,9 @@ def main() -> None:
     ctx = mp.get_context("spawn")
     with ServerProcess(path, log=folder / "server.log") as server, ctx.Pool(PROCESSES) as pool:
         with Client(server.url) as client:
-            studies = [client.create_study(new_task(seed=10 + i, name=f"store {i + 1}"), "bran", space=SPACE,
+            studies = [client.new_study(new_task(seed=10 + i, name=f"store {i + 1}"), "bran", space=SPACE,
                                            metric="loss", maximize=False)["study_id"] for i in range(8)]
-            cold = client.create_study(new_task(seed=30, name="store cold"), "bran", space=SPACE, metric="loss",
+            cold = client.new_study(new_task(seed=30, name="store cold"), "bran", space=SPACE, metric="loss",
                                        maximize=False, cold=True)["study_id"]
         pool.map(_warm, range(PROCESSES))
         t0 = time.perf_counter()

@@ -44,7 +44,7 @@ def invented_frame(seed: int, rows: int = 60) -> pd.DataFrame:
     return pd.DataFrame({"f1": x[:, 0], "f2": x[:, 1], "f3": x[:, 2], "y": y})
 
 
-def seed_archive(path: str | Path, n_tasks: int = 3, n_trials: int = 24) -> list[int]:
+def seed_archive(path: str | Path, n_tasks: int = 3, trials_per_task: int = 24) -> list[int]:
     """Tasks of invented data, each with one 'bran' study of Branin scores (minimised)."""
     from warmstart.space import Space
 
@@ -56,7 +56,7 @@ def seed_archive(path: str | Path, n_tasks: int = 3, n_trials: int = 24) -> list
             task = archive.add_task(f"shop {i + 1}", frame, "y")
             study = archive.add_study(task, "bran", space, metric="loss", maximize=False, origin="imported",
                                       owner="dana" if i % 2 == 0 else "lee", tags={"team": "retention"})
-            configs = space.sample(n_trials, rng=i)
+            configs = space.sample(trials_per_task, rng=i)
             trials = pd.DataFrame(configs, columns=space.names)
             trials["score"] = [branin(c["x1"], c["x2"]) + 0.1 * i for c in configs]
             archive.add_trials(study, trials)

@@ -63,7 +63,7 @@ def new_study(c: TestClient, headers=None, cold=False, name="shop new") -> int:
 
 
 # -- studies and leases ----------------------------------------------------------------
-def test_create_study_is_warm_from_the_seeded_history(client, seeded):
+def test_new_study_is_warm_from_the_seeded_history(client, seeded):
     r = client.post("/api/v1/studies", json={"task": new_task(), "learner": "bran", "space": SPACE,
                                              "metric": "loss", "maximize": False, "tags": {"team": "pricing"}})
     assert r.status_code == 201

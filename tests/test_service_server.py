@@ -45,7 +45,7 @@ def test_concurrent_clients_kill_9_and_restart_lose_and_double_nothing(tmp_path)
     server = ServerProcess(path).start()
     try:
         setup = Client(server.url)
-        study = setup.create_study(new_task(), "bran", space=SPACE, metric="loss", maximize=False)["study_id"]
+        study = setup.new_study(new_task(), "bran", space=SPACE, metric="loss", maximize=False)["study_id"]
         answered: list = []
         errors: list = []
         stop = threading.Event()
@@ -91,7 +91,7 @@ def test_no_duplicate_config_among_leases_pending_at_once(tmp_path):
     seed_archive(path)
     with ServerProcess(path) as server:
         client = Client(server.url)
-        study = client.create_study(new_task(), "bran", space=SPACE, metric="loss", maximize=False)["study_id"]
+        study = client.new_study(new_task(), "bran", space=SPACE, metric="loss", maximize=False)["study_id"]
         got: list = []
 
         def grab():
@@ -116,7 +116,7 @@ def test_reads_answer_while_writes_go_on_and_sigterm_stops_cleanly(tmp_path):
     seed_archive(path)
     server = ServerProcess(path).start()
     client = Client(server.url)
-    study = client.create_study(new_task(), "bran", space=SPACE, metric="loss", maximize=False)["study_id"]
+    study = client.new_study(new_task(), "bran", space=SPACE, metric="loss", maximize=False)["study_id"]
     done = threading.Event()
 
     def write():

@@ -239,7 +239,7 @@ class Client:
             "kind": kind, "exclude_fingerprint": exclude_fingerprint, "n_seeds": n_seeds})
 
     # -- writes ----------------------------------------------------------------------
-    def create_study(self, task: Mapping, learner: str, space: Mapping | None = None, metric: str = "score",
+    def new_study(self, task: Mapping, learner: str, space: Mapping | None = None, metric: str = "score",
                      maximize: bool | None = None, cold: bool = False, n_seeds: int | None = None,
                      tags: Mapping[str, str] | None = None, owner: str | None = None) -> dict:
         """Create a study; ``task`` from :func:`task_description`. Warm unless ``cold``."""

@@ -51,7 +51,7 @@ def tune_through_service(ctx, client, frame, data, target, kind, keep_columns, t
 
     task = task_description(frame, target, task_name or Path(data).stem, kind=kind, keep_columns=keep_columns,
                             source=str(data))
-    made = client.create_study(task, learner, space=space.to_dict(), metric=metric, maximize=maximize, cold=cold,
+    made = client.new_study(task, learner, space=space.to_dict(), metric=metric, maximize=maximize, cold=cold,
                                n_seeds=n_seeds)
     study = made["study_id"]
     click.echo(f"study {study} on {client.url}: {learner} on {Path(data).name} ({kind}), {metric} "

@@ -28,7 +28,7 @@ from warmstart.service.auth import Principal
 from warmstart.service.core import Service, jsonable
 from warmstart.service.errors import ServiceError
 from warmstart.service.models import (
-    CreateStudy, DefaultsBody, GainBody, IngestBody, NeighborsBody, PriorBody, ProposeBody, RecordBody, TagBody,
+    NewStudyBody, DefaultsBody, GainBody, IngestBody, NeighborsBody, PriorBody, ProposeBody, RecordBody, TagBody,
     TaskInfo,
 )
 from warmstart.service.writer import Answer, RequestKey
@@ -128,7 +128,7 @@ def api_router(service: Service, authorize) -> APIRouter:
         return jsonable(frame.to_dict(orient="records"))
 
     @router.post("/studies", status_code=201, summary="Create a study of a task described by the client")
-    async def create_study(body: CreateStudy, who: Principal = Depends(writers),
+    async def new_study(body: NewStudyBody, who: Principal = Depends(writers),
                            key: RequestKey | None = Depends(request_key)) -> JSONResponse:
         owner = owner_of(who, body.owner)
         check_task(body.task)

@@ -16,7 +16,7 @@ from typing import Annotated, Any, Literal
 from pydantic import AfterValidator, BaseModel, ConfigDict, Field, StringConstraints
 
 __all__ = [
-    "TaskInfo", "CreateStudy", "ProposeBody", "RecordBody", "NeighborsBody", "DefaultsBody", "PriorBody",
+    "TaskInfo", "NewStudyBody", "ProposeBody", "RecordBody", "NeighborsBody", "DefaultsBody", "PriorBody",
     "TagBody", "IngestBody", "GainBody", "LEARNER_PATTERN", "MAX_PROFILE", "MAX_PARAMS", "MAX_TRIALS",
 ]
 
@@ -83,7 +83,7 @@ class TaskInfo(_Body):
     source: Annotated[str, StringConstraints(max_length=500)] | None = None
 
 
-class CreateStudy(_Body):
+class NewStudyBody(_Body):
     """Create a study; warm from the archive's related studies unless ``cold``."""
 
     task: TaskInfo
