@@ -82,6 +82,38 @@ class _SourceModel:
         self.top_threshold = float(quantile[order[n_top - 1]])
 
 
+def _check_options(*, gamma, source_gamma, cover_fraction, uniform, cover_pool, explore, n_hedge, n_candidates,
+                   n_boot, max_ranked, own_strength, prior_power, shrink, exact_share, adaptive_design, cover,
+                   source_score, chance) -> None:
+    """Refuse an option of :class:`MixtureSearch` outside what it accepts, naming it."""
+    for name, value in (("gamma", gamma), ("source_gamma", source_gamma),
+                        ("cover_fraction", cover_fraction), ("uniform", uniform),
+                        ("cover_pool", cover_pool)):
+        if isinstance(value, bool) or not isinstance(value, (int, float)) or not 0 < value <= 1:
+            raise SearchError(f"{name} must be a number in (0, 1], got {value!r}")
+    if isinstance(explore, bool) or not isinstance(explore, (int, float)) or not 0 <= explore <= 1:
+        raise SearchError(f"explore must be a number in [0, 1], got {explore!r}")
+    if uniform >= 1:
+        raise SearchError(f"uniform must be below 1 so the past tasks count at all, got {uniform!r}")
+    for name, value, low in (("n_hedge", n_hedge, 0), ("n_candidates", n_candidates, 1),
+                             ("n_boot", n_boot, 1), ("max_ranked", max_ranked, 2)):
+        if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < low:
+            raise SearchError(f"{name} must be a whole number >= {low}, got {value!r}")
+    for name, value in (("own_strength", own_strength), ("prior_power", prior_power), ("shrink", shrink)):
+        if isinstance(value, bool) or not isinstance(value, (int, float)) or not (value >= 0 and math.isfinite(value)):
+            raise SearchError(f"{name} must be a finite number >= 0, got {value!r}")
+    if isinstance(exact_share, bool) or not isinstance(exact_share, (int, float)) or not 0 <= exact_share <= 1:
+        raise SearchError(f"exact_share must be a number in [0, 1], got {exact_share!r}")
+    if not isinstance(adaptive_design, (bool, np.bool_)):
+        raise SearchError(f"adaptive_design must be True or False, got {adaptive_design!r}")
+    if cover not in ("top", "soft"):
+        raise SearchError(f"cover must be 'top' or 'soft', got {cover!r}")
+    if chance not in _CHANCE:
+        raise SearchError(f"chance must be one of {', '.join(_CHANCE)}, got {chance!r}")
+    if source_score not in _SCORES:
+        raise SearchError(f"source_score must be one of {', '.join(_SCORES)}, got {source_score!r}")
+
+
 class MixtureSearch(SearchStrategy):
     """Warm Parzen-estimator search over a weighted mixture of past tasks.
 
@@ -210,38 +242,16 @@ class MixtureSearch(SearchStrategy):
         adaptive_design: bool = True,
         chance: str = "tie",
     ):
-        # long: one check per option, each naming the option and what it accepts
         super().__init__(space, seed=seed, maximize=maximize)
         sources = getattr(prior, "sources", None)
         if not sources:
             raise SearchError("prior must be a warmstart Prior with at least one source (past study); "
                               "build one with Archive.build_prior")
-        for name, value in (("gamma", gamma), ("source_gamma", source_gamma),
-                            ("cover_fraction", cover_fraction), ("uniform", uniform),
-                            ("cover_pool", cover_pool)):
-            if isinstance(value, bool) or not isinstance(value, (int, float)) or not 0 < value <= 1:
-                raise SearchError(f"{name} must be a number in (0, 1], got {value!r}")
-        if isinstance(explore, bool) or not isinstance(explore, (int, float)) or not 0 <= explore <= 1:
-            raise SearchError(f"explore must be a number in [0, 1], got {explore!r}")
-        if uniform >= 1:
-            raise SearchError(f"uniform must be below 1 so the past tasks count at all, got {uniform!r}")
-        for name, value, low in (("n_hedge", n_hedge, 0), ("n_candidates", n_candidates, 1),
-                                 ("n_boot", n_boot, 1), ("max_ranked", max_ranked, 2)):
-            if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < low:
-                raise SearchError(f"{name} must be a whole number >= {low}, got {value!r}")
-        for name, value in (("own_strength", own_strength), ("prior_power", prior_power), ("shrink", shrink)):
-            if isinstance(value, bool) or not isinstance(value, (int, float)) or not (value >= 0 and math.isfinite(value)):
-                raise SearchError(f"{name} must be a finite number >= 0, got {value!r}")
-        if isinstance(exact_share, bool) or not isinstance(exact_share, (int, float)) or not 0 <= exact_share <= 1:
-            raise SearchError(f"exact_share must be a number in [0, 1], got {exact_share!r}")
-        if not isinstance(adaptive_design, (bool, np.bool_)):
-            raise SearchError(f"adaptive_design must be True or False, got {adaptive_design!r}")
-        if cover not in ("top", "soft"):
-            raise SearchError(f"cover must be 'top' or 'soft', got {cover!r}")
-        if chance not in _CHANCE:
-            raise SearchError(f"chance must be one of {', '.join(_CHANCE)}, got {chance!r}")
-        if source_score not in _SCORES:
-            raise SearchError(f"source_score must be one of {', '.join(_SCORES)}, got {source_score!r}")
+        _check_options(gamma=gamma, source_gamma=source_gamma, cover_fraction=cover_fraction, uniform=uniform,
+                       cover_pool=cover_pool, explore=explore, n_hedge=n_hedge, n_candidates=n_candidates,
+                       n_boot=n_boot, max_ranked=max_ranked, own_strength=own_strength, prior_power=prior_power,
+                       shrink=shrink, exact_share=exact_share, adaptive_design=adaptive_design, cover=cover,
+                       source_score=source_score, chance=chance)
         self.prior = prior
         self.options = {
             "gamma": float(gamma), "source_gamma": float(source_gamma), "n_hedge": int(n_hedge),
