@@ -36,6 +36,7 @@ from pandas.api import types as ptypes
 from warmstart.errors import ProfileError
 from warmstart.data.clean import clean_table
 from warmstart.data.read import TableError, column_not_found
+from warmstart.space import plain_value
 
 __all__ = [
     "PROFILE_VERSION",
@@ -264,13 +265,9 @@ def _class_codes(y: pd.Series, target: str) -> tuple[np.ndarray, np.ndarray]:
     codes, uniques = pd.factorize(y, sort=True)
     if len(uniques) < 2:
         raise ProfileError(
-            f"target column {target!r} has a single class ({_plain(uniques[0])!r}); a classification task needs two or more"
+            f"target column {target!r} has a single class ({plain_value(uniques[0])!r}); a classification task needs two or more"
         )
     return codes.astype(np.int64), np.bincount(codes)
-
-
-def _plain(value):
-    return value.item() if isinstance(value, np.generic) else value
 
 
 def _regression_target(y: pd.Series, target: str) -> np.ndarray:

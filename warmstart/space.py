@@ -53,8 +53,10 @@ def _level_key(value: Any) -> tuple[str, Any]:
     raise TypeError(type(value).__name__)
 
 
-def _plain(value: Any) -> Any:
-    """Turn numpy scalars into plain Python values."""
+def plain_value(value: Any) -> Any:
+    """A numpy scalar as the plain Python value (other values unchanged).
+
+    Used wherever a value is written into a message or JSON."""
     if isinstance(value, np.generic):
         return value.item()
     return value
@@ -236,7 +238,7 @@ def _parse_param(name: str, spec: Any, where: str) -> Param:
             )
         keys = []
         for c in choices:
-            c = _plain(c)
+            c = plain_value(c)
             if c is None or not isinstance(c, (str, int, float, bool)) or (
                 isinstance(c, float) and not math.isfinite(c)
             ):
@@ -246,17 +248,17 @@ def _parse_param(name: str, spec: Any, where: str) -> Param:
                 )
             keys.append(_level_key(c))
         if len(set(keys)) != len(keys):
-            dup = next(_plain(c) for c, k in zip(choices, keys) if keys.count(k) > 1)
+            dup = next(plain_value(c) for c, k in zip(choices, keys) if keys.count(k) > 1)
             raise SpaceError(
                 f"{where}: choice parameter {name!r} repeats a level ({dup!r}) in {list(choices)!r}; "
                 "levels must be distinct (1 and 1.0 count as the same level, true and 1 do not)"
             )
-        return Param(name, "choice", choices=tuple(_plain(c) for c in choices), when=when)
+        return Param(name, "choice", choices=tuple(plain_value(c) for c in choices), when=when)
     if "choices" in spec:
         raise SpaceError(f"{where}: {kind} parameter {name!r} takes low/high, not 'choices'")
     low, high = spec.get("low"), spec.get("high")
     for label, value in (("low", low), ("high", high)):
-        value = _plain(value)
+        value = plain_value(value)
         if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
             raise SpaceError(
                 f"{where}: parameter {name!r} needs a finite number for {label!r}, got {value!r}"
@@ -303,7 +305,7 @@ def _parse_when(name: str, when: Any, where: str) -> tuple:
     for parent, levels in when.items():
         if not isinstance(levels, (list, tuple)):
             levels = [levels]
-        out.append((parent, tuple(_plain(v) for v in levels)))
+        out.append((parent, tuple(plain_value(v) for v in levels)))
     return tuple(sorted(out, key=lambda pair: pair[0]))
 
 
@@ -523,7 +525,7 @@ class Space:
             Naming the parameter, the value and what is allowed.
         """
         p = self[name]
-        value = _plain(value)
+        value = plain_value(value)
         if p.kind == "choice":
             idx = p.level_index(value)
             if idx < 0:
@@ -730,7 +732,7 @@ class Space:
         dropped: list[str] = []
         carried: dict = {}
         for name, value in config.items():
-            value = _plain(value)
+            value = plain_value(value)
             if name not in self._index or value is None:
                 dropped.append(name)
                 continue

@@ -32,7 +32,7 @@ from warmstart.evaluate.deadline import StoppableRunner
 from warmstart.evaluate.metrics import METRICS, metric_direction
 from warmstart.evaluate.result import ObjectiveError, TrialResult, check_time_limit, error_text, utc_now
 from warmstart.profile import detect_kind
-from warmstart.space import Space
+from warmstart.space import Space, plain_value
 from warmstart.data.clean import clean_table
 from warmstart.data.read import TableError
 
@@ -404,11 +404,6 @@ def _check_metric(metric: str | None, kind: str) -> str:
     return metric
 
 
-def _plain(value):
-    """A numpy scalar as the plain Python value (for messages)."""
-    return value.item() if isinstance(value, np.generic) else value
-
-
 class CVObjective:
     """Cross-validated score of a built-in learner on a table (picklable).
 
@@ -480,7 +475,7 @@ class CVObjective:
             classes, counts = np.unique(self.y, return_counts=True)
             if len(classes) < 2:
                 raise ObjectiveError(
-                    f"target {target!r} has a single class ({_plain(classes[0])!r}); a classifier needs two or more")
+                    f"target {target!r} has a single class ({plain_value(classes[0])!r}); a classifier needs two or more")
             if counts.max() < cv:
                 raise ObjectiveError(
                     f"target {target!r} has {len(classes)} classes in {n} rows and none has {cv} rows, so "
@@ -488,7 +483,7 @@ class CVObjective:
                     "Pick a target with repeated labels (or a regression target)"
                 )
             if counts.min() < 2:
-                rare = [_plain(c) for c in classes[counts < 2][:5]]
+                rare = [plain_value(c) for c in classes[counts < 2][:5]]
                 raise ObjectiveError(
                     f"target {target!r}: class(es) {rare} have a single row, which cross-validation cannot both "
                     "train and score on; drop or merge those rows"
