@@ -26,6 +26,8 @@ from hypothesis import strategies as st
 
 from warmstart.archive import Archive
 from warmstart.archive.curate import (
+    DEDUPE_STEPS,
+    PRUNE_STEPS,
     apply_prune,
     archive_digest,
     check_archive,
@@ -242,6 +244,31 @@ def test_dedupe_removes_a_study_that_only_repeats_another(tmp_path):
     assert "removed 8 duplicate trial(s)" in result.stdout and "1 study(ies) that held only duplicates" in result.stdout
     with Archive(path, read_only=True) as archive:
         assert archive.studies()["study_id"].tolist() == [1]
+
+
+def test_dedupe_and_prune_report_their_steps_in_order_and_json_stays_clean(tmp_path):
+    """Long curation shows progress (issue 17, point 4): each step is announced once, in order,
+    and the result is the same as without a progress callback."""
+    path = tmp_path / "a.duckdb"
+    with Archive(path) as archive:
+        add_study(archive, "churn", 1, make_trials(1, 8))
+        add_study(archive, "churn", 1, make_trials(1, 8))
+        add_study(archive, "fraud", 2, make_trials(2, 6))
+        seen: list[str] = []
+        assert dedupe_trials(archive, progress=seen.append) == (8, 1)
+        assert seen == list(DEDUPE_STEPS)
+        seen.clear()
+        plan = plan_prune(archive, learner="svm")
+        assert apply_prune(archive, plan, progress=seen.append) == (14, 2)
+        assert seen == list(PRUNE_STEPS)
+    with Archive(tmp_path / "c.duckdb") as archive:
+        add_study(archive, "churn", 1, make_trials(1, 8))
+        add_study(archive, "churn", 1, make_trials(1, 8))
+    result = cli(tmp_path / "c.duckdb", "curate", "dedupe")
+    assert "deduplicating" in result.stderr and "removed 8 duplicate" in result.stdout
+    result = cli(tmp_path / "c.duckdb", "curate", "prune", "--learner", "svm", "--yes", "--json")
+    assert result.exit_code == 0 and "pruning" not in result.stderr
+    assert json.loads(result.stdout)["trials_removed"] == 8
 
 
 # -- prune --------------------------------------------------------------------------------

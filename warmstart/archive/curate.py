@@ -37,7 +37,7 @@ from typing import Callable, Iterable, Mapping
 
 import pandas as pd
 
-from warmstart.archive.labels import PrunePlan, apply_prune, filter_studies, label_study, plan_prune
+from warmstart.archive.labels import PRUNE_STEPS, PrunePlan, apply_prune, filter_studies, label_study, plan_prune
 from warmstart.archive.faults import check_blocks
 from warmstart.archive.sql import fetch, rows_changed
 from warmstart.archive.store import ARCHIVE_TABLES, Archive
@@ -51,11 +51,13 @@ __all__ = [
     "check_archive",
     "fix_archive",
     "dedupe_trials",
+    "DEDUPE_STEPS",
     "count_duplicates",
     "copies_elsewhere",
     "PrunePlan",
     "plan_prune",
     "apply_prune",
+    "PRUNE_STEPS",
     "label_study",
     "filter_studies",
     "archive_digest",
@@ -410,17 +412,27 @@ def _carry_labels(archive: Archive, emptied: list[tuple[int, list[int]]]) -> Non
                             [owner, json.dumps(tags, sort_keys=True), keeper])
 
 
-def _delete_duplicates(archive: Archive) -> tuple[int, int]:
+#: the steps of :func:`dedupe_trials`, in order (names a progress display shows)
+DEDUPE_STEPS = ("finding duplicates", "moving tags", "deleting trials", "deleting studies")
+
+
+def _delete_duplicates(archive: Archive, progress: Callable[[str], None] | None = None) -> tuple[int, int]:
     """Delete exact duplicates (copies of an earlier study's trials) and the
     studies that held nothing else, whose labels go to the studies that keep
-    their trials; returns (trials, studies) removed. Call inside a transaction."""
+    their trials; returns (trials, studies) removed. Call inside a transaction.
+    ``progress`` is called with each name of :data:`DEDUPE_STEPS` as it starts."""
+    step = progress or (lambda name: None)
     # The ranking joins studies, so find the studies to empty before deleting anything.
+    step(DEDUPE_STEPS[0])
     found = fetch(archive.con, _EMPTIED)
+    step(DEDUPE_STEPS[1])
     _carry_labels(archive, [(int(s), [int(k) for k in keepers]) for s, keepers in found])
     emptied = [int(r[0]) for r in found]
+    step(DEDUPE_STEPS[2])
     trials = rows_changed(archive.con, f"DELETE FROM trials WHERE rowid IN (SELECT rid FROM ({_DUPLICATE_RANK}) WHERE study_id <> keeper)"
     )
     studies = 0
+    step(DEDUPE_STEPS[3])
     for start in range(0, len(emptied), 1000):
         chunk = emptied[start:start + 1000]
         studies += rows_changed(archive.con, f"DELETE FROM studies WHERE study_id IN ({', '.join('?' * len(chunk))})", chunk
@@ -498,7 +510,8 @@ def fix_archive(archive: Archive) -> list[tuple[str, int]]:
     return done
 
 
-def dedupe_trials(archive: Archive, dry_run: bool = False) -> tuple[int, int]:
+def dedupe_trials(archive: Archive, dry_run: bool = False,
+                  progress: Callable[[str], None] | None = None) -> tuple[int, int]:
     """Drop trials that repeat a trial of an earlier study, in one transaction.
 
     Repeats within one study (repeated evaluations) stay. A study all of whose
@@ -511,6 +524,9 @@ def dedupe_trials(archive: Archive, dry_run: bool = False) -> tuple[int, int]:
         Open for writing (unless ``dry_run``).
     dry_run : bool, default False
         Only count.
+    progress : callable, optional
+        Called with the name of each step (:data:`DEDUPE_STEPS`) as it
+        starts (not for a dry run, which is one query).
 
     Returns
     -------
@@ -524,7 +540,7 @@ def dedupe_trials(archive: Archive, dry_run: bool = False) -> tuple[int, int]:
         )[0][0]
         return count_duplicates(archive), int(emptied)
     with archive.transaction():
-        return _delete_duplicates(archive)
+        return _delete_duplicates(archive, progress)
 
 
 def archive_digest(archive: Archive, ignore: Mapping[str, Iterable[str]] | None = None) -> dict[str, str]:

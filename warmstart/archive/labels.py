@@ -10,7 +10,7 @@ import json
 import uuid
 from dataclasses import dataclass
 from datetime import datetime
-from typing import Any, Iterable, Mapping
+from typing import Any, Callable, Iterable, Mapping
 
 import pandas as pd
 
@@ -18,7 +18,7 @@ from warmstart.archive.sql import fetch, rows_changed
 from warmstart.archive.store import Archive
 from warmstart.errors import ArchiveError
 
-__all__ = ["filter_studies", "PrunePlan", "plan_prune", "apply_prune", "label_study"]
+__all__ = ["filter_studies", "PrunePlan", "plan_prune", "apply_prune", "PRUNE_STEPS", "label_study"]
 
 
 def _parse_date(value: Any) -> datetime:
@@ -140,21 +140,33 @@ def plan_prune(
     return PrunePlan(frame[cols].reset_index(drop=True), failed_only=bool(failed))
 
 
-def apply_prune(archive: Archive, plan: PrunePlan) -> tuple[int, int]:
-    """Remove what ``plan`` lists, in one transaction; returns (trials, studies) removed."""
+#: the steps of :func:`apply_prune`, in order (names a progress display shows)
+PRUNE_STEPS = ("deleting trials", "deleting studies", "deleting leases")
+
+
+def apply_prune(archive: Archive, plan: PrunePlan,
+                progress: Callable[[str], None] | None = None) -> tuple[int, int]:
+    """Remove what ``plan`` lists, in one transaction; returns (trials, studies) removed.
+
+    ``progress`` is called with each name of :data:`PRUNE_STEPS` as it starts.
+    """
     if plan.studies.empty:
         return 0, 0
+    step = progress or (lambda name: None)
     view = f"_prune_{uuid.uuid4().hex}"
     ids = pd.DataFrame({"study_id": plan.studies["study_id"].astype("int64")})
     with archive.transaction() as con:
         con.register(view, ids)
         try:
             status = " AND status = 'failed'" if plan.failed_only else ""
+            step(PRUNE_STEPS[0])
             trials = rows_changed(archive.con, f"DELETE FROM trials WHERE study_id IN (SELECT study_id FROM {view}){status}")
+            step(PRUNE_STEPS[1])
             studies = rows_changed(archive.con,
                 f"DELETE FROM studies WHERE study_id IN (SELECT study_id FROM {view}) "
                 "AND study_id NOT IN (SELECT study_id FROM trials)",
             )
+            step(PRUNE_STEPS[2])
             # the service's leases go with what they name: every lease of a study removed, and the
             # recorded leases of the failed trials removed (pending leases of a study kept stay)
             con.execute(

@@ -11,6 +11,8 @@ from typing import Iterator
 import click
 
 from warmstart.archive.curate import (
+    DEDUPE_STEPS,
+    PRUNE_STEPS,
     apply_prune,
     check_archive,
     dedupe_trials,
@@ -31,13 +33,13 @@ _SHOW = 20  # studies listed by prune before "... and N more"
 
 
 @contextlib.contextmanager
-def _steps(label: str, enabled: bool = True) -> Iterator:
-    """A progress bar on stderr advanced once per step of a merge/import."""
+def _steps(label: str, enabled: bool = True, steps: tuple[str, ...] = MERGE_STEPS) -> Iterator:
+    """A progress bar on stderr advanced once per step (a merge's or import's by default)."""
     if not enabled:
         yield None
         return
     with click.progressbar(
-        length=len(MERGE_STEPS), label=label, file=sys.stderr,
+        length=len(steps), label=label, file=sys.stderr,
         item_show_func=lambda step: step or "", show_eta=True,
     ) as bar:
         seen: list[str] = []
@@ -228,7 +230,8 @@ def dedupe(ctx, dry_run, as_json):
     to the study that keeps its trials.
     """
     archive = get_archive(ctx, write=not dry_run)
-    trials, studies = dedupe_trials(archive, dry_run=dry_run)
+    with _steps("deduplicating", not (as_json or dry_run), DEDUPE_STEPS) as progress:
+        trials, studies = dedupe_trials(archive, dry_run=dry_run, progress=progress)
     if as_json:
         print_json({"dry_run": dry_run, "trials_removed": trials, "studies_removed": studies})
         return
@@ -297,7 +300,8 @@ def prune(ctx, failed, before, learner, tags, owner, yes, as_json):
             click.echo(f"... and {len(plan.studies) - _SHOW} more studies")
     if not yes:
         click.confirm("Remove them?", abort=True, err=True)
-    trials, studies = apply_prune(archive, plan)
+    with _steps("pruning", not as_json, PRUNE_STEPS) as progress:
+        trials, studies = apply_prune(archive, plan, progress=progress)
     if as_json:
         print_json({"trials_removed": trials, "studies_removed": studies,
                     "studies": plan.studies.to_dict(orient="records")})
