@@ -30,11 +30,16 @@ def _files(tmp_path, script_body: str):
     return data, space, script
 
 
+def _tune_two(tmp_path, script_body: str):
+    """``tune --budget 2`` of a command objective (in-process)."""
+    data, space, script = _files(tmp_path, script_body)
+    return CliRunner().invoke(main, ["--archive", str(tmp_path / "a.duckdb"), "tune", str(data), "--target", "units",
+                                     "--learner", "larkspur-smoother", "--space", str(space),
+                                     "--command", f"{sys.executable} {script}", "--budget", "2"])
+
+
 def test_every_trial_failed_exits_1(tmp_path):
-    data, space, script = _files(tmp_path, "import sys\nsys.exit('model diverged')\n")
-    result = CliRunner().invoke(main, ["--archive", str(tmp_path / "a.duckdb"), "tune", str(data), "--target", "units",
-                                       "--learner", "larkspur-smoother", "--space", str(space),
-                                       "--command", f"{sys.executable} {script}", "--budget", "2"])
+    result = _tune_two(tmp_path, "import sys\nsys.exit('model diverged')\n")
     assert result.exit_code == 1, result.output
     assert "error: every trial failed (2 of 2)" in result.stderr
     assert "2 trials, 2 failed" in result.stdout
@@ -44,10 +49,7 @@ def test_every_trial_failed_exits_1(tmp_path):
 
 
 def test_one_success_exits_0(tmp_path):
-    data, space, script = _files(tmp_path, "import json, sys\nc = json.load(sys.stdin)\nprint(1 - c['alpha'])\n")
-    result = CliRunner().invoke(main, ["--archive", str(tmp_path / "a.duckdb"), "tune", str(data), "--target", "units",
-                                       "--learner", "larkspur-smoother", "--space", str(space),
-                                       "--command", f"{sys.executable} {script}", "--budget", "2"])
+    result = _tune_two(tmp_path, "import json, sys\nc = json.load(sys.stdin)\nprint(1 - c['alpha'])\n")
     assert result.exit_code == 0, result.output
 
 
