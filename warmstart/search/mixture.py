@@ -388,7 +388,10 @@ class MixtureSearch(SearchStrategy):
             start = np.append(start, 1.0 / S)
             own_col = S + 1
         yy = np.where(np.isnan(y[keep]), -np.inf, y[keep])
-        rng = np.random.default_rng(self._rng_key(1))
+        # the bootstrap's draws depend on the recorded trials alone (pending counted as none, as
+        # after a result in a sequential search), so the weights do not depend on when they were
+        # first asked for: a search resumed with pending leases weighs as the one kept in memory
+        rng = np.random.default_rng(self._rng_key(1, n_pending=0))
         loss = ranking_losses(P, yy, self.n_boot, rng)
         if self.chance == "luck" and keep.size >= 2:  # the competitor: the best past task on shuffled scores
             loss[:, S] = luck_losses(self._pred[keep], yy, self.n_boot, rng)
@@ -431,9 +434,9 @@ class MixtureSearch(SearchStrategy):
         return frame.sort_values("weight", ascending=False, kind="stable").reset_index(drop=True)
 
     # -- proposals ------------------------------------------------------------
-    def _rng_key(self, salt: int) -> list[int]:
+    def _rng_key(self, salt: int, n_pending: int | None = None) -> list[int]:
         base = self.seed if isinstance(self.seed, (int, np.integer)) and not isinstance(self.seed, bool) else 0
-        return [int(base) & 0xFFFFFFFF, self.trial_count, self.n_pending, salt]
+        return [int(base) & 0xFFFFFFFF, self.trial_count, self.n_pending if n_pending is None else n_pending, salt]
 
     def _proposal_rng(self) -> np.random.Generator:
         if isinstance(self.seed, (int, np.integer)) and not isinstance(self.seed, bool):

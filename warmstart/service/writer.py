@@ -84,13 +84,19 @@ class Writer:
     on_commit, on_failure : callable, optional
         Called (in the writer thread) after a write committed, or after it
         was rolled back, so that caches derived from the archive can follow.
+    before_commit : callable, optional
+        Called with the archive inside a batch's transaction after its writes
+        ran (e.g. to write the rows they left for one statement per table);
+        when it fails the batch is rolled back as if one of its writes had.
     """
 
     def __init__(self, archive: Archive, on_commit: Callable[[], None] | None = None,
-                 on_failure: Callable[[], None] | None = None):
+                 on_failure: Callable[[], None] | None = None,
+                 before_commit: Callable[[Archive], None] | None = None):
         self.archive = archive
         self._on_commit = on_commit
         self._on_failure = on_failure
+        self._before_commit = before_commit
         self._queue: queue.Queue[_Job | None] = queue.Queue()
         self._thread = threading.Thread(target=self._run, name="warmstart-writer", daemon=True)
         self._closed = False
@@ -231,6 +237,8 @@ class Writer:
                 stored[(k.principal, k.request_id)] = (k.route, k.body_sha256, status, text)
                 fresh.append((k, status, text))
             outcomes.append(Answer(status, json.loads(text)))
+        if self._before_commit is not None:
+            self._before_commit(self.archive)
         if fresh:
             con.execute(
                 "INSERT INTO requests SELECT unnest(?::VARCHAR[]), unnest(?::VARCHAR[]), unnest(?::VARCHAR[]), "
