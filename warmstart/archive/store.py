@@ -25,7 +25,7 @@ import uuid
 from datetime import datetime, timezone
 from importlib import resources
 from pathlib import Path
-from typing import TYPE_CHECKING, Any, Iterator, Mapping
+from typing import TYPE_CHECKING, Any, Iterator, Mapping, Sequence
 
 import duckdb
 
@@ -714,45 +714,48 @@ class Archive:
         return int(self._q("SELECT coalesce(max(number), 0) + 1 FROM trials WHERE study_id = ?",
                            [int(study)])[0][0])
 
-    def insert_checked_trials(self, study: int, rows: list[dict], numbers: list[int]) -> None:
-        """Insert trials checked by :meth:`check_trial` under the given numbers, in one statement.
+    def insert_checked_trials(self, trials: Sequence[tuple[int, dict, int]]) -> None:
+        """Insert trials checked by :meth:`check_trial`: ``(study, row, number)`` each,
+        with one statement per search space (studies of one space share it).
 
         The config text and content key come from the same SQL expression as
         in :meth:`record_trial` and :meth:`add_trials`, so a trial stored
         here is stored byte for byte alike. The caller owns the numbers (one
-        writer that counts them) and knows the study exists; inside an open
-        transaction the insert joins it.
+        writer that counts them) and knows the studies exist; inside an open
+        transaction the inserts join it.
         """
-        if not rows:
-            return
-        if len(rows) != len(numbers):
-            raise ArchiveError(f"insert_checked_trials: {len(rows)} rows but {len(numbers)} numbers")
-        space_id, _, fp, learner = self._study_head(study)
-        space = self._space_cached(space_id)
-        config_sql, keys = _config_sql(space)
-        casts = ["VARCHAR" if p.kind == "choice" else "BIGINT" if p.kind == "integer" else "DOUBLE"
-                 for p in space.params]
         from warmstart.archive.ingest import param_columns
 
-        given = ", ".join(f"unnest(?::{cast}[]) AS {col}" for cast, col in zip(casts, param_columns(space)))
-        # placeholders bind in text order: study and key prefix, the JSON keys (inside cfg), the columns
-        sql = (
-            "INSERT INTO trials (study_id, number, config, score, status, cost_s, started_at, finished_at, "
-            "error, content_key, fold_scores) "
-            "SELECT ?, v.number, v.cfg, v.score, v.status, v.cost_s, v.started_at, v.finished_at, v.error, "
-            "sha256(? || v.cfg), NULL "
-            f"FROM (SELECT {config_sql} AS cfg, * FROM (SELECT unnest(?::INTEGER[]) AS number, "
-            "unnest(?::DOUBLE[]) AS score, unnest(?::VARCHAR[]) AS status, unnest(?::DOUBLE[]) AS cost_s, "
-            "unnest(?::TIMESTAMP[]) AS started_at, unnest(?::TIMESTAMP[]) AS finished_at, "
-            f"unnest(?::VARCHAR[]) AS error, {given})) v"
-        )
-        columns = [[row["values"][j] for row in rows] for j in range(space.dim)]
+        groups: dict[int, list[tuple[int, dict, int]]] = {}
+        for study, row, number in trials:
+            groups.setdefault(self._study_head(study)[0], []).append((int(study), row, int(number)))
         with translated(self.path), self.transaction() as con:
-            con.execute(sql, [int(study), f"{fp}|{learner}|", *keys, [int(n) for n in numbers],
-                              [r["score"] for r in rows], [r["status"] for r in rows],
-                              [r["cost_s"] for r in rows], [r["started_at"] for r in rows],
-                              [r["finished_at"] or utc_now() for r in rows], [r["error"] for r in rows],
-                              *columns])
+            for space_id, group in groups.items():
+                space = self._space_cached(space_id)
+                config_sql, keys = _config_sql(space)
+                casts = ["VARCHAR" if p.kind == "choice" else "BIGINT" if p.kind == "integer" else "DOUBLE"
+                         for p in space.params]
+                given = ", ".join(f"unnest(?::{cast}[]) AS {col}" for cast, col in zip(casts, param_columns(space)))
+                # placeholders bind in text order: the JSON keys (inside cfg), then the columns
+                sql = (
+                    "INSERT INTO trials (study_id, number, config, score, status, cost_s, started_at, finished_at, "
+                    "error, content_key, fold_scores) "
+                    "SELECT v.study_id, v.number, v.cfg, v.score, v.status, v.cost_s, v.started_at, v.finished_at, "
+                    "v.error, sha256(v.key_prefix || v.cfg), NULL "
+                    f"FROM (SELECT {config_sql} AS cfg, * FROM (SELECT unnest(?::BIGINT[]) AS study_id, "
+                    "unnest(?::INTEGER[]) AS number, unnest(?::VARCHAR[]) AS key_prefix, unnest(?::DOUBLE[]) AS score, "
+                    "unnest(?::VARCHAR[]) AS status, unnest(?::DOUBLE[]) AS cost_s, "
+                    "unnest(?::TIMESTAMP[]) AS started_at, unnest(?::TIMESTAMP[]) AS finished_at, "
+                    f"unnest(?::VARCHAR[]) AS error, {given})) v"
+                )
+                prefixes = {study: "{2}|{3}|".format(*self._study_head(study)) for study, _, _ in group}
+                rows = [row for _, row, _ in group]
+                con.execute(sql, [*keys, [study for study, _, _ in group], [number for _, _, number in group],
+                                  [prefixes[study] for study, _, _ in group], [r["score"] for r in rows],
+                                  [r["status"] for r in rows], [r["cost_s"] for r in rows],
+                                  [r["started_at"] for r in rows], [r["finished_at"] or utc_now() for r in rows],
+                                  [r["error"] for r in rows],
+                                  *([row["values"][j] for row in rows] for j in range(space.dim))])
 
     def _study_head(self, study: int) -> tuple[int, str, str, str]:
         """(space id, metric, task fingerprint, learner) of a study; all fixed once a

@@ -6,7 +6,7 @@ together (:mod:`warmstart.service.writer`). The lease book
 (:mod:`warmstart.service.leases`) therefore keeps the rows of the writes of
 a batch here (new leases, leases recorded, trials) and the writer writes
 them, inside the batch's transaction and before its commit, with one
-statement per kind of row (one per study for trials). A read of the same
+statement per kind of row (trials: one per search space). A read of the same
 tables inside the transaction flushes first, so it sees every row so far.
 
 Trial ids (the ``trial_ids`` sequence) are taken from the archive in blocks
@@ -38,8 +38,8 @@ class RowBuffer:
     leases: list[tuple] = field(default_factory=list)
     #: (trial id, number, status, score, recorded_at) of pending leases now recorded
     recorded: list[tuple[int, int, str, float | None, datetime]] = field(default_factory=list)
-    #: study -> (rows checked by Archive.check_trial, their numbers)
-    trials: dict[int, tuple[list[dict], list[int]]] = field(default_factory=dict)
+    #: (study, row checked by Archive.check_trial, its number)
+    trials: list[tuple[int, dict, int]] = field(default_factory=list)
 
     def __bool__(self) -> bool:
         return bool(self.leases or self.recorded or self.trials)
@@ -51,9 +51,7 @@ class RowBuffer:
                             recorded_at))
 
     def add_trial(self, study: int, row: dict, number: int) -> None:
-        rows, numbers = self.trials.setdefault(study, ([], []))
-        rows.append(row)
-        numbers.append(number)
+        self.trials.append((study, row, number))
 
     def clear(self) -> None:
         self.leases.clear()
@@ -65,8 +63,8 @@ class RowBuffer:
         if not self:
             return
         con = archive.con
-        for study, (rows, numbers) in self.trials.items():
-            archive.insert_checked_trials(study, rows, numbers)
+        if self.trials:
+            archive.insert_checked_trials(self.trials)
         if self.leases:
             columns = ", ".join(_LEASE_COLUMNS)
             given = ", ".join(f"unnest(?::{t}[])" for t in _LEASE_TYPES)
