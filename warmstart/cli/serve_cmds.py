@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import ipaddress
-import logging
 import signal
 import sys
 
@@ -78,6 +77,7 @@ def _log_to_stderr():
     """The service's log (one line per request) to stderr, written by a thread of its
     own: the event loop only queues each line, the write itself (a system call per
     line) happens off it. Returns the started listener; stop it to flush."""
+    import logging
     import logging.handlers
     import queue
 

@@ -58,12 +58,18 @@ class RequestKey:
 
 @dataclass(frozen=True)
 class Answer:
-    """What a write answered: status and JSON body; ``replayed`` when it is
-    the stored answer of an earlier request with the same id."""
+    """What a write answered: status and the JSON text of its body (as stored
+    for a retry); ``replayed`` when it is the stored answer of an earlier
+    request with the same id."""
 
     status: int
-    body: Any
+    text: str
     replayed: bool = False
+
+    @property
+    def body(self) -> Any:
+        """The body, decoded."""
+        return json.loads(self.text)
 
 
 @dataclass
@@ -225,7 +231,7 @@ class Writer:
                         "a retry must send the same body to the same address, a new request needs a new id",
                         "Idempotency-Key", k.request_id))
                 else:
-                    outcomes.append(Answer(status, json.loads(text), replayed=True))
+                    outcomes.append(Answer(status, text, replayed=True))
                 continue
             try:
                 status, body = job.fn(self.archive)
@@ -236,7 +242,7 @@ class Writer:
             if k is not None:
                 stored[(k.principal, k.request_id)] = (k.route, k.body_sha256, status, text)
                 fresh.append((k, status, text))
-            outcomes.append(Answer(status, json.loads(text)))
+            outcomes.append(Answer(status, text))
         if self._before_commit is not None:
             self._before_commit(self.archive)
         if fresh:
