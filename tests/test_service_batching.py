@@ -176,3 +176,20 @@ def test_the_search_kept_in_memory_proposes_what_a_resumed_one_proposes(tmp_path
     finally:
         again.close()
     assert [x["config"] for x in resumed] == [x["config"] for x in live]
+
+
+def test_blas_runs_on_one_thread_while_the_service_runs(tmp_path):
+    # reference: threadpoolctl's own report of the BLAS libraries loaded (numpy's OpenBLAS here)
+    from threadpoolctl import threadpool_info
+
+    def blas_threads():
+        return [lib["num_threads"] for lib in threadpool_info() if lib["user_api"] == "blas"]
+
+    before = blas_threads()
+    service = Service(Archive(tmp_path / "a.duckdb"))
+    service.start()
+    try:
+        assert blas_threads() and set(blas_threads()) == {1}
+    finally:
+        service.close()
+    assert blas_threads() == before  # given back as it was
