@@ -8,9 +8,16 @@ studies (scores from the Branin test function); 32 clients, in 4 processes of
 function: no time), first all on one study, then spread over 8 studies.
 
 Printed per scenario: requests/s, records/s, p50/p99 latency of a propose +
-record pair, and the checks: every answered record is in the archive, and
-no config was leased twice while pending (two leases of one config never
-overlap in time). Goals (issue 16): p50 <= 20 ms, p99 <= 100 ms, >= 300
+record pair, the CPU the server and the clients spent per pair, and the
+checks: every answered record is in the archive, and no config was leased
+twice while pending (two leases of one config never overlap in time).
+
+The clients run a closed loop (each starts its next pair when the last is
+answered, no training time), where records/s = clients / pair latency: at
+32 clients a p50 of 20 ms would need 1,600 records/s. The paced scenarios
+(``--rate``, default the 300 pairs/s of the goal, on fresh studies) offer
+that many pairs per second, each client its share on its own schedule, and
+show the latency at that throughput. Goals (issue 16): p50 <= 20 ms, p99 <= 100 ms, >= 300
 records/s on 2 cores. Baselines measured in the same run: the same pairs
 in one process without HTTP (``DensitySearch.propose`` + ``Archive.record_trial``),
 ``GET /api/v1/health`` at 32 clients (the HTTP stack's floor), and one trial
@@ -22,6 +29,7 @@ Run::
 
     python examples/bench_service.py                      # 32 clients x 50 pairs
     python examples/bench_service.py --clients 8 --pairs 20
+    python examples/bench_service.py --rate 0                # closed loop only
 """
 
 from __future__ import annotations
@@ -53,12 +61,16 @@ DEADLINE_S = 600  # the whole load stops by itself after this
 
 
 def _client_thread(url: str, studies: list[int], pairs: int, index: int, out: list, stop_at: float,
-                   train_s: float = 0.0) -> None:
+                   train_s: float = 0.0, every_s: float = 0.0, start_at: float = 0.0) -> None:
     rng = np.random.default_rng(index)
     with Client(url, retries=3, timeout=60) as client:
-        for _ in range(pairs):
+        for k in range(pairs):
             if time.monotonic() > stop_at:
                 return
+            if every_s:  # paced: this client's k-th pair starts at its slot (at once when late)
+                wait = start_at + k * every_s - time.monotonic()
+                if wait > 0:
+                    time.sleep(wait)
             study = int(studies[rng.integers(len(studies))])
             t0 = time.perf_counter()
             lease = client.propose(study)[0]
@@ -74,16 +86,19 @@ def _client_thread(url: str, studies: list[int], pairs: int, index: int, out: li
                         "pair_s": (t1 - t0) + (t3 - t2)})
 
 
-def _client_process(args) -> list[dict]:
-    url, studies, pairs, threads, first, stop_at, train_s = args
+def _client_process(args) -> tuple[list[dict], float]:
+    """One process of client threads: their pairs, and the CPU seconds the process spent."""
+    url, studies, pairs, threads, first, stop_at, train_s, every_s, start_at = args
     out: list[dict] = []
-    workers = [threading.Thread(target=_client_thread, args=(url, studies, pairs, first + i, out, stop_at, train_s))
+    cpu = time.process_time()
+    workers = [threading.Thread(target=_client_thread, args=(url, studies, pairs, first + i, out, stop_at, train_s,
+                                                             every_s, start_at + (first + i) * every_s / (4 * threads)))
                for i in range(threads)]
     for w in workers:
         w.start()
     for w in workers:
         w.join()
-    return out
+    return out, time.process_time() - cpu
 
 
 def _health_thread(url: str, n: int, out: list) -> None:
@@ -110,14 +125,28 @@ def _warm(_: int) -> int:
     return os.getpid()
 
 
-def run_load(url: str, studies: list[int], clients: int, pairs: int, pool,
-             train_s: float = 0.0) -> tuple[list[dict], float]:
+def process_cpu(pid: int) -> float | None:
+    """CPU seconds (user + system) a process has used so far; None where /proc is missing."""
+    try:
+        fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
+        return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
+    except (OSError, ValueError, IndexError):
+        return None
+
+
+def run_load(url: str, studies: list[int], clients: int, pairs: int, pool, train_s: float = 0.0,
+             rate: float = 0.0) -> tuple[list[dict], float, float]:
+    """Every client's pairs, the wall time and the clients' CPU seconds. ``rate`` > 0 paces
+    the clients to that many pairs per second together (each its share, staggered)."""
     per = clients // PROCESSES
     stop_at = time.monotonic() + DEADLINE_S
-    jobs = [(url, studies, pairs, per, p * per, stop_at, train_s) for p in range(PROCESSES)]
+    every_s = clients / rate if rate else 0.0
+    start_at = time.monotonic() + 0.5
+    jobs = [(url, studies, pairs, per, p * per, stop_at, train_s, every_s, start_at) for p in range(PROCESSES)]
     t0 = time.perf_counter()
     results = pool.map(_client_process, jobs)
-    return [r for part in results for r in part], time.perf_counter() - t0
+    wall = time.perf_counter() - t0 - (0.5 if rate else 0.0)
+    return [r for part, _ in results for r in part], wall, sum(cpu for _, cpu in results)
 
 
 def check(url: str, rows: list[dict], studies: list[int]) -> tuple[bool, bool]:
@@ -216,7 +245,8 @@ def plot(results: dict, path: Path) -> None:
     fig, ax = plt.subplots(figsize=(7, 4))
     for label, s in results.items():
         x = np.sort(s["latencies_ms"])
-        ax.plot(x, np.arange(1, x.size + 1) / x.size, label=f"{label} (p50 {s['p50_ms']:.0f} ms)")
+        ax.plot(x, np.arange(1, x.size + 1) / x.size, label=f"{label} (p50 {s['p50_ms']:.0f} ms)",
+                linestyle="--" if "pairs/s" in label else "-")  # dashed: paced
     for q, goal in (("p50", GOALS["p50_ms"]), ("p99", GOALS["p99_ms"])):
         ax.axvline(goal, color="grey", linestyle=":", linewidth=1)
         ax.text(goal, 0.02, f" goal {q}", color="grey", fontsize=8)
@@ -238,6 +268,9 @@ def main() -> None:
     parser.add_argument("--plot", default="bench-out/bench_service.png", help="where the latency plot goes")
     parser.add_argument("--train-ms", type=float, default=0.0,
                         help="pause between propose and record, standing for training (default: none)")
+    parser.add_argument("--rate", type=float, default=GOALS["records_per_s"],
+                        help="pairs per second offered by all clients together in the paced scenarios, run on "
+                             "fresh studies after the closed-loop ones (default: the goal, 300; 0: none)")
     args = parser.parse_args()
     if args.clients % PROCESSES:
         parser.error(f"--clients must be a multiple of {PROCESSES}")
@@ -255,11 +288,19 @@ def main() -> None:
     ok = True
     ctx = mp.get_context("spawn")
     with ServerProcess(path, log=folder / "server.log") as server, ctx.Pool(PROCESSES) as pool:
+        scenarios = []  # (label, studies, offered pairs/s or 0 for a closed loop)
         with Client(server.url) as client:
-            studies = [client.new_study(new_task(seed=10 + i, name=f"store {i + 1}"), "bran", space=SPACE,
-                                           metric="loss", maximize=False)["study_id"] for i in range(8)]
-            cold = client.new_study(new_task(seed=30, name="store cold"), "bran", space=SPACE, metric="loss",
-                                       maximize=False, cold=True)["study_id"]
+            for paced, rate in ((False, 0.0), (True, args.rate)):
+                if paced and not rate:
+                    continue
+                tag = f" at {rate:g} pairs/s" if paced else ""
+                base = 40 if paced else 10
+                studies = [client.new_study(new_task(seed=base + i, name=f"store {base + i}"), "bran", space=SPACE,
+                                            metric="loss", maximize=False)["study_id"] for i in range(8)]
+                cold = client.new_study(new_task(seed=base + 20, name=f"store cold {base}"), "bran", space=SPACE,
+                                        metric="loss", maximize=False, cold=True)["study_id"]
+                scenarios += [("one cold study" + tag, [cold], rate), ("one warm study" + tag, studies[:1], rate),
+                              ("8 warm studies" + tag, studies, rate)]
         pool.map(_warm, range(PROCESSES))
         t0 = time.perf_counter()
         health = [x for part in pool.map(_health_process, [(server.url, 20, args.clients // PROCESSES)] * PROCESSES)
@@ -267,9 +308,11 @@ def main() -> None:
         health_wall = time.perf_counter() - t0
         print(f"baseline, GET /api/v1/health at {args.clients} clients: p50 {np.percentile(health, 50) * 1000:.1f} ms, "
               f"{len(health) / health_wall:.0f} requests/s", flush=True)
-        for label, chosen in (("one cold study", [cold]), ("one warm study", studies[:1]),
-                              ("8 warm studies", studies)):
-            rows, wall = run_load(server.url, chosen, args.clients, args.pairs, pool, args.train_ms / 1000)
+        for label, chosen, rate in scenarios:
+            server_cpu = process_cpu(server.proc.pid)
+            rows, wall, client_cpu = run_load(server.url, chosen, args.clients, args.pairs, pool,
+                                              args.train_ms / 1000, rate)
+            server_cpu = None if server_cpu is None else process_cpu(server.proc.pid) - server_cpu
             s = summary(rows, wall)
             all_there, distinct = check(server.url, rows, chosen)
             results[label] = s
@@ -284,6 +327,9 @@ def main() -> None:
                   f"{GOALS['p99_ms']:.0f}: {s['p99_ms'] / GOALS['p99_ms']:.1f}x the goal)")
             print(f"  vs one process without HTTP: {s['p50_ms'] / (local * 1000):.1f}x its time per pair, "
                   f"{s['records_per_s'] * local:.2f}x its records/s")
+            shown = "n/a" if server_cpu is None else f"{server_cpu / s['pairs'] * 1000:.2f} ms"
+            print(f"  CPU per pair: server {shown}, clients {client_cpu / s['pairs'] * 1000:.2f} ms "
+                  f"(the clients share the {os.cpu_count()} cores; load average now {os.getloadavg()[0]:.2f})")
             print(f"  every answered record in the archive: {all_there}; no config leased twice while pending: "
                   f"{distinct}")
     plot(results, Path(args.plot))

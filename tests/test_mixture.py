@@ -19,7 +19,7 @@ from scipy import stats
 from warmstart.prior import Source, prior_from_sources, within_study_quantiles
 from warmstart.search.density import DensitySearch
 from warmstart.search.mixture import MixtureSearch
-from warmstart.search.ranking import greedy_cover, luck_losses, misranked_pairs, ranking_weights
+from warmstart.search.ranking import greedy_cover, luck_losses, misranked_pairs, ranking_losses, ranking_weights
 from warmstart.search.strategy import SearchError, run_search
 from warmstart.search.testfunctions import branin
 
@@ -97,6 +97,22 @@ def test_ranking_weights_match_exact_bootstrap_expectation():
     sampled = ranking_weights(F, y, start, n_boot=40_000, rng=1)
     assert np.abs(sampled - exact).max() < 0.01
     assert exact[0] > exact[3]  # the accurate model beats the reversed one
+
+
+@settings(max_examples=25, deadline=None)
+@given(n=st.integers(2, 45), m=st.integers(1, 7), seed=st.integers(0, 2**31 - 1))
+def test_ranking_losses_equal_numpy_einsum_of_the_resampled_pairs(n, m, seed):
+    # reference: numpy.einsum over the same resample counts (what ranking_losses computed before
+    # it became two matrix products); the sums are of whole and half numbers, so equal exactly
+    rng = np.random.default_rng(seed)
+    F = rng.normal(size=(n, m))
+    F[rng.random(size=(n, m)) < 0.1] = np.nan  # a model that cannot judge a config
+    F[:, 0] = np.round(F[:, 0])  # ties
+    y = np.where(rng.random(n) < 0.1, -np.inf, rng.normal(size=n))  # failures
+    loss = ranking_losses(F, y, n_boot=64, rng=seed)
+    counts = np.random.default_rng(seed).multinomial(n, np.full(n, 1.0 / n), size=64).astype(float)
+    expected = np.einsum("sa,kab,sb->sk", counts, misranked_pairs(F, y), counts)
+    assert np.array_equal(loss, expected)
 
 
 def test_ranking_weights_keep_start_without_evidence():

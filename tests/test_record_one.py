@@ -148,3 +148,66 @@ def test_a_deleted_study_is_refused_even_when_its_keys_were_kept(tmp_path, frame
         with pytest.raises(Exception, match=rf"no study with id {one}"):
             archive.record_trial(one, config, 0.5)
         assert math.isclose(archive.record_trial(other, config, 0.5), 1)
+
+
+# -- the batch path of the team service's writer: check_trial, then one INSERT for many ------------------------
+BATCH_COLUMNS = "number, config, score, status, cost_s, error, content_key, fold_scores"
+
+
+def test_checked_batch_stores_what_the_one_row_path_stores(tmp_path, frame):
+    other_space = Space.from_dict({"params": {"depth": {"type": "integer", "low": 1, "high": 12},
+                                              "loss": {"type": "choice", "choices": ["l1", "l2"]}}})
+    with Archive(tmp_path / "a.duckdb") as archive:
+        tasks = [archive.add_task("invented", frame, target="y"),
+                 archive.add_task("invented too", frame.assign(f=frame["f"] * 2), target="y")]
+        fps = dict(archive.con.execute("SELECT task_id, fingerprint FROM tasks").fetchall())
+
+        @settings(max_examples=5, deadline=None)
+        @given(seed=st.integers(0, 2**31 - 1), n=st.integers(1, 8))
+        def check(seed, n):
+            rng = np.random.default_rng(seed)
+            # three studies in one call: two tasks of one space (one statement), another space (a second)
+            plan = [(tasks[0], ODD_SPACE, "net"), (tasks[1], ODD_SPACE, "net"), (tasks[1], other_space, "tree")]
+            pairs = [(archive.add_study(t, learner, sp, metric="loss", maximize=False),
+                      archive.add_study(t, learner, sp, metric="loss", maximize=False), sp, t, learner)
+                     for t, sp, learner in plan]
+            batch = []
+            for one, two, sp, _, _ in pairs:
+                configs = sp.sample(n, rng=rng)
+                scores = [float(v) for v in rng.normal(size=n) * 10.0 ** rng.integers(-8, 8, size=n)]
+                scores[0] = float("nan") if seed % 3 == 0 else scores[0]
+                status = ["failed" if seed % 4 == 1 and i == n - 1 else "ok" for i in range(n)]
+                cost = [None if i % 2 else float(rng.random() * 100) for i in range(n)]
+                errors = [None if i % 3 else "worker lost" for i in range(n)]
+                for i, config in enumerate(configs):
+                    archive.record_trial(one, config, scores[i], status=status[i], cost_s=cost[i], error=errors[i])
+                first = archive.next_trial_number(two)
+                batch += [(two, archive.check_trial(two, config, scores[i], status=status[i], cost_s=cost[i],
+                                                    error=errors[i]), first + i) for i, config in enumerate(configs)]
+            rng.shuffle(batch)  # interleaved studies
+            archive.insert_checked_trials(batch)
+            sql = f"SELECT {BATCH_COLUMNS} FROM trials WHERE study_id = ? ORDER BY number"
+            for one, two, _, task, learner in pairs:
+                a = archive.con.execute(sql, [one]).fetchall()
+                b = archive.con.execute(sql, [two]).fetchall()
+                assert a == b and [r[0] for r in b] == list(range(1, n + 1))
+                for row in b:  # content key: hashlib.sha256 of "fingerprint|learner|config" (standard library)
+                    assert row[6] == hashlib.sha256(f"{fps[task]}|{learner}|{row[1]}".encode()).hexdigest()
+                assert archive.next_trial_number(two) == n + 1
+            assert archive.con.execute("SELECT count(*) FROM trials WHERE finished_at IS NULL").fetchall() == [(0,)]
+
+        check()
+
+
+def test_check_trial_refuses_as_record_trial_does_and_writes_nothing(tmp_path, frame, table_dump):
+    config = ODD_SPACE.sample(1, rng=2)[0]
+    with Archive(tmp_path / "a.duckdb") as archive:
+        task = archive.add_task("invented", frame, target="y")
+        study = archive.add_study(task, "net", ODD_SPACE, metric="accuracy")
+        before = table_dump(archive.con)
+        with pytest.raises(IngestError, match=r"trial of study 1: row 1, column 'score': value 1.5 is impossible "
+                                              r"for metric 'accuracy'"):
+            archive.check_trial(study, config, 1.5)
+        with pytest.raises(SpaceError, match=r"parameter 'units': value 0 is out of range"):
+            archive.check_trial(study, dict(config, units=0), 0.5)
+        assert table_dump(archive.con) == before

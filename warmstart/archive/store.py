@@ -25,7 +25,7 @@ import uuid
 from datetime import datetime, timezone
 from importlib import resources
 from pathlib import Path
-from typing import TYPE_CHECKING, Any, Iterator, Mapping
+from typing import TYPE_CHECKING, Any, Iterator, Mapping, Sequence
 
 import duckdb
 
@@ -687,6 +687,75 @@ class Archive:
                               row["finished_at"] or utc_now(), row["error"], f"{fp}|{learner}|", folds,
                               *keys, *row["values"]])
         return number
+
+    def check_trial(self, study: int, config: Mapping, score: float | None, status: str = "ok",
+                    cost_s: float | None = None, error: str | None = None) -> dict:
+        """Validate one trial of a study as :meth:`record_trial` does, writing nothing.
+
+        For a writer that records many trials with one statement
+        (:meth:`insert_checked_trials`): the same rules and messages as
+        :meth:`record_trial`; the finishing time is now.
+
+        Returns
+        -------
+        dict
+            The prepared row of :func:`~warmstart.archive.ingest.prepare_trial`.
+        """
+        from warmstart.archive.ingest import prepare_trial
+
+        space_id, metric, _, _ = self._study_head(study)
+        row = prepare_trial(self._space_cached(space_id), config, score, status, cost_s, None, None, error,
+                            where=f"trial of study {study}", metric=metric)
+        row["finished_at"] = utc_now()
+        return row
+
+    def next_trial_number(self, study: int) -> int:
+        """The number the next trial of a study gets (one more than the largest, 1 for none)."""
+        return int(self._q("SELECT coalesce(max(number), 0) + 1 FROM trials WHERE study_id = ?",
+                           [int(study)])[0][0])
+
+    def insert_checked_trials(self, trials: Sequence[tuple[int, dict, int]]) -> None:
+        """Insert trials checked by :meth:`check_trial`: ``(study, row, number)`` each,
+        with one statement per search space (studies of one space share it).
+
+        The config text and content key come from the same SQL expression as
+        in :meth:`record_trial` and :meth:`add_trials`, so a trial stored
+        here is stored byte for byte alike. The caller owns the numbers (one
+        writer that counts them) and knows the studies exist; inside an open
+        transaction the inserts join it.
+        """
+        from warmstart.archive.ingest import param_columns
+
+        groups: dict[int, list[tuple[int, dict, int]]] = {}
+        for study, row, number in trials:
+            groups.setdefault(self._study_head(study)[0], []).append((int(study), row, int(number)))
+        with translated(self.path), self.transaction() as con:
+            for space_id, group in groups.items():
+                space = self._space_cached(space_id)
+                config_sql, keys = _config_sql(space)
+                casts = ["VARCHAR" if p.kind == "choice" else "BIGINT" if p.kind == "integer" else "DOUBLE"
+                         for p in space.params]
+                given = ", ".join(f"unnest(?::{cast}[]) AS {col}" for cast, col in zip(casts, param_columns(space)))
+                # placeholders bind in text order: the JSON keys (inside cfg), then the columns
+                sql = (
+                    "INSERT INTO trials (study_id, number, config, score, status, cost_s, started_at, finished_at, "
+                    "error, content_key, fold_scores) "
+                    "SELECT v.study_id, v.number, v.cfg, v.score, v.status, v.cost_s, v.started_at, v.finished_at, "
+                    "v.error, sha256(v.key_prefix || v.cfg), NULL "
+                    f"FROM (SELECT {config_sql} AS cfg, * FROM (SELECT unnest(?::BIGINT[]) AS study_id, "
+                    "unnest(?::INTEGER[]) AS number, unnest(?::VARCHAR[]) AS key_prefix, unnest(?::DOUBLE[]) AS score, "
+                    "unnest(?::VARCHAR[]) AS status, unnest(?::DOUBLE[]) AS cost_s, "
+                    "unnest(?::TIMESTAMP[]) AS started_at, unnest(?::TIMESTAMP[]) AS finished_at, "
+                    f"unnest(?::VARCHAR[]) AS error, {given})) v"
+                )
+                prefixes = {study: "{2}|{3}|".format(*self._study_head(study)) for study, _, _ in group}
+                rows = [row for _, row, _ in group]
+                con.execute(sql, [*keys, [study for study, _, _ in group], [number for _, _, number in group],
+                                  [prefixes[study] for study, _, _ in group], [r["score"] for r in rows],
+                                  [r["status"] for r in rows], [r["cost_s"] for r in rows],
+                                  [r["started_at"] for r in rows], [r["finished_at"] or utc_now() for r in rows],
+                                  [r["error"] for r in rows],
+                                  *([row["values"][j] for row in rows] for j in range(space.dim))])
 
     def _study_head(self, study: int) -> tuple[int, str, str, str]:
         """(space id, metric, task fingerprint, learner) of a study; all fixed once a

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import ipaddress
-import logging
 import signal
 import sys
 
@@ -57,23 +56,41 @@ def serve(ctx, host, port, token_file, lease_seconds):
 
     archive = open_archive(ctx.find_root().obj["archive_path"], wait=wait_seconds(ctx))
     app = create_app(archive, tokens=tokens, lease_seconds=lease_seconds)
-    handler = logging.StreamHandler(sys.stderr)
-    handler.setFormatter(logging.Formatter("%(asctime)s %(message)s", "%Y-%m-%dT%H:%M:%S"))
-    service_log = logging.getLogger("warmstart.service")
-    service_log.handlers[:] = [handler]
-    service_log.setLevel(logging.INFO)
-    service_log.propagate = False
+    listener = _log_to_stderr()
     config = uvicorn.Config(app, host=host, port=port, log_level="warning", access_log=False, lifespan="on",
                             timeout_graceful_shutdown=30)
     server = _make_server(config)
     who = f"tokens for {', '.join(tokens.names())}" if tokens else "no tokens (loopback only)"
     click.echo(f"serving {archive.path} on http://{host}:{port} ({who}); page at /, "
                "API description at /api/v1/openapi.json; Ctrl-C stops", err=True)
-    server.run()
+    try:
+        server.run()
+    finally:
+        listener.stop()  # the lines still queued are written
     if server.stopped_by:
         click.echo(f"stopped on {server.stopped_by}; queued writes finished, archive closed", err=True)
     if not server.started:
         ctx.exit(1)
+
+
+def _log_to_stderr():
+    """The service's log (one line per request) to stderr, written by a thread of its
+    own: the event loop only queues each line, the write itself (a system call per
+    line) happens off it. Returns the started listener; stop it to flush."""
+    import logging
+    import logging.handlers
+    import queue
+
+    stream = logging.StreamHandler(sys.stderr)
+    stream.setFormatter(logging.Formatter("%(asctime)s %(message)s", "%Y-%m-%dT%H:%M:%S"))
+    lines: queue.SimpleQueue = queue.SimpleQueue()
+    service_log = logging.getLogger("warmstart.service")
+    service_log.handlers[:] = [logging.handlers.QueueHandler(lines)]
+    service_log.setLevel(logging.INFO)
+    service_log.propagate = False
+    listener = logging.handlers.QueueListener(lines, stream)
+    listener.start()
+    return listener
 
 
 def _make_server(config):

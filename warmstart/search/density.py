@@ -227,6 +227,8 @@ class DensitySearch(SearchStrategy):
         self._n_seeded = 0
         self._seed_reweighted_at = -1
         self._design_used = 0
+        self._good_at: tuple | None = None  # ((trial count, id of the prior), good density, prior)
+        self._trust_at: tuple | None = None  # ((trial count, id of the prior), trust, prior)
 
     # -- prior and guard ---------------------------------------------------
     def _valid_seeds(self, seeds: list) -> list[dict]:
@@ -286,10 +288,15 @@ class DensitySearch(SearchStrategy):
         ``Phi(rho * sqrt(n - 1))`` with ``rho`` from :meth:`agreement`; 1
         while fewer than four trials are finished.
         """
+        if self.prior is not None and self.trial_count >= 4:
+            self._update_prior()  # as agreement() would, so the key below names the prior it uses
+        key = (self.trial_count, id(self.prior))
+        if self._trust_at is not None and self._trust_at[0] == key:
+            return self._trust_at[1]
         rho = self.agreement()
-        if math.isnan(rho):
-            return 1.0
-        return float(ndtr(rho * math.sqrt(self.trial_count - 1)))
+        value = 1.0 if math.isnan(rho) else float(ndtr(rho * math.sqrt(self.trial_count - 1)))
+        self._trust_at = (key, value, self.prior)  # the prior is kept so its id is not reused
+        return value
 
     @property
     def prior_weight(self) -> float:
@@ -372,7 +379,7 @@ class DensitySearch(SearchStrategy):
         rest_rows = np.vstack([X[rest], self.pending_rows()])
         if rest_rows.shape[0] > self.max_rest:
             rest_rows = rest_rows[rng.choice(rest_rows.shape[0], self.max_rest, replace=False)]
-        good_kde = self._kde(X[good], self._shrink_target()) if good.size else None
+        good_kde = self._good_density(X[good]) if good.size else None
         rest_kde = self._kde(rest_rows) if rest_rows.shape[0] else None
         mix = self._mixture(has_good=good_kde is not None)
         parts = [(name, w) for name, w in mix.items() if w > 0]
@@ -406,6 +413,14 @@ class DensitySearch(SearchStrategy):
         if fresh.any():
             score = np.where(fresh, score, -np.inf)
         return space.decode(C[int(np.argmax(score))][None, :])[0]
+
+    def _good_density(self, rows: np.ndarray) -> MixedKDE:
+        """The good set's density; kept until the next result or a new prior (pending
+        configs change only the rest, so the proposals of one batch share it)."""
+        key = (self.trial_count, id(self.prior))
+        if self._good_at is None or self._good_at[0] != key:
+            self._good_at = (key, self._kde(rows, self._shrink_target()), self.prior)
+        return self._good_at[1]
 
     def _kde(self, rows: np.ndarray, shrink_to: np.ndarray | None = None) -> MixedKDE:
         return MixedKDE(self.space, rows, bandwidth=self.bandwidth, shrink=self.shrink,

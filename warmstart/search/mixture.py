@@ -48,6 +48,7 @@ from warmstart.search.kde import KDEStack, MixedKDE, log_sum_exp, uniform_logpdf
 from warmstart.search.density import default_n_startup
 from warmstart.search.ranking import chance_share, greedy_cover, luck_losses, ranking_losses, weights_from_losses
 from warmstart.search.strategy import SearchError, SearchStrategy
+from warmstart.search.subsets import subset_logpdf
 from warmstart.space import Space, unit_distances
 
 __all__ = ["MixtureSearch", "MIXTURE_FORMAT"]
@@ -281,6 +282,7 @@ class MixtureSearch(SearchStrategy):
          self._cover_top) = built
         self._pred = np.empty((0, len(kept)))  # past tasks' scores at recorded rows
         self._weights_at: tuple | None = None
+        self._own_at: tuple | None = None  # (trial count, own good density, rows of the rest)
         self._design: np.ndarray | None = None  # scrambled Sobol points of the space-filling queries
 
     def _build_sources(self) -> tuple:
@@ -330,35 +332,73 @@ class MixtureSearch(SearchStrategy):
     # -- the new task's own model -------------------------------------------
     def _own_densities(self, rows: np.ndarray, y: np.ndarray, extra_rest: np.ndarray | None = None):
         """Good and rest densities of scored rows (``y``: NaN = failed, joins the rest)."""
+        good, rest_idx = self._own_good(rows, y)
+        return good, self._own_rest(rows[rest_idx], extra_rest)
+
+    def _own_good(self, rows: np.ndarray, y: np.ndarray) -> tuple[MixedKDE | None, np.ndarray]:
+        """The good density of scored rows and the indices of the rest."""
         ok = np.flatnonzero(~np.isnan(y))
         if ok.size == 0:
-            good = None
-            rest_idx = np.arange(len(y))
-        else:
-            order = ok[np.argsort(-y[ok], kind="stable")]
-            n_good = max(1, math.ceil(self.gamma * ok.size))
-            good = MixedKDE(self.space, rows[order[:n_good]], shrink=self.shrink)
-            rest_idx = np.concatenate([order[n_good:], np.flatnonzero(np.isnan(y))])
-        rest_rows = rows[rest_idx]
+            return None, np.arange(len(y))
+        order = ok[np.argsort(-y[ok], kind="stable")]
+        n_good = max(1, math.ceil(self.gamma * ok.size))
+        good = MixedKDE(self.space, rows[order[:n_good]], shrink=self.shrink)
+        return good, np.concatenate([order[n_good:], np.flatnonzero(np.isnan(y))])
+
+    def _own_rest(self, rest_rows: np.ndarray, extra_rest: np.ndarray | None) -> MixedKDE | None:
         if extra_rest is not None and extra_rest.shape[0]:
             rest_rows = np.vstack([rest_rows, extra_rest])
-        rest = MixedKDE(self.space, rest_rows, shrink=self.shrink) if rest_rows.shape[0] else None
-        return good, rest
+        return MixedKDE(self.space, rest_rows, shrink=self.shrink) if rest_rows.shape[0] else None
+
+    def _own_now(self) -> tuple[MixedKDE | None, MixedKDE | None]:
+        """The task's own good and rest densities for a proposal: the good one
+        is kept until the next result (pending configs join only the rest)."""
+        n = self.trial_count
+        if self._own_at is None or self._own_at[0] != n:
+            good, rest_idx = self._own_good(self.rows(), self.signed_scores())
+            self._own_at = (n, good, self.rows()[rest_idx])
+        _, good, rest_rows = self._own_at
+        return good, self._own_rest(rest_rows, self.pending_rows())
 
     def _own_out_of_sample(self, rows: np.ndarray, y: np.ndarray) -> np.ndarray:
-        """The own ratio ``l_0 / g_0`` at each row, fitted without it (up to 20 folds)."""
+        """The own ratio ``l_0 / g_0`` at each row, fitted without it (up to 20 folds).
+
+        Every fold's good and rest densities are fitted and evaluated at once
+        (:func:`~warmstart.search.subsets.subset_logpdf`: the densities of
+        :meth:`_own_densities`, to rounding).
+        """
         n = rows.shape[0]
-        folds = np.arange(n) % min(n, 20)
+        n_folds = min(n, 20)
+        folds = np.arange(n) % n_folds
         out = np.full(n, np.nan)
         lu = uniform_logpdf(self.space, rows)
-        for f in range(min(n, 20)):
-            test = folds == f
-            good, rest = self._own_densities(rows[~test], y[~test])
-            if good is None:
+        members, queries, of, sign = [], [], [], []
+        for f in range(n_folds):
+            test = np.flatnonzero(folds == f)
+            train = np.flatnonzero(folds != f)
+            ok = train[~np.isnan(y[train])]
+            if ok.size == 0:  # no scored config to fit the good density on
                 continue
-            lg = good.logpdf(rows[test])
-            lr = lu[test] if rest is None else rest.logpdf(rows[test])
-            out[test] = lg - lr
+            order = ok[np.argsort(-y[ok], kind="stable")]
+            n_good = max(1, math.ceil(self.gamma * ok.size))
+            good = np.zeros(n, dtype=bool)
+            good[order[:n_good]] = True
+            rest = np.zeros(n, dtype=bool)
+            rest[train] = True
+            rest &= ~good
+            out[test] = 0.0
+            for subset, s in ((good, 1.0), (rest, -1.0)):
+                if subset.any():
+                    members.append(subset)
+                    queries.append(test)
+                    of.append(np.full(test.size, len(members) - 1))
+                    sign.append(np.full(test.size, s))
+                else:  # no rest: the uniform density
+                    out[test] -= lu[test]
+        if members:
+            q = np.concatenate(queries)
+            values = subset_logpdf(self.space, rows, np.array(members), q, np.concatenate(of), shrink=self.shrink)
+            np.add.at(out, q, np.concatenate(sign) * values)
         return out
 
     # -- weights ------------------------------------------------------------
@@ -388,7 +428,10 @@ class MixtureSearch(SearchStrategy):
             start = np.append(start, 1.0 / S)
             own_col = S + 1
         yy = np.where(np.isnan(y[keep]), -np.inf, y[keep])
-        rng = np.random.default_rng(self._rng_key(1))
+        # the bootstrap's draws depend on the recorded trials alone (pending counted as none, as
+        # after a result in a sequential search), so the weights do not depend on when they were
+        # first asked for: a search resumed with pending leases weighs as the one kept in memory
+        rng = np.random.default_rng(self._rng_key(1, n_pending=0))
         loss = ranking_losses(P, yy, self.n_boot, rng)
         if self.chance == "luck" and keep.size >= 2:  # the competitor: the best past task on shuffled scores
             loss[:, S] = luck_losses(self._pred[keep], yy, self.n_boot, rng)
@@ -431,9 +474,9 @@ class MixtureSearch(SearchStrategy):
         return frame.sort_values("weight", ascending=False, kind="stable").reset_index(drop=True)
 
     # -- proposals ------------------------------------------------------------
-    def _rng_key(self, salt: int) -> list[int]:
+    def _rng_key(self, salt: int, n_pending: int | None = None) -> list[int]:
         base = self.seed if isinstance(self.seed, (int, np.integer)) and not isinstance(self.seed, bool) else 0
-        return [int(base) & 0xFFFFFFFF, self.trial_count, self.n_pending, salt]
+        return [int(base) & 0xFFFFFFFF, self.trial_count, self.n_pending if n_pending is None else n_pending, salt]
 
     def _proposal_rng(self) -> np.random.Generator:
         if isinstance(self.seed, (int, np.integer)) and not isinstance(self.seed, bool):
@@ -507,7 +550,7 @@ class MixtureSearch(SearchStrategy):
         w_src, w_own = self.current_weights()
         y = self.signed_scores()
         w_unif = self.uniform_weight
-        good0, rest0 = self._own_densities(self.rows(), y, self.pending_rows())
+        good0, rest0 = self._own_now()
         if good0 is None:  # nothing scored yet: the own share goes to the past tasks
             w_own = 0.0
         u = self.uniform

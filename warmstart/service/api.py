@@ -20,7 +20,7 @@ import pandas as pd
 from fastapi import APIRouter, Depends, Header, Query, Request
 from fastapi import Path as PathParam
 from fastapi.concurrency import run_in_threadpool
-from fastapi.responses import FileResponse, JSONResponse
+from fastapi.responses import FileResponse, Response
 from starlette.background import BackgroundTask
 
 from warmstart.errors import ArchiveError, IngestError, ProfileError, SpaceError, WarmstartError
@@ -61,9 +61,10 @@ def api_router(service: Service, authorize) -> APIRouter:
         return RequestKey(who.key, idempotency_key, f"{request.method} {request.url.path}",
                           hashlib.sha256(body).hexdigest())
 
-    def answer(result: Answer) -> JSONResponse:
+    def answer(result: Answer) -> Response:
+        # the JSON text the writer made (and stored for a retry) goes out as it is: no second encoding
         headers = {"Idempotent-Replayed": "true"} if result.replayed else None
-        return JSONResponse(result.body, status_code=result.status, headers=headers)
+        return Response(result.text, status_code=result.status, headers=headers, media_type="application/json")
 
     # -- health ------------------------------------------------------------------
     @router.get("/health", summary="Is the service up; which archive it serves")
@@ -129,7 +130,7 @@ def api_router(service: Service, authorize) -> APIRouter:
 
     @router.post("/studies", status_code=201, summary="Create a study of a task described by the client")
     async def new_study(body: NewStudyBody, who: Principal = Depends(writers),
-                           key: RequestKey | None = Depends(request_key)) -> JSONResponse:
+                           key: RequestKey | None = Depends(request_key)) -> Response:
         owner = owner_of(who, body.owner)
         check_task(body.task)
         space = space_of(body.space, body.learner, body.task.kind)
@@ -158,14 +159,14 @@ def api_router(service: Service, authorize) -> APIRouter:
 
     @router.post("/studies/{study_id}/propose", summary="Lease k distinct configs to evaluate")
     async def propose(study_id: StudyId, body: ProposeBody, who: Principal = Depends(writers),
-                      key: RequestKey | None = Depends(request_key)) -> JSONResponse:
+                      key: RequestKey | None = Depends(request_key)) -> Response:
         return answer(await service.write(
             lambda archive: (200, service.leases.propose(archive, study_id, body.k, body.lease_seconds, who.name)),
             key))
 
     @router.post("/studies/{study_id}/trials", summary="Record a result (by lease, or a config never proposed)")
     async def record(study_id: StudyId, body: RecordBody, who: Principal = Depends(writers),
-                     key: RequestKey | None = Depends(request_key)) -> JSONResponse:
+                     key: RequestKey | None = Depends(request_key)) -> Response:
         return answer(await service.write(
             lambda archive: (200, service.leases.record(archive, study_id, body.trial, body.config, body.score,
                                                         body.status, body.error, body.cost_s, who.name)),
@@ -173,7 +174,7 @@ def api_router(service: Service, authorize) -> APIRouter:
 
     @router.post("/studies/{study_id}/finish", summary="Mark a study finished")
     async def finish(study_id: StudyId, who: Principal = Depends(writers),
-                     key: RequestKey | None = Depends(request_key)) -> JSONResponse:
+                     key: RequestKey | None = Depends(request_key)) -> Response:
         def write(archive) -> tuple[int, Any]:
             study_or_404(archive, study_id)
             archive.finish_study(study_id)
@@ -183,7 +184,7 @@ def api_router(service: Service, authorize) -> APIRouter:
 
     @router.post("/studies/{study_id}/tags", summary="Set or remove tags (and, as admin, the owner)")
     async def tag(study_id: StudyId, body: TagBody, who: Principal = Depends(writers),
-                  key: RequestKey | None = Depends(request_key)) -> JSONResponse:
+                  key: RequestKey | None = Depends(request_key)) -> Response:
         if body.owner is not None and not who.may("admin"):
             raise ServiceError(403, "changing a study's owner needs the admin role", "owner", body.owner)
 
@@ -202,7 +203,7 @@ def api_router(service: Service, authorize) -> APIRouter:
     @router.post("/ingest", status_code=201, summary="Add past trials of a task as a new study "
                  f"(body up to {INGEST_MAX_BYTES // 2**20} MiB)")
     async def ingest(body: IngestBody, who: Principal = Depends(writers),
-                     key: RequestKey | None = Depends(request_key)) -> JSONResponse:
+                     key: RequestKey | None = Depends(request_key)) -> Response:
         from warmstart.archive.ingest import prepare_trials
 
         owner = owner_of(who, body.owner)

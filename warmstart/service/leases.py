@@ -11,9 +11,13 @@ config may be proposed again; a late result for it is still recorded.
 
 Every method here runs in the writer thread (:mod:`warmstart.service.writer`),
 inside the transaction of the request: the leases live in the archive
-(table ``leases``), the searches built from them in memory. A write that
-fails drops the searches it touched (:meth:`LeaseBook.abort`), so memory
-never runs ahead of what was committed.
+(table ``leases``), the searches built from them in memory, with each
+study's pending leases and next trial number, so a proposal or a result by
+lease reads nothing from the archive. The rows a write leaves (leases,
+trials) wait in a :class:`~warmstart.service.rowbuffer.RowBuffer` that the
+writer flushes before its batch commits, one statement per table. A write
+that fails drops the searches it touched and the rows not written
+(:meth:`LeaseBook.abort`), so memory never runs ahead of what was committed.
 """
 
 from __future__ import annotations
@@ -21,12 +25,14 @@ from __future__ import annotations
 import contextlib
 import json
 import math
+from dataclasses import dataclass, field
 from datetime import datetime, timedelta, timezone
 from typing import Any
 
 from warmstart.errors import SpaceError, WarmstartError
 from warmstart.search.strategy import SearchStrategy
 from warmstart.service.errors import Refused, ServiceError
+from warmstart.service.rowbuffer import RowBuffer, TrialIds
 from warmstart.service.searches import resume_search
 
 __all__ = ["LeaseBook", "DEFAULT_LEASE_SECONDS"]
@@ -41,6 +47,19 @@ def _now() -> datetime:
 
 def _stamp(moment: datetime) -> str:
     return moment.replace(microsecond=moment.microsecond // 1000 * 1000).isoformat() + "Z"
+
+
+@dataclass
+class _Study:
+    """What the lease book keeps of one study, kept and dropped together."""
+
+    search: SearchStrategy
+    next_number: int  # the number the study's next trial gets
+    #: canonical JSON of the pending leases' configs
+    pending: set[str] = field(default_factory=set)
+    #: pending leases: trial id -> (canonical JSON of the config, expiry)
+    open: dict[int, tuple[str, datetime]] = field(default_factory=dict)
+    due: datetime | None = None  # earliest expiry among the pending leases (None: none pending)
 
 
 class LeaseBook:
@@ -58,25 +77,30 @@ class LeaseBook:
     def __init__(self, lease_seconds: float = DEFAULT_LEASE_SECONDS, query_lock=None):
         self.lease_seconds = float(lease_seconds)
         self.query_lock = query_lock or contextlib.nullcontext()
-        #: per study, kept together and dropped together: the search, the canonical JSON of its
-        #: pending leases' configs, and the earliest expiry among them (None: no pending lease)
-        self._searches: dict[int, SearchStrategy] = {}
-        self._pending: dict[int, set[str]] = {}
-        self._due: dict[int, datetime | None] = {}
+        self._studies: dict[int, _Study] = {}
         self._touched: set[int] = set()
+        self._rows = RowBuffer()
+        self._ids = TrialIds()
 
     # -- cache of searches ---------------------------------------------------
     def adopt(self, study: int, search: SearchStrategy) -> None:
-        """Keep the search a new study starts with (it has no leases yet)."""
+        """Keep the search a new study starts with (it has no leases or trials yet)."""
         study = int(study)
-        self._searches[study], self._pending[study], self._due[study] = search, set(), None
+        self._studies[study] = _Study(search, next_number=1)
         self._touched.add(study)
 
+    def flush(self, archive) -> None:
+        """Write the rows the writes of this batch left (called before the commit)."""
+        self._rows.flush(archive)
+
     def abort(self) -> None:
-        """Forget the searches touched since the last commit (the write failed)."""
+        """Forget the searches touched since the last commit and the rows not
+        written (the write failed and was rolled back)."""
         for study in self._touched:
             self.forget(study)
         self._touched.clear()
+        self._rows.clear()
+        self._ids.drop()
 
     def committed(self) -> None:
         """The write went through: what it changed in memory stands."""
@@ -85,56 +109,58 @@ class LeaseBook:
     def forget(self, study: int | None = None) -> None:
         """Drop the cached search of one study (or all), with its leases' summary."""
         if study is None:
-            self._searches.clear()
-            self._pending.clear()
-            self._due.clear()
+            self._studies.clear()
         else:
-            for table in (self._searches, self._pending, self._due):
-                table.pop(int(study), None)
+            self._studies.pop(int(study), None)
 
-    def _search(self, archive, study: int) -> SearchStrategy:
-        """The study's search (built on first use: 404 for an unknown study), its
-        pending leases held."""
+    def _study(self, archive, study: int) -> _Study:
+        """The study's state (built on first use: 404 for an unknown study), its
+        search holding the pending leases."""
         self._touched.add(study)
-        search = self._searches.get(study)
-        if search is None:
+        state = self._studies.get(study)
+        if state is None:
+            self.flush(archive)
             _exists_or_404(archive, study)
             with self.query_lock:
                 _, search = resume_search(archive, study)
             rows = archive.con.execute(
-                "SELECT config, expires_at FROM leases WHERE study_id = ? AND state = 'pending' ORDER BY trial_id",
-                [study]).fetchall()
-            for config, _ in rows:
+                "SELECT trial_id, config, expires_at FROM leases WHERE study_id = ? AND state = 'pending' "
+                "ORDER BY trial_id", [study]).fetchall()
+            for _, config, _ in rows:
                 search.hold(json.loads(config), source="lease")
-            self._searches[study] = search
-            self._pending[study] = {config for config, _ in rows}
-            self._due[study] = min((until for _, until in rows), default=None)
-        return search
+            state = _Study(search, next_number=archive.next_trial_number(study))
+            state.pending = {config for _, config, _ in rows}
+            state.open = {int(trial): (config, until) for trial, config, until in rows}
+            state.due = min((until for _, _, until in rows), default=None)
+            self._studies[study] = state
+        return state
 
     # -- expiry ----------------------------------------------------------------
-    def _expire(self, archive, study: int, search: SearchStrategy) -> int:
-        due = self._due.get(study)
-        if due is None or _now() < due:  # nothing pending has expired: no query
+    def _expire(self, archive, study: int, state: _Study) -> int:
+        if state.due is None or _now() < state.due:  # nothing pending has expired: no query
             return 0
-        rows = archive.con.execute(
-            "UPDATE leases SET state = 'expired' WHERE study_id = ? AND state = 'pending' AND expires_at <= ? "
-            "RETURNING config", [study, _now()],
-        ).fetchall()
-        pending = self._pending[study]
-        for (config,) in rows:
-            search.release(json.loads(config))
-            pending.discard(config)
-        self._due[study] = archive.con.execute(
-            "SELECT min(expires_at) FROM leases WHERE study_id = ? AND state = 'pending'", [study]).fetchall()[0][0]
-        return len(rows)
+        now = _now()
+        gone = sorted(trial for trial, (_, until) in state.open.items() if until <= now)
+        if gone:
+            self.flush(archive)
+            archive.con.execute(
+                "UPDATE leases SET state = 'expired' WHERE state = 'pending' AND trial_id IN "
+                "(SELECT unnest(?::BIGINT[]))", [gone])
+        for trial in gone:
+            config, _ = state.open.pop(trial)
+            state.search.release(json.loads(config))
+            state.pending.discard(config)
+        state.due = min((until for _, until in state.open.values()), default=None)
+        return len(gone)
 
     # -- propose -----------------------------------------------------------------
     def propose(self, archive, study: int, k: int, seconds: float | None, owner: str | None) -> dict:
         """Lease ``k`` distinct configs of ``study``; returns the answer body."""
-        search = self._search(archive, study)
-        expired = self._expire(archive, study, search)
+        state = self._study(archive, study)
+        search = state.search
+        expired = self._expire(archive, study, state)
         space = search.space
-        pending = self._pending[study]
+        pending = state.pending
         leased: list[tuple[str, dict]] = []
         for _ in range(k):
             for _attempt in range(MAX_DRAWS + 1):
@@ -151,18 +177,14 @@ class LeaseBook:
             leased.append((key, config))
         now = _now()
         until = now + timedelta(seconds=self.lease_seconds if seconds is None else float(seconds))
-        rows = archive.con.execute(
-            "INSERT INTO leases (trial_id, study_id, config, owner, created_at, expires_at, state) "
-            "SELECT nextval('trial_ids'), ?, c, ?, ?, ?, 'pending' FROM unnest(?::VARCHAR[]) AS u(c) "
-            "RETURNING trial_id, config",
-            [study, owner, now, until, [key for key, _ in leased]],
-        ).fetchall()
-        ids = {config: int(trial) for trial, config in rows}  # the configs are distinct
-        due = self._due.get(study)
-        self._due[study] = until if due is None else min(due, until)
+        ids = self._ids.take(archive, len(leased))
+        for trial, (key, _) in zip(ids, leased):
+            self._rows.add_lease(trial, study, key, owner, now, until)
+            state.open[trial] = (key, until)
+        state.due = until if state.due is None else min(state.due, until)
         return {
             "study_id": study,
-            "leases": [{"trial": ids[key], "config": c, "expires_at": _stamp(until)} for key, c in leased],
+            "leases": [{"trial": trial, "config": c, "expires_at": _stamp(until)} for trial, (_, c) in zip(ids, leased)],
             "expired": expired,
             "trial_count": search.trial_count,
         }
@@ -171,36 +193,25 @@ class LeaseBook:
     def record(self, archive, study: int, trial: int | None, config: dict | None, score: float | None,
                status: str, error: str | None, cost_s: float | None, owner: str | None) -> dict:
         """Record a result by lease (``trial``) or by ``config``; returns the answer body."""
-        search = self._search(archive, study)
+        state = self._study(archive, study)
+        search = state.search
         if (trial is None) == (config is None):
             raise Refused(422, "give either trial (the id of a lease) or config (a config never proposed)",
-                               "trial", trial)
+                          "trial", trial)
         if status == "ok" and score is None:
             raise Refused(422, "score is required for status 'ok'; send status 'failed' for a failed trial",
-                               "score", None)
+                          "score", None)
         if status == "failed":
             score = None
             error = error or "failed (reported without error text)"
         repeat = False
+        number = None
         if trial is not None:
-            rows = archive.con.execute(
-                "SELECT study_id, config, state, number, status, score FROM leases WHERE trial_id = ?", [trial]
-            ).fetchall()
-            if not rows:
-                raise Refused(404, f"no trial with id {trial}; trial ids come from propose", "trial", trial)
-            owner_study, key, state, number, was_status, was_score = rows[0]
-            if int(owner_study) != study:
-                raise Refused(409, f"trial {trial} is a lease of study {owner_study}, not of study {study}",
-                                   "trial", trial)
-            if state == "recorded":
-                if was_status == status and _same(was_score, score):
-                    repeat = True
-                else:
-                    raise Refused(
-                        409, f"trial {trial} was recorded already with {_result(was_status, was_score)}; "
-                        f"a different result ({_result(status, score)}) is refused", "score", score)
-            else:
+            if trial in state.open:  # a pending lease of this study: no query
+                key = state.open[trial][0]
                 config = json.loads(key)
+            else:
+                key, config, repeat, number = self._lease_not_open(archive, study, trial, status, score)
         else:
             try:
                 key = search.space.canonical_json(config)
@@ -208,23 +219,22 @@ class LeaseBook:
                 raise Refused(422, f"config: {exc}", "config", config) from None
             config = json.loads(key)
         if not repeat:
-            self._expire(archive, study, search)
             try:
-                number = archive.record_trial(study, config, score, status=status, cost_s=cost_s, error=error)
+                row = archive.check_trial(study, config, score, status=status, cost_s=cost_s, error=error)
             except WarmstartError as exc:  # e.g. an accuracy above 1 for a built-in metric
-                raise ServiceError(422, str(exc), "score", score) from None
+                raise Refused(422, str(exc), "score", score) from None
+            self._expire(archive, study, state)
+            number = state.next_number
+            state.next_number += 1
+            self._rows.add_trial(study, row, number)
             now = _now()
             if trial is None:
-                trial = int(archive.con.execute(
-                    "INSERT INTO leases VALUES (nextval('trial_ids'), ?, ?, ?, ?, ?, 'recorded', ?, ?, ?, ?) "
-                    "RETURNING trial_id", [study, key, owner, now, now, number, status, score, now],
-                ).fetchall()[0][0])
+                trial = self._ids.take(archive, 1)[0]
+                self._rows.add_lease(trial, study, key, owner, now, now, "recorded", number, status, score, now)
             else:
-                archive.con.execute(
-                    "UPDATE leases SET state = 'recorded', number = ?, status = ?, score = ?, recorded_at = ? "
-                    "WHERE trial_id = ?", [number, status, score, now, trial],
-                )
-            self._pending[study].discard(key)
+                self._rows.recorded.append((trial, number, status, score, now))
+                state.open.pop(trial, None)
+            state.pending.discard(key)
             search.record(config, score, status)
         best = search.best  # the search holds every recorded trial of the study, as committed
         return {
@@ -232,6 +242,28 @@ class LeaseBook:
             "repeat": repeat, "trial_count": search.trial_count,
             "best_score": None if best is None else float(best.score),
         }
+
+    def _lease_not_open(self, archive, study: int, trial: int, status: str,
+                        score: float | None) -> tuple[str, dict | None, bool, int | None]:
+        """A trial id that is no pending lease of this study: recorded already (a
+        repeat, or a different result refused), expired (recorded late), another
+        study's, or unknown. Returns (config JSON, config, repeat, number)."""
+        self.flush(archive)
+        rows = archive.con.execute(
+            "SELECT study_id, config, state, number, status, score FROM leases WHERE trial_id = ?", [trial]
+        ).fetchall()
+        if not rows:
+            raise Refused(404, f"no trial with id {trial}; trial ids come from propose", "trial", trial)
+        owner_study, key, state, number, was_status, was_score = rows[0]
+        if int(owner_study) != study:
+            raise Refused(409, f"trial {trial} is a lease of study {owner_study}, not of study {study}",
+                          "trial", trial)
+        if state == "recorded":
+            if was_status == status and _same(was_score, score):
+                return key, None, True, int(number)
+            raise Refused(409, f"trial {trial} was recorded already with {_result(was_status, was_score)}; "
+                          f"a different result ({_result(status, score)}) is refused", "score", score)
+        return key, json.loads(key), False, None
 
 
 def _same(a: Any, b: Any) -> bool:

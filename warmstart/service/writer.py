@@ -58,12 +58,18 @@ class RequestKey:
 
 @dataclass(frozen=True)
 class Answer:
-    """What a write answered: status and JSON body; ``replayed`` when it is
-    the stored answer of an earlier request with the same id."""
+    """What a write answered: status and the JSON text of its body (as stored
+    for a retry); ``replayed`` when it is the stored answer of an earlier
+    request with the same id."""
 
     status: int
-    body: Any
+    text: str
     replayed: bool = False
+
+    @property
+    def body(self) -> Any:
+        """The body, decoded."""
+        return json.loads(self.text)
 
 
 @dataclass
@@ -84,13 +90,19 @@ class Writer:
     on_commit, on_failure : callable, optional
         Called (in the writer thread) after a write committed, or after it
         was rolled back, so that caches derived from the archive can follow.
+    before_commit : callable, optional
+        Called with the archive inside a batch's transaction after its writes
+        ran (e.g. to write the rows they left for one statement per table);
+        when it fails the batch is rolled back as if one of its writes had.
     """
 
     def __init__(self, archive: Archive, on_commit: Callable[[], None] | None = None,
-                 on_failure: Callable[[], None] | None = None):
+                 on_failure: Callable[[], None] | None = None,
+                 before_commit: Callable[[Archive], None] | None = None):
         self.archive = archive
         self._on_commit = on_commit
         self._on_failure = on_failure
+        self._before_commit = before_commit
         self._queue: queue.Queue[_Job | None] = queue.Queue()
         self._thread = threading.Thread(target=self._run, name="warmstart-writer", daemon=True)
         self._closed = False
@@ -219,7 +231,7 @@ class Writer:
                         "a retry must send the same body to the same address, a new request needs a new id",
                         "Idempotency-Key", k.request_id))
                 else:
-                    outcomes.append(Answer(status, json.loads(text), replayed=True))
+                    outcomes.append(Answer(status, text, replayed=True))
                 continue
             try:
                 status, body = job.fn(self.archive)
@@ -230,7 +242,9 @@ class Writer:
             if k is not None:
                 stored[(k.principal, k.request_id)] = (k.route, k.body_sha256, status, text)
                 fresh.append((k, status, text))
-            outcomes.append(Answer(status, json.loads(text)))
+            outcomes.append(Answer(status, text))
+        if self._before_commit is not None:
+            self._before_commit(self.archive)
         if fresh:
             con.execute(
                 "INSERT INTO requests SELECT unnest(?::VARCHAR[]), unnest(?::VARCHAR[]), unnest(?::VARCHAR[]), "
