@@ -246,7 +246,7 @@ def test_dedupe_removes_a_study_that_only_repeats_another(tmp_path):
         assert archive.studies()["study_id"].tolist() == [1]
 
 
-def test_dedupe_and_prune_report_their_steps_in_order_and_json_stays_clean(tmp_path):
+def test_dedupe_and_prune_report_their_steps_in_order_and_json_stays_clean(tmp_path, monkeypatch):
     """Long curation shows progress (issue 17, point 4): each step is announced once, in order,
     and the result is the same as without a progress callback."""
     path = tmp_path / "a.duckdb"
@@ -264,6 +264,11 @@ def test_dedupe_and_prune_report_their_steps_in_order_and_json_stays_clean(tmp_p
     with Archive(tmp_path / "c.duckdb") as archive:
         add_study(archive, "churn", 1, make_trials(1, 8))
         add_study(archive, "churn", 1, make_trials(1, 8))
+    small = cli(tmp_path / "c.duckdb", "curate", "dedupe", "--dry-run")
+    assert small.exit_code == 0 and small.stderr == ""  # a small archive draws no bar
+    import warmstart.cli.curate_cmds as curate_cmds
+
+    monkeypatch.setattr(curate_cmds, "PROGRESS_TRIALS", 10)  # the bar from 10 trials on, to keep the test fast
     result = cli(tmp_path / "c.duckdb", "curate", "dedupe")
     assert "deduplicating" in result.stderr and "removed 8 duplicate" in result.stdout
     result = cli(tmp_path / "c.duckdb", "curate", "prune", "--learner", "svm", "--yes", "--json")

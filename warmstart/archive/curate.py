@@ -51,6 +51,7 @@ __all__ = [
     "check_archive",
     "fix_archive",
     "dedupe_trials",
+    "trial_total",
     "DEDUPE_STEPS",
     "count_duplicates",
     "copies_elsewhere",
@@ -508,6 +509,11 @@ def fix_archive(archive: Archive) -> list[tuple[str, int]]:
             done.append(("deleted studies with no trials", n))
         archive.con.execute(_ORPHAN_LEASES)  # the service's leases of the studies deleted
     return done
+
+
+def trial_total(archive: Archive) -> int:
+    """Number of trials in the archive (every study)."""
+    return int(fetch(archive.con, "SELECT count(*) FROM trials")[0][0])
 
 
 def dedupe_trials(archive: Archive, dry_run: bool = False,

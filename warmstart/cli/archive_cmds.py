@@ -14,7 +14,7 @@ from warmstart.cli.common import (
     strict_option,
 )
 from warmstart.cli.main import main
-from warmstart.cli.progress import Progress
+from warmstart.cli.progress import PROGRESS_TRIALS, Progress
 
 if TYPE_CHECKING:
     import pandas as pd
@@ -26,7 +26,6 @@ if TYPE_CHECKING:
 
 
 #: a trials file this long (about a second's work to check and write) gets a progress bar in `ingest`
-PROGRESS_TRIALS = 50_000
 
 @main.command()
 @click.option("--starter", is_flag=True, help="Also load the shipped starter history (real studies on open datasets).")

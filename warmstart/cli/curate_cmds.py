@@ -19,6 +19,7 @@ from warmstart.archive.curate import (
     fix_archive,
     label_study,
     plan_prune,
+    trial_total,
 )
 from warmstart.archive.exchange import export_archive, import_export
 from warmstart.archive.faults import translated
@@ -26,7 +27,7 @@ from warmstart.archive.merge import MERGE_STEPS, merge_archive
 from warmstart.cli.common import get_archive, json_option, parse_tags, print_json, print_table
 from warmstart.cli.limits import OutputFolder
 from warmstart.cli.main import main
-from warmstart.cli.progress import Progress
+from warmstart.cli.progress import PROGRESS_TRIALS, Progress
 from warmstart.errors import ArchiveDamagedError, ArchiveError, ArchiveLockedError
 
 _SHOW = 20  # studies listed by prune before "... and N more"
@@ -230,7 +231,8 @@ def dedupe(ctx, dry_run, as_json):
     to the study that keeps its trials.
     """
     archive = get_archive(ctx, write=not dry_run)
-    with _steps("deduplicating", not (as_json or dry_run), DEDUPE_STEPS) as progress:
+    big = not (as_json or dry_run) and trial_total(archive) >= PROGRESS_TRIALS
+    with _steps("deduplicating", big, DEDUPE_STEPS) as progress:
         trials, studies = dedupe_trials(archive, dry_run=dry_run, progress=progress)
     if as_json:
         print_json({"dry_run": dry_run, "trials_removed": trials, "studies_removed": studies})
@@ -300,7 +302,7 @@ def prune(ctx, failed, before, learner, tags, owner, yes, as_json):
             click.echo(f"... and {len(plan.studies) - _SHOW} more studies")
     if not yes:
         click.confirm("Remove them?", abort=True, err=True)
-    with _steps("pruning", not as_json, PRUNE_STEPS) as progress:
+    with _steps("pruning", not as_json and plan.trial_count >= PROGRESS_TRIALS, PRUNE_STEPS) as progress:
         trials, studies = apply_prune(archive, plan, progress=progress)
     if as_json:
         print_json({"trials_removed": trials, "studies_removed": studies,

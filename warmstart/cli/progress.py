@@ -7,7 +7,10 @@ import time
 
 import click
 
-__all__ = ["Progress", "duration_text"]
+__all__ = ["Progress", "duration_text", "PROGRESS_TRIALS"]
+
+#: work over this many trials (an ingest, a dedupe, a prune) draws a progress bar; less takes about a second
+PROGRESS_TRIALS = 50_000
 
 
 def duration_text(seconds: float) -> str:
