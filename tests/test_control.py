@@ -92,7 +92,7 @@ def test_warm_mixture_does_not_gain_over_cold_on_permuted_tasks():
                             ("cold", lambda s: DensitySearch(SPACE, prior=None, seed=s, maximize=False))):
             hits = np.zeros((6, 10), dtype=bool)
             for r in range(6):
-                result = run_search(make(100 * t + r), perm.objective, 10)
+                result = run_search(make(100 * t + r), perm.objective.new_run(10), 10)
                 hits[r] = in_target(result.scores, perm.threshold, maximize=False)
             runs[label] = Runs(hits)
         results.append(compare(f"perm{t}", runs["warm"], runs["cold"], perm.p, rng=t))
@@ -103,7 +103,7 @@ def test_warm_mixture_does_not_gain_over_cold_on_permuted_tasks():
     same = []
     for r in range(6):
         same.append(in_target(run_search(MixtureSearch(SPACE, prior, seed=r, maximize=False, n_boot=64),
-                                         task.objective, 10).scores, task.threshold, maximize=False))
+                                         task.objective.new_run(10), 10).scores, task.threshold, maximize=False))
     assert math.log2(max(np.mean(same), 1e-3) / task.p) > 1.0
 
 
