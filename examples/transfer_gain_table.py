@@ -24,7 +24,12 @@ runs within the half):
 With ``--control FILE`` (outputs of ``gain --permuted --json``) it prints the
 permuted-score control: pooled bits over uniform of every search with a
 bootstrap interval over tasks (:func:`~warmstart.gain.control.pooled_bits_interval`)
-and the share of tasks with at least 1 and 2 bits against ``2**-b``.
+and the share of tasks with at least 1 and 2 bits against ``2**-b`` (marked
+ABOVE only when a one-sided binomial test over the tasks rejects ``2**-b`` at
+the 1 % level).
+
+The runs per search are read from the ``repeats`` that ``gain --json``
+records (the file name, ``..._r30_...``, only for files written before).
 
 Run (the files of docs/experiments.md, 2026-12-03, "issue 18: the measured table")::
 
@@ -90,19 +95,24 @@ def task_gain(row: dict, repeats: int, budget: int) -> TaskGain:
     return TaskGain(**core, extra=extra)
 
 
-def load(paths: list[Path]) -> dict:
-    """(learner, replay, budget) -> list of TaskGain, from gain --json files (the latest file wins).
+def _repeats_of(result: dict, path: Path) -> int:
+    """Runs per search: the ``repeats`` that ``gain --json`` records; for files written before it did, the
+    file name (``..._r30_...``)."""
+    if result.get("repeats") is not None:
+        return int(result["repeats"])
+    found = re.search(r"_r(\d+)_", path.name)
+    if not found:
+        raise SystemExit(f"{path}: the file records no 'repeats' (written before gain --json did); name it with "
+                         "its runs, e.g. b10_r30_nearest_svm.json")
+    return int(found.group(1))
 
-    The number of runs is read from the file name (``..._r30_...``), as the
-    JSON of ``gain`` does not carry it.
-    """
+
+def load(paths: list[Path]) -> dict:
+    """(learner, replay, budget) -> list of TaskGain, from gain --json files (the latest file wins)."""
     out = {}
     for path in paths:
-        found = re.search(r"_r(\d+)_", path.name)
-        if not found:
-            raise SystemExit(f"{path}: name the file with its runs, e.g. b10_r30_nearest_svm.json")
-        repeats = int(found.group(1))
         for result in json.loads(path.read_text()):
+            repeats = _repeats_of(result, path)
             out[(result["learner"], result["replay"], result["budget"])] = [
                 task_gain(r, repeats, result["budget"]) for r in result["tasks"]]
     return out
@@ -180,10 +190,17 @@ def control(runs: dict) -> None:
             with np.errstate(divide="ignore"):
                 per_task = np.log2(q / p)  # a task without a hit: -inf, below every b
             print(f"| {learner} | {replay} | {budget} | {label} | {bits:+.2f} ({low:+.2f} to {high:+.2f}) | "
-                  f"{'yes' if low <= 0 else 'NO'} | {share_at_least(per_task, 1):.0%} "
-                  f"({'ok' if share_at_least(per_task, 1) <= markov_bound(1) else 'ABOVE'}) | "
-                  f"{share_at_least(per_task, 2):.0%} "
-                  f"({'ok' if share_at_least(per_task, 2) <= markov_bound(2) else 'ABOVE'}) |")
+                  f"{'yes' if low <= 0 else 'NO'} | {_share_text(per_task, 1)} | {_share_text(per_task, 2)} |")
+
+
+def _share_text(bits: np.ndarray, b: float) -> str:
+    """Share of tasks with >= ``b`` bits, ``ok`` unless a one-sided binomial test over the tasks at the 1 %
+    level (:func:`scipy.stats.binomtest`) puts it above ``2**-b``."""
+    from scipy.stats import binomtest
+
+    k = int(np.sum(bits >= b))
+    above = binomtest(k, bits.size, markov_bound(b), alternative="greater").pvalue < 0.01
+    return f"{share_at_least(bits, b):.0%} ({'ABOVE' if above else 'ok'})"
 
 
 def plot(out: dict, path: Path) -> None:

@@ -86,7 +86,7 @@ class ReplayTask:
     profile: dict
 
 
-#: Replay objectives: the nearest recorded config, or a Gaussian-process surrogate.
+#: Replay objectives: the nearest recorded config not yet evaluated by the run, or a Gaussian-process surrogate.
 OBJECTIVES = ("nearest", "surrogate")
 
 
@@ -176,8 +176,9 @@ def replay_tasks(archive, learner: str, gamma: float = 0.05, min_trials: int = 2
     min_trials : int, default 20
         Studies with fewer successful trials are left out.
     objective : {"nearest", "surrogate"}, default "nearest"
-        ``nearest``: a config scores what its nearest recorded config scored;
-        the target set is the top ``gamma`` of the recorded configs.
+        ``nearest``: each query of a run scores what the nearest recorded
+        config not yet evaluated by that run scored; the target set is the
+        top ``gamma`` of the recorded configs, ``p`` their share.
         ``surrogate``: a Gaussian process fitted to the recorded trials
         (:class:`~warmstart.gain.objectives.SurrogateObjective`); the target set is
         the top ``gamma`` of the space under uniform sampling.
