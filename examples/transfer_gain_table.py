@@ -24,7 +24,12 @@ runs within the half):
 With ``--control FILE`` (outputs of ``gain --permuted --json``) it prints the
 permuted-score control: pooled bits over uniform of every search with a
 bootstrap interval over tasks (:func:`~warmstart.gain.control.pooled_bits_interval`)
-and the share of tasks with at least 1 and 2 bits against ``2**-b``.
+and the share of tasks with at least 1 and 2 bits against ``2**-b`` (marked
+ABOVE only when a one-sided binomial test over the tasks rejects ``2**-b`` at
+the 1 % level).
+
+The runs per search are read from the ``repeats`` that ``gain --json``
+records (the file name, ``..._r30_...``, only for files written before).
 
 Run (the files of docs/experiments.md, 2026-12-03, "issue 18: the measured table")::
 
@@ -90,19 +95,24 @@ def task_gain(row: dict, repeats: int, budget: int) -> TaskGain:
     return TaskGain(**core, extra=extra)
 
 
-def load(paths: list[Path]) -> dict:
-    """(learner, replay, budget) -> list of TaskGain, from gain --json files (the latest file wins).
+def _repeats_of(result: dict, path: Path) -> int:
+    """Runs per search: the ``repeats`` that ``gain --json`` records; for files written before it did, the
+    file name (``..._r30_...``)."""
+    if result.get("repeats") is not None:
+        return int(result["repeats"])
+    found = re.search(r"_r(\d+)_", path.name)
+    if not found:
+        raise SystemExit(f"{path}: the file records no 'repeats' (written before gain --json did); name it with "
+                         "its runs, e.g. b10_r30_nearest_svm.json")
+    return int(found.group(1))
 
-    The number of runs is read from the file name (``..._r30_...``), as the
-    JSON of ``gain`` does not carry it.
-    """
+
+def load(paths: list[Path]) -> dict:
+    """(learner, replay, budget) -> list of TaskGain, from gain --json files (the latest file wins)."""
     out = {}
     for path in paths:
-        found = re.search(r"_r(\d+)_", path.name)
-        if not found:
-            raise SystemExit(f"{path}: name the file with its runs, e.g. b10_r30_nearest_svm.json")
-        repeats = int(found.group(1))
         for result in json.loads(path.read_text()):
+            repeats = _repeats_of(result, path)
             out[(result["learner"], result["replay"], result["budget"])] = [
                 task_gain(r, repeats, result["budget"]) for r in result["tasks"]]
     return out
@@ -157,6 +167,28 @@ def table(runs: dict) -> dict:
     return out
 
 
+_CONTROL_SEARCHES = ("warm", "cold", "library_default", "defaults", "nearest", "random")
+
+
+def control_figures(gains: list) -> dict:
+    """Search -> (pooled bits over uniform, low, high, per-task bits) on permuted tasks (unsmoothed rates)."""
+    p = np.array([g.p for g in gains])
+    out = {}
+    for label in _CONTROL_SEARCHES:
+        if label == "warm":
+            q = np.array([g.extra["raw_q_warm"] for g in gains], dtype=float)
+        elif label == "cold":
+            q = np.array([g.q_cold for g in gains], dtype=float)
+        else:
+            q = np.array([g.extra.get(f"q_{label}", float("nan")) for g in gains], dtype=float)
+        if not np.isfinite(q).all():
+            continue
+        with np.errstate(divide="ignore"):
+            per_task = np.log2(q / p)  # a task without a hit: -inf, below every b
+        out[label] = (*pooled_bits_interval(q, p, rng=0), per_task)
+    return out
+
+
 def control(runs: dict) -> None:
     """The permuted-score control, one row per learner, replay and search."""
     print()
@@ -168,22 +200,57 @@ def control(runs: dict) -> None:
         print(f"| {learner} | {replay} | {budget} | warm over cold (gain) | {pooled.gain:+.2f} ({pooled.gain_low:+.2f} "
               f"to {pooled.gain_high:+.2f}) | {'yes' if pooled.gain_low <= 0 else 'NO'} | "
               f"{np.mean([g.gain >= 1 for g in gains]):.0%} | {np.mean([g.gain >= 2 for g in gains]):.0%} |")
-        p = np.array([g.p for g in gains])
-        for label in ("warm", "cold", "library_default", "defaults", "nearest", "random"):
-            q = np.array([g.extra["raw_q_warm"] if label == "warm" else g.extra.get(f"q_{label}", float("nan"))
-                          for g in gains], dtype=float)
-            if label == "cold":
-                q = np.array([g.q_cold for g in gains])
-            if not np.isfinite(q).all():
-                continue
-            bits, low, high = pooled_bits_interval(q, p, rng=0)  # unsmoothed rates, pooled
-            with np.errstate(divide="ignore"):
-                per_task = np.log2(q / p)  # a task without a hit: -inf, below every b
+        for label, (bits, low, high, per_task) in control_figures(gains).items():
             print(f"| {learner} | {replay} | {budget} | {label} | {bits:+.2f} ({low:+.2f} to {high:+.2f}) | "
-                  f"{'yes' if low <= 0 else 'NO'} | {share_at_least(per_task, 1):.0%} "
-                  f"({'ok' if share_at_least(per_task, 1) <= markov_bound(1) else 'ABOVE'}) | "
-                  f"{share_at_least(per_task, 2):.0%} "
-                  f"({'ok' if share_at_least(per_task, 2) <= markov_bound(2) else 'ABOVE'}) |")
+                  f"{'yes' if low <= 0 else 'NO'} | {_share_text(per_task, 1)} | {_share_text(per_task, 2)} |")
+
+
+
+
+def plot_control(panels: list, path: Path) -> None:
+    """Pooled bits over uniform of every search on permuted tasks, with 95 % intervals.
+
+    ``panels``: a list of (title, runs) pairs, runs as :func:`load` returns them; one panel each.
+    """
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    fig, axes = plt.subplots(1, len(panels), figsize=(max(7.0, 5.2 * len(panels)), 4.2), sharey=True, squeeze=False)
+    colors = dict(zip(_CONTROL_SEARCHES, ("#d9480f", "#1c7ed6", "#868e96", "#2b8a3e", "#94d82d", "#212529")))
+    for ax, (title, runs) in zip(axes[0], panels):
+        keys = sorted(runs, key=lambda k: (k[1], k[2], LEARNERS.index(k[0]) if k[0] in LEARNERS else 9))
+        x = np.arange(len(keys))
+        width = 0.8 / len(_CONTROL_SEARCHES)
+        figures_of = [control_figures(runs[k]) for k in keys]
+        for j, label in enumerate(_CONTROL_SEARCHES):
+            figs = [f.get(label) for f in figures_of]
+            if any(f is None for f in figs):
+                continue
+            vals = np.array([f[0] for f in figs])
+            err = [vals - [f[1] for f in figs], np.array([f[2] for f in figs]) - vals]
+            ax.bar(x + (j - (len(_CONTROL_SEARCHES) - 1) / 2) * width, vals, width, color=colors[label], label=label,
+                   yerr=err, error_kw={"lw": 0.8})
+        ax.axhline(0, color="black", lw=0.8)
+        ax.set_xticks(x)
+        ax.set_xticklabels([f"{k[0]}\n{k[1]}, B={k[2]}" for k in keys], fontsize=8)
+        ax.set_title(title, fontsize=9)
+    axes[0][0].set_ylabel("pooled bits over uniform on permuted tasks (95 %)")
+    axes[0][-1].legend(fontsize=7, ncol=3, loc="upper left")
+    fig.tight_layout()
+    fig.savefig(path, dpi=110)
+    print(f"\nplot written to {path}")
+
+
+def _share_text(bits: np.ndarray, b: float) -> str:
+    """Share of tasks with >= ``b`` bits, ``ok`` unless a one-sided binomial test over the tasks at the 1 %
+    level (:func:`scipy.stats.binomtest`) puts it above ``2**-b``."""
+    from scipy.stats import binomtest
+
+    k = int(np.sum(bits >= b))
+    above = binomtest(k, bits.size, markov_bound(b), alternative="greater").pvalue < 0.01
+    return f"{share_at_least(bits, b):.0%} ({'ABOVE' if above else 'ok'})"
 
 
 def plot(out: dict, path: Path) -> None:
@@ -230,13 +297,20 @@ def plot(out: dict, path: Path) -> None:
 
 def main(argv=None) -> None:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
-    ap.add_argument("files", type=Path, nargs="+", help="outputs of `warmstart gain --json`")
+    ap.add_argument("files", type=Path, nargs="*", help="outputs of `warmstart gain --json`")
     ap.add_argument("--control", type=Path, nargs="*", default=[], help="outputs of `gain --permuted --json`")
     ap.add_argument("--plot", type=Path)
+    ap.add_argument("--control-plot", type=Path, help="draw the control's pooled bits of every search here")
+    ap.add_argument("--control-before", type=Path, nargs="*", default=[],
+                    help="control outputs of an earlier protocol, drawn in a panel of their own beside --control")
     args = ap.parse_args(argv)
-    out = table(load(args.files))
+    out = table(load(args.files)) if args.files else {}
     if args.control:
-        control(load(args.control))
+        runs = load(args.control)
+        control(runs)
+        if args.control_plot:
+            before = [("before", load(args.control_before))] if args.control_before else []
+            plot_control(before + [("after" if before else "permuted scores", runs)], args.control_plot)
     if args.plot and out:
         plot(out, args.plot)
 

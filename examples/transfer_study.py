@@ -85,7 +85,7 @@ def run_hits(task, make, budget: int, repeats: int, seed: int) -> np.ndarray:
     """Hit matrix (repeats, budget) of a strategy factory on a replay task."""
     hits = np.zeros((repeats, budget), dtype=bool)
     for r in range(repeats):
-        result = run_search(make(seed + r), task.objective, budget)
+        result = run_search(make(seed + r), task.objective.new_run(budget), budget)  # a fresh evaluator per run
         hits[r] = in_target(result.scores, task.threshold, task.objective.maximize)
     return hits
 
@@ -118,7 +118,8 @@ def study_learner(archive, learner: str, args, options: dict, progress) -> dict:
         prior = prior_from_sources(task.space, weighted, provenance={**prior_info(learner), "held_out": task.task})
         mx = task.objective.maximize
         base = {"learner": learner, "task": task.task, "replay": args.replay, "budget": args.budget,
-                "repeats": args.repeats, "seed": args.seed}
+                "repeats": args.repeats, "seed": args.seed,
+                "rule": "each recorded config once per run"}  # cached runs of the former replay rule are stale
         cold = cached_hits(args.cache, {**base, "search": "cold"}, lambda: run_hits(
             task, lambda s: DensitySearch(task.space, prior=None, seed=s, maximize=mx),
             args.budget, args.repeats, args.seed))
@@ -133,7 +134,7 @@ def study_learner(archive, learner: str, args, options: dict, progress) -> dict:
         others = {"seedlist": Runs(seedlist)}
         for label, make_list in (("defaults", average_rank_list), ("nearest", nearest_tasks_list)):
             configs = make_list(prior, args.budget)
-            h = in_target(task.objective.values(task.space.encode(configs)), task.threshold, mx)
+            h = in_target(task.objective.new_run(len(configs)).values(task.space.encode(configs)), task.threshold, mx)
             others[label] = Runs(np.pad(h, (0, args.budget - len(h)))[None, :])
         result = compare(task.task, Runs(warm), Runs(cold), task.p, rng=args.seed, others=others)
         p_values.append(paired_runs_p(warm, cold))

@@ -66,3 +66,11 @@ def test_only_the_command_line_imports_click():
             if any(n == "click" or n.startswith("click.") for n in names):
                 offenders.append(str(path.relative_to(root)))
     assert offenders == []
+
+
+def test_demo_refuses_a_budget_above_its_configs_before_any_work(tmp_path):
+    # the replay step evaluates each recorded config of a store at most once per run
+    res = CliRunner().invoke(main, ["demo", "--out", str(tmp_path / "demo"), "--configs", "20", "--budget", "21"])
+    assert res.exit_code == 2 and "Traceback" not in res.output
+    assert "21 is above --configs 20" in res.stderr and "--budget 20 or less" in res.stderr
+    assert not (tmp_path / "demo").exists()

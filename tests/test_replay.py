@@ -59,13 +59,14 @@ def test_replay_objective_returns_the_nearest_recorded_score():
     obj = ReplayObjective(SPACE, SPACE.encode(configs), scores)
     assert isinstance(obj, HeldOutObjective)  # the one protocol of replay objectives
     assert isinstance(SurrogateObjective(SPACE, SPACE.encode(configs), scores), HeldOutObjective)
-    assert obj(configs[7]) == scores[7]  # a recorded config scores what it scored
-    # reference: brute-force nearest neighbour in the unit cube (choice mismatch counts 1)
+    assert obj.new_run()(configs[7]) == scores[7]  # a recorded config scores what it scored
+    # reference: brute-force nearest neighbour in the unit cube (choice mismatch counts 1), each row on its own
     query = SPACE.sample(25, 1)
     Q, X = SPACE.encode(query), SPACE.encode(configs)
     for row, cfg in zip(Q, query):
         d = [((row[:2] - x[:2]) ** 2).sum() + (row[2] != x[2]) for x in X]
-        assert obj(cfg) == scores[int(np.argmin(d))]
+        assert obj.values(row[None, :])[0] == scores[int(np.argmin(d))]
+        assert obj.new_run()(cfg) == scores[int(np.argmin(d))]  # a fresh run's first query: the nearest
 
 
 def test_uniform_hit_chance_is_close_to_gamma_on_a_space_filling_design(archive_path):

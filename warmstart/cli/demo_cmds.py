@@ -30,6 +30,10 @@ def demo(out_dir, n_history, n_configs, budget, repeats, workers):
     bits with its interval and writes an HTML report. The demo uses its own
     archive in --out, never the one given with --archive.
     """
+    if budget > n_configs:
+        raise click.BadParameter(
+            f"{budget} is above --configs {n_configs}: the replay step evaluates each of a store's recorded configs "
+            f"at most once per run; use --budget {n_configs} or less, or more --configs", param_hint="'--budget'")
     from warmstart.demo import run_demo
 
     run_demo(out_dir, n_history=n_history, n_configs=n_configs, budget=budget, repeats=repeats, workers=workers,

@@ -102,8 +102,9 @@ def prior(ctx, data, target, learner, space_path, output, keep_columns, as_json)
 @main.command()
 @click.option("--learner", "learners", multiple=True, help="Learner(s) to measure (default: every learner with studies on 2+ tasks).")
 @click.option("--budget", "budget_text", default="10", show_default=True,
-              help=f"Queries per search, comma-separated for several; each at most {MAX_QUERIES:,} (a held-out "
-                   "task holds a few hundred recorded configs at most, which longer replays only revisit).")
+              help=f"Queries per search, comma-separated for several; each at most {MAX_QUERIES:,}, and under the "
+                   "nearest replay at most a held-out task's number of recorded configs (a run evaluates each "
+                   "once).")
 @click.option("--repeats", default=30, show_default=True, type=click.IntRange(2, MAX_REPEATS),
               help=f"Runs per search and task; at most {MAX_REPEATS:,} (intervals narrow with the square root of "
                    f"the runs), and budgets x repeats at most {MAX_QUERIES_PER_TASK:,}.")
@@ -117,8 +118,8 @@ def prior(ctx, data, target, learner, space_path, output, keep_columns, as_json)
 @click.option("--task", "only_tasks", multiple=True, help="Only these held-out tasks (names).")
 @click.option("--replay", "objective", type=click.Choice(["nearest", "surrogate"]), default="nearest",
               show_default=True,
-              help="How the held-out task scores a proposal: its nearest recorded config, or a Gaussian-process "
-                   "surrogate fitted to its recorded trials.")
+              help="How the held-out task scores a proposal: the nearest recorded config the run has not evaluated "
+                   "yet, or a Gaussian-process surrogate fitted to its recorded trials.")
 @click.option("--data", "data", type=click.Path(dir_okay=False),
               help="Live instead of replay: run warm and cold searches on this dataset (needs --target, one --learner).")
 @click.option("--target", help="With --data: the target column.")
@@ -128,7 +129,8 @@ def prior(ctx, data, target, learner, space_path, output, keep_columns, as_json)
               help="Write an HTML report with plots here (into an existing directory).")
 @click.option("--permuted", is_flag=True,
               help="Control: shuffle each held-out task's recorded scores among its configs first, so no past "
-                   "task tells anything about it; transfer should gain nothing.")
+                   "task tells anything about it; transfer should gain nothing (and, under the nearest replay, "
+                   "no search should gain over uniform).")
 @keep_column_option
 @strict_option
 @json_option
@@ -317,7 +319,8 @@ def _show(results, gamma, report_path, as_json) -> None:
         click.echo(f"\nreport written to {report_path}")
 
 
-_REPLAY_WORDS = {"nearest": "nearest recorded config", "surrogate": "Gaussian-process surrogate"}
+_REPLAY_WORDS = {"nearest": "nearest recorded config not yet evaluated by the run",
+                 "surrogate": "Gaussian-process surrogate"}
 
 
 def _verdict_line(p) -> str:

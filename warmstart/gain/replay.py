@@ -1,12 +1,15 @@
 """Replay protocol: measure transfer on archived studies without training.
 
 Leave-one-task-out: each archived study in turn is held out; its recorded
-trials act as its objective (a proposed config scores what its nearest
-recorded config scored, in the unit cube), the prior is built from every
-other task, and warm, cold and baseline searches run R times each. The
-target set is the top ``gamma`` of the recorded configs, and ``p`` is
-estimated by pushing uniform draws through the same nearest-config map, so
-``p`` is exactly the uniform chance of a hit under the replay objective.
+trials act as its objective (each query of a run evaluates the nearest
+recorded config, in the unit cube, that the run has not evaluated yet:
+:class:`~warmstart.gain.objectives.NearestReplayRun`), the prior is built
+from every other task, and warm, cold and baseline searches run R times
+each, every run on a fresh evaluator (``objective.new_run``). The target
+set is the top ``gamma`` of the recorded configs, and ``p`` is their share
+among the recorded configs: the per-query hit chance of uniform sampling
+without replacement over what a run can evaluate. A budget above a task's
+number of recorded configs is refused.
 
 Baselines computed in the same run:
 
@@ -83,7 +86,7 @@ class ReplayTask:
     profile: dict
 
 
-#: Replay objectives: the nearest recorded config, or a Gaussian-process surrogate.
+#: Replay objectives: the nearest recorded config not yet evaluated by the run, or a Gaussian-process surrogate.
 OBJECTIVES = ("nearest", "surrogate")
 
 
@@ -173,8 +176,9 @@ def replay_tasks(archive, learner: str, gamma: float = 0.05, min_trials: int = 2
     min_trials : int, default 20
         Studies with fewer successful trials are left out.
     objective : {"nearest", "surrogate"}, default "nearest"
-        ``nearest``: a config scores what its nearest recorded config scored;
-        the target set is the top ``gamma`` of the recorded configs.
+        ``nearest``: each query of a run scores what the nearest recorded
+        config not yet evaluated by that run scored; the target set is the
+        top ``gamma`` of the recorded configs, ``p`` their share.
         ``surrogate``: a Gaussian process fitted to the recorded trials
         (:class:`~warmstart.gain.objectives.SurrogateObjective`); the target set is
         the top ``gamma`` of the space under uniform sampling.
@@ -220,9 +224,9 @@ def hindsight_rates(task: ReplayTask, prior: Prior, budget: int) -> dict[str, fl
     whose list hits most often on the held-out task, picked after the fact
     (what a perfect choice of a single neighbor would give). ``ideal_list``:
     every recorded target config first, ``min(|T|, B) / B`` under the
-    nearest-config objective (the most any list of distinct recorded configs
-    can reach; a search can exceed it by returning near a hit); 1 under the
-    surrogate, whose target set is a region.
+    nearest replay (the most any run can reach there, as a run evaluates a
+    recorded config at most once); 1 under the surrogate, whose target set
+    is a region.
     """
     obj = task.objective
     n_hit = obj.max_distinct_hits(task.threshold, budget)
@@ -230,10 +234,10 @@ def hindsight_rates(task: ReplayTask, prior: Prior, budget: int) -> dict[str, fl
     lists = [[space.complete(c, 0) for c in space.decode(s.X[np.argsort(-s.quantile, kind="stable")[:budget]])]
              for s in prior.sources]
     # not searches, so not run through run_search: every list is scored at once
-    hits = in_target(obj.values(task.space.encode([c for configs in lists for c in configs])), task.threshold,
-                     obj.maximize)
-    owner = np.repeat(np.arange(len(lists)), [len(configs) for configs in lists])
-    best = float(np.bincount(owner, weights=hits, minlength=len(lists)).max()) / budget
+    # each list is queried in order by a run of its own (under the nearest replay a run evaluates a recorded
+    # config at most once, so two configs of a list near one recorded config are not both scored by it)
+    best = max((int(in_target(obj.new_run(len(configs)).values(task.space.encode(configs)), task.threshold,
+                              obj.maximize).sum()) for configs in lists if configs), default=0) / budget
     return {"best_past_task": best, "ideal_list": n_hit / budget}
 
 
@@ -242,13 +246,14 @@ def _runs(task: ReplayTask, searches: Iterable[SearchStrategy], budget: int) -> 
 
     A search runs ``budget`` queries; a :class:`FixedListSearch` runs as
     many as its list holds, and the queries it did not make count as misses
-    that find nothing (no hit, regret unchanged).
+    that find nothing (no hit, regret unchanged). Each run evaluates its own
+    ``task.objective.new_run``, so no state passes from one run to the next.
     """
     rows = []
     for search in searches:
         n = min(budget, search.remaining) if isinstance(search, FixedListSearch) else budget
         scores = np.full(budget, np.nan)
-        scores[:n] = run_search(search, task.objective, n).scores
+        scores[:n] = run_search(search, task.objective.new_run(n), n).scores  # a fresh evaluator per run
         rows.append(scores)
     obj = task.objective
     hits, regret = hits_and_regret(np.array(rows), task.threshold, obj.reference_scores, obj.maximize)
@@ -335,7 +340,8 @@ def leave_one_task_out(
     archive : Archive
     learner : str
     budget : int, default 10
-        Queries per search.
+        Queries per search; under the nearest replay at most every held-out
+        task's number of recorded configs (a larger one is refused).
     repeats : int, default 30
         Independent runs per search and task.
     gamma : float, default 0.05
@@ -382,6 +388,16 @@ def leave_one_task_out(
     fits = len(names) if objective == "surrogate" else 0
     chosen = replay_tasks(archive, learner, gamma, objective=objective, only=names, workers=workers,
                           progress=progress, total=fits + len(names), executor=executor)
+    short = sorted((t for t in chosen if t.objective.max_budget is not None and t.objective.max_budget < budget),
+                   key=lambda t: t.objective.max_budget)
+    if short:
+        least = short[0].objective.max_budget
+        shown = ", ".join(f"{t.task!r} ({t.objective.max_budget})" for t in short[:5]) + (" ..." if len(short) > 5 else "")
+        raise WarmstartError(
+            f"budget {budget} is above the number of recorded configs of {len(short)} held-out task(s) of "
+            f"{learner!r}: {shown}; the nearest replay evaluates each recorded config at most once per run, so "
+            f"lower the budget to at most {least}, leave those tasks out (--task), or use the surrogate replay"
+        )
     if permuted:
         from warmstart.gain.control import permute_task
 
