@@ -81,12 +81,7 @@ def test_fixed_list_gains_on_the_task_and_obeys_the_bound_on_permutations():
 
 
 def test_warm_mixture_does_not_gain_over_cold_on_permuted_tasks():
-    sources = []
-    for i in range(3):
-        X = SPACE.sobol_unit(64, 10 + i)
-        q = within_study_quantiles(_values(X), maximize=False)
-        sources.append(Source(10 + i, 10 + i, f"branin-{i}", X, q, np.arange(64), np.zeros(64, bool), 1.0))
-    prior = prior_from_sources(SPACE, sources)
+    prior = branin_prior()
     task = branin_task()
     results = []
     rng = np.random.default_rng(5)

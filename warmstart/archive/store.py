@@ -665,8 +665,7 @@ class Archive:
         row = prepare_trial(space, config, score, status, cost_s, started_at, finished_at, error, where=where,
                             metric=metric)
         config_sql, keys = _config_sql(space)
-        casts = ["VARCHAR" if p.kind == "choice" else "BIGINT" if p.kind == "integer" else "DOUBLE"
-                 for p in space.params]
+        casts = _column_casts(space)
         given = ", ".join(f"?::{cast} AS {col}" for cast, col in zip(casts, param_columns(space)))
         # placeholders bind in text order: the row's cells, the keys (inside cfg), then the values;
         # plain statements only (a join or a sub-query in the INSERT costs DuckDB several times as much)
@@ -733,8 +732,7 @@ class Archive:
             for space_id, group in groups.items():
                 space = self._space_cached(space_id)
                 config_sql, keys = _config_sql(space)
-                casts = ["VARCHAR" if p.kind == "choice" else "BIGINT" if p.kind == "integer" else "DOUBLE"
-                         for p in space.params]
+                casts = _column_casts(space)
                 given = ", ".join(f"unnest(?::{cast}[]) AS {col}" for cast, col in zip(casts, param_columns(space)))
                 # placeholders bind in text order: the JSON keys (inside cfg), then the columns
                 sql = (
@@ -939,6 +937,11 @@ def _fold_scores(values: Any, where: str) -> list[float] | None:
     if not all(map(math.isfinite, folds)):
         raise ArchiveError(f"{where}: fold_scores must be finite numbers, got {folds}")
     return folds or None
+
+
+def _column_casts(space) -> list[str]:
+    """DuckDB type of each parameter's column, in the space's order (choices are text)."""
+    return ["VARCHAR" if p.kind == "choice" else "BIGINT" if p.kind == "integer" else "DOUBLE" for p in space.params]
 
 
 def _config_sql(space: Space) -> tuple[str, list[str]]:
