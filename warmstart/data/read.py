@@ -119,13 +119,31 @@ def read_table(path: str | Path) -> pd.DataFrame:
     """
     path = Path(path)
     kind = _kind(path)
+    _check_file(path, kind)
+    notes: list[str] = []
+    frame = _read_kind(path, kind, notes)
+    if kind.startswith("JSON"):
+        _check_json_rows(frame, path, kind)
+    if frame.shape[0] == 0:
+        raise TableError(f"{path}: the table has a header but no rows")
+    frame.columns = [str(c) for c in frame.columns]
+    if notes:
+        frame.attrs["notes"] = notes
+    return frame
+
+
+def _check_file(path: Path, kind: str) -> None:
+    """Refuse a missing path, a directory and an empty file, naming it."""
     if not path.exists():
         raise TableError(f"{path}: no such file")
     if path.is_dir():
         raise TableError(f"{path}: is a directory, expected a {kind} file")
     if path.stat().st_size == 0:
         raise TableError(f"{path}: the file is empty")
-    notes: list[str] = []
+
+
+def _read_kind(path: Path, kind: str, notes: list[str]) -> pd.DataFrame:
+    """The file read by the reader of its kind; every reader's error becomes a :class:`TableError`."""
     try:
         with warnings.catch_warnings():
             # A row with more fields than the header would silently become the
@@ -154,23 +172,22 @@ def read_table(path: str | Path) -> pd.DataFrame:
         if type(exc).__module__.startswith("pyarrow"):
             raise TableError(f"{path}: not a valid {kind} file ({exc})") from None
         raise
-    if kind.startswith("JSON") and not all(isinstance(c, str) for c in frame.columns):
-        # JSON object keys are always strings; other labels mean a row was an array or a bare value.
-        if kind == "JSON":
-            raise TableError(
-                f"{path}: not a valid JSON file: every row must be a JSON object, e.g. "
-                '[{"C": 0.5, "score": 0.91}, ...] or one such object per line (arrays or bare values will not do)'
-            )
-        raise TableError(
-            f"{path}: not a valid JSON lines file: every line must be one JSON object, "
-            'e.g. {"C": 0.5, "score": 0.91} (a JSON array or bare values will not do)'
-        )
-    if frame.shape[0] == 0:
-        raise TableError(f"{path}: the table has a header but no rows")
-    frame.columns = [str(c) for c in frame.columns]
-    if notes:
-        frame.attrs["notes"] = notes
     return frame
+
+
+def _check_json_rows(frame: pd.DataFrame, path: Path, kind: str) -> None:
+    """Refuse JSON whose rows were not objects (object keys are always strings)."""
+    if all(isinstance(c, str) for c in frame.columns):
+        return
+    if kind == "JSON":
+        raise TableError(
+            f"{path}: not a valid JSON file: every row must be a JSON object, e.g. "
+            '[{"C": 0.5, "score": 0.91}, ...] or one such object per line (arrays or bare values will not do)'
+        )
+    raise TableError(
+        f"{path}: not a valid JSON lines file: every line must be one JSON object, "
+        'e.g. {"C": 0.5, "score": 0.91} (a JSON array or bare values will not do)'
+    )
 
 
 def column_not_found(name: str, columns, what: str = "target column") -> str:
