@@ -303,16 +303,7 @@ def feature_frame(frame: pd.DataFrame, target: str, keep=(), min_rows: int = 20)
             drop.append(j)
             notes[name] = f"left out: looks like {why}"
             continue
-        present = col.notna()
-        days, order = _to_days(col[present])
-        dates[j] = days.reindex(col.index)
-        failed = int(days.isna().sum())
-        note = f"converted to days since 1970-01-01: {why}"
-        if order:
-            note += f", read {order}"
-        if failed:
-            note += f"; {failed} value(s) did not parse as dates and are missing"
-        notes[name] = note
+        dates[j], notes[name] = _as_days(col, why)
     if not notes:
         return FeatureFrame(frame, notes)
     out = frame.copy(deep=False)
@@ -321,5 +312,18 @@ def feature_frame(frame: pd.DataFrame, target: str, keep=(), min_rows: int = 20)
     if drop:
         out = out.iloc[:, [j for j in range(len(labels)) if j not in set(drop)]]
     return FeatureFrame(out, notes)
+
+
+def _as_days(col: pd.Series, why: str) -> tuple[pd.Series, str]:
+    """A date column as days since 1970-01-01 (missing where a value did not parse), and its note."""
+    present = col.notna()
+    days, order = _to_days(col[present])
+    failed = int(days.isna().sum())
+    note = f"converted to days since 1970-01-01: {why}"
+    if order:
+        note += f", read {order}"
+    if failed:
+        note += f"; {failed} value(s) did not parse as dates and are missing"
+    return days.reindex(col.index), note
 
 
