@@ -342,7 +342,7 @@ def load_starter(
     skipped: list[tuple[str, str]] = []
     total = len(history.tasks)
     for done, (_, task) in enumerate(history.tasks.iterrows(), start=1):
-        name, fp, kind = task["name"], task["fingerprint"], task["kind"]
+        name, fp = task["name"], task["fingerprint"]
         mine = [learner for learner in chosen if (name, learner) in studied]
         wanted = [learner for learner in mine if (name, fp, learner) not in present]
         counts["studies_present"] += len(mine) - len(wanted)
@@ -361,26 +361,34 @@ def load_starter(
             stored = task["profile_version"] == PROFILE_VERSION
             counts["profiles_computed"] += int(not stored and name not in known)
             counts["tasks_added"] += int(name not in known)
-            with archive.transaction():
-                task_id = archive.add_task(
-                    name, frame, task["target"], kind=kind, source=f"{task['source']} {task['package']}/{task['item']}",
-                    profile=history.profile(task) if stored else None,
-                )
-                for learner in wanted:
-                    study_id = archive.add_study(
-                        task_id, learner, history.space(learner, kind), metric=history.metric(kind),
-                        maximize=True, origin="imported", tags=dict([STARTER_TAG]),
-                    )
-                    counts["trials_added"] += archive.add_trials(
-                        study_id, history.trial_table(name, learner),
-                        where=f"{history.path / 'trials.parquet'} ({name}, {learner})",
-                    )
-                    archive.finish_study(study_id)
-                    counts["studies_added"] += 1
+            counts["trials_added"] += _add_task_studies(archive, history, task, frame, wanted, stored)
+            counts["studies_added"] += len(wanted)
             known[name] = fp
         if progress is not None:
             progress(done, total, name)
     return StarterLoad(**counts, skipped=tuple(skipped))
+
+
+def _add_task_studies(archive, history, task, frame, wanted: list[str], stored: bool) -> int:
+    """One starter task and its studies of the ``wanted`` learners, in one transaction; returns the trials added."""
+    name, kind = task["name"], task["kind"]
+    added = 0
+    with archive.transaction():
+        task_id = archive.add_task(
+            name, frame, task["target"], kind=kind, source=f"{task['source']} {task['package']}/{task['item']}",
+            profile=history.profile(task) if stored else None,
+        )
+        for learner in wanted:
+            study_id = archive.add_study(
+                task_id, learner, history.space(learner, kind), metric=history.metric(kind),
+                maximize=True, origin="imported", tags=dict([STARTER_TAG]),
+            )
+            added += archive.add_trials(
+                study_id, history.trial_table(name, learner),
+                where=f"{history.path / 'trials.parquet'} ({name}, {learner})",
+            )
+            archive.finish_study(study_id)
+    return added
 
 
 def _int_or_none(value: Any) -> int | None:
