@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import hashlib
 import json
-import re
 import shutil
 import tempfile
 from pathlib import Path
@@ -27,6 +26,7 @@ from warmstart.errors import ArchiveError, IngestError, ProfileError, SpaceError
 from warmstart.service.auth import Principal
 from warmstart.service.core import Service, jsonable
 from warmstart.service.errors import ServiceError
+from warmstart.service.fastlane import MAX_STUDY_ID, REQUEST_ID, answer_headers, propose_write, record_write
 from warmstart.service.models import (
     NewStudyBody, DefaultsBody, GainBody, IngestBody, NeighborsBody, PriorBody, ProposeBody, RecordBody, TagBody,
     TaskInfo,
@@ -37,10 +37,9 @@ from warmstart.space import Space
 __all__ = ["api_router", "INGEST_MAX_BYTES", "study_curve"]
 
 INGEST_MAX_BYTES = 32 * 1024 * 1024
-REQUEST_ID = re.compile(r"^[A-Za-z0-9_.:-]{1,128}$")
 STUDY_ORDER = {"study_id": "study_id", "best_score": "best_score", "created_at": "created_at",
                "trial_count": "trial_count"}  # allow-list of sort keys (no user text reaches a query)
-StudyId = Annotated[int, PathParam(ge=1, le=2**62, description="study id")]
+StudyId = Annotated[int, PathParam(ge=1, le=MAX_STUDY_ID, description="study id")]
 
 
 def api_router(service: Service, authorize) -> APIRouter:
@@ -63,8 +62,8 @@ def api_router(service: Service, authorize) -> APIRouter:
 
     def answer(result: Answer) -> Response:
         # the JSON text the writer made (and stored for a retry) goes out as it is: no second encoding
-        headers = {"Idempotent-Replayed": "true"} if result.replayed else None
-        return Response(result.text, status_code=result.status, headers=headers, media_type="application/json")
+        return Response(result.text, status_code=result.status, headers=answer_headers(result),
+                        media_type="application/json")
 
     # -- health ------------------------------------------------------------------
     @router.get("/health", summary="Is the service up; which archive it serves")
@@ -160,17 +159,12 @@ def api_router(service: Service, authorize) -> APIRouter:
     @router.post("/studies/{study_id}/propose", summary="Lease k distinct configs to evaluate")
     async def propose(study_id: StudyId, body: ProposeBody, who: Principal = Depends(writers),
                       key: RequestKey | None = Depends(request_key)) -> Response:
-        return answer(await service.write(
-            lambda archive: (200, service.leases.propose(archive, study_id, body.k, body.lease_seconds, who.name)),
-            key))
+        return answer(await service.write(propose_write(service, study_id, body, who), key))
 
     @router.post("/studies/{study_id}/trials", summary="Record a result (by lease, or a config never proposed)")
     async def record(study_id: StudyId, body: RecordBody, who: Principal = Depends(writers),
                      key: RequestKey | None = Depends(request_key)) -> Response:
-        return answer(await service.write(
-            lambda archive: (200, service.leases.record(archive, study_id, body.trial, body.config, body.score,
-                                                        body.status, body.error, body.cost_s, who.name)),
-            key, early=True))
+        return answer(await service.write(record_write(service, study_id, body, who), key, early=True))
 
     @router.post("/studies/{study_id}/finish", summary="Mark a study finished")
     async def finish(study_id: StudyId, who: Principal = Depends(writers),

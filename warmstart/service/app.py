@@ -23,6 +23,7 @@ from warmstart.service.api import INGEST_MAX_BYTES, api_router
 from warmstart.service.auth import ANONYMOUS, Principal, Tokens
 from warmstart.service.core import Service
 from warmstart.service.errors import ServiceError, install_handlers
+from warmstart.service.fastlane import FastLane, LaneCounts
 from warmstart.service.leases import DEFAULT_LEASE_SECONDS
 from warmstart.service.page import page_router
 
@@ -161,7 +162,7 @@ class _RequestLog:
 
 
 def create_app(archive: Archive | str, tokens: Tokens | None = None,
-               lease_seconds: float = DEFAULT_LEASE_SECONDS) -> FastAPI:
+               lease_seconds: float = DEFAULT_LEASE_SECONDS, fast_lane: bool = True) -> FastAPI:
     """The service's ASGI app over one archive.
 
     Parameters
@@ -173,6 +174,10 @@ def create_app(archive: Archive | str, tokens: Tokens | None = None,
         The team's tokens; None lets every request in (loopback use only).
     lease_seconds : float, default 3600
         Life of a lease when a proposal asks for none.
+    fast_lane : bool, default True
+        Answer ordinary propose and record requests in
+        :class:`~warmstart.service.fastlane.FastLane` (same answers, a
+        fraction of the work); False sends them through their FastAPI routes.
     """
     if not isinstance(archive, Archive):
         archive = Archive(archive)
@@ -209,6 +214,9 @@ def create_app(archive: Archive | str, tokens: Tokens | None = None,
     authorize = _authorizer(tokens)
     app.include_router(api_router(service, authorize))
     app.include_router(page_router(service, lambda request: identify(request, tokens, basic=True)))
+    if fast_lane:  # innermost of ours: inside the body limit and the request log
+        app.state.fast_lane = LaneCounts()
+        app.add_middleware(FastLane, service=service, tokens=tokens, counts=app.state.fast_lane)
     app.add_middleware(_BodyLimit, limit=MAX_BODY_BYTES, larger={"/api/v1/ingest": INGEST_MAX_BYTES})
     app.add_middleware(_RequestLog)
     return app
