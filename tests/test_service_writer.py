@@ -133,3 +133,45 @@ def test_a_write_refused_before_it_changed_anything_undoes_nothing(held):
     assert a.result(30).body["txid"] == b.result(30).body["txid"]  # still one transaction
     assert log == ["a", "refused", "b"] and not drops  # nothing run twice, no cache dropped
     assert _names(archive) == ["a", "b"]
+
+
+def test_answers_to_an_event_loop_come_back_in_one_call_per_batch(held):
+    """``submit_async``: a batch's answers reach their loop in one
+    ``call_soon_threadsafe`` (one wake-up), a refusal is raised to its own
+    caller only, and a caller that gave up is skipped without harm."""
+    import asyncio
+
+    writer, archive, release, first, commits, drops = held
+    log: list = []
+    calls = []
+
+    async def main():
+        loop = asyncio.get_running_loop()
+        original = loop.call_soon_threadsafe
+
+        def counted(callback, *args, **kwargs):
+            calls.append(callback.__name__)
+            return original(callback, *args, **kwargs)
+
+        loop.call_soon_threadsafe = counted
+        replies = [writer.submit_async(_note(f"a{i}", log)) for i in range(4)]
+        refused = writer.submit_async(_refused)
+        gone = writer.submit_async(_note("gone", log))
+        gone.cancel()  # its client went away before the writer got to it
+        await asyncio.sleep(0)
+        release.set()
+        answers = await asyncio.gather(*replies)
+        with pytest.raises(Refused, match="no such trial"):
+            await refused
+        return answers
+
+    answers = asyncio.run(main())
+    first.result(30)
+    assert [a.body["name"] for a in answers] == ["a0", "a1", "a2", "a3"]
+    assert len({a.body["txid"] for a in answers}) == 1
+    assert calls.count("_deliver") == 1  # one batch, one hand-back
+    assert "gone" not in log and _names(archive) == ["a0", "a1", "a2", "a3"]
+
+
+def _refused(archive):
+    raise Refused(404, "no such trial", "trial", 9)

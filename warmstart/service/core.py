@@ -5,7 +5,6 @@ leases, the tokens and the background jobs.
 
 from __future__ import annotations
 
-import asyncio
 import math
 import threading
 from typing import Any, Callable
@@ -144,5 +143,4 @@ class Service:
         """Run ``fn`` in the writer thread, in one transaction; the answer
         comes back after the commit (``early``: a result, run before the
         proposals committed with it)."""
-        future = self.writer.submit(fn, key, early=early)
-        return await asyncio.wrap_future(future)
+        return await self.writer.submit_async(fn, key, early=early)

@@ -23,6 +23,7 @@ batch.
 
 from __future__ import annotations
 
+import asyncio
 import concurrent.futures as cf
 import json
 import logging
@@ -76,8 +77,15 @@ class Answer:
 class _Job:
     fn: Callable[[Archive], tuple[int, Any]]
     key: RequestKey | None
-    future: cf.Future
+    future: cf.Future | None  # for a caller in a thread
     early: bool = False
+    reply: asyncio.Future | None = None  # for a caller in an event loop (one wake-up per batch)
+
+    def start(self) -> bool:
+        """Mark the job running; False when its caller gave up (cancelled) before."""
+        if self.reply is not None:
+            return not self.reply.cancelled()  # read across threads: a late cancel only loses the answer
+        return self.future.set_running_or_notify_cancel()
 
 
 class Writer:
@@ -125,11 +133,23 @@ class Writer:
         others of their batch.
         """
         future: cf.Future = cf.Future()
+        self._put(_Job(fn, key, future, early))
+        return future
+
+    def submit_async(self, fn: Callable[[Archive], tuple[int, Any]], key: RequestKey | None = None,
+                     early: bool = False) -> asyncio.Future:
+        """:meth:`submit` for a caller in a running event loop: the answers of a
+        batch go back to their loop together, one wake-up for the batch instead
+        of one per request."""
+        reply = asyncio.get_running_loop().create_future()
+        self._put(_Job(fn, key, None, early, reply))
+        return reply
+
+    def _put(self, job: _Job) -> None:
         with self._lock:
             if self._closed:
                 raise ServiceError(503, "the service is shutting down; try again when it is back")
-            self._queue.put(_Job(fn, key, future, early))
-        return future
+            self._queue.put(job)
 
     def close(self, timeout: float = 30.0) -> None:
         """Finish the queued writes, then stop the thread."""
@@ -163,7 +183,7 @@ class Writer:
                     stop = True
                     break
                 batch.append(more)
-            batch = [j for j in batch if j.future.set_running_or_notify_cancel()]
+            batch = [j for j in batch if j.start()]
             batch.sort(key=lambda j: not j.early)  # stable: results first, else in arrival order
             if batch:
                 self._run_batch(batch)
@@ -176,17 +196,13 @@ class Writer:
         except BaseException as exc:  # rolled back: nothing of the batch stands
             self._dropped()
             if len(batch) == 1:
-                batch[0].future.set_exception(exc)  # handed to the waiting request, never lost
+                _settle(batch, [exc])  # handed to the waiting request, never lost
             else:
                 for job in batch:
                     self._run_batch([job])
             return
         self._committed()
-        for job, outcome in zip(batch, outcomes):
-            if isinstance(outcome, BaseException):
-                job.future.set_exception(outcome)
-            else:
-                job.future.set_result(outcome)
+        _settle(batch, outcomes)
 
     def _committed(self) -> None:
         if self._on_commit is not None:
@@ -254,3 +270,31 @@ class Writer:
                  [status for _, status, _ in fresh], [text for _, _, text in fresh], _now()],
             )
         return outcomes
+
+
+def _settle(batch: list[_Job], outcomes: list) -> None:
+    """Hand each job its outcome (an exception is raised to its caller); the
+    jobs of one event loop get theirs in one call into that loop."""
+    by_loop: dict[Any, list[tuple[asyncio.Future, Any]]] = {}
+    for job, outcome in zip(batch, outcomes):
+        if job.reply is not None:
+            by_loop.setdefault(job.reply.get_loop(), []).append((job.reply, outcome))
+        elif isinstance(outcome, BaseException):
+            job.future.set_exception(outcome)
+        else:
+            job.future.set_result(outcome)
+    for loop, replies in by_loop.items():
+        try:
+            loop.call_soon_threadsafe(_deliver, replies)
+        except RuntimeError:  # the loop closed meanwhile: nobody waits for these answers
+            log.warning("%d answers not delivered: their event loop has closed", len(replies))
+
+
+def _deliver(replies: list[tuple[asyncio.Future, Any]]) -> None:
+    for reply, outcome in replies:
+        if reply.done():  # the request was cancelled (its client went away)
+            continue
+        if isinstance(outcome, BaseException):
+            reply.set_exception(outcome)
+        else:
+            reply.set_result(outcome)
