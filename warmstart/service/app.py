@@ -161,7 +161,7 @@ class _RequestLog:
 
 
 def create_app(archive: Archive | str, tokens: Tokens | None = None,
-               lease_seconds: float = DEFAULT_LEASE_SECONDS) -> FastAPI:
+               lease_seconds: float = DEFAULT_LEASE_SECONDS, search_process: bool = False) -> FastAPI:
     """The service's ASGI app over one archive.
 
     Parameters
@@ -173,10 +173,12 @@ def create_app(archive: Archive | str, tokens: Tokens | None = None,
         The team's tokens; None lets every request in (loopback use only).
     lease_seconds : float, default 3600
         Life of a lease when a proposal asks for none.
+    search_process : bool, default False
+        Run the studies' searches in a child process (see :class:`Service`).
     """
     if not isinstance(archive, Archive):
         archive = Archive(archive)
-    service = Service(archive, tokens=tokens, lease_seconds=lease_seconds)
+    service = Service(archive, tokens=tokens, lease_seconds=lease_seconds, search_process=search_process)
 
     @contextlib.asynccontextmanager
     async def lifespan(app: FastAPI):
