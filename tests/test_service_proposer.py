@@ -17,6 +17,7 @@ Branin test function, Dixon and Szegoe 1978).
 
 from __future__ import annotations
 
+import contextlib
 import os
 import pickle
 import shutil
@@ -299,3 +300,81 @@ def test_the_in_process_proposer_answers_like_the_child_for_unknown_studies():
             assert proposer.studies() == []
         finally:
             proposer.close()
+
+
+# -- a real `warmstart serve` with its search process ------------------------------------------------
+def _children(pid: int, marker: str = "spawn_main") -> list[int]:
+    """Live processes whose parent is ``pid`` and whose command line holds ``marker``
+    (multiprocessing's spawned children; its resource tracker has another), from /proc."""
+    found = []
+    for entry in os.listdir("/proc"):
+        if not entry.isdigit():
+            continue
+        try:
+            with open(f"/proc/{entry}/stat") as f:
+                state, ppid = f.read().rsplit(")", 1)[1].split()[:2]
+        except (FileNotFoundError, ProcessLookupError, IndexError):
+            continue
+        if int(ppid) == pid and state != "Z":
+            with contextlib.suppress(FileNotFoundError, ProcessLookupError):
+                with open(f"/proc/{entry}/cmdline", "rb") as f:
+                    if marker.encode() in f.read():
+                        found.append(int(entry))
+    return found
+
+
+def _pairs(url: str, study: int, n: int) -> None:
+    from warmstart.client import Client
+
+    with Client(url) as client:
+        for _ in range(n):
+            lease = client.propose(study)[0]
+            client.record(study, trial=lease["trial"], score=_score(lease["config"]))
+
+
+@pytest.mark.skipif(not os.path.isdir("/proc"), reason="finds the child process in /proc")
+def test_the_search_process_ends_with_a_killed_service_and_is_joined_by_a_stopped_one(tmp_path):
+    from service_support import ServerProcess
+    from warmstart.client import Client
+
+    path = tmp_path / "team.duckdb"
+    seed_archive(path)
+    server = ServerProcess(path, options=("--search-process",)).start()
+    try:
+        with Client(server.url) as client:
+            study = client.new_study(new_task(), "bran", space=SPACE, metric="loss", maximize=False)["study_id"]
+        _pairs(server.url, study, 3)
+        children = _children(server.proc.pid)
+        assert len(children) == 1  # the search process
+        helpers = _children(server.proc.pid, marker="resource_tracker")  # multiprocessing's own, with spawn
+        server.kill()  # kill -9: the child reads the end of its pipe and exits by itself
+        assert all(_wait_gone(pid, timeout=30) for pid in children + helpers)
+        server = ServerProcess(path, port=server.port, options=("--search-process",)).start()
+        _pairs(server.url, study, 3)  # the study rebuilt from the archive in the new child
+        children = _children(server.proc.pid)
+        assert len(children) == 1
+        assert server.stop(signal.SIGTERM) == 0
+        assert _wait_gone(children[0], timeout=5)  # stopped and joined before the service exits
+        log = server.log.read_text()
+        assert "searches in a child process" in log and "stopped on SIGTERM" in log
+        server = ServerProcess(path, port=server.port, options=("--no-search-process",)).start()
+        _pairs(server.url, study, 2)
+        assert _children(server.proc.pid, marker="") == []  # no process of any kind
+        assert server.stop(signal.SIGINT) == 0
+        assert "searches in this process" in server.log.read_text()
+    finally:
+        server.kill()
+    with Archive(path, read_only=True) as archive:
+        assert list(archive.trials(study)["number"]) == list(range(1, 9))
+
+
+def test_serve_help_says_why_the_searches_get_a_process():
+    from click.testing import CliRunner
+
+    from warmstart.cli import main
+
+    result = CliRunner().invoke(main, ["serve", "--help"])
+    assert result.exit_code == 0
+    text = " ".join(result.stdout.split())
+    assert "--search-process / --no-search-process" in text
+    assert "on a second core" in text and "2 or more cores" in text
