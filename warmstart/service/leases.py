@@ -40,6 +40,7 @@ from warmstart.service.errors import Refused, ServiceError
 from warmstart.service.proposer import InProcessProposer, NoConfigLeft, Proposer, SearchesLost
 from warmstart.service.rowbuffer import RowBuffer, TrialIds
 from warmstart.service.searches import resume_search
+from warmstart.service.writer import Later
 from warmstart.space import Space
 
 __all__ = ["LeaseBook", "DEFAULT_LEASE_SECONDS"]
@@ -84,6 +85,23 @@ class _Study:
             self.best_score = value
 
 
+@dataclass
+class _Asked:
+    """A proposal asked for in this batch: ids and expiry taken, configs drawn
+    when the batch settles (:meth:`LeaseBook.flush`)."""
+
+    study: int
+    k: int
+    state: _Study
+    ids: list[int]
+    owner: str | None
+    now: datetime
+    until: datetime
+    expired: int
+    trial_count: int
+    answer: Later
+
+
 class LeaseBook:
     """The studies' searches and their leases.
 
@@ -106,6 +124,7 @@ class LeaseBook:
         self.searches = searches if searches is not None else InProcessProposer()
         self._studies: dict[int, _Study] = {}
         self._touched: set[int] = set()
+        self._asked: list[_Asked] = []  # proposals of this batch not drawn yet
         self._rows = RowBuffer()
         self._ids = TrialIds()
 
@@ -113,6 +132,7 @@ class LeaseBook:
     def adopt(self, study: int, search: SearchStrategy) -> None:
         """Keep the search a new study starts with (it has no leases or trials yet)."""
         study = int(study)
+        self._settle()
         self._touched.add(study)
         state = _Study.of(search, next_number=1)
         with self._kept():
@@ -131,12 +151,58 @@ class LeaseBook:
             raise ServiceError(503, f"{exc}; nothing of this request was written", "searches") from None
 
     def flush(self, archive) -> None:
-        """Write the rows the writes of this batch left (called before the commit)."""
+        """Draw the proposals asked for so far and write the rows the writes of
+        this batch left (called before the commit, and before a read of the
+        leases inside the batch). The rows that wait for no proposal (trials,
+        recorded leases) are written while the searches draw."""
+        collect = self._ask()
+        try:
+            self._rows.flush(archive)
+        finally:
+            self._settle(collect)
         self._rows.flush(archive)
+        with self._kept():
+            self.searches.sync()
+
+    def _ask(self):
+        """Send every proposal asked for since the last settle to the searches, in
+        one exchange (in the order asked); returns what :meth:`_settle` takes."""
+        if not self._asked:
+            return None
+        asked, self._asked = self._asked, []
+        with self._kept():
+            return asked, self.searches.ask_many([(a.study, a.k) for a in asked])
+
+    def _settle(self, collect=False) -> None:
+        """The configs drawn for the proposals asked for (asks first when not
+        given): their answers and lease rows filled in."""
+        if collect is False:
+            collect = self._ask()
+        if collect is None:
+            return
+        asked, answer = collect
+        try:
+            with self._kept():
+                drawn = answer()
+        except NoConfigLeft as exc:
+            raise ServiceError(409, f"study {exc.study}: {exc}; record or let some leases expire, or ask for fewer",
+                               "k", exc.k) from None
+        for a, leased in zip(asked, drawn):
+            for trial, (key, _) in zip(a.ids, leased):
+                self._rows.add_lease(trial, a.study, key, a.owner, a.now, a.until)
+                a.state.open[trial] = (key, a.until)
+            a.answer.fill({
+                "study_id": a.study,
+                "leases": [{"trial": trial, "config": c, "expires_at": _stamp(a.until)}
+                           for trial, (_, c) in zip(a.ids, leased)],
+                "expired": a.expired,
+                "trial_count": a.trial_count,
+            })
 
     def abort(self) -> None:
         """Forget the searches touched since the last commit and the rows not
         written (the write failed and was rolled back)."""
+        self._asked.clear()  # never drawn: their answers are not given
         for study in self._touched:
             self.forget(study)
         self._touched.clear()
@@ -149,6 +215,7 @@ class LeaseBook:
 
     def forget(self, study: int | None = None) -> None:
         """Drop the cached search of one study (or all), with its leases' summary."""
+        self._settle()
         if study is None:
             self._studies.clear()
         else:
@@ -160,6 +227,7 @@ class LeaseBook:
 
     def close(self) -> None:
         """Drop every search (and stop the search process, if any)."""
+        self._asked.clear()
         self._studies.clear()
         self.searches.close()
 
@@ -188,6 +256,7 @@ class LeaseBook:
     def _expire(self, archive, study: int, state: _Study) -> int:
         if state.due is None or _now() < state.due:  # nothing pending has expired: no query
             return 0
+        self._settle()  # leases asked for in this batch may be among the expired ones
         now = _now()
         gone = sorted(trial for trial, (_, until) in state.open.items() if until <= now)
         if gone:
@@ -201,34 +270,24 @@ class LeaseBook:
         return len(gone)
 
     # -- propose -----------------------------------------------------------------
-    def propose(self, archive, study: int, k: int, seconds: float | None, owner: str | None) -> dict:
-        """Lease ``k`` distinct configs of ``study``; returns the answer body."""
+    def propose(self, archive, study: int, k: int, seconds: float | None, owner: str | None) -> Later:
+        """Lease ``k`` distinct configs of ``study``; returns the answer body,
+        filled in when the batch settles (:meth:`flush`, before its commit)."""
         state = self._study(archive, study)
         expired = self._expire(archive, study, state)
-        try:
-            with self._kept():
-                leased = self.searches.propose(study, k)
-        except NoConfigLeft as exc:
-            raise ServiceError(409, f"study {study}: {exc}; record or let some leases expire, or ask for fewer",
-                               "k", k) from None
         now = _now()
         until = now + timedelta(seconds=self.lease_seconds if seconds is None else float(seconds))
-        ids = self._ids.take(archive, len(leased))
-        for trial, (key, _) in zip(ids, leased):
-            self._rows.add_lease(trial, study, key, owner, now, until)
-            state.open[trial] = (key, until)
+        answer = Later()
+        self._asked.append(_Asked(study, int(k), state, self._ids.take(archive, k), owner, now, until, expired,
+                                  state.trial_count, answer))
         state.due = until if state.due is None else min(state.due, until)
-        return {
-            "study_id": study,
-            "leases": [{"trial": trial, "config": c, "expires_at": _stamp(until)} for trial, (_, c) in zip(ids, leased)],
-            "expired": expired,
-            "trial_count": state.trial_count,
-        }
+        return answer
 
     # -- record --------------------------------------------------------------------
     def record(self, archive, study: int, trial: int | None, config: dict | None, score: float | None,
                status: str, error: str | None, cost_s: float | None, owner: str | None) -> dict:
         """Record a result by lease (``trial``) or by ``config``; returns the answer body."""
+        self._settle()  # the searches hear of everything in the order it was asked
         state = self._study(archive, study)
         if (trial is None) == (config is None):
             raise Refused(422, "give either trial (the id of a lease) or config (a config never proposed)",

@@ -24,13 +24,13 @@ from __future__ import annotations
 
 import json
 from dataclasses import dataclass
-from typing import Any, ClassVar, Iterable
+from typing import Any, Callable, ClassVar, Iterable
 
 from warmstart.errors import WarmstartError
 from warmstart.search.strategy import SearchStrategy
 
 __all__ = ["Proposer", "InProcessProposer", "HeldSearch", "NoConfigLeft", "SearchesLost", "MAX_DRAWS",
-           "Adopt", "Propose", "Release", "Record", "Forget", "Studies", "Stop", "Message"]
+           "Adopt", "Propose", "ProposeMany", "Release", "Record", "Forget", "Studies", "Stop", "Message", "Bundle"]
 
 MAX_DRAWS = 8  # extra proposals tried when one repeats a pending config
 
@@ -42,11 +42,13 @@ class NoConfigLeft(WarmstartError):
     ----------
     pending : int
         Configs pending when the search gave up.
+    study, k : int, optional
+        The study and the number of configs asked for (when known).
     """
 
-    def __init__(self, pending: int):
-        super().__init__(pending)
-        self.pending = int(pending)
+    def __init__(self, pending: int, study: int | None = None, k: int | None = None):
+        super().__init__(pending, study, k)
+        self.pending, self.study, self.k = int(pending), study, k
 
     def __str__(self) -> str:
         return f"no config left that is not pending already ({self.pending} leased)"
@@ -155,6 +157,25 @@ class Propose(Message):
 
 
 @dataclass(frozen=True)
+class ProposeMany(Message):
+    """For each (study, k) in turn, ``k`` distinct configs of the study: one
+    list of (canonical JSON, config) pairs per item. The first failure stops
+    (a :class:`NoConfigLeft` names its study and k)."""
+
+    answered: ClassVar[bool] = True
+    items: tuple[tuple[int, int], ...]
+
+    def apply(self, held: dict[int, HeldSearch]) -> list[list[tuple[str, dict]]]:
+        out = []
+        for study, k in self.items:
+            try:
+                out.append(_held(held, study).propose(k))
+            except NoConfigLeft as exc:
+                raise NoConfigLeft(exc.pending, study, k) from None
+        return out
+
+
+@dataclass(frozen=True)
 class Release(Message):
     """Configs of expired leases of ``study``."""
 
@@ -206,6 +227,17 @@ class Stop(Message):
     """The child process ends (never applied)."""
 
 
+@dataclass(frozen=True)
+class Bundle:
+    """Messages sent together, applied in order; answered when the last one is."""
+
+    messages: tuple[Message, ...]
+
+    @property
+    def answered(self) -> bool:
+        return bool(self.messages) and self.messages[-1].answered
+
+
 # -- the interface and the in-process proposer -----------------------------------------------
 class Proposer:
     """The studies' searches, behind one interface (base of both proposers).
@@ -246,6 +278,38 @@ class Proposer:
             The searches are gone; drop what is kept of them and rebuild.
         """
         return self._send(Propose(int(study), int(k)))
+
+    def propose_many(self, items: Iterable[tuple[int, int]]) -> list[list[tuple[str, dict]]]:
+        """:meth:`propose` for each (study, k) in turn, in one exchange: one list per item.
+
+        Raises
+        ------
+        NoConfigLeft
+            For the first item that has no config left (its ``study`` and ``k`` set).
+        SearchesLost
+            As :meth:`propose`.
+        """
+        return self._send(ProposeMany(tuple((int(study), int(k)) for study, k in items)))
+
+    def ask_many(self, items: Iterable[tuple[int, int]]) -> Callable[[], list[list[tuple[str, dict]]]]:
+        """:meth:`propose_many`, answered later: returns a function that gives the
+        answer (or raises as :meth:`propose_many`). Call it before anything else
+        is asked of the searches; meanwhile a child process draws the configs
+        while this process does other work (the archive's writes)."""
+        try:
+            drawn = self.propose_many(items)
+        except (NoConfigLeft, SearchesLost) as exc:
+            error = exc
+
+            def fail() -> list:
+                raise error
+            return fail
+        return lambda: drawn
+
+    def sync(self) -> None:
+        """Deliver the messages sent without an answer (the child-process
+        proposer may keep them to send with the next); raises
+        :class:`SearchesLost` when the searches are gone."""
 
     def release(self, study: int, keys: Iterable[str]) -> None:
         """Configs (canonical JSON) of expired leases of ``study``: no longer pending."""

@@ -9,8 +9,12 @@ a fork of a process that runs threads) and sends it the messages of
 exactly as the in-process proposer would. A search is built in the service
 process (a resumed one needs the archive, which only the service opens) and
 sent pickled once, when its study is adopted; after that only small
-messages go: a proposal waits for its answer, everything else is sent
-without waiting.
+messages go: a proposal waits for its answer, everything else is kept and
+sent with the next proposal (or at :meth:`ChildProcessProposer.sync`), so
+that a batch of the writer costs one exchange with the child. Every system
+call lets the service's other threads take Python's lock, and the writer
+then waits for it back (up to the switch interval, 5 ms): fewer calls,
+fewer waits.
 
 Faults: when the child ends (killed, crashed) the next message finds its
 pipe closed, the proposer says so with
@@ -31,10 +35,11 @@ import signal
 import threading
 import traceback
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, NoReturn
 
 from warmstart.errors import WarmstartError
-from warmstart.service.proposer import Forget, HeldSearch, Message, Proposer, SearchesLost, Stop
+from warmstart.service.proposer import (Bundle, Forget, HeldSearch, Message, Proposer, ProposeMany, SearchesLost,
+                                        Stop)
 
 __all__ = ["ChildProcessProposer", "SearchFailed", "serve_searches", "START_METHOD", "REPLY_TIMEOUT_S"]
 
@@ -42,6 +47,7 @@ log = logging.getLogger("warmstart.service")
 START_METHOD = "spawn"  # a fresh interpreter: forking a process with threads (the service's) is unsafe
 REPLY_TIMEOUT_S = 300.0  # a proposal takes milliseconds; a child silent this long is taken for hung
 STOP_TIMEOUT_S = 10.0
+OUTBOX_MAX = 256  # messages without an answer kept at most before they are sent
 
 
 class SearchFailed(WarmstartError):
@@ -74,6 +80,8 @@ class ChildProcessProposer(Proposer):
         self._process = None
         self._conn = None
         self._lock = threading.Lock()
+        self._outbox: list[Message] = []  # sent without an answer, not yet delivered
+        self._asked = False  # a ProposeMany sent by ask_many, its answer not read yet
         #: children started so far (more than one: some were lost and replaced)
         self.started = 0
 
@@ -104,9 +112,10 @@ class ChildProcessProposer(Proposer):
             if self._process is None:
                 return
             try:
-                self._conn.send(Stop())
+                self._conn.send(Bundle((*self._outbox, Stop())))
             except OSError:
                 pass
+            self._outbox.clear()
             self._process.join(STOP_TIMEOUT_S)
             self._end()
 
@@ -114,11 +123,38 @@ class ChildProcessProposer(Proposer):
         """Make sure the child is gone (killed when it is still there) and forget it; its exit code."""
         process, conn = self._process, self._conn
         self._process = self._conn = None
+        self._outbox.clear()
+        self._asked = False
         if process.is_alive():
             process.kill()
         process.join(STOP_TIMEOUT_S)
         conn.close()
         return process.exitcode
+
+    def ask_many(self, items):
+        """Send the proposals now; the function returned reads their answer
+        (the child draws them meanwhile)."""
+        message = ProposeMany(tuple((int(study), int(k)) for study, k in items))
+        with self._lock:
+            if self._process is None:
+                self._start()
+            self._exchange(message, wait=False)
+            self._asked = True
+
+        def answer() -> list:
+            with self._lock:
+                self._asked = False
+                reply = self._receive()
+            if reply.error is not None:
+                raise reply.error
+            return reply.value
+        return answer
+
+    def sync(self) -> None:
+        """Deliver the messages kept so far (raises SearchesLost when the child is gone)."""
+        with self._lock:
+            if self._outbox:
+                self._exchange(None)
 
     def _send(self, message: Message) -> Any:
         with self._lock:
@@ -126,23 +162,49 @@ class ChildProcessProposer(Proposer):
                 if isinstance(message, Forget):
                     return None  # no child: no search held
                 self._start()
-            try:
-                self._conn.send(message)
-                if not message.answered:
-                    return None
-                if not self._conn.poll(self.reply_timeout):
-                    raise TimeoutError(f"no answer within {self.reply_timeout:g} s")
-                reply: _Reply = self._conn.recv()
-            except (OSError, EOFError) as exc:
-                why = "no answer" if isinstance(exc, TimeoutError) else f"{type(exc).__name__}"
-                code = self._end()
-                log.warning("the search process ended (%s, exit code %s); a new one starts with the next "
-                            "request, every search rebuilt from the archive", why, code)
-                raise SearchesLost(f"the search process ended ({why}, exit code {code}); the searches are "
-                                   "rebuilt from the archive: retry the request") from None
+            if not message.answered:
+                self._outbox.append(message)
+                if len(self._outbox) >= OUTBOX_MAX:
+                    self._exchange(None)
+                return None
+            reply = self._exchange(message)
         if reply.error is not None:
             raise reply.error
         return reply.value
+
+    def _exchange(self, message: Message | None, wait: bool = True) -> "_Reply | None":
+        """Send the kept messages and ``message`` as one bundle; its reply when it
+        is answered (``wait`` False: read later by :meth:`_receive`)."""
+        if self._asked:
+            raise RuntimeError("read the answer of ask_many before asking the searches anything else")
+        bundle = Bundle((*self._outbox, *(() if message is None else (message,))))
+        self._outbox.clear()
+        try:
+            self._conn.send(bundle)
+        except OSError as exc:
+            self._lost(exc)
+        if bundle.answered and wait:
+            return self._receive()
+        return None
+
+    def _receive(self) -> "_Reply":
+        try:
+            if self._conn is None:
+                raise EOFError("no search process")
+            if not self._conn.poll(self.reply_timeout):
+                raise TimeoutError(f"no answer within {self.reply_timeout:g} s")
+            return self._conn.recv()
+        except (OSError, EOFError) as exc:
+            self._lost(exc)
+
+    def _lost(self, exc: BaseException) -> NoReturn:
+        """The child is gone (or hung): end it and say so."""
+        why = "no answer" if isinstance(exc, TimeoutError) else f"{type(exc).__name__}"
+        code = self._end() if self._process is not None else None
+        log.warning("the search process ended (%s, exit code %s); a new one starts with the next "
+                    "request, every search rebuilt from the archive", why, code)
+        raise SearchesLost(f"the search process ended ({why}, exit code {code}); the searches are "
+                           "rebuilt from the archive: retry the request") from None
 
 
 def _sendable(error: BaseException) -> BaseException:
@@ -166,21 +228,22 @@ def serve_searches(conn) -> None:
     held: dict[int, HeldSearch] = {}
     while True:
         try:
-            message = conn.recv()
+            bundle = conn.recv()
         except (EOFError, OSError):
             return
-        if isinstance(message, Stop):
-            return
-        try:
-            reply = _Reply(message.apply(held))
-        except Exception as exc:
-            reply = _Reply(error=_sendable(exc))
-            if not message.answered:  # nobody waits to be told: the study's next proposal says it is lost
-                held.pop(getattr(message, "study", None), None)
-                log.warning("search process: %s failed (%s: %s); the study's search is dropped",
-                            type(message).__name__, type(exc).__name__, exc)
-        if message.answered:
-            try:
-                conn.send(reply)
-            except OSError:
+        for message in bundle.messages:
+            if isinstance(message, Stop):
                 return
+            try:
+                reply = _Reply(message.apply(held))
+            except Exception as exc:
+                reply = _Reply(error=_sendable(exc))
+                if not message.answered:  # nobody waits to be told: the study's next proposal says it is lost
+                    held.pop(getattr(message, "study", None), None)
+                    log.warning("search process: %s failed (%s: %s); the study's search is dropped",
+                                type(message).__name__, type(exc).__name__, exc)
+            if message.answered:
+                try:
+                    conn.send(reply)
+                except OSError:
+                    return
