@@ -128,6 +128,22 @@ def _health_process(args) -> list[float]:
     return out
 
 
+def _spin(seconds: float) -> float:
+    """Busy for ``seconds`` of wall time; the CPU seconds this process got meanwhile."""
+    start, cpu = time.monotonic(), time.process_time()
+    while time.monotonic() - start < seconds:
+        pass
+    return time.process_time() - cpu
+
+
+def cores_available(seconds: float = 2.0) -> float:
+    """Cores two busy processes of ours get together right now (2.0 on an idle machine
+    with 2 cores; less when other work on the machine takes its share)."""
+    with mp.get_context("spawn").Pool(2) as pool:
+        pool.map(_warm, range(2))
+        return sum(pool.map(_spin, [seconds] * 2)) / seconds
+
+
 def _warm(_: int) -> int:
     """Nothing: makes each pool process import the client before anything is timed."""
     return os.getpid()
@@ -364,7 +380,8 @@ def main() -> None:
     if args.clients % PROCESSES:
         parser.error(f"--clients must be a multiple of {PROCESSES}")
     folder = Path(tempfile.mkdtemp(prefix="bench-service-"))
-    print(f"machine: {os.cpu_count()} cores, load average {os.getloadavg()[0]:.2f}", flush=True)
+    print(f"machine: {os.cpu_count()} cores, load average {os.getloadavg()[0]:.2f}; two busy processes of ours "
+          f"get {cores_available():.2f} cores together", flush=True)
     row, table = record_paths(100)
     print(f"one trial recorded alone: Archive.record_trial {row * 1000:.1f} ms, a one-row table through "
           f"Archive.add_trials {table * 1000:.1f} ms ({table / row:.1f}x)", flush=True)
@@ -387,6 +404,7 @@ def main() -> None:
             with ServerProcess(path, log=folder / f"server-{kind}.log", options=(option,)) as server:
                 results[kind], passed = load_server(server, args, pool, local)
             ok &= passed
+            print(f"two busy processes of ours now get {cores_available():.2f} cores together", flush=True)
     if len(kinds) == 2:
         print("\nside by side (records/s, pair p50 / p99 ms, server CPU per pair with its children):")
         print(f"  {'scenario':<36} {'searches in a child process':>34} {'searches in the server process':>34}")
