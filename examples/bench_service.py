@@ -149,15 +149,17 @@ def _warm(_: int) -> int:
     return os.getpid()
 
 
-def process_cpu(pid: int) -> float | None:
+def process_cpu(pid: int, children: bool = True) -> float | None:
     """CPU seconds (user + system) a process and its children have used so far: its own,
-    its children's that ended and were waited for, and its live descendants'; None where
-    /proc is missing."""
+    its children's that ended and were waited for, and its live descendants' (``children``
+    False: its own only); None where /proc is missing."""
     try:
         fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
-        ticks = sum(int(f) for f in fields[11:15])  # utime, stime, cutime, cstime
+        ticks = sum(int(f) for f in fields[11:15 if children else 13])  # utime, stime, cutime, cstime
     except (OSError, ValueError, IndexError):
         return None
+    if not children:
+        return ticks / os.sysconf("SC_CLK_TCK")
     parents: dict[int, list[tuple[int, int]]] = {}
     for entry in os.listdir("/proc"):
         if entry.isdigit():
@@ -269,6 +271,45 @@ def record_paths(n: int) -> tuple[float, float]:
         shutil.rmtree(folder, ignore_errors=True)
 
 
+def proposer_cost(n: int) -> dict[str, tuple[float, float]]:
+    """Per propose + record pair of one warm study's search, without HTTP or archive:
+    (seconds of the calling thread, seconds of the process and its children) through the
+    in-process proposer and through the child-process one (what the service's own
+    process spends on the search, and what the search costs in all)."""
+    import pickle
+
+    from threadpoolctl import threadpool_limits
+
+    from warmstart.archive.store import Archive
+    from warmstart.service.proposer import InProcessProposer
+    from warmstart.service.search_process import ChildProcessProposer
+    from warmstart.service.searches import start_search
+    from warmstart.space import Space
+
+    folder = Path(tempfile.mkdtemp(prefix="bench-proposer-"))
+    out = {}
+    try:
+        seed_archive(folder / "seeded.duckdb")
+        with Archive(folder / "seeded.duckdb") as archive:
+            search, *_ = start_search(archive, new_task(seed=10)["profile"], [], "bran", Space.from_dict(SPACE), False)
+        frozen = pickle.dumps(search)
+        with threadpool_limits(limits=1, user_api="blas"):  # as the service runs
+            for name, proposer in (("in-process", InProcessProposer()), ("child", ChildProcessProposer())):
+                proposer.start()
+                proposer.adopt(1, pickle.loads(frozen))
+                proposer.studies()  # started and holding the search
+                cpu, thread = process_cpu(os.getpid()), time.thread_time()
+                for _ in range(n):
+                    [[(key, config)]] = proposer.ask_many([(1, 1)])()
+                    proposer.record(1, key, branin(config["x1"], config["x2"]), "ok")
+                proposer.studies()  # every result applied
+                out[name] = ((time.thread_time() - thread) / n, (process_cpu(os.getpid()) - cpu) / n)
+                proposer.close()
+    finally:
+        shutil.rmtree(folder, ignore_errors=True)
+    return out
+
+
 def summary(rows: list[dict], wall: float) -> dict:
     pair = np.array([r["pair_s"] for r in rows]) * 1000
     return {"pairs": len(rows), "wall_s": wall, "requests_per_s": 2 * len(rows) / wall,
@@ -335,11 +376,14 @@ def load_server(server: ServerProcess, args, pool, local: float) -> tuple[dict, 
     for label, chosen, rate in scenarios:
         load_before = os.getloadavg()[0]
         server_cpu = process_cpu(server.proc.pid)
+        own_cpu = process_cpu(server.proc.pid, children=False)
         rows, wall, client_cpu = run_load(server.url, chosen, args.clients, args.pairs, pool,
                                           args.train_ms / 1000, rate)
         server_cpu = None if server_cpu is None else process_cpu(server.proc.pid) - server_cpu
+        own_cpu = None if own_cpu is None else process_cpu(server.proc.pid, children=False) - own_cpu
         s = summary(rows, wall)
         s["server_cpu_ms"] = None if server_cpu is None else server_cpu / max(s["pairs"], 1) * 1000
+        s["own_cpu_ms"] = None if own_cpu is None else own_cpu / max(s["pairs"], 1) * 1000
         all_there, distinct = check(server.url, rows, chosen)
         results[label] = s
         ok &= all_there and distinct and s["pairs"] == args.clients * args.pairs
@@ -353,7 +397,8 @@ def load_server(server: ServerProcess, args, pool, local: float) -> tuple[dict, 
               f"{GOALS['p99_ms']:.0f}: {s['p99_ms'] / GOALS['p99_ms']:.1f}x the goal)")
         print(f"  vs one process without HTTP: {s['p50_ms'] / (local * 1000):.1f}x its time per pair, "
               f"{s['records_per_s'] * local:.2f}x its records/s")
-        shown = "n/a" if server_cpu is None else f"{s['server_cpu_ms']:.2f} ms"
+        shown = "n/a" if server_cpu is None else (f"{s['server_cpu_ms']:.2f} ms (its own process "
+                                                  f"{own_cpu / s['pairs'] * 1000:.2f} ms)")
         print(f"  CPU per pair: server (with its children) {shown}, clients {client_cpu / s['pairs'] * 1000:.2f} ms "
               f"(the clients share the {os.cpu_count()} cores; load average before {load_before:.2f}, "
               f"now {os.getloadavg()[0]:.2f})")
@@ -388,6 +433,10 @@ def main() -> None:
     local = baseline_in_process(200)
     print(f"baseline, one process without HTTP: {local * 1000:.2f} ms per propose + record pair "
           f"({1 / local:.0f} records/s)", flush=True)
+    cost = proposer_cost(200)
+    print("one warm study's search without HTTP, per propose + record (200 pairs): "
+          + "; ".join(f"{name}: {thread * 1000:.2f} ms in the calling thread, {total * 1000:.2f} ms in all"
+                      for name, (thread, total) in cost.items()), flush=True)
     kinds = ["child", "in-process"] if args.search_process == "both" else [args.search_process]
     seed_archive(folder / "seeded.duckdb")
     results: dict = {}
@@ -406,15 +455,17 @@ def main() -> None:
             ok &= passed
             print(f"two busy processes of ours now get {cores_available():.2f} cores together", flush=True)
     if len(kinds) == 2:
-        print("\nside by side (records/s, pair p50 / p99 ms, server CPU per pair with its children):")
-        print(f"  {'scenario':<36} {'searches in a child process':>34} {'searches in the server process':>34}")
+        print("\nside by side (records/s, pair p50 / p99 ms, server CPU per pair with its children / of its "
+              "own process):")
+        print(f"  {'scenario':<36} {'searches in a child process':>40} {'searches in the server process':>40}")
         for label in results[kinds[0]]:
             cells = []
             for kind in kinds:
                 s_ = results[kind][label]
-                cpu = "n/a" if s_["server_cpu_ms"] is None else f"{s_['server_cpu_ms']:.2f} ms"
+                cpu = ("n/a" if s_["server_cpu_ms"] is None else
+                       f"{s_['server_cpu_ms']:.2f} / {s_['own_cpu_ms']:.2f} ms")
                 cells.append(f"{s_['records_per_s']:.0f}, {s_['p50_ms']:.0f} / {s_['p99_ms']:.0f} ms, {cpu}")
-            print(f"  {label:<36} {cells[0]:>34} {cells[1]:>34}")
+            print(f"  {label:<36} {cells[0]:>40} {cells[1]:>40}")
         child, own = results["child"], results["in-process"]
         ratios = [child[label]["records_per_s"] / own[label]["records_per_s"] for label in child]
         print(f"  records/s, child over in-process: {min(ratios):.2f}x - {max(ratios):.2f}x")
