@@ -18,6 +18,7 @@ Branin test function, Dixon and Szegoe 1978).
 from __future__ import annotations
 
 import contextlib
+import json
 import os
 import pickle
 import shutil
@@ -27,6 +28,8 @@ import time
 import numpy as np
 import pytest
 from fastapi.testclient import TestClient
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from service_support import SPACE, branin, dump, new_task, seed_archive
 from warmstart.archive.store import Archive
@@ -81,6 +84,36 @@ def test_a_pickled_search_proposes_what_the_original_proposes(tmp_path, kind, ex
         search.record(a, _score(a))
         copy.record(b, _score(b))
     assert copy.best.score == search.best.score
+
+
+@settings(max_examples=25, deadline=None)
+@given(st.lists(st.tuples(st.sampled_from(["propose", "release", "record", "config"]), st.integers(1, 3),
+                          st.integers(0, 10**6)), min_size=1, max_size=25))
+def test_held_search_never_leases_a_pending_config_and_agrees_with_its_search(steps):
+    # invariant: every config handed out differs from every config pending at that time, and the
+    # pending set kept beside the search is exactly what the search holds pending (one copy each)
+    space = Space.from_dict(SPACE)
+    held = HeldSearch(DensitySearch(space, seed=3, maximize=False))
+    for what, k, pick in steps:
+        pending = sorted(held.pending)
+        if what == "propose":
+            try:
+                leased = held.propose(k)
+            except NoConfigLeft:  # may happen only once the search keeps repeating pending configs
+                continue
+            keys = [key for key, _ in leased]
+            assert len(set(keys)) == k and not set(keys) & set(pending)
+        elif what in ("release", "record") and pending:
+            key = pending[pick % len(pending)]
+            if what == "release":
+                held.release([key])
+            else:
+                held.record(key, _score(json.loads(key)), "ok")
+            assert key not in held.pending
+        elif what == "config":
+            config = space.sample(1, rng=pick)[0]
+            held.record(space.canonical_json(config), _score(config), "ok")
+        assert held.search.n_pending == len(held.pending)
 
 
 def test_held_search_refuses_when_every_proposal_is_pending_already():

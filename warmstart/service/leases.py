@@ -15,7 +15,16 @@ inside the transaction of the request: the leases live in the archive
 or in a child process of their own (:mod:`warmstart.service.proposer`), and
 the book keeps each study's pending leases, next trial number, trial count
 and best score, so a proposal or a result by lease reads nothing from the
-archive and a result waits for nothing from the searches. The rows a write leaves (leases,
+archive and a result waits for nothing from the searches.
+
+A proposal takes its trial ids and expiry at once and answers with a
+:class:`~warmstart.service.writer.Later` body: the configs of every
+proposal of a batch are drawn together, in the order asked, when the batch
+settles (:meth:`LeaseBook.flush`, run by the writer before the commit, or
+before anything else is asked of the searches), in one exchange with them;
+the rows of the batch's results are written while the searches draw. The
+searches see the same calls in the same order as if each proposal had drawn
+at once, so the proposals are the same. The rows a write leaves (leases,
 trials) wait in a :class:`~warmstart.service.rowbuffer.RowBuffer` that the
 writer flushes before its batch commits, one statement per table. A write
 that fails drops the searches it touched and the rows not written

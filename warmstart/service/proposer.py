@@ -17,7 +17,9 @@ history, while the search's computation runs on another core than the
 service's HTTP and archive writes (Python runs one thread at a time per
 process). Only a proposal is answered; everything else is sent without
 waiting, the lease book keeps what its answers need (trial count, best
-score) itself.
+score) itself. The lease book asks for all the proposals of a writer batch
+at once (:meth:`Proposer.ask_many`) and reads their answer after it has
+written the batch's other rows.
 """
 
 from __future__ import annotations

@@ -82,6 +82,7 @@ class ChildProcessProposer(Proposer):
         self._lock = threading.Lock()
         self._outbox: list[Message] = []  # sent without an answer, not yet delivered
         self._asked = False  # a ProposeMany sent by ask_many, its answer not read yet
+        self._heard = False  # the running child has answered at least once
         #: children started so far (more than one: some were lost and replaced)
         self.started = 0
 
@@ -104,6 +105,7 @@ class ChildProcessProposer(Proposer):
         process.start()
         theirs.close()  # only the child holds its end: when the child ends, this end reads EOF
         self._process, self._conn = process, mine
+        self._heard = False
         self.started += 1
 
     def close(self) -> None:
@@ -193,17 +195,24 @@ class ChildProcessProposer(Proposer):
                 raise EOFError("no search process")
             if not self._conn.poll(self.reply_timeout):
                 raise TimeoutError(f"no answer within {self.reply_timeout:g} s")
-            return self._conn.recv()
+            reply = self._conn.recv()
         except (OSError, EOFError) as exc:
             self._lost(exc)
+        self._heard = True
+        return reply
 
     def _lost(self, exc: BaseException) -> NoReturn:
         """The child is gone (or hung): end it and say so."""
         why = "no answer" if isinstance(exc, TimeoutError) else f"{type(exc).__name__}"
+        heard = self._heard
         code = self._end() if self._process is not None else None
-        log.warning("the search process ended (%s, exit code %s); a new one starts with the next "
-                    "request, every search rebuilt from the archive", why, code)
-        raise SearchesLost(f"the search process ended ({why}, exit code {code}); the searches are "
+        hint = "" if heard else (
+            " before it ever answered; if a script starts the service with search_process=True, it must do so "
+            "under `if __name__ == '__main__':` (the spawned process imports the main module; its error, if "
+            "any, is on stderr)")
+        log.warning("the search process ended (%s, exit code %s)%s; a new one starts with the next "
+                    "request, every search rebuilt from the archive", why, code, hint)
+        raise SearchesLost(f"the search process ended ({why}, exit code {code}){hint}; the searches are "
                            "rebuilt from the archive: retry the request") from None
 
 
