@@ -448,8 +448,8 @@ def main() -> None:
             path = folder / f"team-{kind}.duckdb"
             shutil.copy(folder / "seeded.duckdb", path)
             option = "--search-process" if kind == "child" else "--no-search-process"
-            print(f"\n=== server: warmstart serve {option} (searches {'in a child process' if kind == 'child' else 'in the server process'})",
-                  flush=True)
+            where = "in a child process" if kind == "child" else "in the server process"
+            print(f"\n=== server: warmstart serve {option} (searches {where})", flush=True)
             with ServerProcess(path, log=folder / f"server-{kind}.log", options=(option,)) as server:
                 results[kind], passed = load_server(server, args, pool, local)
             ok &= passed
