@@ -250,7 +250,10 @@ def _wait_gone(pid: int, timeout: float = 30.0) -> bool:
     return False
 
 
-def test_a_killed_search_process_gives_one_503_then_a_new_child_rebuilt_from_the_archive(tmp_path):
+def test_a_killed_search_process_costs_at_most_a_503_then_a_new_child_rebuilt_from_the_archive(tmp_path):
+    # a result goes to the search process without waiting for it: its send may or may not see that the
+    # child is gone (a 503, nothing written, or a 200 and the next exchange sees it); a proposal waits
+    # for its answer, so the first one after the death always does. Never a 500, nothing half-written.
     path = tmp_path / "team.duckdb"
     seed_archive(path)
     with TestClient(create_app(Archive(path), search_process=True), raise_server_exceptions=False) as c:
@@ -266,23 +269,28 @@ def test_a_killed_search_process_gives_one_503_then_a_new_child_rebuilt_from_the
         pid = service.leases.searches.pid
         os.kill(pid, signal.SIGKILL)
         assert _wait_gone(pid)
-        before = dump(service.reader().con)
-        lost = c.post(f"/api/v1/studies/{study}/trials",
-                      json={"trial": leases[1]["trial"], "score": _score(leases[1]["config"])})
-        assert lost.status_code == 503, lost.text
-        assert lost.json()["field"] == "searches" and "search process ended" in lost.json()["error"]
-        assert dump(service.reader().con) == before  # nothing of it was written
-        again = c.post(f"/api/v1/studies/{study}/trials",
-                       json={"trial": leases[1]["trial"], "score": _score(leases[1]["config"])})
-        assert again.status_code == 200, again.text
-        assert again.json()["number"] == 2 and again.json()["trial_count"] == 2
-        fresh = c.post(f"/api/v1/studies/{study}/propose", json={"k": 2})
-        assert fresh.status_code == 200, fresh.text
-        pending = [leases[2]["config"]] + [x["config"] for x in fresh.json()["leases"]]
-        assert len({tuple(sorted(p.items())) for p in pending}) == 3  # the rebuilt search holds the open lease
+        statuses = []
+        for _ in range(2):  # a 503 leaves nothing written; the retry records it
+            before = dump(service.reader().con)
+            second = c.post(f"/api/v1/studies/{study}/trials",
+                            json={"trial": leases[1]["trial"], "score": _score(leases[1]["config"])})
+            statuses.append(second.status_code)
+            if second.status_code == 200:
+                break
+            assert second.status_code == 503 and second.json()["field"] == "searches", second.text
+            assert "search process ended" in second.json()["error"]
+            assert dump(service.reader().con) == before
+        assert statuses in ([200], [503, 200])
+        assert second.json()["number"] == 2 and second.json()["trial_count"] == 2
+        proposed = [c.post(f"/api/v1/studies/{study}/propose", json={"k": 2}) for _ in range(2)]
+        codes = [p.status_code for p in proposed]
+        # the death is seen by exactly one request: the record (503) or else the first proposal
+        assert codes == ([200, 200] if statuses == [503, 200] else [503, 200]), codes
+        fresh = [x["config"] for p in proposed if p.status_code == 200 for x in p.json()["leases"]]
+        pending = [leases[2]["config"]] + fresh
+        assert len({tuple(sorted(p.items())) for p in pending}) == len(pending)  # the rebuilt search holds them
         assert service.leases.searches.pid not in (None, pid) and service.leases.searches.started == 2
-        trials = service.reader().trials(study)
-        assert list(trials["number"]) == [1, 2]
+        assert list(service.reader().trials(study)["number"]) == [1, 2]
 
 
 def test_a_lost_search_process_during_a_proposal_writes_nothing(tmp_path):
