@@ -25,11 +25,19 @@ recorded alone by the one-row INSERT against a one-row table (the earlier path).
 clients share the 2 cores with the server. A plot of the pair latencies goes
 to ``--plot``.
 
+The studies' searches run in a child process of the server
+(``serve --search-process``) or in the server's own process
+(``--no-search-process``); ``--search-process both`` (the default) runs every
+scenario against one server of each kind, back to back on fresh copies of
+the seeded archive, and prints them side by side. The server's CPU counts
+its child processes' CPU.
+
 Run::
 
-    python examples/bench_service.py                      # 32 clients x 50 pairs
+    python examples/bench_service.py                      # 32 clients x 50 pairs, both kinds of server
     python examples/bench_service.py --clients 8 --pairs 20
     python examples/bench_service.py --rate 0                # closed loop only
+    python examples/bench_service.py --search-process child  # one kind only
 """
 
 from __future__ import annotations
@@ -120,18 +128,52 @@ def _health_process(args) -> list[float]:
     return out
 
 
+def _spin(seconds: float) -> float:
+    """Busy for ``seconds`` of wall time; the CPU seconds this process got meanwhile."""
+    start, cpu = time.monotonic(), time.process_time()
+    while time.monotonic() - start < seconds:
+        pass
+    return time.process_time() - cpu
+
+
+def cores_available(seconds: float = 2.0) -> float:
+    """Cores two busy processes of ours get together right now (2.0 on an idle machine
+    with 2 cores; less when other work on the machine takes its share)."""
+    with mp.get_context("spawn").Pool(2) as pool:
+        pool.map(_warm, range(2))
+        return sum(pool.map(_spin, [seconds] * 2)) / seconds
+
+
 def _warm(_: int) -> int:
     """Nothing: makes each pool process import the client before anything is timed."""
     return os.getpid()
 
 
-def process_cpu(pid: int) -> float | None:
-    """CPU seconds (user + system) a process has used so far; None where /proc is missing."""
+def process_cpu(pid: int, children: bool = True) -> float | None:
+    """CPU seconds (user + system) a process and its children have used so far: its own,
+    its children's that ended and were waited for, and its live descendants' (``children``
+    False: its own only); None where /proc is missing."""
     try:
         fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
-        return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
+        ticks = sum(int(f) for f in fields[11:15 if children else 13])  # utime, stime, cutime, cstime
     except (OSError, ValueError, IndexError):
         return None
+    if not children:
+        return ticks / os.sysconf("SC_CLK_TCK")
+    parents: dict[int, list[tuple[int, int]]] = {}
+    for entry in os.listdir("/proc"):
+        if entry.isdigit():
+            try:
+                f = Path(f"/proc/{entry}/stat").read_text().rsplit(")", 1)[1].split()
+                parents.setdefault(int(f[1]), []).append((int(entry), int(f[11]) + int(f[12])))
+            except (OSError, ValueError, IndexError):
+                continue
+    todo = [pid]
+    while todo:  # live descendants (the search process, multiprocessing's resource tracker)
+        for child, own in parents.get(todo.pop(), []):
+            ticks += own
+            todo.append(child)
+    return ticks / os.sysconf("SC_CLK_TCK")
 
 
 def run_load(url: str, studies: list[int], clients: int, pairs: int, pool, train_s: float = 0.0,
@@ -229,6 +271,45 @@ def record_paths(n: int) -> tuple[float, float]:
         shutil.rmtree(folder, ignore_errors=True)
 
 
+def proposer_cost(n: int) -> dict[str, tuple[float, float]]:
+    """Per propose + record pair of one warm study's search, without HTTP or archive:
+    (seconds of the calling thread, seconds of the process and its children) through the
+    in-process proposer and through the child-process one (what the service's own
+    process spends on the search, and what the search costs in all)."""
+    import pickle
+
+    from threadpoolctl import threadpool_limits
+
+    from warmstart.archive.store import Archive
+    from warmstart.service.proposer import InProcessProposer
+    from warmstart.service.search_process import ChildProcessProposer
+    from warmstart.service.searches import start_search
+    from warmstart.space import Space
+
+    folder = Path(tempfile.mkdtemp(prefix="bench-proposer-"))
+    out = {}
+    try:
+        seed_archive(folder / "seeded.duckdb")
+        with Archive(folder / "seeded.duckdb") as archive:
+            search, *_ = start_search(archive, new_task(seed=10)["profile"], [], "bran", Space.from_dict(SPACE), False)
+        frozen = pickle.dumps(search)
+        with threadpool_limits(limits=1, user_api="blas"):  # as the service runs
+            for name, proposer in (("in-process", InProcessProposer()), ("child", ChildProcessProposer())):
+                proposer.start()
+                proposer.adopt(1, pickle.loads(frozen))
+                proposer.studies()  # started and holding the search
+                cpu, thread = process_cpu(os.getpid()), time.thread_time()
+                for _ in range(n):
+                    [[(key, config)]] = proposer.ask_many([(1, 1)])()
+                    proposer.record(1, key, branin(config["x1"], config["x2"]), "ok")
+                proposer.studies()  # every result applied
+                out[name] = ((time.thread_time() - thread) / n, (process_cpu(os.getpid()) - cpu) / n)
+                proposer.close()
+    finally:
+        shutil.rmtree(folder, ignore_errors=True)
+    return out
+
+
 def summary(rows: list[dict], wall: float) -> dict:
     pair = np.array([r["pair_s"] for r in rows]) * 1000
     return {"pairs": len(rows), "wall_s": wall, "requests_per_s": 2 * len(rows) / wall,
@@ -237,28 +318,93 @@ def summary(rows: list[dict], wall: float) -> dict:
 
 
 def plot(results: dict, path: Path) -> None:
+    """One panel per kind of server (``results``: kind -> label -> summary): the share of
+    pairs at most so slow, per scenario."""
     import matplotlib
 
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
-    fig, ax = plt.subplots(figsize=(7, 4))
-    for label, s in results.items():
-        x = np.sort(s["latencies_ms"])
-        ax.plot(x, np.arange(1, x.size + 1) / x.size, label=f"{label} (p50 {s['p50_ms']:.0f} ms)",
-                linestyle="--" if "pairs/s" in label else "-")  # dashed: paced
-    for q, goal in (("p50", GOALS["p50_ms"]), ("p99", GOALS["p99_ms"])):
-        ax.axvline(goal, color="grey", linestyle=":", linewidth=1)
-        ax.text(goal, 0.02, f" goal {q}", color="grey", fontsize=8)
-    ax.set_xscale("log")
-    ax.set_xlabel("propose + record pair latency (ms, log scale)")
-    ax.set_ylabel("share of pairs at most this slow")
-    ax.set_title("warmstart serve: 32 concurrent clients (invented scenario)")
-    ax.legend(fontsize=8)
+    titles = {"child": "searches in a child process", "in-process": "searches in the server process"}
+    fig, axes = plt.subplots(1, len(results), figsize=(7 * len(results), 4), sharex=True, sharey=True,
+                             squeeze=False)
+    for ax, (kind, by_label) in zip(axes[0], results.items()):
+        for label, s in by_label.items():
+            x = np.sort(s["latencies_ms"])
+            ax.plot(x, np.arange(1, x.size + 1) / x.size,
+                    label=f"{label} ({s['records_per_s']:.0f}/s, p50 {s['p50_ms']:.0f} ms)",
+                    linestyle="--" if "pairs/s" in label else "-")  # dashed: paced
+        for q, goal in (("p50", GOALS["p50_ms"]), ("p99", GOALS["p99_ms"])):
+            ax.axvline(goal, color="grey", linestyle=":", linewidth=1)
+            ax.text(goal, 0.02, f" goal {q}", color="grey", fontsize=8)
+        ax.set_xscale("log")
+        ax.set_xlabel("propose + record pair latency (ms, log scale)")
+        ax.set_title(f"warmstart serve, {titles.get(kind, kind)}", fontsize=10)
+        ax.legend(fontsize=7)
+    axes[0][0].set_ylabel("share of pairs at most this slow")
+    fig.suptitle("32 concurrent clients (invented scenario)", fontsize=10)
     fig.tight_layout()
     path.parent.mkdir(parents=True, exist_ok=True)
     fig.savefig(path, dpi=110)
     plt.close(fig)
+
+
+def load_server(server: ServerProcess, args, pool, local: float) -> tuple[dict, bool]:
+    """Every scenario against one running server: their summaries (by label) and whether
+    every check passed."""
+    results: dict = {}
+    ok = True
+    scenarios = []  # (label, studies, offered pairs/s or 0 for a closed loop)
+    with Client(server.url) as client:
+        for paced, rate in ((False, 0.0), (True, args.rate)):
+            if paced and not rate:
+                continue
+            tag = f" at {rate:g} pairs/s" if paced else ""
+            base = 40 if paced else 10
+            studies = [client.new_study(new_task(seed=base + i, name=f"store {base + i}"), "bran", space=SPACE,
+                                        metric="loss", maximize=False)["study_id"] for i in range(8)]
+            cold = client.new_study(new_task(seed=base + 20, name=f"store cold {base}"), "bran", space=SPACE,
+                                    metric="loss", maximize=False, cold=True)["study_id"]
+            scenarios += [("one cold study" + tag, [cold], rate), ("one warm study" + tag, studies[:1], rate),
+                          ("8 warm studies" + tag, studies, rate)]
+    t0 = time.perf_counter()
+    health = [x for part in pool.map(_health_process, [(server.url, 20, args.clients // PROCESSES)] * PROCESSES)
+              for x in part]
+    health_wall = time.perf_counter() - t0
+    print(f"baseline, GET /api/v1/health at {args.clients} clients: p50 {np.percentile(health, 50) * 1000:.1f} ms, "
+          f"{len(health) / health_wall:.0f} requests/s", flush=True)
+    for label, chosen, rate in scenarios:
+        load_before = os.getloadavg()[0]
+        server_cpu = process_cpu(server.proc.pid)
+        own_cpu = process_cpu(server.proc.pid, children=False)
+        rows, wall, client_cpu = run_load(server.url, chosen, args.clients, args.pairs, pool,
+                                          args.train_ms / 1000, rate)
+        server_cpu = None if server_cpu is None else process_cpu(server.proc.pid) - server_cpu
+        own_cpu = None if own_cpu is None else process_cpu(server.proc.pid, children=False) - own_cpu
+        s = summary(rows, wall)
+        s["server_cpu_ms"] = None if server_cpu is None else server_cpu / max(s["pairs"], 1) * 1000
+        s["own_cpu_ms"] = None if own_cpu is None else own_cpu / max(s["pairs"], 1) * 1000
+        all_there, distinct = check(server.url, rows, chosen)
+        results[label] = s
+        ok &= all_there and distinct and s["pairs"] == args.clients * args.pairs
+        print(f"\n{label}: {args.clients} clients x {args.pairs} propose + record pairs"
+              + (f" ({args.train_ms:g} ms training each)" if args.train_ms else "")
+              + f", {s['pairs']} answered in {s['wall_s']:.1f} s", flush=True)
+        print(f"  requests/s {s['requests_per_s']:.0f}   records/s {s['records_per_s']:.0f} "
+              f"(goal >= {GOALS['records_per_s']:.0f}: {s['records_per_s'] / GOALS['records_per_s']:.2f}x)")
+        print(f"  pair latency p50 {s['p50_ms']:.1f} ms (goal <= {GOALS['p50_ms']:.0f}: "
+              f"{s['p50_ms'] / GOALS['p50_ms']:.1f}x the goal)   p99 {s['p99_ms']:.1f} ms (goal <= "
+              f"{GOALS['p99_ms']:.0f}: {s['p99_ms'] / GOALS['p99_ms']:.1f}x the goal)")
+        print(f"  vs one process without HTTP: {s['p50_ms'] / (local * 1000):.1f}x its time per pair, "
+              f"{s['records_per_s'] * local:.2f}x its records/s")
+        shown = "n/a" if server_cpu is None else (f"{s['server_cpu_ms']:.2f} ms (its own process "
+                                                  f"{own_cpu / s['pairs'] * 1000:.2f} ms)")
+        print(f"  CPU per pair: server (with its children) {shown}, clients {client_cpu / s['pairs'] * 1000:.2f} ms "
+              f"(the clients share the {os.cpu_count()} cores; load average before {load_before:.2f}, "
+              f"now {os.getloadavg()[0]:.2f})")
+        print(f"  every answered record in the archive: {all_there}; no config leased twice while pending: "
+              f"{distinct}")
+    return results, ok
 
 
 def main() -> None:
@@ -271,67 +417,58 @@ def main() -> None:
     parser.add_argument("--rate", type=float, default=GOALS["records_per_s"],
                         help="pairs per second offered by all clients together in the paced scenarios, run on "
                              "fresh studies after the closed-loop ones (default: the goal, 300; 0: none)")
+    parser.add_argument("--search-process", choices=("both", "child", "in-process"), default="both",
+                        help="where the server runs the studies' searches: in a child process (serve "
+                             "--search-process), in its own process (--no-search-process), or both, one server "
+                             "after the other (default)")
     args = parser.parse_args()
     if args.clients % PROCESSES:
         parser.error(f"--clients must be a multiple of {PROCESSES}")
     folder = Path(tempfile.mkdtemp(prefix="bench-service-"))
-    print(f"machine: {os.cpu_count()} cores, load average {os.getloadavg()[0]:.2f}", flush=True)
+    print(f"machine: {os.cpu_count()} cores, load average {os.getloadavg()[0]:.2f}; two busy processes of ours "
+          f"get {cores_available():.2f} cores together", flush=True)
     row, table = record_paths(100)
     print(f"one trial recorded alone: Archive.record_trial {row * 1000:.1f} ms, a one-row table through "
           f"Archive.add_trials {table * 1000:.1f} ms ({table / row:.1f}x)", flush=True)
     local = baseline_in_process(200)
     print(f"baseline, one process without HTTP: {local * 1000:.2f} ms per propose + record pair "
           f"({1 / local:.0f} records/s)", flush=True)
-    path = folder / "team.duckdb"
-    seed_archive(path)
-    results = {}
+    cost = proposer_cost(200)
+    print("one warm study's search without HTTP, per propose + record (200 pairs): "
+          + "; ".join(f"{name}: {thread * 1000:.2f} ms in the calling thread, {total * 1000:.2f} ms in all"
+                      for name, (thread, total) in cost.items()), flush=True)
+    kinds = ["child", "in-process"] if args.search_process == "both" else [args.search_process]
+    seed_archive(folder / "seeded.duckdb")
+    results: dict = {}
     ok = True
     ctx = mp.get_context("spawn")
-    with ServerProcess(path, log=folder / "server.log") as server, ctx.Pool(PROCESSES) as pool:
-        scenarios = []  # (label, studies, offered pairs/s or 0 for a closed loop)
-        with Client(server.url) as client:
-            for paced, rate in ((False, 0.0), (True, args.rate)):
-                if paced and not rate:
-                    continue
-                tag = f" at {rate:g} pairs/s" if paced else ""
-                base = 40 if paced else 10
-                studies = [client.new_study(new_task(seed=base + i, name=f"store {base + i}"), "bran", space=SPACE,
-                                            metric="loss", maximize=False)["study_id"] for i in range(8)]
-                cold = client.new_study(new_task(seed=base + 20, name=f"store cold {base}"), "bran", space=SPACE,
-                                        metric="loss", maximize=False, cold=True)["study_id"]
-                scenarios += [("one cold study" + tag, [cold], rate), ("one warm study" + tag, studies[:1], rate),
-                              ("8 warm studies" + tag, studies, rate)]
+    with ctx.Pool(PROCESSES) as pool:
         pool.map(_warm, range(PROCESSES))
-        t0 = time.perf_counter()
-        health = [x for part in pool.map(_health_process, [(server.url, 20, args.clients // PROCESSES)] * PROCESSES)
-                  for x in part]
-        health_wall = time.perf_counter() - t0
-        print(f"baseline, GET /api/v1/health at {args.clients} clients: p50 {np.percentile(health, 50) * 1000:.1f} ms, "
-              f"{len(health) / health_wall:.0f} requests/s", flush=True)
-        for label, chosen, rate in scenarios:
-            server_cpu = process_cpu(server.proc.pid)
-            rows, wall, client_cpu = run_load(server.url, chosen, args.clients, args.pairs, pool,
-                                              args.train_ms / 1000, rate)
-            server_cpu = None if server_cpu is None else process_cpu(server.proc.pid) - server_cpu
-            s = summary(rows, wall)
-            all_there, distinct = check(server.url, rows, chosen)
-            results[label] = s
-            ok &= all_there and distinct and s["pairs"] == args.clients * args.pairs
-            print(f"\n{label}: {args.clients} clients x {args.pairs} propose + record pairs"
-                  + (f" ({args.train_ms:g} ms training each)" if args.train_ms else "")
-                  + f", {s['pairs']} answered in {s['wall_s']:.1f} s", flush=True)
-            print(f"  requests/s {s['requests_per_s']:.0f}   records/s {s['records_per_s']:.0f} "
-                  f"(goal >= {GOALS['records_per_s']:.0f}: {s['records_per_s'] / GOALS['records_per_s']:.2f}x)")
-            print(f"  pair latency p50 {s['p50_ms']:.1f} ms (goal <= {GOALS['p50_ms']:.0f}: "
-                  f"{s['p50_ms'] / GOALS['p50_ms']:.1f}x the goal)   p99 {s['p99_ms']:.1f} ms (goal <= "
-                  f"{GOALS['p99_ms']:.0f}: {s['p99_ms'] / GOALS['p99_ms']:.1f}x the goal)")
-            print(f"  vs one process without HTTP: {s['p50_ms'] / (local * 1000):.1f}x its time per pair, "
-                  f"{s['records_per_s'] * local:.2f}x its records/s")
-            shown = "n/a" if server_cpu is None else f"{server_cpu / s['pairs'] * 1000:.2f} ms"
-            print(f"  CPU per pair: server {shown}, clients {client_cpu / s['pairs'] * 1000:.2f} ms "
-                  f"(the clients share the {os.cpu_count()} cores; load average now {os.getloadavg()[0]:.2f})")
-            print(f"  every answered record in the archive: {all_there}; no config leased twice while pending: "
-                  f"{distinct}")
+        for kind in kinds:
+            path = folder / f"team-{kind}.duckdb"
+            shutil.copy(folder / "seeded.duckdb", path)
+            option = "--search-process" if kind == "child" else "--no-search-process"
+            where = "in a child process" if kind == "child" else "in the server process"
+            print(f"\n=== server: warmstart serve {option} (searches {where})", flush=True)
+            with ServerProcess(path, log=folder / f"server-{kind}.log", options=(option,)) as server:
+                results[kind], passed = load_server(server, args, pool, local)
+            ok &= passed
+            print(f"two busy processes of ours now get {cores_available():.2f} cores together", flush=True)
+    if len(kinds) == 2:
+        print("\nside by side (records/s, pair p50 / p99 ms, server CPU per pair with its children / of its "
+              "own process):")
+        print(f"  {'scenario':<36} {'searches in a child process':>40} {'searches in the server process':>40}")
+        for label in results[kinds[0]]:
+            cells = []
+            for kind in kinds:
+                s_ = results[kind][label]
+                cpu = ("n/a" if s_["server_cpu_ms"] is None else
+                       f"{s_['server_cpu_ms']:.2f} / {s_['own_cpu_ms']:.2f} ms")
+                cells.append(f"{s_['records_per_s']:.0f}, {s_['p50_ms']:.0f} / {s_['p99_ms']:.0f} ms, {cpu}")
+            print(f"  {label:<36} {cells[0]:>40} {cells[1]:>40}")
+        child, own = results["child"], results["in-process"]
+        ratios = [child[label]["records_per_s"] / own[label]["records_per_s"] for label in child]
+        print(f"  records/s, child over in-process: {min(ratios):.2f}x - {max(ratios):.2f}x")
     plot(results, Path(args.plot))
     print(f"\nplot: {args.plot}")
     shutil.rmtree(folder, ignore_errors=True)

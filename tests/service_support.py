@@ -91,9 +91,10 @@ class ServerProcess:
     """A real ``warmstart serve`` on 127.0.0.1 (bounded: stopped by the test)."""
 
     def __init__(self, archive: Path, port: int | None = None, token_file: Path | None = None,
-                 log: Path | None = None):
+                 log: Path | None = None, options: tuple[str, ...] = ()):
         self.archive, self.port = Path(archive), port or free_port()
         self.token_file = token_file
+        self.options = tuple(options)  # more options of `serve`, e.g. ("--no-search-process",)
         self.log = log or self.archive.with_suffix(".log")
         self.proc: subprocess.Popen | None = None
 
@@ -106,6 +107,7 @@ class ServerProcess:
                 "serve", "--host", "127.0.0.1", "--port", str(self.port)]
         if self.token_file:
             args += ["--token-file", str(self.token_file)]
+        args += list(self.options)
         env = {**os.environ, "PYTHONPATH": str(REPO) + os.pathsep + os.environ.get("PYTHONPATH", "")}
         self._log = open(self.log, "ab")
         self.proc = subprocess.Popen(args, stdout=self._log, stderr=self._log, env=env, cwd=str(REPO))

@@ -14,7 +14,7 @@ import pytest
 
 from warmstart.archive.store import Archive
 from warmstart.service.errors import Refused, ServiceError
-from warmstart.service.writer import RequestKey, Writer
+from warmstart.service.writer import Later, RequestKey, Writer
 
 
 def _note(name: str, log: list):
@@ -175,3 +175,49 @@ def test_answers_to_an_event_loop_come_back_in_one_call_per_batch(held):
 
 def _refused(archive):
     raise Refused(404, "no such trial", "trial", 9)
+
+
+def test_later_bodies_are_filled_before_the_commit_and_retries_in_the_batch_get_them(tmp_path):
+    archive = Archive(tmp_path / "w.duckdb")
+    waiting: list[Later] = []
+    order: list[str] = []
+
+    def before_commit(archive):  # as the lease book draws a batch's proposals
+        order.append("before_commit")
+        for n, later in enumerate(waiting):
+            later.fill({"drawn": n})
+        waiting.clear()
+
+    writer = Writer(archive, before_commit=before_commit)
+    writer.start()
+    release, entered = threading.Event(), threading.Event()
+
+    def hold(archive):
+        entered.set()
+        assert release.wait(30)
+        return 200, {}
+
+    def later(archive):
+        order.append("write")
+        waiting.append(Later())
+        return 200, waiting[-1]
+
+    first = writer.submit(hold)
+    assert entered.wait(30)
+    key = RequestKey("dana", "req-9", "POST /propose", "00")
+    one, two, same = writer.submit(later, key), writer.submit(later), writer.submit(later, key)
+    release.set()
+    try:
+        first.result(30)
+        a, b, c = one.result(30), two.result(30), same.result(30)
+        assert (a.body, b.body) == ({"drawn": 0}, {"drawn": 1})
+        assert c.replayed and c.body == a.body  # the retry in the same batch: the first answer, once filled
+        assert order == ["before_commit", "write", "write", "before_commit"]  # the held write, then the batch
+        stored = archive.con.execute("SELECT response FROM requests WHERE request_id = 'req-9'").fetchall()
+        assert stored == [('{"drawn": 0}',)]
+        unfilled = writer.submit(lambda archive: (200, Later()))
+        with pytest.raises(RuntimeError, match="was not filled in before its batch committed"):
+            unfilled.result(30)
+    finally:
+        writer.close()
+        archive.close()

@@ -31,8 +31,12 @@ def _is_loopback(host: str) -> bool:
               help='TOML file with one table per person: [dana] token = "..." role = "read"|"write"|"admin".')
 @click.option("--lease-seconds", default=3600.0, show_default=True, type=click.FloatRange(min=1),
               help="Life of a proposal (lease) when the request asks for none.")
+@click.option("--search-process/--no-search-process", default=None,
+              help="Run the studies' searches in a child process, so proposals compute on a second core while "
+                   "this process serves HTTP and writes the archive (one Python process uses about one core). "
+                   "Default: on when the machine gives this process 2 or more cores.")
 @click.pass_context
-def serve(ctx, host, port, token_file, lease_seconds):
+def serve(ctx, host, port, token_file, lease_seconds, search_process):
     """Serve the archive to the team over HTTP: one process owns the file.
 
     Training jobs propose and record through it (leases keep parallel workers
@@ -55,13 +59,16 @@ def serve(ctx, host, port, token_file, lease_seconds):
     from warmstart.archive.turns import open_archive
 
     archive = open_archive(ctx.find_root().obj["archive_path"], wait=wait_seconds(ctx))
-    app = create_app(archive, tokens=tokens, lease_seconds=lease_seconds)
+    if search_process is None:
+        search_process = usable_cores() >= 2
+    app = create_app(archive, tokens=tokens, lease_seconds=lease_seconds, search_process=search_process)
     listener = _log_to_stderr()
     config = uvicorn.Config(app, host=host, port=port, log_level="warning", access_log=False, lifespan="on",
                             timeout_graceful_shutdown=30)
     server = _make_server(config)
     who = f"tokens for {', '.join(tokens.names())}" if tokens else "no tokens (loopback only)"
-    click.echo(f"serving {archive.path} on http://{host}:{port} ({who}); page at /, "
+    where = "searches in a child process" if search_process else "searches in this process"
+    click.echo(f"serving {archive.path} on http://{host}:{port} ({who}; {where}); page at /, "
                "API description at /api/v1/openapi.json; Ctrl-C stops", err=True)
     try:
         server.run()
@@ -71,6 +78,16 @@ def serve(ctx, host, port, token_file, lease_seconds):
         click.echo(f"stopped on {server.stopped_by}; queued writes finished, archive closed", err=True)
     if not server.started:
         ctx.exit(1)
+
+
+def usable_cores() -> int:
+    """Cores this process may run on (its CPU affinity where the system tells it)."""
+    import os
+
+    try:
+        return len(os.sched_getaffinity(0))
+    except (AttributeError, OSError):
+        return os.cpu_count() or 1
 
 
 def _log_to_stderr():

@@ -162,7 +162,8 @@ class _RequestLog:
 
 
 def create_app(archive: Archive | str, tokens: Tokens | None = None,
-               lease_seconds: float = DEFAULT_LEASE_SECONDS, fast_lane: bool = True) -> FastAPI:
+               lease_seconds: float = DEFAULT_LEASE_SECONDS, search_process: bool = False,
+               fast_lane: bool = True) -> FastAPI:
     """The service's ASGI app over one archive.
 
     Parameters
@@ -174,6 +175,8 @@ def create_app(archive: Archive | str, tokens: Tokens | None = None,
         The team's tokens; None lets every request in (loopback use only).
     lease_seconds : float, default 3600
         Life of a lease when a proposal asks for none.
+    search_process : bool, default False
+        Run the studies' searches in a child process (see :class:`Service`).
     fast_lane : bool, default True
         Answer ordinary propose and record requests in
         :class:`~warmstart.service.fastlane.FastLane` (same answers, a
@@ -181,7 +184,7 @@ def create_app(archive: Archive | str, tokens: Tokens | None = None,
     """
     if not isinstance(archive, Archive):
         archive = Archive(archive)
-    service = Service(archive, tokens=tokens, lease_seconds=lease_seconds)
+    service = Service(archive, tokens=tokens, lease_seconds=lease_seconds, search_process=search_process)
 
     @contextlib.asynccontextmanager
     async def lifespan(app: FastAPI):

@@ -16,6 +16,7 @@ from warmstart.archive.store import Archive
 from warmstart.service.auth import Tokens
 from warmstart.service.jobs import GainJobs
 from warmstart.service.leases import DEFAULT_LEASE_SECONDS, LeaseBook
+from warmstart.service.proposer import InProcessProposer
 from warmstart.service.writer import Answer, RequestKey, Writer
 
 __all__ = ["Service", "jsonable"]
@@ -57,10 +58,15 @@ class Service:
         The team's tokens; None lets every request in as an anonymous admin.
     lease_seconds : float, default 3600
         Life of a lease when a proposal asks for none.
+    search_process : bool, default False
+        Keep the studies' searches in a child process of their own
+        (:mod:`warmstart.service.search_process`), so their computation runs
+        on another core than HTTP and the archive's writes; False keeps them
+        in this process (no process to start: what in-process tests want).
     """
 
     def __init__(self, archive: Archive, tokens: Tokens | None = None,
-                 lease_seconds: float = DEFAULT_LEASE_SECONDS):
+                 lease_seconds: float = DEFAULT_LEASE_SECONDS, search_process: bool = False):
         if archive.read_only:
             raise ValueError("the service needs the archive opened for writing")
         self.archive = archive
@@ -68,7 +74,13 @@ class Service:
         #: the queries module caches profile indexes in one process-wide table; its
         #: users (neighbors, defaults, priors, warm starts) take turns through this lock
         self.query_lock = threading.Lock()
-        self.leases = LeaseBook(lease_seconds, query_lock=self.query_lock)
+        if search_process:
+            from warmstart.service.search_process import ChildProcessProposer
+
+            searches = ChildProcessProposer()
+        else:
+            searches = InProcessProposer()
+        self.leases = LeaseBook(lease_seconds, query_lock=self.query_lock, searches=searches)
         self.writer = Writer(archive, on_commit=self.leases.committed, on_failure=self.leases.abort,
                              before_commit=self.leases.flush)
         self.jobs = GainJobs(self)
@@ -84,7 +96,8 @@ class Service:
 
     # -- lifecycle -------------------------------------------------------------
     def start(self) -> None:
-        """Start the writer (and clear stored answers past their retention).
+        """Start the writer (and clear stored answers past their retention) and
+        the search process, if the searches run in one.
 
         While the service runs, BLAS uses one thread: its numerical work is
         many small matrix products, and BLAS threads that spin for cores the
@@ -96,6 +109,7 @@ class Service:
             from threadpoolctl import threadpool_limits
 
             self._blas = threadpool_limits(limits=1, user_api="blas")
+            self.leases.searches.start()  # the child imports while the writer starts
             self.writer.start()
             self.started = True
 
@@ -105,9 +119,11 @@ class Service:
             return self._root.reader()
 
     def close(self) -> None:
-        """Finish queued writes, stop jobs, close every view and the archive."""
+        """Finish queued writes, stop jobs and the search process, close every
+        view and the archive."""
         self.jobs.close()
         self.writer.close()
+        self.leases.close()
         with self._views_lock:
             for view in self._views:
                 view.close()

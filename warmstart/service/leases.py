@@ -11,13 +11,27 @@ config may be proposed again; a late result for it is still recorded.
 
 Every method here runs in the writer thread (:mod:`warmstart.service.writer`),
 inside the transaction of the request: the leases live in the archive
-(table ``leases``), the searches built from them in memory, with each
-study's pending leases and next trial number, so a proposal or a result by
-lease reads nothing from the archive. The rows a write leaves (leases,
+(table ``leases``), the searches built from them in memory, in this process
+or in a child process of their own (:mod:`warmstart.service.proposer`), and
+the book keeps each study's pending leases, next trial number, trial count
+and best score, so a proposal or a result by lease reads nothing from the
+archive and a result waits for nothing from the searches.
+
+A proposal takes its trial ids and expiry at once and answers with a
+:class:`~warmstart.service.writer.Later` body: the configs of every
+proposal of a batch are drawn together, in the order asked, when the batch
+settles (:meth:`LeaseBook.flush`, run by the writer before the commit, or
+before anything else is asked of the searches), in one exchange with them;
+the rows of the batch's results are written while the searches draw. The
+searches see the same calls in the same order as if each proposal had drawn
+at once, so the proposals are the same. The rows a write leaves (leases,
 trials) wait in a :class:`~warmstart.service.rowbuffer.RowBuffer` that the
 writer flushes before its batch commits, one statement per table. A write
 that fails drops the searches it touched and the rows not written
-(:meth:`LeaseBook.abort`), so memory never runs ahead of what was committed.
+(:meth:`LeaseBook.abort`), in the child process too, so memory never runs
+ahead of what was committed. When the searches are lost (the child process
+ended) the book drops every study it keeps, answers 503, and rebuilds each
+study from the archive when it is used next.
 """
 
 from __future__ import annotations
@@ -30,15 +44,17 @@ from datetime import datetime, timedelta, timezone
 from typing import Any
 
 from warmstart.errors import SpaceError, WarmstartError
-from warmstart.search.strategy import SearchStrategy
+from warmstart.search.strategy import SearchStrategy, classify_result
 from warmstart.service.errors import Refused, ServiceError
+from warmstart.service.proposer import InProcessProposer, NoConfigLeft, Proposer, SearchesLost
 from warmstart.service.rowbuffer import RowBuffer, TrialIds
 from warmstart.service.searches import resume_search
+from warmstart.service.writer import Later
+from warmstart.space import Space
 
 __all__ = ["LeaseBook", "DEFAULT_LEASE_SECONDS"]
 
 DEFAULT_LEASE_SECONDS = 3600.0
-MAX_DRAWS = 8  # extra proposals tried when one repeats a pending config
 
 
 def _now() -> datetime:
@@ -51,15 +67,48 @@ def _stamp(moment: datetime) -> str:
 
 @dataclass
 class _Study:
-    """What the lease book keeps of one study, kept and dropped together."""
+    """What the lease book keeps of one study, kept and dropped together (the
+    search itself is the proposer's)."""
 
-    search: SearchStrategy
+    space: Space
+    maximize: bool
     next_number: int  # the number the study's next trial gets
-    #: canonical JSON of the pending leases' configs
-    pending: set[str] = field(default_factory=set)
+    trial_count: int  # trials the search holds (ok and failed), as committed
+    best_score: float | None = None  # the best ok score so far (the first of equals)
     #: pending leases: trial id -> (canonical JSON of the config, expiry)
     open: dict[int, tuple[str, datetime]] = field(default_factory=dict)
     due: datetime | None = None  # earliest expiry among the pending leases (None: none pending)
+
+    @classmethod
+    def of(cls, search: SearchStrategy, next_number: int) -> "_Study":
+        best = search.best
+        return cls(search.space, search.maximize, next_number, search.trial_count,
+                   None if best is None else float(best.score))
+
+    def counted(self, score: float | None, status: str) -> None:
+        """A result recorded: the trial count and best score follow as the search's would."""
+        value, _ = classify_result(score, status)
+        self.trial_count += 1
+        if value is not None and (self.best_score is None
+                                  or (value > self.best_score if self.maximize else value < self.best_score)):
+            self.best_score = value
+
+
+@dataclass
+class _Asked:
+    """A proposal asked for in this batch: ids and expiry taken, configs drawn
+    when the batch settles (:meth:`LeaseBook.flush`)."""
+
+    study: int
+    k: int
+    state: _Study
+    ids: list[int]
+    owner: str | None
+    now: datetime
+    until: datetime
+    expired: int
+    trial_count: int
+    answer: Later
 
 
 class LeaseBook:
@@ -72,13 +121,19 @@ class LeaseBook:
     query_lock : threading.Lock, optional
         Taken while a search is rebuilt (a warm one builds its prior with the
         queries that readers also run).
+    searches : Proposer, optional
+        Where the searches live and compute; default
+        :class:`~warmstart.service.proposer.InProcessProposer` (this process).
     """
 
-    def __init__(self, lease_seconds: float = DEFAULT_LEASE_SECONDS, query_lock=None):
+    def __init__(self, lease_seconds: float = DEFAULT_LEASE_SECONDS, query_lock=None,
+                 searches: Proposer | None = None):
         self.lease_seconds = float(lease_seconds)
         self.query_lock = query_lock or contextlib.nullcontext()
+        self.searches = searches if searches is not None else InProcessProposer()
         self._studies: dict[int, _Study] = {}
         self._touched: set[int] = set()
+        self._asked: list[_Asked] = []  # proposals of this batch not drawn yet
         self._rows = RowBuffer()
         self._ids = TrialIds()
 
@@ -86,16 +141,77 @@ class LeaseBook:
     def adopt(self, study: int, search: SearchStrategy) -> None:
         """Keep the search a new study starts with (it has no leases or trials yet)."""
         study = int(study)
-        self._studies[study] = _Study(search, next_number=1)
+        self._settle()
         self._touched.add(study)
+        state = _Study.of(search, next_number=1)
+        with self._kept():
+            self.searches.adopt(study, search)
+        self._studies[study] = state
+
+    @contextlib.contextmanager
+    def _kept(self):
+        """Around a call to the searches: when they are lost, drop every study kept
+        here too and answer 503 (the batch is rolled back; each study is rebuilt
+        from the archive when it is used next)."""
+        try:
+            yield
+        except SearchesLost as exc:
+            self._studies.clear()
+            raise ServiceError(503, f"{exc}; nothing of this request was written", "searches") from None
 
     def flush(self, archive) -> None:
-        """Write the rows the writes of this batch left (called before the commit)."""
+        """Draw the proposals asked for so far and write the rows the writes of
+        this batch left (called before the commit, and before a read of the
+        leases inside the batch). The rows that wait for no proposal (trials,
+        recorded leases) are written while the searches draw."""
+        collect = self._ask()
+        try:
+            self._rows.flush(archive)
+        finally:
+            self._settle(collect)
         self._rows.flush(archive)
+        with self._kept():
+            self.searches.sync()
+
+    def _ask(self):
+        """Send every proposal asked for since the last settle to the searches, in
+        one exchange (in the order asked); returns what :meth:`_settle` takes."""
+        if not self._asked:
+            return None
+        asked, self._asked = self._asked, []
+        with self._kept():
+            return asked, self.searches.ask_many([(a.study, a.k) for a in asked])
+
+    def _settle(self, collect=False) -> None:
+        """The configs drawn for the proposals asked for (asks first when not
+        given): their answers and lease rows filled in."""
+        if collect is False:
+            collect = self._ask()
+        if collect is None:
+            return
+        asked, answer = collect
+        try:
+            with self._kept():
+                drawn = answer()
+        except NoConfigLeft as exc:
+            raise ServiceError(409, f"study {exc.study}: {exc}; record or let some leases expire, or ask for fewer",
+                               "k", exc.k) from None
+        for a, leased in zip(asked, drawn):
+            for trial, (key, _) in zip(a.ids, leased):
+                self._rows.add_lease(trial, a.study, key, a.owner, a.now, a.until)
+                a.state.open[trial] = (key, a.until)
+            a.answer.fill({
+                "study_id": a.study,
+                "leases": [{"trial": trial, "config": c, "expires_at": _stamp(a.until)}
+                           for trial, (_, c) in zip(a.ids, leased)],
+                "expired": a.expired,
+                "trial_count": a.trial_count,
+            })
 
     def abort(self) -> None:
         """Forget the searches touched since the last commit and the rows not
         written (the write failed and was rolled back)."""
+        self._asked.clear()  # never drawn: their answers are not given
         for study in self._touched:
             self.forget(study)
         self._touched.clear()
@@ -108,10 +224,21 @@ class LeaseBook:
 
     def forget(self, study: int | None = None) -> None:
         """Drop the cached search of one study (or all), with its leases' summary."""
+        self._settle()
         if study is None:
             self._studies.clear()
         else:
             self._studies.pop(int(study), None)
+        try:
+            self.searches.forget(study)
+        except SearchesLost:  # gone with every other search: nothing of them is kept here either
+            self._studies.clear()
+
+    def close(self) -> None:
+        """Drop every search (and stop the search process, if any)."""
+        self._asked.clear()
+        self._studies.clear()
+        self.searches.close()
 
     def _study(self, archive, study: int) -> _Study:
         """The study's state (built on first use: 404 for an unknown study), its
@@ -126,12 +253,11 @@ class LeaseBook:
             rows = archive.con.execute(
                 "SELECT trial_id, config, expires_at FROM leases WHERE study_id = ? AND state = 'pending' "
                 "ORDER BY trial_id", [study]).fetchall()
-            for _, config, _ in rows:
-                search.hold(json.loads(config), source="lease")
-            state = _Study(search, next_number=archive.next_trial_number(study))
-            state.pending = {config for _, config, _ in rows}
+            state = _Study.of(search, next_number=archive.next_trial_number(study))
             state.open = {int(trial): (config, until) for trial, config, until in rows}
             state.due = min((until for _, _, until in rows), default=None)
+            with self._kept():
+                self.searches.adopt(study, search, held=[config for _, config, _ in rows])
             self._studies[study] = state
         return state
 
@@ -139,6 +265,7 @@ class LeaseBook:
     def _expire(self, archive, study: int, state: _Study) -> int:
         if state.due is None or _now() < state.due:  # nothing pending has expired: no query
             return 0
+        self._settle()  # leases asked for in this batch may be among the expired ones
         now = _now()
         gone = sorted(trial for trial, (_, until) in state.open.items() if until <= now)
         if gone:
@@ -146,55 +273,31 @@ class LeaseBook:
             archive.con.execute(
                 "UPDATE leases SET state = 'expired' WHERE state = 'pending' AND trial_id IN "
                 "(SELECT unnest(?::BIGINT[]))", [gone])
-        for trial in gone:
-            config, _ = state.open.pop(trial)
-            state.search.release(json.loads(config))
-            state.pending.discard(config)
+        with self._kept():
+            self.searches.release(study, [state.open.pop(trial)[0] for trial in gone])
         state.due = min((until for _, until in state.open.values()), default=None)
         return len(gone)
 
     # -- propose -----------------------------------------------------------------
-    def propose(self, archive, study: int, k: int, seconds: float | None, owner: str | None) -> dict:
-        """Lease ``k`` distinct configs of ``study``; returns the answer body."""
+    def propose(self, archive, study: int, k: int, seconds: float | None, owner: str | None) -> Later:
+        """Lease ``k`` distinct configs of ``study``; returns the answer body,
+        filled in when the batch settles (:meth:`flush`, before its commit)."""
         state = self._study(archive, study)
-        search = state.search
         expired = self._expire(archive, study, state)
-        space = search.space
-        pending = state.pending
-        leased: list[tuple[str, dict]] = []
-        for _ in range(k):
-            for _attempt in range(MAX_DRAWS + 1):
-                config = search.propose()
-                key = space.canonical_json(config)
-                if key not in pending:
-                    break
-                search.release(config)  # a repeat of a pending config: not handed out
-            else:
-                raise ServiceError(
-                    409, f"study {study}: no config left that is not pending already ({len(pending)} leased); "
-                    "record or let some leases expire, or ask for fewer", "k", k)
-            pending.add(key)
-            leased.append((key, config))
         now = _now()
         until = now + timedelta(seconds=self.lease_seconds if seconds is None else float(seconds))
-        ids = self._ids.take(archive, len(leased))
-        for trial, (key, _) in zip(ids, leased):
-            self._rows.add_lease(trial, study, key, owner, now, until)
-            state.open[trial] = (key, until)
+        answer = Later()
+        self._asked.append(_Asked(study, int(k), state, self._ids.take(archive, k), owner, now, until, expired,
+                                  state.trial_count, answer))
         state.due = until if state.due is None else min(state.due, until)
-        return {
-            "study_id": study,
-            "leases": [{"trial": trial, "config": c, "expires_at": _stamp(until)} for trial, (_, c) in zip(ids, leased)],
-            "expired": expired,
-            "trial_count": search.trial_count,
-        }
+        return answer
 
     # -- record --------------------------------------------------------------------
     def record(self, archive, study: int, trial: int | None, config: dict | None, score: float | None,
                status: str, error: str | None, cost_s: float | None, owner: str | None) -> dict:
         """Record a result by lease (``trial``) or by ``config``; returns the answer body."""
+        self._settle()  # the searches hear of everything in the order it was asked
         state = self._study(archive, study)
-        search = state.search
         if (trial is None) == (config is None):
             raise Refused(422, "give either trial (the id of a lease) or config (a config never proposed)",
                           "trial", trial)
@@ -214,7 +317,7 @@ class LeaseBook:
                 key, config, repeat, number = self._lease_not_open(archive, study, trial, status, score)
         else:
             try:
-                key = search.space.canonical_json(config)
+                key = state.space.canonical_json(config)
             except SpaceError as exc:
                 raise Refused(422, f"config: {exc}", "config", config) from None
             config = json.loads(key)
@@ -234,13 +337,12 @@ class LeaseBook:
             else:
                 self._rows.recorded.append((trial, number, status, score, now))
                 state.open.pop(trial, None)
-            state.pending.discard(key)
-            search.record(config, score, status)
-        best = search.best  # the search holds every recorded trial of the study, as committed
-        return {
+            state.counted(score, status)
+            with self._kept():
+                self.searches.record(study, key, score, status)
+        return {  # the search holds every recorded trial of the study, as committed
             "study_id": study, "trial": int(trial), "number": int(number), "status": status, "score": score,
-            "repeat": repeat, "trial_count": search.trial_count,
-            "best_score": None if best is None else float(best.score),
+            "repeat": repeat, "trial_count": state.trial_count, "best_score": state.best_score,
         }
 
     def _lease_not_open(self, archive, study: int, trial: int, status: str,

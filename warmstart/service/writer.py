@@ -36,7 +36,7 @@ from typing import Any, Callable
 from warmstart.archive.store import Archive
 from warmstart.service.errors import Refused, ServiceError
 
-__all__ = ["Writer", "RequestKey", "Answer", "REQUEST_RETENTION_DAYS", "MAX_BATCH"]
+__all__ = ["Writer", "RequestKey", "Answer", "Later", "REQUEST_RETENTION_DAYS", "MAX_BATCH"]
 
 log = logging.getLogger("warmstart.service")
 REQUEST_RETENTION_DAYS = 30  # stored answers to request ids older than this are dropped at start-up
@@ -71,6 +71,31 @@ class Answer:
     def body(self) -> Any:
         """The body, decoded."""
         return json.loads(self.text)
+
+
+class Later:
+    """A write's answer body that is filled in before its batch commits.
+
+    The write returns ``(status, Later())`` and whoever draws the body calls
+    :meth:`fill` in the batch's ``before_commit`` at the latest; the writer
+    reads :meth:`body` after that.
+    """
+
+    __slots__ = ("_body", "_filled")
+
+    def __init__(self) -> None:
+        self._body: Any = None
+        self._filled = False
+
+    def fill(self, body: Any) -> None:
+        """Set the body."""
+        self._body, self._filled = body, True
+
+    def body(self) -> Any:
+        """The body (a RuntimeError if nobody filled it before the commit)."""
+        if not self._filled:
+            raise RuntimeError("a write's answer was not filled in before its batch committed")
+        return self._body
 
 
 @dataclass
@@ -226,7 +251,8 @@ class Writer:
         """
         con = self.archive.con
         keys = [job.key for job in batch if job.key is not None]
-        stored: dict[tuple[str, str], tuple[str, str, int, str]] = {}
+        #: (principal, request id) -> (route, body digest, status, stored text or [body of this batch])
+        stored: dict[tuple[str, str], tuple[str, str, int, Any]] = {}
         if keys:
             rows = con.execute(
                 "SELECT r.principal, r.request_id, r.route, r.body_sha256, r.status, r.response FROM requests r "
@@ -235,8 +261,9 @@ class Writer:
                 [[k.principal for k in keys], [k.request_id for k in keys]],
             ).fetchall()
             stored = {(p, i): (route, digest, int(status), text) for p, i, route, digest, status, text in rows}
-        outcomes: list[Answer | ServiceError] = []
-        fresh: list[tuple[RequestKey, int, str]] = []
+        #: per write: an Answer, a ServiceError, or (status, body, replayed) until the bodies are filled
+        outcomes: list = []
+        fresh: list[tuple[RequestKey, int]] = []  # (key, index of its outcome)
         for job in batch:
             k = job.key
             if k is not None and (k.principal, k.request_id) in stored:
@@ -246,6 +273,8 @@ class Writer:
                         422, f"request id {k.request_id!r} was used before for another request ({route}); "
                         "a retry must send the same body to the same address, a new request needs a new id",
                         "Idempotency-Key", k.request_id))
+                elif isinstance(text, list):  # the same request earlier in this batch: its body, once filled
+                    outcomes.append((status, text[0], True))
                 else:
                     outcomes.append(Answer(status, text, replayed=True))
                 continue
@@ -254,13 +283,18 @@ class Writer:
             except Refused as exc:  # refused before it changed anything: the batch goes on
                 outcomes.append(exc)
                 continue
-            text = json.dumps(body, allow_nan=False)
             if k is not None:
-                stored[(k.principal, k.request_id)] = (k.route, k.body_sha256, status, text)
-                fresh.append((k, status, text))
-            outcomes.append(Answer(status, text))
+                stored[(k.principal, k.request_id)] = (k.route, k.body_sha256, status, [body])
+                fresh.append((k, len(outcomes)))
+            outcomes.append((status, body, False))
         if self._before_commit is not None:
             self._before_commit(self.archive)
+        for i, outcome in enumerate(outcomes):
+            if isinstance(outcome, tuple):
+                status, body, replayed = outcome
+                body = body.body() if isinstance(body, Later) else body
+                outcomes[i] = Answer(status, json.dumps(body, allow_nan=False), replayed=replayed)
+        fresh = [(k, outcomes[i].status, outcomes[i].text) for k, i in fresh]
         if fresh:
             con.execute(
                 "INSERT INTO requests SELECT unnest(?::VARCHAR[]), unnest(?::VARCHAR[]), unnest(?::VARCHAR[]), "
