@@ -344,3 +344,38 @@ def test_with_many_uninformative_past_tasks_only_the_luck_bar_sees_chance():
     known = prior_from_sources(SPACE, [branin_source(40 + i, n=64) for i in range(20)])
     known_uniform, known_share = _chance_after_sobol(known, "luck")
     assert known_uniform < 0.08 and known_share < 0.1
+
+
+
+def test_weights_follow_every_result_in_the_ranked_window_then_every_tenth_of_it(monkeypatch):
+    """Up to ``max_ranked`` results the weights are estimated again at every
+    result; beyond it on every ``max_ranked // 10`` results, from the first
+    trials up to that step. A search rebuilt and fed the same trials weighs
+    exactly as the one kept in memory at every count (the rule depends on the
+    trial count alone)."""
+    import warmstart.search.mixture as mixture
+
+    prior = prior_from_sources(SPACE, [branin_source(6), branin_source(7, sign=-1.0, similarity=0.5)])
+    search = MixtureSearch(SPACE, prior, seed=3, maximize=False, max_ranked=20)  # a step of 2 beyond 20
+    fits, counting = [], [True]
+    real = mixture.ranking_losses
+    monkeypatch.setattr(mixture, "ranking_losses",
+                        lambda *a, **k: (fits.append(search.trial_count) if counting[0] else None) or real(*a, **k))
+    configs = []
+    for n in range(31):
+        weights = search.current_weights()
+        assert search.weights_basis() == (n if n <= 20 else 20 + (n - 20) // 2 * 2)
+        if n in (7, 20, 21, 26, 30):  # rebuilt from what it was built from, fed the same trials
+            counting[0] = False
+            rebuilt = MixtureSearch.from_dict(search.to_dict())
+            for config in configs:
+                rebuilt.record(config, BRANIN(config))
+            np.testing.assert_array_equal(rebuilt.current_weights()[0], weights[0])
+            assert rebuilt.current_weights()[1] == weights[1]
+            counting[0] = True
+        config = search.propose()
+        configs.append(config)
+        search.record(config, BRANIN(config))
+    estimated = sorted(set(fits))
+    assert [n for n in estimated if n <= 20] == list(range(0, 21))  # at every result
+    assert [n for n in estimated if n > 20] == [22, 24, 26, 28, 30]

@@ -407,12 +407,16 @@ class MixtureSearch(SearchStrategy):
 
         With :attr:`uniform_weight` they sum to one; the fixed ``uniform``
         share of the densities comes on top. Computed from the recorded
-        trials only; cached until the next result.
+        trials only: at every result while the study has at most
+        ``max_ranked`` of them, then from the first :meth:`weights_basis`
+        trials, which moves on every ``max_ranked / 10`` results (a tenth of
+        the ranked window turned over). A rule of the trial count alone, so a
+        search resumed from the archive weighs as the one kept in memory.
         """
-        n = self.trial_count
+        n = self.weights_basis()
         if self._weights_at is not None and self._weights_at[0] == n:
             return self._weights_at[1], self._weights_at[3]
-        y = self.signed_scores()
+        y = self.signed_scores()[:n]
         ok = ~np.isnan(y)
         n_ok = int(ok.sum())
         keep = np.arange(n)[-self.max_ranked:]
@@ -423,7 +427,7 @@ class MixtureSearch(SearchStrategy):
         P = np.column_stack([self._pred[keep], np.zeros(keep.size)])
         start = np.append(self.start_weights, self.uniform)
         if n_ok >= 3:  # the own model can be judged out of sample
-            own_pred = self._own_out_of_sample(self.rows()[keep], y[keep])
+            own_pred = self._own_out_of_sample(self.rows()[:n][keep], y[keep])
             P = np.column_stack([P, own_pred])
             start = np.append(start, 1.0 / S)
             own_col = S + 1
@@ -431,7 +435,7 @@ class MixtureSearch(SearchStrategy):
         # the bootstrap's draws depend on the recorded trials alone (pending counted as none, as
         # after a result in a sequential search), so the weights do not depend on when they were
         # first asked for: a search resumed with pending leases weighs as the one kept in memory
-        rng = np.random.default_rng(self._rng_key(1, n_pending=0))
+        rng = np.random.default_rng(self._rng_key(1, n_pending=0, trials=n))
         loss = ranking_losses(P, yy, self.n_boot, rng)
         if self.chance == "luck" and keep.size >= 2:  # the competitor: the best past task on shuffled scores
             loss[:, S] = luck_losses(self._pred[keep], yy, self.n_boot, rng)
@@ -445,6 +449,16 @@ class MixtureSearch(SearchStrategy):
             w_own = floor
         self._weights_at = (n, w[:S].copy(), float(w[S]), w_own, chance)
         return self._weights_at[1], self._weights_at[3]
+
+    def weights_basis(self) -> int:
+        """How many of the recorded trials (the first ones) the current weights
+        are estimated from: all of them up to ``max_ranked``, then the count
+        rounded down to a step of ``max(1, max_ranked // 10)`` beyond it."""
+        n, window = self.trial_count, self.max_ranked
+        if n <= window:
+            return n
+        step = max(1, window // 10)
+        return window + (n - window) // step * step
 
     @property
     def uniform_weight(self) -> float:
@@ -474,9 +488,10 @@ class MixtureSearch(SearchStrategy):
         return frame.sort_values("weight", ascending=False, kind="stable").reset_index(drop=True)
 
     # -- proposals ------------------------------------------------------------
-    def _rng_key(self, salt: int, n_pending: int | None = None) -> list[int]:
+    def _rng_key(self, salt: int, n_pending: int | None = None, trials: int | None = None) -> list[int]:
         base = self.seed if isinstance(self.seed, (int, np.integer)) and not isinstance(self.seed, bool) else 0
-        return [int(base) & 0xFFFFFFFF, self.trial_count, self.n_pending if n_pending is None else n_pending, salt]
+        return [int(base) & 0xFFFFFFFF, self.trial_count if trials is None else trials,
+                self.n_pending if n_pending is None else n_pending, salt]
 
     def _proposal_rng(self) -> np.random.Generator:
         if isinstance(self.seed, (int, np.integer)) and not isinstance(self.seed, bool):
