@@ -77,6 +77,8 @@ def test_live_further_searches_and_fixed_lists_on_branin():
     assert t.extra["q_minima_repeated"] == 1.0
     assert t.extra["bits_minima_repeated"] == pytest.approx(math.log2(1 / t.p))
     assert t.extra["q_two_minima"] == pytest.approx(0.2)
+    assert result.hits["two_minima"].tolist() == [[True, True] + [False] * 8]  # run once; unmade queries miss
+    assert result.hits["cold_again"].shape == (5, 10)
     # the same search with the same seeds scores what cold scores, and costs no training at all:
     # every config it meets is in the shared cache (64 reference configs, then warm, cold, the lists)
     assert t.extra["bits_cold_again"] == pytest.approx(t.bits_cold)

@@ -177,9 +177,11 @@ def live_setup(archive, frame: pd.DataFrame, target: str, learner: str, metric: 
 
 @dataclass
 class LiveResult(GainResult):
-    """Warm vs cold on one live objective, with the reference sample's scores."""
+    """Warm vs cold on one live objective, with the reference sample's scores
+    and every search's hits (label -> bool array (runs, budget))."""
 
     reference_scores: np.ndarray | None = None
+    hits: dict | None = None
 
 
 def live_gain(
@@ -273,4 +275,5 @@ def live_gain(
     others = {k: v for k, v in runs.items() if k not in ("warm", "cold")}
     result = judge([compare(task, runs["warm"], runs["cold"], p, rng=seed, others=others)])
     curves = {arm: (r.hits.mean(axis=0), r.regret.mean(axis=0)) for arm, r in runs.items()}
-    return LiveResult(learner, budget, repeats, gamma, result, pool(result, rng=seed), curves, ref_scores)
+    return LiveResult(learner, budget, repeats, gamma, result, pool(result, rng=seed), curves, ref_scores,
+                      {arm: r.hits for arm, r in runs.items()})
