@@ -255,7 +255,8 @@ def pooled_difference(records: list[dict], a: str, b: str, rng: int = 0, n_boot:
     """``log2(mean q_a / mean q_b)`` over tasks, with a 95 % interval from a two-level bootstrap
     (tasks with replacement, then each search's runs within a task with replacement).
 
-    Returns (point, low, high); NaN where a mean rate is 0."""
+    Returns (point, low, high); -inf / +inf where only one mean rate is 0 (on a resample too),
+    NaN where both are."""
     gen = np.random.default_rng(rng)
     ha = [np.asarray(r["hits"][a], dtype=float) for r in records]
     hb = [np.asarray(r["hits"][b], dtype=float) for r in records]
@@ -266,13 +267,29 @@ def pooled_difference(records: list[dict], a: str, b: str, rng: int = 0, n_boot:
         qa = [ha[i][gen.integers(0, ha[i].shape[0], ha[i].shape[0])].mean() for i in idx]
         qb = [hb[i][gen.integers(0, hb[i].shape[0], hb[i].shape[0])].mean() for i in idx]
         out[k] = _log2_ratio(np.mean(qa), np.mean(qb))
-    ok = np.isfinite(out)
-    low, high = np.percentile(out[ok], [2.5, 97.5]) if ok.any() else (math.nan, math.nan)
-    return point, float(low), float(high)
+    return (point, *_interval(out))
 
 
 def _log2_ratio(a: float, b: float) -> float:
-    return math.log2(a / b) if a > 0 and b > 0 else math.nan
+    if a > 0 and b > 0:
+        return math.log2(a / b)
+    return math.nan if a == b else math.inf if b == 0 else -math.inf
+
+
+def _interval(values: np.ndarray) -> tuple[float, float]:
+    """2.5 and 97.5 percentiles of bootstrap values that may be infinite (no interpolation
+    between an infinite and a finite value); NaN values (0 / 0) are left out."""
+    ok = values[~np.isnan(values)]
+    if not ok.size:
+        return math.nan, math.nan
+    low, high = np.quantile(ok, [0.025, 0.975], method="inverted_cdf")
+    return float(low), float(high)
+
+
+def _cell(point: float, low: float, high: float) -> str:
+    if math.isnan(point):
+        return "undefined (0 / 0)"
+    return f"{point:+.2f} ({low:+.2f} to {high:+.2f})"
 
 
 def pooled_bits(records: list[dict], label: str, rng: int = 0, n_boot: int = 4000):
@@ -286,9 +303,7 @@ def pooled_bits(records: list[dict], label: str, rng: int = 0, n_boot: int = 400
         idx = gen.integers(0, n, n)
         out[k] = _log2_ratio(np.mean([h[i][gen.integers(0, h[i].shape[0], h[i].shape[0])].mean() for i in idx]),
                              p[idx].mean())
-    ok = np.isfinite(out)
-    low, high = np.percentile(out[ok], [2.5, 97.5]) if ok.any() else (math.nan, math.nan)
-    return point, float(low), float(high)
+    return (point, *_interval(out))
 
 
 def cmd_table(args) -> None:
@@ -311,7 +326,7 @@ def cmd_table(args) -> None:
     print("|---|---|" + "---|" * len(SEARCHES))
     for g, rs in groups.items():
         cells = [pooled_bits(rs, s) for s in SEARCHES]
-        print(f"| {g} | {len(rs)} | " + " | ".join(f"{c[0]:+.2f} ({c[1]:+.2f} to {c[2]:+.2f})" for c in cells) + " |")
+        print(f"| {g} | {len(rs)} | " + " | ".join(_cell(*c) for c in cells) + " |")
     print("\nPooled differences, log2(mean q_a / mean q_b), 95 % interval:\n")
     pairs = [("warm", "cold"), ("warm", "library_default"), ("warm", "defaults"), ("warm", "nearest"),
              ("hedge10", "warm"), ("seedlist", "warm"), ("seedlist", "cold"), ("hedge10", "cold")]
@@ -319,7 +334,7 @@ def cmd_table(args) -> None:
     print("|---|" + "---|" * len(pairs))
     for g, rs in groups.items():
         cells = [pooled_difference(rs, a, b) for a, b in pairs]
-        print(f"| {g} | " + " | ".join(f"{c[0]:+.2f} ({c[1]:+.2f} to {c[2]:+.2f})" for c in cells) + " |")
+        print(f"| {g} | " + " | ".join(_cell(*c) for c in cells) + " |")
     print("\nDecision, part (b) of the rule (live):")
     for cand in CANDIDATES:
         d, lo, hi = pooled_difference(records, cand, "warm")
@@ -348,7 +363,8 @@ def plot(records: list[dict], learners: list[str], path: Path) -> None:
         width = 0.8 / len(SEARCHES)
         x = np.arange(len(names))
         for j, s in enumerate(SEARCHES):
-            vals = [r["bits"][s] for r in rs] + [pooled_bits(rs, s)[0]]
+            pooled = pooled_bits(rs, s)[0]  # -inf when no run hit: drawn at the smoothed per-table floor
+            vals = [r["bits"][s] for r in rs] + [pooled if math.isfinite(pooled) else min(r["bits"][s] for r in rs)]
             ax.bar(x + (j - len(SEARCHES) / 2 + 0.5) * width, vals, width, label=s, color=colours[s])
         ax.axhline(0, color="black", lw=0.8)
         ax.set_xticks(x, names, rotation=30, ha="right")

@@ -64,4 +64,5 @@ def test_pooled_difference_and_bits_on_analytic_cases():
     bits, low, high = live_check.pooled_bits(records, "a", n_boot=200)
     assert (bits, low, high) == pytest.approx((math.log2(0.5 / 0.05),) * 3)
     never = [_record({"a": a, "z": np.zeros((1, 10))})]
-    assert math.isnan(live_check.pooled_difference(never, "z", "a", n_boot=50)[0])
+    assert live_check.pooled_difference(never, "z", "a", n_boot=50) == (-math.inf, -math.inf, -math.inf)
+    assert live_check.pooled_bits(never, "z", n_boot=50)[0] == -math.inf  # log2(0 / p)
