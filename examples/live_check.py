@@ -194,7 +194,7 @@ def slug(name: str) -> str:
     return name.replace("/", "__").replace(" ", "_").replace("(", "").replace(")", "")
 
 
-def run_one(archive, table: Table, learner: str, out: Path) -> dict:
+def run_one(archive, table: Table, learner: str, out: Path, seed: int = SEED) -> dict:
     """Every search of the module docstring on one table, live; returns the JSON record."""
     from warmstart.cli.progress import Progress
     from warmstart.gain.live import live_gain, live_setup
@@ -206,11 +206,11 @@ def run_one(archive, table: Table, learner: str, out: Path) -> dict:
     csv = out / "data" / f"{slug(table.name)}.csv"
     csv.parent.mkdir(parents=True, exist_ok=True)
     frame.to_csv(csv, index=False)
-    setup = live_setup(archive, frame, table.target, learner, metric=METRIC, cv=CV, seed=SEED)
+    setup = live_setup(archive, frame, table.target, learner, metric=METRIC, cv=CV, seed=seed)
     space, prior, mx = setup.objective.space, setup.prior, setup.objective.maximize
     started = time.perf_counter()
     result = live_gain(
-        space, setup.objective, prior, budget=BUDGET, repeats=REPEATS, seed=SEED, maximize=mx, workers=1,
+        space, setup.objective, prior, budget=BUDGET, repeats=REPEATS, seed=seed, maximize=mx, workers=1,
         task=table.name, learner=learner, default=setup.default.config,
         searches={"hedge10": partial(MixtureSearch, space, prior, maximize=mx, n_hedge=10),
                   "seedlist": partial(DensitySearch, space, prior=prior, maximize=mx)},
@@ -221,7 +221,7 @@ def run_one(archive, table: Table, learner: str, out: Path) -> dict:
     return {
         "table": table.name, "learner": learner, "target": table.target, "drop": list(table.drop),
         "rows": len(frame), "columns": frame.shape[1], "classes": int(frame[table.target].nunique()),
-        "budget": BUDGET, "repeats": REPEATS, "seed": SEED, "metric": METRIC, "cv": CV,
+        "budget": BUDGET, "repeats": REPEATS, "seed": seed, "metric": METRIC, "cv": CV,
         "p": t.p, "threshold_best": float(np.nanmax(result.reference_scores) if mx else np.nanmin(result.reference_scores)),
         "gain": t.gain, "gain_low": t.gain_low, "gain_high": t.gain_high,
         "bits": {"warm": t.bits_warm, "cold": t.bits_cold,
@@ -235,7 +235,7 @@ def run_one(archive, table: Table, learner: str, out: Path) -> dict:
 def cmd_run(args) -> None:
     from warmstart.archive import Archive
 
-    runs = args.out / "runs"
+    runs = args.out / runs_dir(args.seed)
     runs.mkdir(parents=True, exist_ok=True)
     tables = [t for t in TAKEN if not args.table or t.name in args.table]
     todo = [(t, learner) for learner in args.learner for t in tables
@@ -243,7 +243,7 @@ def cmd_run(args) -> None:
     print(f"{len(todo)} (table, learner) pair(s) to run", file=sys.stderr, flush=True)
     with Archive(str(args.archive), read_only=True) as archive:
         for i, (table, learner) in enumerate(todo, start=1):
-            record = run_one(archive, table, learner, args.out)
+            record = run_one(archive, table, learner, args.out, args.seed)
             (runs / f"{slug(table.name)}__{learner}.json").write_text(json.dumps(record, indent=1))
             print(f"[{i}/{len(todo)}] {table.name} {learner}: gain {record['gain']:+.2f}, "
                   + " ".join(f"{k} {v:+.2f}" for k, v in record["bits"].items()) + f"  ({record['seconds']:.0f} s)",
@@ -306,10 +306,16 @@ def pooled_bits(records: list[dict], label: str, rng: int = 0, n_boot: int = 400
     return (point, *_interval(out))
 
 
+def runs_dir(seed: int) -> str:
+    """Where the runs of one seed go: ``runs`` for the protocol's seed, ``runs_seed<N>`` otherwise."""
+    return "runs" if seed == SEED else f"runs_seed{seed}"
+
+
 def cmd_table(args) -> None:
-    records = [json.loads(f.read_text()) for f in sorted((args.out / "runs").glob("*.json"))]
+    where = args.out / runs_dir(args.seed)
+    records = [json.loads(f.read_text()) for f in sorted(where.glob("*.json"))]
     if not records:
-        raise SystemExit(f"no runs under {args.out / 'runs'}: run `live_check.py run` first")
+        raise SystemExit(f"no runs under {where}: run `live_check.py run` first")
     learners = sorted({r["learner"] for r in records}, key=["svm", "gbt", "knn", "forest"].index)
     print("Per table, bits over uniform (q = hits per query; lists run once):\n")
     print("| table | learner | rows | classes | p | " + " | ".join(SEARCHES) + " | gain warm/cold (95 %) |")
@@ -385,9 +391,12 @@ def main(argv=None) -> None:
     run.add_argument("--out", type=Path, required=True)
     run.add_argument("--learner", action="append", required=True)
     run.add_argument("--table", action="append", help="only these tables (package/item)")
+    run.add_argument("--seed", type=int, default=SEED, help="seed of the folds, the reference sample and the "
+                     "first run (runs use seed .. seed + 4); a replicate of the protocol")
     table = sub.add_parser("table", help="tables, pooled figures, the decision and the plot")
     table.add_argument("--out", type=Path, required=True)
     table.add_argument("--plot", type=Path)
+    table.add_argument("--seed", type=int, default=SEED, help="the replicate to tabulate")
     args = ap.parse_args(argv)
     if args.cmd == "list":
         for name, decision in check_rule():
