@@ -157,6 +157,12 @@ def live_setup(archive, frame: pd.DataFrame, target: str, learner: str, metric: 
     Returns
     -------
     LiveSetup
+
+    Raises
+    ------
+    PriorError
+        No past study of ``learner`` can be used (none, or only of this
+        same data); the message says which and why.
     """
     from warmstart.archive.store import fingerprint
     from warmstart.evaluate.learners import cv_objective, get_learner
