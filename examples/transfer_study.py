@@ -81,6 +81,12 @@ def half_of(task: str) -> str:
     return "design" if hashlib.sha256(task.encode()).digest()[0] % 2 == 0 else "holdout"
 
 
+def log2_ratio(a: float, b: float) -> float:
+    """``log2(a / b)``, or NaN when either rate is 0 (a list with no hit on any task of a small
+    run: its pooled bits are undefined, and printed as nan rather than stopping the run)."""
+    return math.log2(a / b) if a > 0 and b > 0 else math.nan
+
+
 def run_hits(task, make, budget: int, repeats: int, seed: int) -> np.ndarray:
     """Hit matrix (repeats, budget) of a strategy factory on a replay task."""
     hits = np.zeros((repeats, budget), dtype=bool)
@@ -154,9 +160,9 @@ def study_learner(archive, learner: str, args, options: dict, progress) -> dict:
     return {
         "learner": learner, "n_tasks": len(gains), "gain": pooled.gain, "gain_low": pooled.gain_low,
         "gain_high": pooled.gain_high, "share_hurt": pooled.share_hurt, "bits_warm": pooled.bits_warm,
-        "bits_cold": pooled.bits_cold, **{f"bits_{k}": math.log2(v / p) for k, v in q.items()},
-        "room": math.log2(q["best_past_task"] / np.mean([g.q_cold for g in gains])),
-        "gain_seedlist": math.log2(q["seedlist"] / np.mean([g.q_cold for g in gains])),
+        "bits_cold": pooled.bits_cold, **{f"bits_{k}": log2_ratio(v, p) for k, v in q.items()},
+        "room": log2_ratio(q["best_past_task"], np.mean([g.q_cold for g in gains])),
+        "gain_seedlist": log2_ratio(q["seedlist"], np.mean([g.q_cold for g in gains])),
         "share_hurt_seedlist": float(np.mean([g.extra["q_seedlist"] < g.q_cold for g in gains])),
         "seconds": time.perf_counter() - t0, "tasks": per_task,
         "wins": v.wins, "ties": v.ties, "losses": v.losses, "share_loss_low": v.share_loss_low,

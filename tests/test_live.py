@@ -16,8 +16,12 @@ from sklearn.datasets import load_iris, load_wine
 from warmstart.archive import Archive
 from warmstart.cli import main
 from warmstart.evaluate.learners import cv_objective
-from warmstart.gain.live import live_gain
-from warmstart.prior import Source, prior_from_sources, within_study_quantiles
+from functools import partial
+
+from warmstart.gain.bits import GainError
+from warmstart.gain.live import live_gain, live_setup
+from warmstart.search.density import DensitySearch
+from warmstart.prior import PriorError, Source, prior_from_sources, within_study_quantiles
 from warmstart.search.testfunctions import branin
 
 
@@ -47,6 +51,60 @@ def test_live_gain_on_branin_with_a_perfect_past_study():
     # a prior from the same function knows where Branin's minima are: warm hits far more often
     assert t.gain_low > 0 and t.verdict == "helped"
     assert t.first_hit_warm <= t.first_hit_cold
+
+
+class _Counted:
+    """Branin with a count of its evaluations (one process: workers=1)."""
+
+    def __init__(self, f):
+        self.f, self.space, self.calls = f, f.space, 0
+
+    def __call__(self, config):
+        self.calls += 1
+        return self.f(config)
+
+
+def test_live_further_searches_and_fixed_lists_on_branin():
+    f = _Counted(branin())
+    minima = list(f.f.minimizers)  # published minimisers, f = 0.397887 (Dixon & Szego 1978)
+    lists = {"minima_repeated": minima * 4,  # 12 configs: every one of the 10 queries hits
+             "two_minima": minima[:2]}        # 2 configs: two hits, then 8 queries not made = misses
+    result = live_gain(f.space, f, _branin_prior(f.f), budget=10, repeats=5, maximize=False, seed=4,
+                       searches={"cold_again": partial(DensitySearch, f.space, prior=None, maximize=False)},
+                       lists=lists)
+    t = result.tasks[0]
+    # analytic: a search that always hits scores log2(1/p) bits over uniform (DESIGN §9)
+    assert t.extra["q_minima_repeated"] == 1.0
+    assert t.extra["bits_minima_repeated"] == pytest.approx(math.log2(1 / t.p))
+    assert t.extra["q_two_minima"] == pytest.approx(0.2)
+    assert result.hits["two_minima"].tolist() == [[True, True] + [False] * 8]  # run once; unmade queries miss
+    assert result.hits["cold_again"].shape == (5, 10)
+    # the same search with the same seeds scores what cold scores, and costs no training at all:
+    # every config it meets is in the shared cache (64 reference configs, then warm, cold, the lists)
+    assert t.extra["bits_cold_again"] == pytest.approx(t.bits_cold)
+    assert np.array_equal(result.curves["cold_again"][0], result.curves["cold"][0])
+    assert f.calls <= 64 + 2 * 5 * 10 + 3
+    assert result.pooled.extra["bits_minima_repeated"] == pytest.approx(math.log2(1 / t.p))
+
+
+def test_live_evaluates_each_config_once_per_process():
+    f = _Counted(branin())
+    result = live_gain(f.space, f, _branin_prior(f.f), budget=8, repeats=3, maximize=False, seed=0,
+                       lists={"minima": list(f.f.minimizers) * 3})
+    distinct = {f.space.canonical_json(c) for c in f.space.sobol(64, np.random.default_rng(10_007))}
+    assert len(distinct) == 64 and result.tasks[0].extra["q_minima"] == 1.0
+    # the three minima are trained once each, though the list proposes each of them three times
+    assert f.calls <= 64 + 2 * 3 * 8 + 3
+
+
+@pytest.mark.parametrize("searches, lists, message", [
+    ({"warm": partial(DensitySearch, prior=None)}, {}, r"not warm, cold or library_default; got \['warm'\]"),
+    ({"a": partial(DensitySearch, prior=None)}, {"a": []}, r"must be distinct.*got \['a'\]"),
+])
+def test_live_refuses_clashing_search_labels(searches, lists, message):
+    f = branin()
+    with pytest.raises(GainError, match=message):
+        live_gain(f.space, f, _branin_prior(f), budget=4, repeats=2, maximize=False, searches=searches, lists=lists)
 
 
 @pytest.fixture(scope="module")
@@ -115,3 +173,16 @@ def test_gain_live_bad_input(knn_archive, iris_csv, args, message):
     assert res.exit_code != 0
     assert message in res.output
     assert "Traceback" not in res.output
+
+
+def test_live_setup_is_what_the_command_compares(knn_archive):
+    wine = load_wine(as_frame=True).frame
+    iris = load_iris(as_frame=True).frame
+    with Archive(knn_archive, read_only=True) as archive:
+        # wine is the archive's only task: its own studies are left out, so no prior can be built
+        with pytest.raises(PriorError, match="1 are of an excluded task"):
+            live_setup(archive, wine, "target", "knn", cv=3)
+        other = live_setup(archive, iris, "target", "knn", cv=3)
+    assert other.excluded == [] and len(other.prior.sources) == 1
+    assert other.kind == "classification" and other.objective.metric == "accuracy"
+    assert other.default.config["n_neighbors"] == 5  # scikit-learn's KNeighborsClassifier default

@@ -212,9 +212,7 @@ def _live(archive, data, target, learners, only_tasks, metric, cv, budgets, repe
     """Warm and cold searches side by side on DATA (``gain --data``)."""
     from pathlib import Path
 
-    from warmstart.archive.store import fingerprint
-    from warmstart.evaluate.learners import cv_objective
-    from warmstart.gain.live import live_gain
+    from warmstart.gain.live import live_gain, live_setup
     from warmstart.profile import detect_kind
 
     if not data or not target:
@@ -227,20 +225,14 @@ def _live(archive, data, target, learners, only_tasks, metric, cv, budgets, repe
     learner = learners[0]
     frame = read_data(data, target, keep_columns=keep_columns)
     kind = detect_kind(frame[target])
-    objective = cv_objective(frame, target, learner, metric=metric, kind=kind, cv=cv, seed=seed,
-                             keep_columns=keep_columns)
-    tasks = archive.tasks()
-    same = tasks.loc[tasks["fingerprint"] == fingerprint(frame, target), "task_id"].tolist()
     prof = profile_table(frame, target, data, kind, keep_columns)
-    prior = archive.build_prior(prof, learner=learner, space=objective.space, exclude_tasks=same)
+    setup = live_setup(archive, frame, target, learner, metric=metric, cv=cv, seed=seed,
+                       keep_columns=keep_columns, profile=prof)
+    objective, prior, default = setup.objective, setup.prior, setup.default
     if not as_json:
         click.echo(f"live: {learner} on {Path(data).name} ({kind}), {cv}-fold {objective.metric}; "
                    + prior.summary(n=3).splitlines()[0]
-                   + ("; the archive's own studies of this dataset were left out" if same else ""))
-    from warmstart.evaluate.learners import get_learner
-    from warmstart.search.default_first import library_default
-
-    default = library_default(get_learner(learner, kind).defaults, objective.space, prof)
+                   + ("; the archive's own studies of this dataset were left out" if setup.excluded else ""))
     if not as_json and default.notes():
         click.echo(f"library default of {learner!r}: {default.notes()}")
     results = []
