@@ -153,3 +153,18 @@ class ServerProcess:
     def __exit__(self, *exc) -> None:
         if self.proc is not None and self.proc.poll() is None:
             self.stop()
+
+
+def add_served_study(service, task: dict, space, search, origin: str, record) -> int:
+    """Register ``task`` and add a study of it through ``service``'s writer (as
+    ``POST /studies`` does), its search adopted by the lease book; the study id."""
+    from warmstart.service.api import register
+    from warmstart.service.models import TaskInfo
+
+    def write(archive):
+        study = archive.add_study(register(archive, TaskInfo(**task)), "bran", space, metric="loss",
+                                  maximize=False, origin=origin, prior=record)
+        service.leases.adopt(study, search)
+        return 201, study
+
+    return service.writer.submit(write).result(60).body

@@ -20,12 +20,10 @@ import threading
 
 import pytest
 
-from service_support import SPACE, branin, new_task, seed_archive
+from service_support import SPACE, add_served_study, branin, new_task, seed_archive
 from warmstart.archive.store import Archive
-from warmstart.service.api import register
 from warmstart.service.core import Service
 from warmstart.service.errors import ServiceError
-from warmstart.service.models import TaskInfo
 from warmstart.service.searches import start_search
 from warmstart.space import Space
 
@@ -35,14 +33,7 @@ def _new_study(service: Service, seed: int, cold: bool = False) -> int:
     task = new_task(seed=seed, name=f"store {seed}")
     search, origin, record, _ = service.query(
         lambda view: start_search(view, task["profile"], [], "bran", space, False, cold=cold))
-
-    def write(archive):
-        study = archive.add_study(register(archive, TaskInfo(**task)), "bran", space, metric="loss",
-                                  maximize=False, origin=origin, prior=record)
-        service.leases.adopt(study, search)
-        return 201, study
-
-    return service.writer.submit(write).result(60).body
+    return add_served_study(service, task, space, search, origin, record)
 
 
 def _propose(service: Service, study: int, k: int = 1):

@@ -31,15 +31,13 @@ from fastapi.testclient import TestClient
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from service_support import SPACE, branin, dump, new_task, seed_archive
+from service_support import SPACE, add_served_study, branin, dump, new_task, seed_archive
 from warmstart.archive.store import Archive
 from warmstart.search.density import DensitySearch
 from warmstart.search.mixture import MixtureSearch
 from warmstart.service import create_app
-from warmstart.service.api import register
 from warmstart.service.core import Service
 from warmstart.service.errors import ServiceError
-from warmstart.service.models import TaskInfo
 from warmstart.service.proposer import HeldSearch, InProcessProposer, NoConfigLeft, SearchesLost
 from warmstart.service.search_process import ChildProcessProposer
 from warmstart.service.searches import start_search
@@ -129,15 +127,7 @@ def test_held_search_refuses_when_every_proposal_is_pending_already():
 def _new_study(service: Service, kind: str) -> int:
     search, origin, record = service.query(lambda view: _search(view, kind))
     space = Space.from_dict(SPACE)
-    task = new_task(seed=21, name="store 21")
-
-    def write(archive):
-        study = archive.add_study(register(archive, TaskInfo(**task)), "bran", space, metric="loss",
-                                  maximize=False, origin=origin, prior=record)
-        service.leases.adopt(study, search)
-        return 201, study
-
-    return service.writer.submit(write).result(60).body
+    return add_served_study(service, new_task(seed=21, name="store 21"), space, search, origin, record)
 
 
 def _call(service: Service, fn, early: bool = False):

@@ -37,13 +37,9 @@ def _names(archive: Archive) -> list[str]:
     return sorted(r[0] for r in archive.con.execute("SELECT request_id FROM requests").fetchall())
 
 
-@pytest.fixture
-def held(tmp_path):
-    """A started writer whose thread waits in a first write until ``release`` is set."""
-    archive = Archive(tmp_path / "w.duckdb")
-    commits, drops = [], []
-    writer = Writer(archive, on_commit=lambda: commits.append(1), on_failure=lambda: drops.append(1))
-    writer.start()
+def _hold(writer: Writer):
+    """Submit a first write that holds the writer's thread until the returned event is set,
+    so that the writes after it queue up into one batch; (release, its future)."""
     release, entered = threading.Event(), threading.Event()
 
     def hold(archive):
@@ -53,6 +49,17 @@ def held(tmp_path):
 
     first = writer.submit(hold)
     assert entered.wait(30)
+    return release, first
+
+
+@pytest.fixture
+def held(tmp_path):
+    """A started writer whose thread waits in a first write until ``release`` is set."""
+    archive = Archive(tmp_path / "w.duckdb")
+    commits, drops = [], []
+    writer = Writer(archive, on_commit=lambda: commits.append(1), on_failure=lambda: drops.append(1))
+    writer.start()
+    release, first = _hold(writer)
     yield writer, archive, release, first, commits, drops
     release.set()
     writer.close()
@@ -190,20 +197,13 @@ def test_later_bodies_are_filled_before_the_commit_and_retries_in_the_batch_get_
 
     writer = Writer(archive, before_commit=before_commit)
     writer.start()
-    release, entered = threading.Event(), threading.Event()
-
-    def hold(archive):
-        entered.set()
-        assert release.wait(30)
-        return 200, {}
 
     def later(archive):
         order.append("write")
         waiting.append(Later())
         return 200, waiting[-1]
 
-    first = writer.submit(hold)
-    assert entered.wait(30)
+    release, first = _hold(writer)
     key = RequestKey("dana", "req-9", "POST /propose", "00")
     one, two, same = writer.submit(later, key), writer.submit(later), writer.submit(later, key)
     release.set()
