@@ -24,6 +24,7 @@ import duckdb
 import numpy as np
 
 from warmstart.archive.sources import recorded_sources, source_identities
+from warmstart.evaluate.interrupts import deferred_interrupts
 from warmstart.evaluate.objective import local_pool, stop_pool
 from warmstart.prior import Prior, PriorError, prior_from_sources
 from warmstart.search.density import DEFAULT_N_SEEDS, DensitySearch
@@ -376,8 +377,9 @@ def run_study(
     done: list[Trial] = []
 
     def keep(trial: Trial) -> None:
-        study.record(trial)
-        done.append(trial)
+        with deferred_interrupts():  # a result written is a result counted (Ctrl-C waits for both)
+            study.record(trial)
+            done.append(trial)
         if callback is not None:
             callback(trial)
 
