@@ -190,6 +190,39 @@ class LiveResult(GainResult):
     hits: dict | None = None
 
 
+def _reference_scores(space: Space, evaluate, n: int, seed: int, memo: dict, progress, total: int) -> np.ndarray:
+    """Scores of the reference (Sobol) sample that defines the target set, kept in
+    ``memo`` by canonical config so the searches do not train them again."""
+    scores = np.empty(n)
+    for i, cfg in enumerate(space.sobol(n, np.random.default_rng(seed + 10_007))):
+        memo[space.canonical_json(cfg)] = scores[i] = _score(evaluate(cfg))
+        if progress:
+            progress(i + 1, total)
+    return scores
+
+
+def _arm_jobs(space, evaluate, prior, default, searches: dict, lists: dict, arms: tuple, budget: int,
+              repeats: int, seed: int, maximize: bool, memo: dict) -> list:
+    """``repeats`` runs of every seeded search (seeds ``seed + r``), then each fixed list once."""
+    jobs = [_ArmJob(space, evaluate, prior if arm == "warm" else None, budget, seed + r, maximize,
+                    default if arm == "library_default" else None, make=searches.get(arm), memo=memo)
+            for arm in arms for r in range(repeats)]
+    return jobs + [_ArmJob(space, evaluate, None, budget, seed, maximize, configs=list(configs), memo=memo)
+                   for configs in lists.values()]
+
+
+def _runs_by_label(outputs, arms: tuple, lists: list, repeats: int, threshold: float, ref_scores: np.ndarray,
+                   maximize: bool) -> dict:
+    """Hits and regret of every run, by search label: ``repeats`` rows per seeded
+    search, then one per fixed list, in the order the jobs were made."""
+    scores = np.array(outputs)
+    # regret spans every score seen: the reference sample's and the searches'
+    hits, regret = hits_and_regret(scores, threshold, np.concatenate([ref_scores, scores.ravel()]), maximize)
+    rows = {arm: slice(i * repeats, (i + 1) * repeats) for i, arm in enumerate(arms)}
+    rows.update({label: slice(len(arms) * repeats + j, len(arms) * repeats + j + 1) for j, label in enumerate(lists)})
+    return {arm: Runs(hits[at], regret[at], arm) for arm, at in rows.items()}
+
+
 def live_gain(
     space: Space,
     evaluate: Callable[[dict], Any],
@@ -254,30 +287,15 @@ def live_gain(
     clash = sorted(set(searches) & set(lists) | (set(searches) | set(lists)) & {"warm", "cold", "library_default"})
     if clash:
         raise GainError(f"search labels must be distinct and not warm, cold or library_default; got {clash}")
-    ref_cfgs = space.sobol(n_reference, np.random.default_rng(seed + 10_007))
     memo: dict[str, float] = {}
-    ref_scores = np.empty(n_reference)
     arms = ("warm", "cold") + (("library_default",) if default is not None else ()) + tuple(searches)
     total = n_reference + len(arms) * repeats + len(lists)
-    for i, cfg in enumerate(ref_cfgs):
-        key = space.canonical_json(cfg)
-        memo[key] = ref_scores[i] = _score(evaluate(cfg))
-        if progress:
-            progress(i + 1, total)
+    ref_scores = _reference_scores(space, evaluate, n_reference, seed, memo, progress, total)
     threshold = target_threshold(ref_scores, gamma, maximize)
     p = float(in_target(ref_scores, threshold, maximize).mean())
-    jobs = [_ArmJob(space, evaluate, prior if arm == "warm" else None, budget, seed + r, maximize,
-                    default if arm == "library_default" else None, make=searches.get(arm), memo=memo)
-            for arm in arms for r in range(repeats)]
-    jobs += [_ArmJob(space, evaluate, None, budget, seed, maximize, configs=list(configs), memo=memo)
-             for configs in lists.values()]
+    jobs = _arm_jobs(space, evaluate, prior, default, searches, lists, arms, budget, repeats, seed, maximize, memo)
     outputs = map_jobs(_arm, jobs, workers, progress, done_before=n_reference, total=total)
-    scores = np.array(outputs)
-    # regret spans every score seen: the reference sample's and the searches'
-    hits, regret = hits_and_regret(scores, threshold, np.concatenate([ref_scores, scores.ravel()]), maximize)
-    rows = {arm: slice(i * repeats, (i + 1) * repeats) for i, arm in enumerate(arms)}
-    rows.update({label: slice(len(arms) * repeats + j, len(arms) * repeats + j + 1) for j, label in enumerate(lists)})
-    runs = {arm: Runs(hits[at], regret[at], arm) for arm, at in rows.items()}
+    runs = _runs_by_label(outputs, arms, list(lists), repeats, threshold, ref_scores, maximize)
     others = {k: v for k, v in runs.items() if k not in ("warm", "cold")}
     result = judge([compare(task, runs["warm"], runs["cold"], p, rng=seed, others=others)])
     curves = {arm: (r.hits.mean(axis=0), r.regret.mean(axis=0)) for arm, r in runs.items()}

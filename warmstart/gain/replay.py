@@ -319,6 +319,56 @@ class ReplayResult(GainResult):
     permuted: bool = False
 
 
+def _held_out_names(archive, learner: str, tasks: Sequence[str] | None) -> list[str]:
+    """The tasks with a replayable study of ``learner`` (only ``tasks``, when given)."""
+    names = [s.task for s in _replay_studies(archive, learner, 20)]
+    if len(names) < 2:
+        raise WarmstartError(
+            f"replay needs studies of {learner!r} on at least 2 tasks with >= 20 successful trials; "
+            f"found {len(names)}"
+        )
+    if tasks is not None:
+        unknown = sorted(set(tasks) - set(names))
+        if len(unknown) == len(set(tasks)):
+            shown = ", ".join(repr(n) for n in sorted(names)[:12]) + (" ..." if len(names) > 12 else "")
+            raise WarmstartError(
+                f"no replayable study of {learner!r} on task(s) {', '.join(map(repr, unknown))}; "
+                f"tasks with one: {shown}"
+            )
+        names = [n for n in names if n in set(tasks)]
+    return names
+
+
+def _check_budget(chosen, budget: int, learner: str) -> None:
+    """Refuse a budget above a held-out task's recorded configs (the nearest replay
+    evaluates each at most once per run)."""
+    short = sorted((t for t in chosen if t.objective.max_budget is not None and t.objective.max_budget < budget),
+                   key=lambda t: t.objective.max_budget)
+    if short:
+        least = short[0].objective.max_budget
+        shown = ", ".join(f"{t.task!r} ({t.objective.max_budget})" for t in short[:5]) + (" ..." if len(short) > 5 else "")
+        raise WarmstartError(
+            f"budget {budget} is above the number of recorded configs of {len(short)} held-out task(s) of "
+            f"{learner!r}: {shown}; the nearest replay evaluates each recorded config at most once per run, so "
+            f"lower the budget to at most {least}, leave those tasks out (--task), or use the surrogate replay"
+        )
+
+
+def _task_jobs(archive, learner: str, chosen, budget: int, repeats: int, seed: int) -> list:
+    """One job per held-out task, its prior built from every other task (sources
+    loaded once per space)."""
+    cache: dict[str, list[Source]] = {}
+    jobs = []
+    for t in chosen:
+        key = t.space.content_hash
+        if key not in cache:
+            cache[key] = load_sources(archive, learner, t.space)
+        weighted = prior_sources(archive, t.profile, learner, t.space, exclude_tasks=[t.task_id], loaded=cache[key])
+        prior = prior_from_sources(t.space, weighted, provenance={**prior_info(learner), "held_out": t.task})
+        jobs.append(_TaskJob(t, prior, budget, repeats, seed, _library_default(learner, t)))
+    return jobs
+
+
 def leave_one_task_out(
     archive,
     learner: str,
@@ -369,48 +419,17 @@ def leave_one_task_out(
     ReplayResult
     """
     check_choice("replay objective", objective, OBJECTIVES, error=WarmstartError)
-    names = [s.task for s in _replay_studies(archive, learner, 20)]
-    if len(names) < 2:
-        raise WarmstartError(
-            f"replay needs studies of {learner!r} on at least 2 tasks with >= 20 successful trials; "
-            f"found {len(names)}"
-        )
-    if tasks is not None:
-        unknown = sorted(set(tasks) - set(names))
-        if len(unknown) == len(set(tasks)):
-            shown = ", ".join(repr(n) for n in sorted(names)[:12]) + (" ..." if len(names) > 12 else "")
-            raise WarmstartError(
-                f"no replayable study of {learner!r} on task(s) {', '.join(map(repr, unknown))}; "
-                f"tasks with one: {shown}"
-            )
-        names = [n for n in names if n in set(tasks)]
+    names = _held_out_names(archive, learner, tasks)
     # a surrogate fit counts as one unit of work, as does replaying a task
     fits = len(names) if objective == "surrogate" else 0
     chosen = replay_tasks(archive, learner, gamma, objective=objective, only=names, workers=workers,
                           progress=progress, total=fits + len(names), executor=executor)
-    short = sorted((t for t in chosen if t.objective.max_budget is not None and t.objective.max_budget < budget),
-                   key=lambda t: t.objective.max_budget)
-    if short:
-        least = short[0].objective.max_budget
-        shown = ", ".join(f"{t.task!r} ({t.objective.max_budget})" for t in short[:5]) + (" ..." if len(short) > 5 else "")
-        raise WarmstartError(
-            f"budget {budget} is above the number of recorded configs of {len(short)} held-out task(s) of "
-            f"{learner!r}: {shown}; the nearest replay evaluates each recorded config at most once per run, so "
-            f"lower the budget to at most {least}, leave those tasks out (--task), or use the surrogate replay"
-        )
+    _check_budget(chosen, budget, learner)
     if permuted:
         from warmstart.gain.control import permute_task
 
         chosen = [permute_task(t, np.random.default_rng([seed, t.task_id]), gamma) for t in chosen]
-    cache: dict[str, list[Source]] = {}
-    jobs = []
-    for t in chosen:
-        key = t.space.content_hash
-        if key not in cache:
-            cache[key] = load_sources(archive, learner, t.space)
-        weighted = prior_sources(archive, t.profile, learner, t.space, exclude_tasks=[t.task_id], loaded=cache[key])
-        prior = prior_from_sources(t.space, weighted, provenance={**prior_info(learner), "held_out": t.task})
-        jobs.append(_TaskJob(t, prior, budget, repeats, seed, _library_default(learner, t)))
+    jobs = _task_jobs(archive, learner, chosen, budget, repeats, seed)
     results = map_jobs(_one_task, jobs, workers, progress, done_before=fits, total=fits + len(jobs),
                        executor=executor)
     gains = judge([r.gain for r in results])
