@@ -221,3 +221,34 @@ def test_later_bodies_are_filled_before_the_commit_and_retries_in_the_batch_get_
     finally:
         writer.close()
         archive.close()
+
+
+def test_a_retry_in_a_later_batch_or_after_a_restart_gets_the_stored_answer(tmp_path):
+    """The writer looks up only request ids it may have stored (SeenRequests): an id
+    committed in an earlier batch, or before the writer started, is still found."""
+    path = tmp_path / "w.duckdb"
+    log: list = []
+    key = RequestKey("dana", "req-9", "POST /x", "00")
+    with Archive(path) as archive:
+        writer = Writer(archive)
+        writer.start()
+        try:
+            first = writer.submit(_note("once", log), key).result(30)
+            again = writer.submit(_note("again", log), key).result(30)  # a batch of its own
+            failed = writer.submit(_failing(log), RequestKey("dana", "req-10", "POST /x", "00"))
+            with pytest.raises(ServiceError):
+                failed.result(30)
+            after_failure = writer.submit(_note("new", log), RequestKey("dana", "req-10", "POST /x", "00")).result(30)
+        finally:
+            writer.close()
+    assert again.replayed and again.body == first.body and not after_failure.replayed
+    with Archive(path) as archive:
+        writer = Writer(archive)
+        writer.start()
+        try:
+            restarted = writer.submit(_note("restart", log), key).result(30)
+        finally:
+            writer.close()
+        names = _names(archive)
+    assert restarted.replayed and restarted.body == first.body
+    assert log == ["once", "failing", "new"] and names == ["new", "once", "req-10", "req-9"]

@@ -35,6 +35,7 @@ from typing import Any, Callable
 
 from warmstart.archive.store import Archive
 from warmstart.service.errors import Refused, ServiceError
+from warmstart.service.seen import SeenRequests
 
 __all__ = ["Writer", "RequestKey", "Answer", "Later", "REQUEST_RETENTION_DAYS", "MAX_BATCH"]
 
@@ -140,12 +141,15 @@ class Writer:
         self._thread = threading.Thread(target=self._run, name="warmstart-writer", daemon=True)
         self._closed = False
         self._lock = threading.Lock()
+        self._seen: SeenRequests | None = None  # request ids stored: built at start (or first use)
+        self._stored_now: list[tuple[str, str]] = []  # request ids the batch being run stores
 
     def start(self) -> None:
         """Start the thread (drops stored answers older than the retention first)."""
         cutoff = _now() - timedelta(days=REQUEST_RETENTION_DAYS)
         with self.archive.transaction() as con:
             con.execute("DELETE FROM requests WHERE created_at < ?", [cutoff])
+        self._seen = SeenRequests.load(self.archive.con)
         self._thread.start()
 
     def submit(self, fn: Callable[[Archive], tuple[int, Any]], key: RequestKey | None = None,
@@ -226,6 +230,7 @@ class Writer:
                 for job in batch:
                     self._run_batch([job])
             return
+        self._seen.add(self._stored_now)
         self._committed()
         _settle(batch, outcomes)
 
@@ -243,14 +248,20 @@ class Writer:
     def _execute(self, batch: list[_Job]) -> list[Answer | ServiceError]:
         """Run the writes of a batch in the open transaction.
 
-        Stored answers of their request ids are read in one query and the new
+        Stored answers of their request ids (those :class:`SeenRequests` may
+        hold) are read in one query and the new
         ones written in one statement at the end; a retry (a request id seen
         before, also earlier in this batch) gets its stored answer and runs
         nothing, a request id reused for another request gets a 422 (both
         write nothing, so they fail no other write of the batch).
         """
         con = self.archive.con
-        keys = [job.key for job in batch if job.key is not None]
+        if self._seen is None:
+            self._seen = SeenRequests.load(con)
+        self._stored_now = []
+        # only ids that may have been stored are looked up (a retry; a new id needs no query)
+        keys = [job.key for job in batch if job.key is not None and self._seen.may_hold(job.key.principal,
+                                                                                         job.key.request_id)]
         #: (principal, request id) -> (route, body digest, status, stored text or [body of this batch])
         stored: dict[tuple[str, str], tuple[str, str, int, Any]] = {}
         if keys:
@@ -295,6 +306,7 @@ class Writer:
                 body = body.body() if isinstance(body, Later) else body
                 outcomes[i] = Answer(status, json.dumps(body, allow_nan=False), replayed=replayed)
         fresh = [(k, outcomes[i].status, outcomes[i].text) for k, i in fresh]
+        self._stored_now = [(k.principal, k.request_id) for k, _, _ in fresh]
         if fresh:
             con.execute(
                 "INSERT INTO requests SELECT unnest(?::VARCHAR[]), unnest(?::VARCHAR[]), unnest(?::VARCHAR[]), "
