@@ -333,49 +333,6 @@ def test_the_in_process_proposer_answers_like_the_child_for_unknown_studies():
             proposer.close()
 
 
-def test_several_proposals_asked_before_any_is_read_come_back_in_order_and_distinct(tmp_path):
-    """Each ``propose`` of a batch asks the searches at once (a child draws while the
-    batch's other writes run): answers read in the order asked equal the in-process
-    proposer's, never repeat a pending config, and are refused out of order."""
-    seed_archive(tmp_path / "team.duckdb")
-    with Archive(tmp_path / "team.duckdb", read_only=True) as archive:
-        search, _, _ = _search(archive, "warm")
-    drawn = {}
-    for proposer in (InProcessProposer(), ChildProcessProposer()):
-        proposer.start()
-        try:
-            proposer.adopt(7, pickle.loads(pickle.dumps(search)))
-            answers = [proposer.ask_many([(7, k)]) for k in (2, 1, 3)]
-            drawn[type(proposer).__name__] = [config for answer in answers for config in answer()[0]]
-        finally:
-            proposer.close()
-    assert drawn["InProcessProposer"] == drawn["ChildProcessProposer"]
-    keys = [key for key, _ in drawn["ChildProcessProposer"]]
-    assert len(keys) == 6 and len(set(keys)) == 6  # pending configs join the search: all distinct
-
-    proposer = ChildProcessProposer()
-    proposer.start()
-    try:
-        proposer.adopt(7, pickle.loads(pickle.dumps(search)))
-        first, second = proposer.ask_many([(7, 1)]), proposer.ask_many([(7, 1)])
-        with pytest.raises(RuntimeError, match="in the order they were asked"):
-            second()
-        with pytest.raises(RuntimeError, match="before asking the searches anything else"):
-            proposer.studies()
-        assert len(first()[0]) == 1 and len(second()[0]) == 1
-        assert proposer.studies() == [7]  # every answer read: asking works again
-        pid = proposer.pid
-        os.kill(pid, signal.SIGSTOP)  # stopped before it can answer, then killed
-        first, second = proposer.ask_many([(7, 1)]), proposer.ask_many([(7, 1)])
-        os.kill(pid, signal.SIGKILL)
-        for answer in (first, second):  # both lost, none left unread to confuse the next child
-            with pytest.raises(SearchesLost):
-                answer()
-        assert proposer.studies() == [] and proposer.started == 2
-    finally:
-        proposer.close()
-
-
 # -- a real `warmstart serve` with its search process ------------------------------------------------
 def _children(pid: int, marker: str = "spawn_main") -> list[int]:
     """Live processes whose parent is ``pid`` and whose command line holds ``marker``

@@ -41,7 +41,7 @@ import json
 import math
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta, timezone
-from typing import Any, Callable
+from typing import Any
 
 from warmstart.errors import SpaceError, WarmstartError
 from warmstart.search.strategy import SearchStrategy, classify_result
@@ -133,9 +133,7 @@ class LeaseBook:
         self.searches = searches if searches is not None else InProcessProposer()
         self._studies: dict[int, _Study] = {}
         self._touched: set[int] = set()
-        self._asked: list[_Asked] = []  # proposals of this batch not sent to the searches yet
-        #: proposals sent to the searches, not drawn yet: (the proposals, the function giving their configs)
-        self._sent: list[tuple[list[_Asked], Callable[[], list]]] = []
+        self._asked: list[_Asked] = []  # proposals of this batch not drawn yet
         self._rows = RowBuffer()
         self._ids = TrialIds()
 
@@ -166,66 +164,54 @@ class LeaseBook:
         this batch left (called before the commit, and before a read of the
         leases inside the batch). The rows that wait for no proposal (trials,
         recorded leases) are written while the searches draw."""
-        self._ask()
+        collect = self._ask()
         try:
             self._rows.flush(archive)
         finally:
-            self._settle()
+            self._settle(collect)
         self._rows.flush(archive)
         with self._kept():
             self.searches.sync()
 
-    def _ask(self) -> None:
-        """Send every proposal asked for and not sent yet to the searches, in one
-        exchange (in the order asked). Each ``propose`` sends its own at once,
-        so searches in a child process draw while this batch's other writes run."""
+    def _ask(self):
+        """Send every proposal asked for since the last settle to the searches, in
+        one exchange (in the order asked); returns what :meth:`_settle` takes."""
         if not self._asked:
-            return
+            return None
         asked, self._asked = self._asked, []
         with self._kept():
-            self._sent.append((asked, self.searches.ask_many([(a.study, a.k) for a in asked])))
+            return asked, self.searches.ask_many([(a.study, a.k) for a in asked])
 
-    def _draw(self) -> list[tuple[list[_Asked], list]]:
-        """The configs of every proposal sent, in the order sent; every answer is
-        read (the searches answer in order) before the first error is raised."""
-        sent, self._sent = self._sent, []
-        drawn, error = [], None
-        for asked, answer in sent:
-            try:
-                with self._kept():
-                    drawn.append((asked, answer()))
-            except (ServiceError, NoConfigLeft) as exc:
-                error = error or exc
-        if isinstance(error, NoConfigLeft):
-            raise ServiceError(409, f"study {error.study}: {error}; record or let some leases expire, or ask for "
-                               "fewer", "k", error.k) from None
-        if error is not None:
-            raise error
-        return drawn
-
-    def _settle(self) -> None:
-        """The configs drawn for the proposals asked for (sent first when they
-        were not): their answers and lease rows filled in."""
-        self._ask()
-        for asked, drawn in self._draw():
-            for a, leased in zip(asked, drawn):
-                for trial, (key, _) in zip(a.ids, leased):
-                    self._rows.add_lease(trial, a.study, key, a.owner, a.now, a.until)
-                    a.state.open[trial] = (key, a.until)
-                a.answer.fill({
-                    "study_id": a.study,
-                    "leases": [{"trial": trial, "config": c, "expires_at": _stamp(a.until)}
-                               for trial, (_, c) in zip(a.ids, leased)],
-                    "expired": a.expired,
-                    "trial_count": a.trial_count,
-                })
+    def _settle(self, collect=False) -> None:
+        """The configs drawn for the proposals asked for (asks first when not
+        given): their answers and lease rows filled in."""
+        if collect is False:
+            collect = self._ask()
+        if collect is None:
+            return
+        asked, answer = collect
+        try:
+            with self._kept():
+                drawn = answer()
+        except NoConfigLeft as exc:
+            raise ServiceError(409, f"study {exc.study}: {exc}; record or let some leases expire, or ask for fewer",
+                               "k", exc.k) from None
+        for a, leased in zip(asked, drawn):
+            for trial, (key, _) in zip(a.ids, leased):
+                self._rows.add_lease(trial, a.study, key, a.owner, a.now, a.until)
+                a.state.open[trial] = (key, a.until)
+            a.answer.fill({
+                "study_id": a.study,
+                "leases": [{"trial": trial, "config": c, "expires_at": _stamp(a.until)}
+                           for trial, (_, c) in zip(a.ids, leased)],
+                "expired": a.expired,
+                "trial_count": a.trial_count,
+            })
 
     def abort(self) -> None:
         """Forget the searches touched since the last commit and the rows not
         written (the write failed and was rolled back)."""
         self._asked.clear()  # never drawn: their answers are not given
-        with contextlib.suppress(ServiceError):  # read (the searches answer in order), then dropped
-            self._draw()
         for study in self._touched:
             self.forget(study)
         self._touched.clear()
@@ -251,7 +237,6 @@ class LeaseBook:
     def close(self) -> None:
         """Drop every search (and stop the search process, if any)."""
         self._asked.clear()
-        self._sent.clear()
         self._studies.clear()
         self.searches.close()
 
@@ -305,7 +290,6 @@ class LeaseBook:
         self._asked.append(_Asked(study, int(k), state, self._ids.take(archive, k), owner, now, until, expired,
                                   state.trial_count, answer))
         state.due = until if state.due is None else min(state.due, until)
-        self._ask()  # drawn meanwhile (in a child process) while the batch's other writes run
         return answer
 
     # -- record --------------------------------------------------------------------

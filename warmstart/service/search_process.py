@@ -81,11 +81,7 @@ class ChildProcessProposer(Proposer):
         self._conn = None
         self._lock = threading.Lock()
         self._outbox: list[Message] = []  # sent without an answer, not yet delivered
-        #: ProposeMany messages sent by ask_many whose answers are not read yet
-        #: (their answers come back in the order asked and must be read so)
-        self._asked = 0
-        self._read = 0  # answers of ask_many read so far, of this child
-        self._generation = 0  # children ended so far: an answer asked of an ended child is lost
+        self._asked = False  # a ProposeMany sent by ask_many, its answer not read yet
         self._heard = False  # the running child has answered at least once
         #: children started so far (more than one: some were lost and replaced)
         self.started = 0
@@ -130,8 +126,7 @@ class ChildProcessProposer(Proposer):
         process, conn = self._process, self._conn
         self._process = self._conn = None
         self._outbox.clear()
-        self._asked = self._read = 0
-        self._generation += 1
+        self._asked = False
         if process.is_alive():
             process.kill()
         process.join(STOP_TIMEOUT_S)
@@ -140,25 +135,17 @@ class ChildProcessProposer(Proposer):
 
     def ask_many(self, items):
         """Send the proposals now; the function returned reads their answer
-        (the child draws them meanwhile). Several may be asked before any is
-        read; their answers must then be read in the order asked, and before
-        anything else that waits for an answer is asked of the searches."""
+        (the child draws them meanwhile)."""
         message = ProposeMany(tuple((int(study), int(k)) for study, k in items))
         with self._lock:
             if self._process is None:
                 self._start()
             self._exchange(message, wait=False)
-            ticket, generation = self._asked, self._generation
-            self._asked += 1
+            self._asked = True
 
         def answer() -> list:
             with self._lock:
-                if generation != self._generation:
-                    raise SearchesLost("the search process ended before it answered; the searches are "
-                                       "rebuilt from the archive when used next")
-                if ticket != self._read:
-                    raise RuntimeError("read the answers of ask_many in the order they were asked")
-                self._read += 1
+                self._asked = False
                 reply = self._receive()
             if reply.error is not None:
                 raise reply.error
@@ -190,9 +177,9 @@ class ChildProcessProposer(Proposer):
     def _exchange(self, message: Message | None, wait: bool = True) -> "_Reply | None":
         """Send the kept messages and ``message`` as one bundle; its reply when it
         is answered (``wait`` False: read later by :meth:`_receive`)."""
+        if self._asked:
+            raise RuntimeError("read the answer of ask_many before asking the searches anything else")
         bundle = Bundle((*self._outbox, *(() if message is None else (message,))))
-        if self._read < self._asked and bundle.answered and wait:
-            raise RuntimeError("read the answers of ask_many before asking the searches anything else")
         self._outbox.clear()
         try:
             self._conn.send(bundle)
