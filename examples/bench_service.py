@@ -38,6 +38,7 @@ Run::
     python examples/bench_service.py --clients 8 --pairs 20
     python examples/bench_service.py --rate 0                # closed loop only
     python examples/bench_service.py --search-process child  # one kind only
+    python examples/bench_service.py --stored-answers 1000000  # after weeks of answers kept
 """
 
 from __future__ import annotations
@@ -349,6 +350,18 @@ def plot(results: dict, path: Path) -> None:
     plt.close(fig)
 
 
+def store_answers(path: Path, n: int) -> None:
+    """``n`` invented answers to earlier requests in the ``requests`` table (random-looking ids, as
+    clients make them, that no client of the load sends), under the load's principal (no token: '')."""
+    from warmstart.archive.store import Archive
+
+    t0 = time.perf_counter()
+    with Archive(path) as archive, archive.transaction() as con:
+        con.execute("INSERT INTO requests SELECT '', md5(i::VARCHAR), 'POST /api/v1/studies/1/record', "
+                    "'00', 200, '{}', now()::TIMESTAMP FROM range(?) t(i)", [n])
+    print(f"stored {n:,} answers to earlier requests in {time.perf_counter() - t0:.1f} s", flush=True)
+
+
 def load_server(server: ServerProcess, args, pool, local: float) -> tuple[dict, bool]:
     """Every scenario against one running server: their summaries (by label) and whether
     every check passed."""
@@ -417,6 +430,9 @@ def main() -> None:
     parser.add_argument("--rate", type=float, default=GOALS["records_per_s"],
                         help="pairs per second offered by all clients together in the paced scenarios, run on "
                              "fresh studies after the closed-loop ones (default: the goal, 300; 0: none)")
+    parser.add_argument("--stored-answers", type=int, default=0,
+                        help="answers to earlier requests stored in the archive before the load (a service "
+                             "that has run for weeks keeps up to 30 days of them; default none)")
     parser.add_argument("--search-process", choices=("both", "child", "in-process"), default="both",
                         help="where the server runs the studies' searches: in a child process (serve "
                              "--search-process), in its own process (--no-search-process), or both, one server "
@@ -439,6 +455,8 @@ def main() -> None:
                       for name, (thread, total) in cost.items()), flush=True)
     kinds = ["child", "in-process"] if args.search_process == "both" else [args.search_process]
     seed_archive(folder / "seeded.duckdb")
+    if args.stored_answers:
+        store_answers(folder / "seeded.duckdb", args.stored_answers)
     results: dict = {}
     ok = True
     ctx = mp.get_context("spawn")

@@ -1,10 +1,11 @@
 """Which client request ids the archive may hold an answer for, kept in memory.
 
 The writer must look up every request id a write carries (a retry gets its
-stored answer). A lookup in the ``requests`` table costs a scan of it (DuckDB
-does not use the primary key's index for these joins): 1.9 ms at 10,000
-stored answers, 7 ms at 1,000,000 (``docs/benchmarks.md``), paid by every
-batch, while almost every id a batch carries is new. :class:`SeenRequests`
+stored answer). A lookup in the ``requests`` table costs a scan of it once
+ids are random, as clients make them (DuckDB does not use the primary key's
+index for these joins): 3.3 ms at 10,000 stored answers, 37 ms at 1,000,000
+(``examples/bench_request_lookup.py``), paid by every batch, while almost
+every id a batch carries is new. :class:`SeenRequests`
 keeps a 64-bit hash of every stored (principal, request id): an id whose hash
 is not there was never stored and needs no query; one whose hash is there
 (a retry, or a hash shared by chance) is looked up in the table as before.
