@@ -5,11 +5,12 @@ stored answer). A lookup in the ``requests`` table costs a scan of it once
 ids are random, as clients make them (DuckDB does not use the primary key's
 index for these joins): 3.3 ms at 10,000 stored answers, 37 ms at 1,000,000
 (``examples/bench_request_lookup.py``), paid by every batch, while almost
-every id a batch carries is new. :class:`SeenRequests`
-keeps a 64-bit hash of every stored (principal, request id): an id whose hash
-is not there was never stored and needs no query; one whose hash is there
-(a retry, or a hash shared by chance) is looked up in the table as before.
-So an answer is never missed: the set only ever says "maybe" too often.
+every id a batch carries is new. :class:`SeenRequests` keeps a 64-bit hash
+of every stored (principal, request id), and of every id of a committed
+batch: an id whose hash is not there was never stored and needs no query;
+one whose hash is there (a retry, an id refused before, or a hash shared by
+chance) is looked up in the table as before. So an answer is never missed:
+the set only ever says "maybe" too often.
 
 The hashes are Python's own hash of the pair (salted per process, which is
 fine: the set is built again at every start), 8 bytes each in a sorted
@@ -66,7 +67,7 @@ class SeenRequests:
         return i < self._base.size and int(self._base[i]) == h
 
     def add(self, pairs) -> None:
-        """Pairs just stored (after their commit)."""
+        """Pairs of a committed batch (stored, or refused: a needless "maybe" at worst)."""
         for pair in pairs:
             h = hash(tuple(pair))
             if not self._in_base(h):

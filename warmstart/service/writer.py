@@ -142,7 +142,6 @@ class Writer:
         self._closed = False
         self._lock = threading.Lock()
         self._seen: SeenRequests | None = None  # request ids stored: built at start (or first use)
-        self._stored_now: list[tuple[str, str]] = []  # request ids the batch being run stores
 
     def start(self) -> None:
         """Start the thread (drops stored answers older than the retention first)."""
@@ -230,7 +229,8 @@ class Writer:
                 for job in batch:
                     self._run_batch([job])
             return
-        self._seen.add(self._stored_now)
+        # every id of the committed batch (a refused one too: it only costs a lookup if it comes again)
+        self._seen.add((job.key.principal, job.key.request_id) for job in batch if job.key is not None)
         self._committed()
         _settle(batch, outcomes)
 
@@ -249,8 +249,8 @@ class Writer:
         """Run the writes of a batch in the open transaction.
 
         Stored answers of their request ids (those :class:`SeenRequests` may
-        hold) are read in one query and the new
-        ones written in one statement at the end; a retry (a request id seen
+        hold) are read in one query and the new ones written in one statement
+        at the end; a retry (a request id seen
         before, also earlier in this batch) gets its stored answer and runs
         nothing, a request id reused for another request gets a 422 (both
         write nothing, so they fail no other write of the batch).
@@ -258,7 +258,6 @@ class Writer:
         con = self.archive.con
         if self._seen is None:
             self._seen = SeenRequests.load(con)
-        self._stored_now = []
         # only ids that may have been stored are looked up (a retry; a new id needs no query)
         keys = [job.key for job in batch if job.key is not None and self._seen.may_hold(job.key.principal,
                                                                                          job.key.request_id)]
@@ -306,7 +305,6 @@ class Writer:
                 body = body.body() if isinstance(body, Later) else body
                 outcomes[i] = Answer(status, json.dumps(body, allow_nan=False), replayed=replayed)
         fresh = [(k, outcomes[i].status, outcomes[i].text) for k, i in fresh]
-        self._stored_now = [(k.principal, k.request_id) for k, _, _ in fresh]
         if fresh:
             con.execute(
                 "INSERT INTO requests SELECT unnest(?::VARCHAR[]), unnest(?::VARCHAR[]), unnest(?::VARCHAR[]), "
