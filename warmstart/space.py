@@ -203,8 +203,7 @@ class Alignment:
 
 
 def _parse_param(name: str, spec: Any, where: str) -> Param:
-    # long: one check per field of a parameter's spec, in the order a reader writes them, each with its
-    # own message naming the field; split by kind, the shared checks (name, type, condition) would repeat
+    """One parameter of a space's spec: the checks every kind shares, then its kind's own."""
     if not isinstance(name, str) or not name:
         raise SpaceError(f"{where}: parameter names must be non-empty strings, got {name!r}")
     if not isinstance(spec, Mapping):
@@ -227,33 +226,43 @@ def _parse_param(name: str, spec: Any, where: str) -> Param:
     if not isinstance(log, bool):
         raise SpaceError(f"{where}: parameter {name!r} has log={log!r}; use true or false")
     if kind == "choice":
-        if "low" in spec or "high" in spec or log:
+        return _parse_choice(name, spec, log, when, where)
+    return _parse_range(name, kind, spec, log, when, where)
+
+
+def _parse_choice(name: str, spec: Mapping, log: bool, when: tuple, where: str) -> Param:
+    """A choice parameter: distinct levels that are strings, finite numbers or booleans."""
+    if "low" in spec or "high" in spec or log:
+        raise SpaceError(
+            f"{where}: choice parameter {name!r} takes 'choices' only, not low/high/log"
+        )
+    choices = spec.get("choices")
+    if not isinstance(choices, (list, tuple)) or len(choices) == 0:
+        raise SpaceError(
+            f"{where}: choice parameter {name!r} needs a non-empty list 'choices', got {choices!r}"
+        )
+    keys = []
+    for c in choices:
+        c = plain_value(c)
+        if c is None or not isinstance(c, (str, int, float, bool)) or (
+            isinstance(c, float) and not math.isfinite(c)
+        ):
             raise SpaceError(
-                f"{where}: choice parameter {name!r} takes 'choices' only, not low/high/log"
+                f"{where}: choice parameter {name!r} has level {c!r}; levels must be "
+                "strings, finite numbers or booleans"
             )
-        choices = spec.get("choices")
-        if not isinstance(choices, (list, tuple)) or len(choices) == 0:
-            raise SpaceError(
-                f"{where}: choice parameter {name!r} needs a non-empty list 'choices', got {choices!r}"
-            )
-        keys = []
-        for c in choices:
-            c = plain_value(c)
-            if c is None or not isinstance(c, (str, int, float, bool)) or (
-                isinstance(c, float) and not math.isfinite(c)
-            ):
-                raise SpaceError(
-                    f"{where}: choice parameter {name!r} has level {c!r}; levels must be "
-                    "strings, finite numbers or booleans"
-                )
-            keys.append(_level_key(c))
-        if len(set(keys)) != len(keys):
-            dup = next(plain_value(c) for c, k in zip(choices, keys) if keys.count(k) > 1)
-            raise SpaceError(
-                f"{where}: choice parameter {name!r} repeats a level ({dup!r}) in {list(choices)!r}; "
-                "levels must be distinct (1 and 1.0 count as the same level, true and 1 do not)"
-            )
-        return Param(name, "choice", choices=tuple(plain_value(c) for c in choices), when=when)
+        keys.append(_level_key(c))
+    if len(set(keys)) != len(keys):
+        dup = next(plain_value(c) for c, k in zip(choices, keys) if keys.count(k) > 1)
+        raise SpaceError(
+            f"{where}: choice parameter {name!r} repeats a level ({dup!r}) in {list(choices)!r}; "
+            "levels must be distinct (1 and 1.0 count as the same level, true and 1 do not)"
+        )
+    return Param(name, "choice", choices=tuple(plain_value(c) for c in choices), when=when)
+
+
+def _parse_range(name: str, kind: str, spec: Mapping, log: bool, when: tuple, where: str) -> Param:
+    """An integer or real parameter: finite bounds in order, positive on a log scale."""
     if "choices" in spec:
         raise SpaceError(f"{where}: {kind} parameter {name!r} takes low/high, not 'choices'")
     low, high = spec.get("low"), spec.get("high")

@@ -138,9 +138,60 @@ def line_chart(series: dict[str, Sequence[tuple[float, float]]], x_label: str, y
     return "".join(parts)
 
 
+def _study_html(view, study_id: int) -> HTMLResponse:
+    """A study's page: its facts, best-so-far curve and best configs (404 for an unknown study)."""
+    row = study_or_404(view, study_id)
+    table = view.trial_table(study_id)
+    curve = study_curve(table, row["maximize"])
+    chart = line_chart(
+        {"best so far": [(c["number"], c["best"]) for c in curve]},
+        "trial", f"{row['metric']} ({row['direction']})",
+        points={"trial scores": [(c["number"], c["score"]) for c in curve]},
+    )
+    space = row["space"]
+    ok = table[table["status"] == "ok"].sort_values("score", ascending=not row["maximize"]).head(10)
+    best = _table(ok.to_dict(orient="records"), ["number"] + space.names + ["score", "cost_s"],
+                  table_id="best")
+    facts = [
+        ("task", f"<a href='/tasks/{int(row['task_id'])}?{escape(urlencode({'learner': row['learner']}))}'>"
+                 f"{escape(str(row['task']))}</a> (its neighbors)"),
+        ("learner", escape(row["learner"])), ("origin", escape(row["origin"])),
+        ("metric", escape(f"{row['metric']} ({row['direction']})")),
+        ("trials", escape(f"{row['trial_count']} ({int(row['trial_count'] - row['n_ok'])} failed)")),
+        ("best", escape(_fmt(row["best_score"]))), ("owner", escape(_fmt(row["owner"]))),
+        ("tags", escape(_fmt(row["tags"]) or "-")),
+        ("space", escape("; ".join(f"{p.name}: {p.describe()}" for p in space))),
+    ]
+    info = "<table>" + "".join(f"<tr><th>{k}</th><td>{v}</td></tr>" for k, v in facts) + "</table>"
+    body = (info + "<h2>Best so far</h2>" + chart + "<h2>Best configs</h2>"
+            + (best if len(ok) else "<p>no successful trial yet</p>"))
+    return _page(f"study {study_id}: {row['learner']} on {row['task']}", body)
+
+
+def _gain_html(view) -> HTMLResponse:
+    """The latest gain report: pooled bits, the hit-rate curves and the per-task table."""
+    from warmstart.service.jobs import latest_report
+
+    report = latest_report(view)
+    if report is None:
+        return _page("latest gain report", "<p id='gain'>no gain report yet: POST /api/v1/gain starts a "
+                                           "replay (or <code>warmstart gain --server URL</code>)</p>")
+    r = report["result"]
+    p = r["pooled"]
+    head = (f"<p id='gain'>{escape(r['learner'])}, budget {r['budget']}, {r['repeats']} runs each, replay "
+            f"{escape(r['replay'])}; {report['created_at']} by {escape(_fmt(report['owner']))}</p>"
+            f"<p>pooled over {p['n_tasks']} tasks: warm {p['bits_warm']:+.2f} bits, cold {p['bits_cold']:+.2f} "
+            f"bits over uniform; gain {p['gain']:+.2f} bits (95% {p['gain_low']:+.2f} to {p['gain_high']:+.2f}); "
+            f"transfer hurt on {p['share_hurt']:.0%} of tasks</p>")
+    curves = {label: [(i + 1, v) for i, v in enumerate(c["hit_rate"])] for label, c in r["curves"].items()}
+    chart = line_chart(curves, "query", "chance the query lands in the target set", chart_id="gain-curve")
+    rows = sorted(r["tasks"], key=lambda t: -(t.get("gain") or 0))
+    table = _table(rows, ["task", "bits_warm", "bits_cold", "gain", "gain_low", "gain_high", "verdict"])
+    return _page("latest gain report", head + chart + "<h2>Per task</h2>" + table)
+
+
 def page_router(service: Service, page_who: Callable) -> APIRouter:
     """Routes of the page; ``page_who(request)`` checks a token (Bearer or Basic)."""
-    # long: a router factory; each page below is its own short function closed over the service
     router = APIRouter(include_in_schema=False)
 
     def who(request: Request):
@@ -176,33 +227,7 @@ def page_router(service: Service, page_who: Callable) -> APIRouter:
 
     @router.get("/studies/{study_id}", response_class=HTMLResponse)
     def study_page(study_id: Annotated[int, PathParam(ge=1, le=2**62)], _=Depends(who)) -> HTMLResponse:
-        view = service.reader()
-        row = study_or_404(view, study_id)
-        table = view.trial_table(study_id)
-        curve = study_curve(table, row["maximize"])
-        chart = line_chart(
-            {"best so far": [(c["number"], c["best"]) for c in curve]},
-            "trial", f"{row['metric']} ({row['direction']})",
-            points={"trial scores": [(c["number"], c["score"]) for c in curve]},
-        )
-        space = row["space"]
-        ok = table[table["status"] == "ok"].sort_values("score", ascending=not row["maximize"]).head(10)
-        best = _table(ok.to_dict(orient="records"), ["number"] + space.names + ["score", "cost_s"],
-                      table_id="best")
-        facts = [
-            ("task", f"<a href='/tasks/{int(row['task_id'])}?{escape(urlencode({'learner': row['learner']}))}'>"
-                     f"{escape(str(row['task']))}</a> (its neighbors)"),
-            ("learner", escape(row["learner"])), ("origin", escape(row["origin"])),
-            ("metric", escape(f"{row['metric']} ({row['direction']})")),
-            ("trials", escape(f"{row['trial_count']} ({int(row['trial_count'] - row['n_ok'])} failed)")),
-            ("best", escape(_fmt(row["best_score"]))), ("owner", escape(_fmt(row["owner"]))),
-            ("tags", escape(_fmt(row["tags"]) or "-")),
-            ("space", escape("; ".join(f"{p.name}: {p.describe()}" for p in space))),
-        ]
-        info = "<table>" + "".join(f"<tr><th>{k}</th><td>{v}</td></tr>" for k, v in facts) + "</table>"
-        body = (info + "<h2>Best so far</h2>" + chart + "<h2>Best configs</h2>"
-                + (best if len(ok) else "<p>no successful trial yet</p>"))
-        return _page(f"study {study_id}: {row['learner']} on {row['task']}", body)
+        return _study_html(service.reader(), study_id)
 
     @router.get("/tasks/{task_id}", response_class=HTMLResponse)
     def task_page(task_id: Annotated[int, PathParam(ge=1, le=2**62)], _=Depends(who),
@@ -223,23 +248,6 @@ def page_router(service: Service, page_who: Callable) -> APIRouter:
 
     @router.get("/gain", response_class=HTMLResponse)
     def gain_page(_=Depends(who)) -> HTMLResponse:
-        from warmstart.service.jobs import latest_report
-
-        report = latest_report(service.reader())
-        if report is None:
-            return _page("latest gain report", "<p id='gain'>no gain report yet: POST /api/v1/gain starts a "
-                                               "replay (or <code>warmstart gain --server URL</code>)</p>")
-        r = report["result"]
-        p = r["pooled"]
-        head = (f"<p id='gain'>{escape(r['learner'])}, budget {r['budget']}, {r['repeats']} runs each, replay "
-                f"{escape(r['replay'])}; {report['created_at']} by {escape(_fmt(report['owner']))}</p>"
-                f"<p>pooled over {p['n_tasks']} tasks: warm {p['bits_warm']:+.2f} bits, cold {p['bits_cold']:+.2f} "
-                f"bits over uniform; gain {p['gain']:+.2f} bits (95% {p['gain_low']:+.2f} to {p['gain_high']:+.2f}); "
-                f"transfer hurt on {p['share_hurt']:.0%} of tasks</p>")
-        curves = {label: [(i + 1, v) for i, v in enumerate(c["hit_rate"])] for label, c in r["curves"].items()}
-        chart = line_chart(curves, "query", "chance the query lands in the target set", chart_id="gain-curve")
-        rows = sorted(r["tasks"], key=lambda t: -(t.get("gain") or 0))
-        table = _table(rows, ["task", "bits_warm", "bits_cold", "gain", "gain_low", "gain_high", "verdict"])
-        return _page("latest gain report", head + chart + "<h2>Per task</h2>" + table)
+        return _gain_html(service.reader())
 
     return router
