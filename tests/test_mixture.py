@@ -250,6 +250,42 @@ def test_same_seed_same_proposals_and_a_rebuilt_search_proposes_the_same():
     assert rebuilt.propose(2) == search.propose(2)
 
 
+def test_caps_on_the_own_densities_change_nothing_until_they_bind():
+    """Below ``max_good / gamma`` scored configs (and ``max_rest`` others) a
+    capped search proposes exactly what an uncapped one does."""
+    prior = prior_from_sources(SPACE, [branin_source(6), branin_source(7, sign=-1.0, similarity=0.5)])
+    capped = run_search(MixtureSearch(SPACE, prior, seed=4, maximize=False, max_good=5, max_rest=15),
+                        BRANIN, 20, n_workers=3)
+    free = run_search(MixtureSearch(SPACE, prior, seed=4, maximize=False, max_good=10**9, max_rest=10**9),
+                      BRANIN, 20, n_workers=3)
+    assert capped.configs == free.configs  # 20 trials: at most ceil(0.25 * 20) = 5 good, 15 others
+    bound = run_search(MixtureSearch(SPACE, prior, seed=4, maximize=False, max_good=2, max_rest=6),
+                       BRANIN, 20, n_workers=3)
+    assert bound.configs != free.configs  # a cap that binds changes the model
+
+
+def test_capped_own_densities_keep_the_best_and_a_subsample_that_a_rebuilt_search_draws_again():
+    prior = prior_from_sources(SPACE, [branin_source(6)])
+    search = MixtureSearch(SPACE, prior, seed=5, maximize=False, max_good=4, max_rest=10)
+    run_search(search, BRANIN, 40, n_workers=4)
+    pending = search.propose(3)
+    good, rest = search._own_now()
+    y = search.signed_scores()
+    best4 = search.rows()[np.argsort(-y, kind="stable")[:4]]
+    np.testing.assert_array_equal(good.centres, best4)  # 40 scored: 10 would be good, the best 4 stay
+    assert rest.centres.shape[0] == 10 + 3  # a subsample of the other 36, the pending on top
+    others = {r.tobytes() for r in search.rows()[np.argsort(-y, kind="stable")[4:]]}
+    assert all(r.tobytes() in others for r in rest.centres[:10])
+    # rebuilt from what it was built from, with the same trials and leases: the same densities and proposals
+    rebuilt = MixtureSearch.from_dict(search.to_dict())
+    for trial in search.trials:
+        rebuilt.record(trial.config, trial.score)
+    for config in pending:
+        rebuilt.hold(config)
+    np.testing.assert_array_equal(rebuilt._own_now()[1].centres, rest.centres)
+    assert rebuilt.propose(2) == search.propose(2)
+
+
 def test_batches_spread_and_hedge_covers_different_sources():
     prior = prior_from_sources(SPACE, [branin_source(8), branin_source(9), branin_source(10, sign=-1.0)])
     search = MixtureSearch(SPACE, prior, seed=0, maximize=False, n_hedge=3)
@@ -278,6 +314,10 @@ def test_bad_arguments_raise_clear_errors():
         MixtureSearch(SPACE, prior, adaptive_design="yes")
     with pytest.raises(SearchError, match="chance must be one of tie, luck, got 'best'"):
         MixtureSearch(SPACE, prior, chance="best")
+    with pytest.raises(SearchError, match="max_good must be a whole number >= 1, got 0"):
+        MixtureSearch(SPACE, prior, max_good=0)
+    with pytest.raises(SearchError, match="max_rest must be a whole number >= 1, got 2.5"):
+        MixtureSearch(SPACE, prior, max_rest=2.5)
     with pytest.raises(SearchError, match="not a mixture warm search"):
         MixtureSearch.from_dict({"format": "something-else"})
     d = MixtureSearch(SPACE, prior).to_dict()
@@ -349,10 +389,10 @@ def test_with_many_uninformative_past_tasks_only_the_luck_bar_sees_chance():
 
 def test_weights_follow_every_result_in_the_ranked_window_then_every_tenth_of_it(monkeypatch):
     """Up to ``max_ranked`` results the weights are estimated again at every
-    result; beyond it on every ``max_ranked // 10`` results, from the first
-    trials up to that step. A search rebuilt and fed the same trials weighs
-    exactly as the one kept in memory at every count (the rule depends on the
-    trial count alone)."""
+    result; beyond it on a grid that grows by ``max(max_ranked // 10, g // 10)``
+    from each point ``g``, from the first trials up to the last grid point. A
+    search rebuilt and fed the same trials weighs exactly as the one kept in
+    memory at every count (the rule depends on the trial count alone)."""
     import warmstart.search.mixture as mixture
 
     prior = prior_from_sources(SPACE, [branin_source(6), branin_source(7, sign=-1.0, similarity=0.5)])
@@ -361,11 +401,13 @@ def test_weights_follow_every_result_in_the_ranked_window_then_every_tenth_of_it
     real = mixture.ranking_losses
     monkeypatch.setattr(mixture, "ranking_losses",
                         lambda *a, **k: (fits.append(search.trial_count) if counting[0] else None) or real(*a, **k))
+    # the grid worked out by hand from the rule: steps of 2 up to 30, then 30 // 10 = 3, 33 // 10 = 3, ...
+    grid = [20, 22, 24, 26, 28, 30, 33, 36, 39, 42, 46, 50, 55]
     configs = []
-    for n in range(31):
+    for n in range(56):
         weights = search.current_weights()
-        assert search.weights_basis() == (n if n <= 20 else 20 + (n - 20) // 2 * 2)
-        if n in (7, 20, 21, 26, 30):  # rebuilt from what it was built from, fed the same trials
+        assert search.weights_basis() == (n if n <= 20 else max(g for g in grid if g <= n))
+        if n in (7, 20, 21, 26, 30, 41, 55):  # rebuilt from what it was built from, fed the same trials
             counting[0] = False
             rebuilt = MixtureSearch.from_dict(search.to_dict())
             for config in configs:
@@ -378,4 +420,4 @@ def test_weights_follow_every_result_in_the_ranked_window_then_every_tenth_of_it
         search.record(config, BRANIN(config))
     estimated = sorted(set(fits))
     assert [n for n in estimated if n <= 20] == list(range(0, 21))  # at every result
-    assert [n for n in estimated if n > 20] == [22, 24, 26, 28, 30]
+    assert [n for n in estimated if n > 20] == grid[1:]

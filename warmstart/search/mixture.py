@@ -85,7 +85,7 @@ class _SourceModel:
 
 def _check_options(*, gamma, source_gamma, cover_fraction, uniform, cover_pool, explore, n_hedge, n_candidates,
                    n_boot, max_ranked, own_strength, prior_power, shrink, exact_share, adaptive_design, cover,
-                   source_score, chance) -> None:
+                   source_score, chance, max_good=64, max_rest=256) -> None:
     """Refuse an option of :class:`MixtureSearch` outside what it accepts, naming it."""
     for name, value in (("gamma", gamma), ("source_gamma", source_gamma),
                         ("cover_fraction", cover_fraction), ("uniform", uniform),
@@ -97,7 +97,8 @@ def _check_options(*, gamma, source_gamma, cover_fraction, uniform, cover_pool, 
     if uniform >= 1:
         raise SearchError(f"uniform must be below 1 so the past tasks count at all, got {uniform!r}")
     for name, value, low in (("n_hedge", n_hedge, 0), ("n_candidates", n_candidates, 1),
-                             ("n_boot", n_boot, 1), ("max_ranked", max_ranked, 2)):
+                             ("n_boot", n_boot, 1), ("max_ranked", max_ranked, 2),
+                             ("max_good", max_good, 1), ("max_rest", max_rest, 1)):
         if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < low:
             raise SearchError(f"{name} must be a whole number >= {low}, got {value!r}")
     for name, value in (("own_strength", own_strength), ("prior_power", prior_power), ("shrink", shrink)):
@@ -159,6 +160,13 @@ class MixtureSearch(SearchStrategy):
     max_ranked : int, default 40
         Most scored configs the weights are estimated on (the latest ones),
         which bounds the cost of a long search.
+    max_good, max_rest : int, default 64 and 256
+        Caps on the kernel centres of the new task's own good density (the
+        best configs) and rest density (a random subsample of the recorded
+        ones, drawn again at every result; the pending configs join it on
+        top), as the cold :class:`~warmstart.search.density.DensitySearch`
+        has, so that a proposal stays fast in a study of thousands of trials.
+        They bind only beyond ``max_good / gamma`` scored configs.
     prior_power : float, default 0
         ``beta`` of the decaying prior factor ``pi(x) ** (beta / (n + 1))``
         (0: none).
@@ -242,6 +250,8 @@ class MixtureSearch(SearchStrategy):
         cover_pool: float = 1.0,
         adaptive_design: bool = True,
         chance: str = "tie",
+        max_good: int = 64,
+        max_rest: int = 256,
     ):
         super().__init__(space, seed=seed, maximize=maximize)
         sources = getattr(prior, "sources", None)
@@ -252,7 +262,7 @@ class MixtureSearch(SearchStrategy):
                        cover_pool=cover_pool, explore=explore, n_hedge=n_hedge, n_candidates=n_candidates,
                        n_boot=n_boot, max_ranked=max_ranked, own_strength=own_strength, prior_power=prior_power,
                        shrink=shrink, exact_share=exact_share, adaptive_design=adaptive_design, cover=cover,
-                       source_score=source_score, chance=chance)
+                       source_score=source_score, chance=chance, max_good=max_good, max_rest=max_rest)
         self.prior = prior
         self.options = {
             "gamma": float(gamma), "source_gamma": float(source_gamma), "n_hedge": int(n_hedge),
@@ -262,6 +272,7 @@ class MixtureSearch(SearchStrategy):
             "source_score": source_score, "shrink": float(shrink), "explore": float(explore),
             "cover": cover, "exact_share": float(exact_share),
             "cover_pool": float(cover_pool), "adaptive_design": bool(adaptive_design), "chance": chance,
+            "max_good": int(max_good), "max_rest": int(max_rest),
         }
         self.__dict__.update(self.options)
         kept = [s for s in sources if s.X.shape[0] > 0]
@@ -336,14 +347,22 @@ class MixtureSearch(SearchStrategy):
         return good, self._own_rest(rows[rest_idx], extra_rest)
 
     def _own_good(self, rows: np.ndarray, y: np.ndarray) -> tuple[MixedKDE | None, np.ndarray]:
-        """The good density of scored rows and the indices of the rest."""
+        """The good density of scored rows (at most ``max_good`` centres) and
+        the indices of the rest (a subsample of ``max_rest`` beyond that, drawn
+        from the seed and the row count, so a rebuilt search draws the same)."""
         ok = np.flatnonzero(~np.isnan(y))
         if ok.size == 0:
-            return None, np.arange(len(y))
-        order = ok[np.argsort(-y[ok], kind="stable")]
-        n_good = max(1, math.ceil(self.gamma * ok.size))
-        good = MixedKDE(self.space, rows[order[:n_good]], shrink=self.shrink)
-        return good, np.concatenate([order[n_good:], np.flatnonzero(np.isnan(y))])
+            rest = np.arange(len(y))
+        else:
+            order = ok[np.argsort(-y[ok], kind="stable")]
+            n_good = min(self.max_good, max(1, math.ceil(self.gamma * ok.size)))
+            rest = np.concatenate([order[n_good:], np.flatnonzero(np.isnan(y))])
+        if rest.size > self.max_rest:
+            rng = np.random.default_rng(self._rng_key(4, n_pending=0, trials=len(y)))
+            rest = rest[np.sort(rng.choice(rest.size, self.max_rest, replace=False))]
+        if ok.size == 0:
+            return None, rest
+        return MixedKDE(self.space, rows[order[:n_good]], shrink=self.shrink), rest
 
     def _own_rest(self, rest_rows: np.ndarray, extra_rest: np.ndarray | None) -> MixedKDE | None:
         if extra_rest is not None and extra_rest.shape[0]:
@@ -410,8 +429,11 @@ class MixtureSearch(SearchStrategy):
         trials only: at every result while the study has at most
         ``max_ranked`` of them, then from the first :meth:`weights_basis`
         trials, which moves on every ``max_ranked / 10`` results (a tenth of
-        the ranked window turned over). A rule of the trial count alone, so a
-        search resumed from the archive weighs as the one kept in memory.
+        the ranked window turned over), then on every tenth of the trial
+        count (the new task's own weight has a floor of ``n / (n +
+        own_strength)`` by then, so the past tasks' share changes little). A
+        rule of the trial count alone, so a search resumed from the archive
+        weighs as the one kept in memory.
         """
         n = self.weights_basis()
         if self._weights_at is not None and self._weights_at[0] == n:
@@ -452,13 +474,22 @@ class MixtureSearch(SearchStrategy):
 
     def weights_basis(self) -> int:
         """How many of the recorded trials (the first ones) the current weights
-        are estimated from: all of them up to ``max_ranked``, then the count
-        rounded down to a step of ``max(1, max_ranked // 10)`` beyond it."""
-        n, window = self.trial_count, self.max_ranked
-        if n <= window:
+        are estimated from: all of them up to ``max_ranked``, then the last
+        point at or below the trial count of a grid that starts at
+        ``max_ranked`` and grows by ``max(max_ranked // 10, g // 10)`` from each
+        point ``g`` (a tenth of the window, then a tenth of the count: at most
+        about ``10 log(n / max_ranked)`` estimates in ``n`` results beyond the
+        window, where the new task's own weight already has a floor of
+        ``n / (n + own_strength)``)."""
+        n, g = self.trial_count, self.max_ranked
+        if n <= g:
             return n
-        step = max(1, window // 10)
-        return window + (n - window) // step * step
+        step = max(1, g // 10)
+        while True:
+            nxt = g + max(step, g // 10)
+            if nxt > n:
+                return g
+            g = nxt
 
     @property
     def uniform_weight(self) -> float:
@@ -528,9 +559,9 @@ class MixtureSearch(SearchStrategy):
                 return config, "cover"
         due = self._design_needed(t)
         if due:
-            rows = self._design_rows(due + 8)
+            rows = self._design_rows(due + 8)[:due]
             known = self._known_rows(rows)
-            if known[:due].sum() < due:  # the next Sobol point not tried yet (a rebuilt search takes the same)
+            if known.sum() < due:  # the next Sobol point not tried yet (a rebuilt search takes the same)
                 fresh = np.flatnonzero(~known)
                 return self.space.decode(rows[fresh[0]][None, :])[0], "design"
         return self._model_proposal(rng), "model"
@@ -637,4 +668,4 @@ class MixtureSearch(SearchStrategy):
     def _option_names() -> tuple[str, ...]:
         return ("gamma", "source_gamma", "n_hedge", "cover_fraction", "own_strength", "uniform",
                 "n_candidates", "n_boot", "max_ranked", "prior_power", "source_score", "shrink", "explore", "cover",
-                "exact_share", "cover_pool", "adaptive_design", "chance")
+                "exact_share", "cover_pool", "adaptive_design", "chance", "max_good", "max_rest")
