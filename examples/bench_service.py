@@ -20,7 +20,8 @@ that many pairs per second, each client its share on its own schedule, and
 show the latency at that throughput. Goals (issue 16): p50 <= 20 ms, p99 <= 100 ms, >= 300
 records/s on 2 cores. Baselines measured in the same run: the same pairs
 in one process without HTTP (``DensitySearch.propose`` + ``Archive.record_trial``),
-``GET /api/v1/health`` at 32 clients (the HTTP stack's floor), and one trial
+``GET /api/v1/health`` at 32 clients (the HTTP stack's floor), one client alone
+on a warm study (a batch per write: the latency floor under any load), and one trial
 recorded alone by the one-row INSERT against a one-row table (the earlier path). The
 clients share the 2 cores with the server. A plot of the pair latencies goes
 to ``--plot``.
@@ -127,6 +128,23 @@ def _health_process(args) -> list[float]:
     for w in workers:
         w.join()
     return out
+
+
+def lone_client(url: str, study: int, pairs: int = 60) -> tuple[float, float]:
+    """p50 seconds of a propose and of a record by one client alone on an idle service
+    (one write per batch: the floor under any load; the first 10 pairs warm up)."""
+    proposes, records = [], []
+    with Client(url) as client:
+        for k in range(pairs + 10):
+            t0 = time.perf_counter()
+            [lease] = client.propose(study)
+            t1 = time.perf_counter()
+            config = lease["config"]
+            client.record(study, trial=lease["trial"], score=branin(config["x1"], config["x2"]))
+            if k >= 10:
+                proposes.append(t1 - t0)
+                records.append(time.perf_counter() - t1)
+    return float(np.median(proposes)), float(np.median(records))
 
 
 def _spin(seconds: float) -> float:
@@ -386,6 +404,13 @@ def load_server(server: ServerProcess, args, pool, local: float) -> tuple[dict, 
     health_wall = time.perf_counter() - t0
     print(f"baseline, GET /api/v1/health at {args.clients} clients: p50 {np.percentile(health, 50) * 1000:.1f} ms, "
           f"{len(health) / health_wall:.0f} requests/s", flush=True)
+    with Client(server.url) as client:
+        alone = client.new_study(new_task(seed=90, name="store alone"), "bran", space=SPACE, metric="loss",
+                                 maximize=False)["study_id"]
+    propose_s, record_s = lone_client(server.url, alone)
+    print(f"baseline, one client alone on a warm study (a batch per write, the floor under any load): propose p50 "
+          f"{propose_s * 1000:.1f} ms, record p50 {record_s * 1000:.1f} ms, a pair {(propose_s + record_s) * 1000:.1f} "
+          f"ms (goal <= {GOALS['p50_ms']:.0f})", flush=True)
     for label, chosen, rate in scenarios:
         load_before = os.getloadavg()[0]
         server_cpu = process_cpu(server.proc.pid)

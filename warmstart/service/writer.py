@@ -35,6 +35,7 @@ from typing import Any, Callable
 
 from warmstart.archive.store import Archive
 from warmstart.service.errors import Refused, ServiceError
+from warmstart.service.rowbuffer import insert_rows
 from warmstart.service.seen import SeenRequests
 
 __all__ = ["Writer", "RequestKey", "Answer", "Later", "REQUEST_RETENTION_DAYS", "MAX_BATCH"]
@@ -42,6 +43,8 @@ __all__ = ["Writer", "RequestKey", "Answer", "Later", "REQUEST_RETENTION_DAYS", 
 log = logging.getLogger("warmstart.service")
 REQUEST_RETENTION_DAYS = 30  # stored answers to request ids older than this are dropped at start-up
 MAX_BATCH = 64  # writes committed together at most (a batch waits for nothing: it is what is queued)
+_REQUEST_COLUMNS = ("principal", "request_id", "route", "body_sha256", "status", "response", "created_at")
+_REQUEST_TYPES = ("VARCHAR", "VARCHAR", "VARCHAR", "VARCHAR", "INTEGER", "VARCHAR", "TIMESTAMP")
 
 
 def _now() -> datetime:
@@ -306,13 +309,10 @@ class Writer:
                 outcomes[i] = Answer(status, json.dumps(body, allow_nan=False), replayed=replayed)
         fresh = [(k, outcomes[i].status, outcomes[i].text) for k, i in fresh]
         if fresh:
-            con.execute(
-                "INSERT INTO requests SELECT unnest(?::VARCHAR[]), unnest(?::VARCHAR[]), unnest(?::VARCHAR[]), "
-                "unnest(?::VARCHAR[]), unnest(?::INTEGER[]), unnest(?::VARCHAR[]), ?",
-                [[k.principal for k, _, _ in fresh], [k.request_id for k, _, _ in fresh],
-                 [k.route for k, _, _ in fresh], [k.body_sha256 for k, _, _ in fresh],
-                 [status for _, status, _ in fresh], [text for _, _, text in fresh], _now()],
-            )
+            now = _now()
+            insert_rows(con, "requests", _REQUEST_COLUMNS, _REQUEST_TYPES,
+                        [(k.principal, k.request_id, k.route, k.body_sha256, status, text, now)
+                         for k, status, text in fresh])
         return outcomes
 
 
