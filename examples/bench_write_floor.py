@@ -106,27 +106,27 @@ def main() -> None:
             study = answer.json()["study_id"]
             walls: dict[str, list[float]] = {"propose": [], "record": []}
             spent: dict[str, dict[str, float]] = {"propose": defaultdict(float), "record": defaultdict(float)}
+            def post(kind: str, path: str, body: dict, key: str, measured: bool) -> dict:
+                timed.spent.clear()
+                timed.on = measured
+                t0 = time.perf_counter()
+                answer = client.post(path, json=body, headers={"Idempotency-Key": key})
+                wall = time.perf_counter() - t0
+                timed.on = False
+                answer.raise_for_status()
+                if measured:
+                    walls[kind].append(wall)
+                    for name, seconds in timed.spent.items():
+                        spent[kind][name] += seconds
+                return answer.json()
+
             for k in range(args.writes + 10):  # the first 10 pairs warm up
-                for kind in ("propose", "record"):
-                    if kind == "propose":
-                        path, body = f"/api/v1/studies/{study}/propose", {"k": 1}
-                    else:
-                        path, body = f"/api/v1/studies/{study}/trials", {"trial": lease["trial"],
-                                                                         "score": branin(x["x1"], x["x2"])}
-                    timed.spent.clear()
-                    timed.on = k >= 10
-                    t0 = time.perf_counter()
-                    answer = client.post(path, json=body, headers={"Idempotency-Key": f"floor-{kind}-{k}"})
-                    wall = time.perf_counter() - t0
-                    timed.on = False
-                    answer.raise_for_status()
-                    if kind == "propose":
-                        lease = answer.json()["leases"][0]
-                        x = lease["config"]
-                    if k >= 10:
-                        walls[kind].append(wall)
-                        for name, seconds in timed.spent.items():
-                            spent[kind][name] += seconds
+                measured = k >= 10
+                lease = post("propose", f"/api/v1/studies/{study}/propose", {"k": 1}, f"floor-p-{k}",
+                             measured)["leases"][0]
+                x = lease["config"]
+                post("record", f"/api/v1/studies/{study}/trials",
+                     {"trial": lease["trial"], "score": branin(x["x1"], x["x2"])}, f"floor-r-{k}", measured)
         archive.close()
         n = args.writes
         print(f"{n} lone writes of each kind, one warm study, app in process (no sockets), DuckDB threads: "
