@@ -19,7 +19,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from warmstart.archive.store import Archive
-from warmstart.service.rowbuffer import _LEASE_COLUMNS, _LEASE_TYPES, RowBuffer, insert_rows
+from warmstart.service.rowbuffer import RowBuffer, insert_rows
 
 _MOMENTS = st.datetimes(min_value=datetime(2000, 1, 1), max_value=datetime(2100, 1, 1))
 _TEXT = st.text(alphabet=st.characters(blacklist_categories=("Cs",), blacklist_characters="\x00"), max_size=30)
@@ -39,18 +39,23 @@ def _archive() -> Archive:
     return Archive(Path(tempfile.mkdtemp(prefix="rowbuffer-")) / "a.duckdb")
 
 
-def _leases(archive: Archive) -> list[tuple]:
-    return archive.con.execute(f"SELECT {', '.join(_LEASE_COLUMNS)} FROM leases ORDER BY trial_id").fetchall()
-
-
 ARCHIVE = None
+COLUMNS: tuple[str, ...] = ()  # the leases table's columns and types, from the archive's own catalog
+TYPES: tuple[str, ...] = ()
 
 
 def _shared() -> Archive:
-    global ARCHIVE
+    global ARCHIVE, COLUMNS, TYPES
     if ARCHIVE is None:
         ARCHIVE = _archive()
+        rows = ARCHIVE.con.execute("SELECT column_name, data_type FROM duckdb_columns() WHERE table_name = 'leases' "
+                                   "ORDER BY column_index").fetchall()
+        COLUMNS, TYPES = tuple(r[0] for r in rows), tuple(r[1] for r in rows)
     return ARCHIVE
+
+
+def _leases(archive: Archive) -> list[tuple]:
+    return archive.con.execute(f"SELECT {', '.join(COLUMNS)} FROM leases ORDER BY trial_id").fetchall()
 
 
 @settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
@@ -61,10 +66,10 @@ def test_one_row_and_many_rows_read_back_as_given(rows):
     with archive.transaction() as con:
         con.execute("DELETE FROM leases")
         for row in rows:  # each alone: VALUES
-            insert_rows(con, "leases", _LEASE_COLUMNS, _LEASE_TYPES, [row])
+            insert_rows(con, "leases", COLUMNS, TYPES, [row])
         alone = _leases(archive)
         con.execute("DELETE FROM leases")
-        insert_rows(con, "leases", _LEASE_COLUMNS, _LEASE_TYPES, rows)  # together: unnest (one row: VALUES)
+        insert_rows(con, "leases", COLUMNS, TYPES, rows)  # together: unnest (one row: VALUES)
         together = _leases(archive)
         con.execute("DELETE FROM leases")
     assert alone == expected
@@ -83,7 +88,7 @@ def test_a_lease_recorded_alone_or_in_a_batch_ends_the_same(rows, number, status
                      [(trial, number, status, score, moment), (absent, 1, "ok", 0.0, moment)]):
         with archive.transaction() as con:
             con.execute("DELETE FROM leases")
-            insert_rows(con, "leases", _LEASE_COLUMNS, _LEASE_TYPES, rows)
+            insert_rows(con, "leases", COLUMNS, TYPES, rows)
             buffer = RowBuffer()
             buffer.recorded.extend(recorded)
             buffer.flush(archive)
