@@ -18,7 +18,7 @@ from datetime import datetime, timedelta, timezone
 import numpy as np
 import pandas as pd
 import pytest
-from hypothesis import given, settings
+from hypothesis import example, given, settings
 from hypothesis import strategies as st
 
 from warmstart.archive.store import Archive
@@ -164,6 +164,8 @@ def test_checked_batch_stores_what_the_one_row_path_stores(tmp_path, frame):
 
         @settings(max_examples=5, deadline=None)
         @given(seed=st.integers(0, 2**31 - 1), n=st.integers(1, 8))
+        @example(seed=3, n=1)  # one row per space (the statement of scalars): a NaN score
+        @example(seed=5, n=1)  # one row per space: a failed trial
         def check(seed, n):
             rng = np.random.default_rng(seed)
             # three studies in one call: two tasks of one space (one statement), another space (a second)
