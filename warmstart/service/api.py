@@ -45,9 +45,19 @@ StudyId = Annotated[int, PathParam(ge=1, le=MAX_STUDY_ID, description="study id"
 def api_router(service: Service, authorize) -> APIRouter:
     """The API's routes over ``service``; ``authorize(role)`` gives the
     dependency that checks a request's token for ``role``."""
-    # long: a router factory; each endpoint below is its own short function closed over the service
     router = APIRouter(prefix="/api/v1")
-    readers, writers, admins = authorize("read"), authorize("write"), authorize("admin")
+    roles = (authorize("read"), authorize("write"), authorize("admin"))
+    request_key = _request_key(roles[1])
+    _read_routes(router, service, roles)
+    _study_write_routes(router, service, roles, request_key)
+    _tag_and_ingest_routes(router, service, roles, request_key)
+    _query_routes(router, service, roles)
+    _admin_and_gain_routes(router, service, roles)
+    return router
+
+
+def _request_key(writers):
+    """The dependency that reads a write's ``Idempotency-Key`` (None without one)."""
 
     async def request_key(request: Request, who: Principal = Depends(writers),
                           idempotency_key: Annotated[str | None, Header()] = None) -> RequestKey | None:
@@ -60,11 +70,18 @@ def api_router(service: Service, authorize) -> APIRouter:
         return RequestKey(who.key, idempotency_key, f"{request.method} {request.url.path}",
                           hashlib.sha256(body).hexdigest())
 
-    def answer(result: Answer) -> Response:
-        # the JSON text the writer made (and stored for a retry) goes out as it is: no second encoding
-        return Response(result.text, status_code=result.status, headers=answer_headers(result),
-                        media_type="application/json")
+    return request_key
 
+
+def _answer(result: Answer) -> Response:
+    # the JSON text the writer made (and stored for a retry) goes out as it is: no second encoding
+    return Response(result.text, status_code=result.status, headers=answer_headers(result),
+                    media_type="application/json")
+
+
+def _read_routes(router: APIRouter, service: Service, roles: tuple) -> None:
+    """The routes of health, studies, a study, its trials and leases."""
+    readers = roles[0]
     # -- health ------------------------------------------------------------------
     @router.get("/health", summary="Is the service up; which archive it serves")
     def health(who: Principal = Depends(readers)) -> dict:
@@ -127,6 +144,10 @@ def api_router(service: Service, authorize) -> APIRouter:
         frame["config"] = [json.loads(c) for c in frame["config"]]
         return jsonable(frame.to_dict(orient="records"))
 
+
+def _study_write_routes(router: APIRouter, service: Service, roles: tuple, request_key) -> None:
+    """The routes of create a study, propose, record, finish."""
+    writers = roles[1]
     @router.post("/studies", status_code=201, summary="Create a study of a task described by the client")
     async def new_study(body: NewStudyBody, who: Principal = Depends(writers),
                            key: RequestKey | None = Depends(request_key)) -> Response:
@@ -154,17 +175,17 @@ def api_router(service: Service, authorize) -> APIRouter:
                          "metric": body.metric, "direction": "maximize" if maximize else "minimize",
                          "owner": owner}
 
-        return answer(await service.write(write, key))
+        return _answer(await service.write(write, key))
 
     @router.post("/studies/{study_id}/propose", summary="Lease k distinct configs to evaluate")
     async def propose(study_id: StudyId, body: ProposeBody, who: Principal = Depends(writers),
                       key: RequestKey | None = Depends(request_key)) -> Response:
-        return answer(await service.write(propose_write(service, study_id, body, who), key))
+        return _answer(await service.write(propose_write(service, study_id, body, who), key))
 
     @router.post("/studies/{study_id}/trials", summary="Record a result (by lease, or a config never proposed)")
     async def record(study_id: StudyId, body: RecordBody, who: Principal = Depends(writers),
                      key: RequestKey | None = Depends(request_key)) -> Response:
-        return answer(await service.write(record_write(service, study_id, body, who), key, early=True))
+        return _answer(await service.write(record_write(service, study_id, body, who), key, early=True))
 
     @router.post("/studies/{study_id}/finish", summary="Mark a study finished")
     async def finish(study_id: StudyId, who: Principal = Depends(writers),
@@ -174,8 +195,12 @@ def api_router(service: Service, authorize) -> APIRouter:
             archive.finish_study(study_id)
             return 200, {"study_id": study_id, "finished": True}
 
-        return answer(await service.write(write, key))
+        return _answer(await service.write(write, key))
 
+
+def _tag_and_ingest_routes(router: APIRouter, service: Service, roles: tuple, request_key) -> None:
+    """The routes of tags and owner, ingest of past trials."""
+    writers = roles[1]
     @router.post("/studies/{study_id}/tags", summary="Set or remove tags (and, as admin, the owner)")
     async def tag(study_id: StudyId, body: TagBody, who: Principal = Depends(writers),
                   key: RequestKey | None = Depends(request_key)) -> Response:
@@ -192,7 +217,7 @@ def api_router(service: Service, authorize) -> APIRouter:
                 raise ServiceError(422, str(exc), "remove", body.remove) from None
             return 200, done
 
-        return answer(await service.write(write, key))
+        return _answer(await service.write(write, key))
 
     @router.post("/ingest", status_code=201, summary="Add past trials of a task as a new study "
                  f"(body up to {INGEST_MAX_BYTES // 2**20} MiB)")
@@ -229,8 +254,12 @@ def api_router(service: Service, authorize) -> APIRouter:
                 "copies": copies, "copies_of_studies": others[:20],
             })
 
-        return answer(await service.write(write, key))
+        return _answer(await service.write(write, key))
 
+
+def _query_routes(router: APIRouter, service: Service, roles: tuple) -> None:
+    """The routes of neighbors, defaults, prior."""
+    readers = roles[0]
     # -- what the history says about a task ----------------------------------------------
     @router.post("/neighbors", summary="Past tasks ranked by similarity to a profile")
     def neighbors(body: NeighborsBody, who: Principal = Depends(readers)) -> dict:
@@ -275,6 +304,10 @@ def api_router(service: Service, authorize) -> APIRouter:
         return jsonable({"provenance": built.provenance, "seeds": built.seeds, "summary": built.summary(n=8),
                          "space": space.to_dict(), "excluded_tasks": exclude})
 
+
+def _admin_and_gain_routes(router: APIRouter, service: Service, roles: tuple) -> None:
+    """The routes of curation (admin) and gain replays."""
+    readers, writers, admins = roles
     # -- curation (admin) -----------------------------------------------------------------
     @router.get("/curate/check", summary="Integrity report of the archive (admin)")
     def check(who: Principal = Depends(admins)) -> dict:
@@ -327,8 +360,6 @@ def api_router(service: Service, authorize) -> APIRouter:
         if report is None:
             raise ServiceError(404, "no gain report yet; POST /api/v1/gain starts one", "path")
         return report
-
-    return router
 
 
 # -- helpers shared with the page ---------------------------------------------------------
