@@ -85,7 +85,7 @@ class _SourceModel:
 
 def _check_options(*, gamma, source_gamma, cover_fraction, uniform, cover_pool, explore, n_hedge, n_candidates,
                    n_boot, max_ranked, own_strength, prior_power, shrink, exact_share, adaptive_design, cover,
-                   source_score, chance, max_good=64, max_rest=256) -> None:
+                   source_score, chance, max_good, max_rest) -> None:
     """Refuse an option of :class:`MixtureSearch` outside what it accepts, naming it."""
     for name, value in (("gamma", gamma), ("source_gamma", source_gamma),
                         ("cover_fraction", cover_fraction), ("uniform", uniform),

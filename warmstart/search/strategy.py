@@ -315,8 +315,6 @@ class SearchStrategy:
         R = np.ascontiguousarray(np.round(np.nan_to_num(X, nan=-1.0), 9), dtype=float)
         known, pending = self._known, {e[4] for e in self._pending.values()}
         raw, width = R.tobytes(), R.shape[1] * R.itemsize  # row i's key (_row_key) is raw[i*width:(i+1)*width]
-        if width == 0:
-            return np.array([b"" in known or b"" in pending] * R.shape[0], dtype=bool)
         return np.fromiter(((k := raw[i:i + width]) in known or k in pending for i in range(0, len(raw), width)),
                            dtype=bool, count=R.shape[0])
 

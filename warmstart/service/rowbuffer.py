@@ -35,8 +35,8 @@ def insert_rows(con, table: str, columns: tuple[str, ...], types: tuple[str, ...
     statement: ``VALUES`` for one row, ``unnest`` of one list per column for more.
 
     A lone write (one client on an idle service: every write a batch of its own)
-    has one row per table, and DuckDB binds scalars about twice as fast as lists
-    (a lease row: 1.0-1.4 ms against 1.9-2.9 ms, ``examples/bench_write_floor.py``).
+    has one row per table, and DuckDB binds scalars faster than lists (figures:
+    ``examples/bench_write_floor.py``, ``docs/benchmarks.md``).
     """
     names = ", ".join(columns)
     if len(rows) == 1:
@@ -83,7 +83,7 @@ class RowBuffer:
             archive.insert_checked_trials(self.trials)
         if self.leases:
             insert_rows(con, "leases", _LEASE_COLUMNS, _LEASE_TYPES, self.leases)
-        if len(self.recorded) == 1:  # a lone result: a filter, no join (1.1-1.6 ms against 3.1-3.9 ms)
+        if len(self.recorded) == 1:  # a lone result: a filter, no join (1.2-1.6 ms against 2.4-3.1 ms)
             trial, number, status, score, moment = self.recorded[0]
             con.execute("UPDATE leases SET state = 'recorded', number = ?, status = ?, score = ?, recorded_at = ? "
                         "WHERE trial_id = ?", [number, status, score, moment, trial])
