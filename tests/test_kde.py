@@ -254,3 +254,19 @@ def test_a_stack_of_densities_equals_each_one_evaluated_alone():
     got = Stack(kdes).logpdf(X)
     want = np.column_stack([k.logpdf(X) for k in kdes])
     np.testing.assert_allclose(got, want, rtol=1e-10, atol=1e-10)
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.lists(st.floats(0.0, 5.0), min_size=1, max_size=40).filter(lambda w: sum(w) > 0),
+       st.integers(0, 50), st.integers(0, 2**32 - 1))
+def test_picked_centres_are_numpys_weighted_choice(weights, n, seed):
+    # reference: numpy.random.Generator.choice(n_centres, size=n, p=weights), the same
+    # random stream gives the same indices (pick only skips choice's checks of p)
+    space = real_space(1)
+    centres = np.linspace(0.0, 1.0, len(weights))[:, None]
+    kde = MixedKDE(space, centres, weights)
+    expected = np.random.default_rng(seed).choice(len(weights), size=n, p=kde.weights)
+    rng = np.random.default_rng(seed)
+    np.testing.assert_array_equal(kde.pick(n, rng), expected)
+    np.testing.assert_array_equal(kde.pick(n, rng), np.random.default_rng(seed).choice(
+        len(weights), size=2 * n, p=kde.weights)[n:])  # the cumulative weights kept for the next call

@@ -286,6 +286,31 @@ def test_capped_own_densities_keep_the_best_and_a_subsample_that_a_rebuilt_searc
     assert rebuilt.propose(2) == search.propose(2)
 
 
+def test_a_good_density_kept_while_its_rows_stand_proposes_as_one_built_at_every_result():
+    """The own good density is reused after a result that does not change its
+    rows; a search that rebuilds it at every result (its cache dropped) proposes
+    the same, and the reused density is the one a fresh build gives."""
+    prior = prior_from_sources(SPACE, [branin_source(6), branin_source(7, sign=-1.0, similarity=0.5)])
+    kept = MixtureSearch(SPACE, prior, seed=3, maximize=False, max_good=4)
+    fresh = MixtureSearch(SPACE, prior, seed=3, maximize=False, max_good=4)
+    reused = 0
+    for _ in range(30):
+        last = kept._own_at
+        batch = kept.propose(2)
+        fresh._own_at = None  # nothing to reuse: built from its rows at this proposal
+        assert fresh.propose(2) == batch
+        good, _ = kept._own_now()
+        if last is not None and last[1] is not None and good is last[1]:
+            reused += 1
+            rebuilt, _ = kept._own_good(kept.rows(), kept.signed_scores())
+            np.testing.assert_array_equal(good.centres, rebuilt.centres)
+            np.testing.assert_array_equal(good.bandwidths, rebuilt.bandwidths)
+        for config in batch:
+            kept.record(config, BRANIN(config))
+            fresh.record(config, BRANIN(config))
+    assert reused >= 10  # 60 results, at most 4 good rows: most results leave them as they are
+
+
 def test_batches_spread_and_hedge_covers_different_sources():
     prior = prior_from_sources(SPACE, [branin_source(8), branin_source(9), branin_source(10, sign=-1.0)])
     search = MixtureSearch(SPACE, prior, seed=0, maximize=False, n_hedge=3)

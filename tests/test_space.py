@@ -485,3 +485,39 @@ def test_config_errors(space, config, parts):
 
 def test_errors_are_warmstart_errors():
     assert issubclass(SpaceError, WarmstartError) and issubclass(SpaceError, ValueError)
+
+
+def test_level_counts_and_kinds_are_kept_read_only():
+    # the arrays are built once per space and shared by every density: nobody may change them
+    space = Space.from_dict({"params": {"x": {"type": "real", "low": 0, "high": 1},
+                                        "k": {"type": "choice", "choices": ["a", "b", "c"]},
+                                        "n": {"type": "integer", "low": 1, "high": 4}}})
+    assert space.n_levels.tolist() == [0, 3, 4]
+    assert space.is_choice.tolist() == [False, True, False]
+    with pytest.raises(ValueError):
+        space.n_levels[1] = 7
+    with pytest.raises(ValueError):
+        space.is_choice[0] = True
+    assert space.n_levels.tolist() == [0, 3, 4]
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.lists(st.lists(st.one_of(st.floats(-0.5, 1.5), st.just(float("nan"))), min_size=3, max_size=3),
+                min_size=1, max_size=12))
+def test_snap_clips_rounds_and_keeps_inactive_coordinates(rows):
+    # analytic: a real coordinate is clipped to [0, 1], a choice rounded to a level index and
+    # clipped to 0..k-1, an integer moved to its cell's centre; NaN stays NaN (no conditions here)
+    space = Space.from_dict({"params": {"x": {"type": "real", "low": 0, "high": 1},
+                                        "k": {"type": "choice", "choices": ["a", "b", "c"]},
+                                        "n": {"type": "integer", "low": 1, "high": 4}}})
+    X = np.array(rows, dtype=float)
+    S = space.snap(X)
+    for (x, k, n), (sx, sk, sn) in zip(X, S):
+        assert (math.isnan(x) and math.isnan(sx)) or sx == min(max(x, 0.0), 1.0)
+        assert (math.isnan(k) and math.isnan(sk)) or sk == min(max(float(np.round(k)), 0.0), 2.0)
+        if math.isnan(n):
+            assert math.isnan(sn)
+        else:  # cells of width 1/4: centres 1/8, 3/8, 5/8, 7/8
+            cell = min(max(math.floor(min(max(n, 0.0), 1.0) * 4), 0), 3)
+            assert sn == pytest.approx((cell + 0.5) / 4, abs=1e-12)
+    assert not np.shares_memory(S, X) and np.array_equal(np.isnan(X), np.isnan(S))

@@ -372,6 +372,12 @@ class Space:
                             f"which is not a level of {parent!r} ({pp.describe()})"
                         )
         self._order = self._topological_order(where)
+        # asked for on every density evaluation: built once, read-only (the parameters never change)
+        self._n_levels = np.array([p.n_levels for p in params], dtype=int)
+        self._is_choice = np.array([p.kind == "choice" for p in params], dtype=bool)
+        self._n_levels.flags.writeable = False
+        self._is_choice.flags.writeable = False
+        self._conditional = any(p.when for p in params)
 
     # -- construction ------------------------------------------------------
     def _topological_order(self, where: str) -> list[int]:
@@ -499,18 +505,18 @@ class Space:
 
     @property
     def n_levels(self) -> np.ndarray:
-        """Per coordinate: number of levels of choice/integer, 0 for real."""
-        return np.array([p.n_levels for p in self.params], dtype=int)
+        """Per coordinate: number of levels of choice/integer, 0 for real (read-only)."""
+        return self._n_levels
 
     @property
     def is_choice(self) -> np.ndarray:
-        """Boolean mask of ``choice`` coordinates."""
-        return np.array([p.kind == "choice" for p in self.params], dtype=bool)
+        """Boolean mask of ``choice`` coordinates (read-only)."""
+        return self._is_choice
 
     @property
     def conditional(self) -> bool:
         """True when any parameter has a condition."""
-        return any(p.when for p in self.params)
+        return self._conditional
 
     # -- validation --------------------------------------------------------
     def is_active(self, config: Mapping, name: str) -> bool:
@@ -624,15 +630,16 @@ class Space:
         integers in their cell, and mark inactive coordinates NaN."""
         X = np.array(np.atleast_2d(X), dtype=float)
         for j, p in enumerate(self.params):
-            col = X[:, j]
-            ok = ~np.isnan(col)
+            col = X[:, j]  # a view: written in place; NaN (inactive) stays NaN through round and clip
             if p.kind == "choice":
-                col[ok] = np.clip(np.round(col[ok]), 0, p.n_levels - 1)
+                np.clip(np.round(col), 0, p.n_levels - 1, out=col)
             elif p.kind == "integer":
+                ok = ~np.isnan(col)
                 col[ok] = p.to_unit(p.from_unit(col[ok]))
             else:
-                col[ok] = np.clip(col[ok], 0.0, 1.0)
-        X[~self.active_mask(X)] = np.nan
+                np.clip(col, 0.0, 1.0, out=col)
+        if self._conditional:  # without conditions every coordinate is active
+            X[~self.active_mask(X)] = np.nan
         return X
 
     def from_unit(self, U: np.ndarray) -> np.ndarray:
@@ -657,7 +664,9 @@ class Space:
             if p.kind == "choice":
                 cols.append([None if np.isnan(v) else p.choices[int(v)] for v in col])
             else:
-                vals = np.where(np.isnan(col), np.nan, p.from_unit(np.nan_to_num(col)))
+                missing = np.isnan(col)
+                vals = (np.where(missing, np.nan, p.from_unit(np.nan_to_num(col))) if missing.any()
+                        else p.from_unit(col))
                 if p.kind == "integer":
                     cols.append([None if np.isnan(v) else int(v) for v in vals])
                 else:

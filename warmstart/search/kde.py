@@ -49,6 +49,32 @@ _UNIFORM_STD = 1.0 / math.sqrt(12.0)  # standard deviation of U(0, 1)
 _CHUNK = 4096  # query rows evaluated at a time (bounds memory)
 
 
+class _Kinds:
+    """What a density needs of its space's coordinates, built once per space
+    (the parameters of a space never change)."""
+
+    __slots__ = ("choice", "cont", "levels", "cont_idx", "choice_idx", "lam_max", "uniform_spread")
+
+    def __init__(self, space: Space):
+        self.choice = space.is_choice
+        self.cont = ~self.choice
+        self.levels = space.n_levels
+        self.cont_idx = np.flatnonzero(self.cont)
+        self.choice_idx = np.flatnonzero(self.choice)
+        lev = self.levels.astype(float)
+        self.lam_max = np.where(self.choice, (lev - 1) / np.maximum(lev, 1), 0.0)  # largest choice bandwidth
+        self.uniform_spread = np.where(self.choice, (lev - 1) / np.maximum(lev, 1), _UNIFORM_STD)
+        for a in (self.cont, self.cont_idx, self.choice_idx, self.lam_max, self.uniform_spread):
+            a.flags.writeable = False
+
+    @staticmethod
+    def of(space: Space) -> "_Kinds":
+        kinds = space.__dict__.get("_kde_kinds")
+        if kinds is None:
+            kinds = space.__dict__["_kde_kinds"] = _Kinds(space)
+        return kinds
+
+
 class KDEError(WarmstartError, ValueError):
     """Kernel density inputs are not valid (shapes, weights, bandwidths)."""
 
@@ -172,20 +198,20 @@ class MixedKDE:
         if np.isinf(X).any():
             raise KDEError("centres contain infinite values; encode configs with Space.encode")
         self._kind_masks()
-        lev = space.n_levels
-        choice_vals = X[:, self._choice]
+        lev = self._levels
+        choice_vals = X[:, self._choice_idx]
         ok = ~np.isnan(choice_vals)
-        if ok.any():
+        if self._choice_idx.size and ok.any():
             bad = ok & ((choice_vals < 0) | (choice_vals > lev[self._choice] - 1)
                         | (choice_vals != np.round(choice_vals)))
             if bad.any():
-                j = int(np.flatnonzero(self._choice)[np.nonzero(bad)[1][0]])
+                j = int(self._choice_idx[np.nonzero(bad)[1][0]])
                 raise KDEError(
                     f"centres: coordinate {j} ({space.names[j]!r}) is a choice and needs level "
                     f"indices 0..{lev[j] - 1}, got {choice_vals[bad][0]!r}"
                 )
-        cont = X[:, self._cont]
-        if (cont[~np.isnan(cont)] < 0).any() or (cont[~np.isnan(cont)] > 1).any():
+        cont = X[:, self._cont_idx]
+        if (cont < 0).any() or (cont > 1).any():  # NaN (inactive) compares False
             raise KDEError("centres: real/integer coordinates must lie in [0, 1] (the unit cube)")
         n = X.shape[0]
         if weights is None:
@@ -210,14 +236,13 @@ class MixedKDE:
 
     # -- construction ----------------------------------------------------
     def _kind_masks(self) -> None:
-        self._choice = self.space.is_choice
-        self._cont = ~self._choice
-        self._levels = self.space.n_levels
+        kinds = self._kinds = _Kinds.of(self.space)
+        self._choice, self._cont, self._levels = kinds.choice, kinds.cont, kinds.levels
+        self._cont_idx, self._choice_idx = kinds.cont_idx, kinds.choice_idx
 
     def _reference_spread(self, shrink_to: Any) -> np.ndarray:
         """Spread the pooled pseudo-observations have: the uniform's by default."""
-        lev = self._levels.astype(float)
-        uniform = np.where(self._choice, (lev - 1) / np.maximum(lev, 1), _UNIFORM_STD)
+        uniform = self._kinds.uniform_spread
         if shrink_to is None:
             return uniform
         ref = np.asarray(shrink_to, dtype=float)
@@ -248,8 +273,8 @@ class MixedKDE:
 
     def _bandwidths(self, bandwidth: Any) -> np.ndarray:
         d = self.space.dim
-        lev = self._levels.astype(float)
-        lam_max = np.where(self._choice, (lev - 1) / np.maximum(lev, 1), 0.0)
+        lev = self._levels
+        lam_max = self._kinds.lam_max
         if not isinstance(bandwidth, str) and np.ndim(bandwidth) == 1:
             h = np.asarray(bandwidth, dtype=float)
             if h.shape != (d,):
@@ -269,7 +294,7 @@ class MixedKDE:
         h = np.zeros(d)
         # continuous coordinates, all at once: weights renormalised over the
         # centres active in each coordinate
-        cont = np.flatnonzero(self._cont)
+        cont = self._cont_idx
         if cont.size:
             C = X[:, cont]
             act = ~np.isnan(C)
@@ -290,7 +315,7 @@ class MixedKDE:
             floor = np.where(lev_c > 0, np.maximum(self.min_bandwidth, 1.0 / np.maximum(lev_c, 1)),
                              self.min_bandwidth)  # integer: at least one cell
             h[cont] = np.clip(f * std, floor, MAX_BANDWIDTH)
-        for j in np.flatnonzero(self._choice):  # loop over choice coordinates, never points
+        for j in self._choice_idx:  # loop over choice coordinates, never points
             col = X[:, j]
             ok = ~np.isnan(col)
             k = int(lev[j])
@@ -311,12 +336,11 @@ class MixedKDE:
     def _prepare(self) -> None:
         """Precompute the matrices that turn evaluation into matrix products."""
         X, h = self.centres, self.bandwidths
-        cont = np.flatnonzero(self._cont)
+        cont = self._cont_idx
         C = X[:, cont]
         ca = ~np.isnan(C)
         Cz = np.where(ca, C, 0.0)
         hc = h[cont]
-        self._cont_idx = cont
         self._inv_h2 = 1.0 / hc**2
         lo = ndtr((0.0 - Cz) / hc)
         hi = ndtr((1.0 - Cz) / hc)
@@ -328,8 +352,7 @@ class MixedKDE:
         self._c2 = np.where(ca, Cz**2, 0.0)
         self._c_norm = np.where(ca, log_norm, 0.0)
         # choice coordinates: one block of k columns per coordinate
-        choice = np.flatnonzero(self._choice)
-        self._choice_idx = choice
+        choice = self._choice_idx
         blocks = []
         offsets = [0]
         for j in choice:
@@ -349,6 +372,7 @@ class MixedKDE:
             offsets.append(offsets[-1] + k)
         self._choice_table = np.hstack(blocks) if blocks else np.zeros((X.shape[0], 0))
         self._choice_offsets = offsets
+        self._cdf: np.ndarray | None = None  # cumulative weights, built by the first draw
         self._log_w = np.log(np.maximum(self.weights, 1e-300))
         self._log_w[self.weights == 0] = -np.inf
 
@@ -434,7 +458,7 @@ class MixedKDE:
         if n < 0:
             raise KDEError(f"number of samples must be >= 0, got {n}")
         d = self.space.dim
-        idx = rng.choice(self.centres.shape[0], size=n, p=self.weights)
+        idx = self.pick(n, rng)
         out = np.empty((n, d))
         cont = self._cont_idx
         if cont.size:
@@ -456,6 +480,20 @@ class MixedKDE:
             uniform = rng.integers(0, k, size=n)
             out[:, j] = np.where(np.isnan(c), uniform, level)
         return self.space.snap(out)
+
+    def pick(self, n: int, rng: np.random.Generator) -> np.ndarray:
+        """Indices of ``n`` centres drawn by weight, with replacement.
+
+        The same draws, from the same random numbers, as
+        ``rng.choice(n_centres, size=n, p=weights)`` (numpy's inverse-CDF
+        method), with the cumulative weights computed once per density
+        instead of checked and summed on every call.
+        """
+        if self._cdf is None:
+            cdf = self.weights.cumsum()
+            cdf /= cdf[-1]
+            self._cdf = cdf
+        return self._cdf.searchsorted(rng.random(int(n)), side="right")
 
     def __repr__(self) -> str:
         return (f"MixedKDE(n_centres={self.centres.shape[0]}, dim={self.space.dim}, "

@@ -293,7 +293,8 @@ class MixtureSearch(SearchStrategy):
          self._cover_top) = built
         self._pred = np.empty((0, len(kept)))  # past tasks' scores at recorded rows
         self._weights_at: tuple | None = None
-        self._own_at: tuple | None = None  # (trial count, own good density, rows of the rest)
+        self._basis_at: tuple[int, int] | None = None  # (trial count, its weights basis)
+        self._own_at: tuple | None = None  # (trial count, good density, its rows' indices, rest rows)
         self._design: np.ndarray | None = None  # scrambled Sobol points of the space-filling queries
 
     def _build_sources(self) -> tuple:
@@ -350,6 +351,11 @@ class MixtureSearch(SearchStrategy):
         """The good density of scored rows (at most ``max_good`` centres) and
         the indices of the rest (a subsample of ``max_rest`` beyond that, drawn
         from the seed and the row count, so a rebuilt search draws the same)."""
+        good, rest = self._own_split(y)
+        return (None if good is None else MixedKDE(self.space, rows[good], shrink=self.shrink)), rest
+
+    def _own_split(self, y: np.ndarray) -> tuple[np.ndarray | None, np.ndarray]:
+        """Indices of the good rows (best first; None when nothing is scored) and of the rest."""
         ok = np.flatnonzero(~np.isnan(y))
         if ok.size == 0:
             rest = np.arange(len(y))
@@ -360,9 +366,7 @@ class MixtureSearch(SearchStrategy):
         if rest.size > self.max_rest:
             rng = np.random.default_rng(self._rng_key(4, n_pending=0, trials=len(y)))
             rest = rest[np.sort(rng.choice(rest.size, self.max_rest, replace=False))]
-        if ok.size == 0:
-            return None, rest
-        return MixedKDE(self.space, rows[order[:n_good]], shrink=self.shrink), rest
+        return (None if ok.size == 0 else order[:n_good]), rest
 
     def _own_rest(self, rest_rows: np.ndarray, extra_rest: np.ndarray | None) -> MixedKDE | None:
         if extra_rest is not None and extra_rest.shape[0]:
@@ -374,9 +378,16 @@ class MixtureSearch(SearchStrategy):
         is kept until the next result (pending configs join only the rest)."""
         n = self.trial_count
         if self._own_at is None or self._own_at[0] != n:
-            good, rest_idx = self._own_good(self.rows(), self.signed_scores())
-            self._own_at = (n, good, self.rows()[rest_idx])
-        _, good, rest_rows = self._own_at
+            good_idx, rest_idx = self._own_split(self.signed_scores())
+            good = None
+            if good_idx is not None:
+                last = self._own_at
+                if last is not None and last[2] is not None and np.array_equal(last[2], good_idx):
+                    good = last[1]  # recorded rows never change: the same good rows, the same density
+                else:
+                    good = MixedKDE(self.space, self.rows()[good_idx], shrink=self.shrink)
+            self._own_at = (n, good, good_idx, self.rows()[rest_idx])
+        _, good, _, rest_rows = self._own_at
         return good, self._own_rest(rest_rows, self.pending_rows())
 
     def _own_out_of_sample(self, rows: np.ndarray, y: np.ndarray) -> np.ndarray:
@@ -484,10 +495,13 @@ class MixtureSearch(SearchStrategy):
         n, g = self.trial_count, self.max_ranked
         if n <= g:
             return n
+        if self._basis_at is not None and self._basis_at[0] == n:  # asked several times per proposal
+            return self._basis_at[1]
         step = max(1, g // 10)
         while True:
             nxt = g + max(step, g // 10)
             if nxt > n:
+                self._basis_at = (n, g)
                 return g
             g = nxt
 
@@ -611,7 +625,7 @@ class MixtureSearch(SearchStrategy):
             if m:
                 good = self._models[i].good
                 exact = rng.binomial(m, self.exact_share)  # centres as they are, the rest with kernel noise
-                draws.append(good.centres[rng.choice(good.centres.shape[0], exact, p=good.weights)])
+                draws.append(good.centres[good.pick(exact, rng)])
                 draws.append(good.sample(m - exact, rng))
         if counts[-1]:
             draws.append(good0.sample(counts[-1], rng))

@@ -84,7 +84,12 @@ class Trial:
 
 def _row_key(row: np.ndarray) -> bytes:
     """Hashable key of an encoded row (inactive coordinates as -1)."""
-    return np.round(np.nan_to_num(row, nan=-1.0), 9).tobytes()
+    return _key_rows(row).tobytes()
+
+
+def _key_rows(X: np.ndarray) -> np.ndarray:
+    """Encoded rows as their keys are made of: inactive coordinates as -1, rounded to 9 places."""
+    return np.round(np.where(np.isnan(X), -1.0, X), 9)
 
 
 def _config_key(config: Mapping) -> str:
@@ -208,20 +213,22 @@ class SearchStrategy:
         value, status = classify_result(score, status)
         key = _config_key(config)
         source = "external"
-        if key in self._pending:
-            entry = self._pending[key]
-            source = entry[1]
+        entry = self._pending.get(key)
+        if entry is not None:  # its row was encoded when it was held (the same config: the same row)
+            source, row, row_key = entry[1], entry[2], entry[4]
             entry[3] -= 1
             if entry[3] == 0:
                 del self._pending[key]
+        else:
+            row = self.space.encode([config])[0]
+            row_key = _row_key(row)
         n = len(self._trials)
         if n == self._rows.shape[0]:
             self._rows = np.vstack([self._rows, np.empty_like(self._rows)])
             self._signed = np.concatenate([self._signed, np.empty_like(self._signed)])
-        row = self.space.encode([config])[0]
         self._rows[n] = row
         self._signed[n] = np.nan if value is None else (value if self.maximize else -value)
-        self._known.add(_row_key(row))
+        self._known.add(row_key)
         trial = Trial(number=n, config=config, score=value, status=status, source=source)
         self._trials.append(trial)
         self._observe()
@@ -312,7 +319,7 @@ class SearchStrategy:
 
     def _known_rows(self, X: np.ndarray) -> np.ndarray:
         """Boolean mask of the encoded rows recorded already or pending."""
-        R = np.ascontiguousarray(np.round(np.nan_to_num(X, nan=-1.0), 9), dtype=float)
+        R = np.ascontiguousarray(_key_rows(X), dtype=float)
         known, pending = self._known, {e[4] for e in self._pending.values()}
         raw, width = R.tobytes(), R.shape[1] * R.itemsize  # row i's key (_row_key) is raw[i*width:(i+1)*width]
         return np.fromiter(((k := raw[i:i + width]) in known or k in pending for i in range(0, len(raw), width)),
