@@ -446,3 +446,26 @@ def test_weights_follow_every_result_in_the_ranked_window_then_every_tenth_of_it
     estimated = sorted(set(fits))
     assert [n for n in estimated if n <= 20] == list(range(0, 21))  # at every result
     assert [n for n in estimated if n > 20] == grid[1:]
+
+
+def test_past_scores_at_recorded_rows_do_not_depend_on_when_they_are_asked_for():
+    """The past tasks' scores at recorded rows come in blocks fixed by the rows
+    asked for: asked while the results come in, or after all of them at once
+    and in another order, they are the same to the bit, and equal to scoring
+    the rows directly (to rounding)."""
+    prior = prior_from_sources(SPACE, [branin_source(6), branin_source(7, sign=-1.0, similarity=0.5)])
+    search = MixtureSearch(SPACE, prior, seed=2, maximize=False)
+    windows = [(0, 5), (3, 21), (17, 18), (12, 30), (0, 30)]
+    asked = {}
+    for lo, hi in windows:  # each asked as soon as its rows are recorded
+        while search.trial_count < hi:
+            config = search.propose()
+            search.record(config, BRANIN(config))
+        asked[lo, hi] = search._past_scores(np.arange(lo, hi))
+    other = MixtureSearch.from_dict(search.to_dict())
+    for trial in search.trials:
+        other.record(trial.config, trial.score)
+    for lo, hi in reversed(windows):
+        np.testing.assert_array_equal(other._past_scores(np.arange(lo, hi)), asked[lo, hi])
+        np.testing.assert_allclose(asked[lo, hi], search._source_scores(search.rows()[lo:hi]), rtol=1e-12, atol=1e-12)
+    assert asked[3, 21].shape == (18, 2)

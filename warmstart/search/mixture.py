@@ -51,6 +51,9 @@ from warmstart.search.strategy import SearchError, SearchStrategy
 from warmstart.search.subsets import subset_logpdf
 from warmstart.space import Space, unit_distances
 
+#: Recorded rows whose past tasks' scores are computed together (:meth:`MixtureSearch._past_scores`).
+_SCORE_BLOCK = 8
+
 __all__ = ["MixtureSearch", "MIXTURE_FORMAT"]
 
 MIXTURE_FORMAT = "warmstart-mixture/1"
@@ -291,7 +294,7 @@ class MixtureSearch(SearchStrategy):
             built = _BUILT[prior][key] = self._build_sources()
         (self._models, self._good, self._has_rest, self._rest, self._cover_rows, self._cover_q,
          self._cover_top) = built
-        self._pred = np.empty((0, len(kept)))  # past tasks' scores at recorded rows
+        self._score_blocks: dict[int, np.ndarray] = {}  # past tasks' scores at recorded rows, by block
         self._weights_at: tuple | None = None
         self._basis_at: tuple[int, int] | None = None  # (trial count, its weights basis)
         self._own_at: tuple | None = None  # (trial count, good density, its rows' indices, rest rows)
@@ -335,11 +338,36 @@ class MixtureSearch(SearchStrategy):
         return lg - lr
 
     def _observe(self) -> None:
-        n = self.trial_count
-        have = self._pred.shape[0]
-        if have < n:
-            rows = self.rows()[have:n]
-            self._pred = np.vstack([self._pred, self._source_scores(rows)])
+        """Nothing at a result: the past tasks' scores at recorded rows are computed
+        when the weights need them (:meth:`_past_scores`)."""
+
+    def _past_scores(self, keep: np.ndarray) -> np.ndarray:
+        """Every past task's score at the recorded rows ``keep`` (ascending), shape
+        (len(keep), n_sources).
+
+        Computed in blocks of :data:`_SCORE_BLOCK` rows that start at multiples of
+        it and end at the last row asked for at the latest: a complete block once,
+        then kept, the last, incomplete one afresh each time. The blocks depend on
+        the rows asked for alone, so the scores never depend on when they were
+        asked for: a search resumed with all its results at once scores as the
+        one that took them one by one.
+        """
+        if not keep.size:
+            return np.empty((0, len(self.sources)))
+        B, end = _SCORE_BLOCK, int(keep[-1]) + 1  # the last block ends with the rows asked for
+        rows = self.rows()
+        parts = []
+        for start in range(int(keep[0]) // B * B, end, B):
+            block = self._score_blocks.get(start)
+            if block is None:
+                block = self._source_scores(rows[start:min(start + B, end)])
+                if block.shape[0] == B:
+                    self._score_blocks[start] = block
+            parts.append(block)
+        first = int(keep[0]) // B * B
+        for start in [k for k in self._score_blocks if k < first]:  # the window only moves on
+            del self._score_blocks[start]
+        return np.vstack(parts)[keep - first]
 
     # -- the new task's own model -------------------------------------------
     def _own_densities(self, rows: np.ndarray, y: np.ndarray, extra_rest: np.ndarray | None = None):
@@ -457,7 +485,8 @@ class MixtureSearch(SearchStrategy):
         own_col = None
         # the models: every past task, uniform sampling (predicts a tie everywhere, so a
         # past task that orders the scores worse than chance loses to it), the task's own
-        P = np.column_stack([self._pred[keep], np.zeros(keep.size)])
+        pred = self._past_scores(keep)
+        P = np.column_stack([pred, np.zeros(keep.size)])
         start = np.append(self.start_weights, self.uniform)
         if n_ok >= 3:  # the own model can be judged out of sample
             own_pred = self._own_out_of_sample(self.rows()[:n][keep], y[keep])
@@ -471,7 +500,7 @@ class MixtureSearch(SearchStrategy):
         rng = np.random.default_rng(self._rng_key(1, n_pending=0, trials=n))
         loss = ranking_losses(P, yy, self.n_boot, rng)
         if self.chance == "luck" and keep.size >= 2:  # the competitor: the best past task on shuffled scores
-            loss[:, S] = luck_losses(self._pred[keep], yy, self.n_boot, rng)
+            loss[:, S] = luck_losses(pred, yy, self.n_boot, rng)
         w = weights_from_losses(loss, start, own_col)
         chance = chance_share(loss, np.arange(S), S) if keep.size >= 2 else 0.0
         w_own = float(w[own_col]) if own_col is not None else 0.0
