@@ -409,3 +409,36 @@ def test_serve_help_says_why_the_searches_get_a_process():
     text = " ".join(result.stdout.split())
     assert "--search-process / --no-search-process" in text
     assert "on a second core" in text and "2 or more cores" in text
+
+
+def test_a_started_service_has_heard_from_its_search_process(tmp_path):
+    # ready before the first request: the first proposal after a start used to wait for the
+    # child's start (1.3 s on 2 cores) with every client behind it
+    path = tmp_path / "team.duckdb"
+    seed_archive(path)
+    service = Service(Archive(path), search_process=True)
+    try:
+        assert service.leases.searches.pid is None
+        service.start()
+        assert service.leases.searches.pid is not None and service.leases.searches._heard
+    finally:
+        service.close()
+
+
+def test_the_search_process_loads_the_searches_but_not_the_web_stack():
+    # what the child imports: its module pulls no web framework in (warmstart.service loads
+    # create_app and Tokens when asked for), and its warm-up loads what a search runs on
+    import subprocess
+    import sys
+
+    code = ("import sys; import warmstart.service.search_process as sp; web = sorted(m for m in ('fastapi', "
+            "'starlette', 'uvicorn', 'warmstart.service.app') if m in sys.modules); sp._import_searches(); "
+            "print(web, all(m in sys.modules for m in ('warmstart.search.mixture', 'warmstart.search.density', "
+            "'scipy.stats.qmc')))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
+    assert out.strip() == "[] True"
+    import warmstart.service as package
+
+    assert package.create_app is create_app and package.Tokens.__name__ == "Tokens"
+    with pytest.raises(AttributeError, match="no attribute 'nothing'"):
+        package.nothing  # noqa: B018

@@ -11,7 +11,18 @@
 - :mod:`~warmstart.service.jobs`: gain replays in the background
 """
 
-from warmstart.service.app import create_app
-from warmstart.service.auth import Tokens
-
 __all__ = ["create_app", "Tokens"]
+
+
+def __getattr__(name: str):
+    # loaded when first asked for: the search process imports a module of this package
+    # and needs none of the web stack (1.5 s of imports at each start of it)
+    if name == "create_app":
+        from warmstart.service.app import create_app
+
+        return create_app
+    if name == "Tokens":
+        from warmstart.service.auth import Tokens
+
+        return Tokens
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

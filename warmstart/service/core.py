@@ -5,6 +5,7 @@ leases, the tokens and the background jobs.
 
 from __future__ import annotations
 
+import logging
 import math
 import threading
 from typing import Any, Callable
@@ -16,8 +17,10 @@ from warmstart.archive.store import Archive
 from warmstart.service.auth import Tokens
 from warmstart.service.jobs import GainJobs
 from warmstart.service.leases import DEFAULT_LEASE_SECONDS, LeaseBook
-from warmstart.service.proposer import InProcessProposer
+from warmstart.service.proposer import InProcessProposer, SearchesLost
 from warmstart.service.writer import Answer, RequestKey, Writer
+
+log = logging.getLogger("warmstart.service")
 
 __all__ = ["Service", "jsonable"]
 
@@ -111,6 +114,10 @@ class Service:
             self._blas = threadpool_limits(limits=1, user_api="blas")
             self.leases.searches.start()  # the child imports while the writer starts
             self.writer.start()
+            try:  # ready before the first request: else the first proposal waited for the child's start
+                self.leases.searches.studies()
+            except SearchesLost as exc:  # the next message to the searches starts another child
+                log.warning("the search process did not start: %s", exc)
             self.started = True
 
     def new_view(self) -> Archive:
