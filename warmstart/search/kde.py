@@ -50,8 +50,9 @@ _CHUNK = 4096  # query rows evaluated at a time (bounds memory)
 
 
 class _Kinds:
-    """What a density needs of its space's coordinates, built once per space
-    (the parameters of a space never change)."""
+    """What a density needs of its space's coordinates, built once per space and
+    kept in the space object's own attributes (the parameters of a space never
+    change; a density of it is built at every proposal)."""
 
     __slots__ = ("choice", "cont", "levels", "cont_idx", "choice_idx", "lam_max", "uniform_spread")
 
