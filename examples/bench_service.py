@@ -26,8 +26,9 @@ recorded alone by the one-row INSERT against a one-row table (the earlier path).
 clients share the 2 cores with the server. A plot of the pair latencies goes
 to ``--plot``.
 
-The studies' searches run in a child process of the server
-(``serve --search-process``) or in the server's own process
+The studies' searches run in child processes of the server
+(``serve --search-process``, spread over ``--search-processes`` of them,
+serve's default unless given) or in the server's own process
 (``--no-search-process``); ``--search-process both`` (the default) runs every
 scenario against one server of each kind, back to back on fresh copies of
 the seeded archive, and prints them side by side. The server's CPU counts
@@ -39,6 +40,7 @@ Run::
     python examples/bench_service.py --clients 8 --pairs 20
     python examples/bench_service.py --rate 0                # closed loop only
     python examples/bench_service.py --search-process child  # one kind only
+    python examples/bench_service.py --search-process child --search-processes 1
     python examples/bench_service.py --stored-answers 1000000  # after weeks of answers kept
 """
 
@@ -344,7 +346,7 @@ def plot(results: dict, path: Path) -> None:
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
-    titles = {"child": "searches in a child process", "in-process": "searches in the server process"}
+    titles = {"child": "searches in child processes", "in-process": "searches in the server process"}
     fig, axes = plt.subplots(1, len(results), figsize=(7 * len(results), 4), sharex=True, sharey=True,
                              squeeze=False)
     for ax, (kind, by_label) in zip(axes[0], results.items()):
@@ -462,6 +464,9 @@ def main() -> None:
                         help="where the server runs the studies' searches: in a child process (serve "
                              "--search-process), in its own process (--no-search-process), or both, one server "
                              "after the other (default)")
+    parser.add_argument("--search-processes", type=int, default=None, metavar="N",
+                        help="child processes the searches are spread over (serve --search-processes; default: "
+                             "serve's)")
     args = parser.parse_args()
     if args.clients % PROCESSES:
         parser.error(f"--clients must be a multiple of {PROCESSES}")
@@ -490,17 +495,19 @@ def main() -> None:
         for kind in kinds:
             path = folder / f"team-{kind}.duckdb"
             shutil.copy(folder / "seeded.duckdb", path)
-            option = "--search-process" if kind == "child" else "--no-search-process"
-            where = "in a child process" if kind == "child" else "in the server process"
-            print(f"\n=== server: warmstart serve {option} (searches {where})", flush=True)
-            with ServerProcess(path, log=folder / f"server-{kind}.log", options=(option,)) as server:
+            options = ("--search-process",) if kind == "child" else ("--no-search-process",)
+            if kind == "child" and args.search_processes:
+                options += ("--search-processes", str(args.search_processes))
+            where = "in child processes" if kind == "child" else "in the server process"
+            print(f"\n=== server: warmstart serve {' '.join(options)} (searches {where})", flush=True)
+            with ServerProcess(path, log=folder / f"server-{kind}.log", options=options) as server:
                 results[kind], passed = load_server(server, args, pool, local)
             ok &= passed
             print(f"two busy processes of ours now get {cores_available():.2f} cores together", flush=True)
     if len(kinds) == 2:
         print("\nside by side (records/s, pair p50 / p99 ms, server CPU per pair with its children / of its "
               "own process):")
-        print(f"  {'scenario':<36} {'searches in a child process':>40} {'searches in the server process':>40}")
+        print(f"  {'scenario':<36} {'searches in child processes':>40} {'searches in the server process':>40}")
         for label in results[kinds[0]]:
             cells = []
             for kind in kinds:

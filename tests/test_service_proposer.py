@@ -39,7 +39,8 @@ from warmstart.service import create_app
 from warmstart.service.core import Service
 from warmstart.service.errors import ServiceError
 from warmstart.service.proposer import HeldSearch, InProcessProposer, NoConfigLeft, SearchesLost
-from warmstart.service.search_process import ChildProcessProposer
+from warmstart.service.writer import Later
+from warmstart.service.search_process import ChildProcessProposer, ShardedProposer
 from warmstart.service.searches import start_search
 from warmstart.space import Space
 
@@ -370,7 +371,7 @@ def test_the_search_process_ends_with_a_killed_service_and_is_joined_by_a_stoppe
 
     path = tmp_path / "team.duckdb"
     seed_archive(path)
-    server = ServerProcess(path, options=("--search-process",)).start()
+    server = ServerProcess(path, options=("--search-process", "--search-processes", "1")).start()
     try:
         with Client(server.url) as client:
             study = client.new_study(new_task(), "bran", space=SPACE, metric="loss", maximize=False)["study_id"]
@@ -380,14 +381,15 @@ def test_the_search_process_ends_with_a_killed_service_and_is_joined_by_a_stoppe
         helpers = _children(server.proc.pid, marker="resource_tracker")  # multiprocessing's own, with spawn
         server.kill()  # kill -9: the child reads the end of its pipe and exits by itself
         assert all(_wait_gone(pid, timeout=30) for pid in children + helpers)
+        assert "searches in a child process" in server.log.read_text()
         server = ServerProcess(path, port=server.port, options=("--search-process",)).start()
-        _pairs(server.url, study, 3)  # the study rebuilt from the archive in the new child
+        _pairs(server.url, study, 3)  # the study rebuilt from the archive in a new child
         children = _children(server.proc.pid)
-        assert len(children) == 1
+        assert len(children) == 2  # the studies spread over two by default
         assert server.stop(signal.SIGTERM) == 0
-        assert _wait_gone(children[0], timeout=5)  # stopped and joined before the service exits
+        assert all(_wait_gone(pid, timeout=5) for pid in children)  # stopped and joined before the service exits
         log = server.log.read_text()
-        assert "searches in a child process" in log and "stopped on SIGTERM" in log
+        assert "searches in 2 child processes" in log and "stopped on SIGTERM" in log
         server = ServerProcess(path, port=server.port, options=("--no-search-process",)).start()
         _pairs(server.url, study, 2)
         assert _children(server.proc.pid, marker="") == []  # no process of any kind
@@ -442,3 +444,81 @@ def test_the_search_process_loads_the_searches_but_not_the_web_stack():
     assert package.create_app is create_app and package.Tokens.__name__ == "Tokens"
     with pytest.raises(AttributeError, match="no attribute 'nothing'"):
         package.nothing  # noqa: B018
+
+
+class _Together(Later):
+    """The bodies of several proposals of one write, filled when its batch settles."""
+
+    def __init__(self, parts):
+        super().__init__()
+        self.parts = parts
+
+    def body(self):
+        return [part.body() for part in self.parts]
+
+
+def test_studies_spread_over_two_children_lease_what_one_process_leases(tmp_path):
+    # reference: the in-process lease book; four studies in both children (by id), each batch proposing
+    # for all of them at once, then recording every lease; then one child killed: a 503, nothing
+    # written, and every study rebuilt from the archive proposes as the reference does
+    first, second = tmp_path / "in.duckdb", tmp_path / "spread.duckdb"
+    seed_archive(first)
+    shutil.copy(first, second)
+    services = [Service(Archive(first), search_process=False), Service(Archive(second), search_process=2)]
+    assert isinstance(services[1].leases.searches, ShardedProposer)
+    for s in services:
+        s.start()
+    try:
+        studies = [[_new_study(s, kind) for kind in ("warm", "cold", "seeded", "warm")] for s in services]
+        assert studies[0] == studies[1] and {study % 2 for study in studies[0]} == {0, 1}
+        ids = studies[0]
+
+        def round_of(s, k):
+            batch = _call(s, lambda a: _Together([s.leases.propose(a, st, k, None, "dana") for st in ids]))
+            _call(s, lambda a: [s.leases.record(a, st, lease["trial"], None, _score(lease["config"]), "ok", None,
+                                                None, "dana") for st, b in zip(ids, batch) for lease in b["leases"]],
+                  early=True)
+            return [_without_times(b) for b in batch]
+
+        for k in (1, 3, 2):
+            assert round_of(services[0], k) == round_of(services[1], k)
+        assert services[1].leases.searches.studies() == sorted(ids)
+        assert len(set(services[1].leases.searches.pids)) == 2
+        killed = services[1].leases.searches.pids[ids[1] % 2]
+        os.kill(killed, signal.SIGKILL)
+        assert _wait_gone(killed)
+        before = dump(services[1].reader().con)
+        assert _call(services[1], lambda a: _Together([services[1].leases.propose(a, st, 1, None, "dana")
+                                                       for st in ids]))[:2] == ("refused", 503)
+        assert dump(services[1].reader().con) == before
+        _call(services[0], lambda a: services[0].leases.forget())  # the reference rebuilds its searches too
+        for k in (2, 1):  # the same configs (the failed batch's block of trial ids is not used again)
+            assert _configs(round_of(services[0], k)) == _configs(round_of(services[1], k))
+        assert services[1].leases.searches.started == 3  # the killed child replaced, the other kept
+    finally:
+        for s in services:
+            s.close()
+    for study in ids:
+        assert _trials_and_leases(first, study)[0] == _trials_and_leases(second, study)[0]
+
+
+def _configs(bodies):
+    return [[(b["study_id"], lease["config"]) for lease in b["leases"]] for b in bodies]
+
+
+def test_a_spread_proposer_raises_the_error_of_the_first_item_that_failed():
+    proposer = ShardedProposer(2)
+    try:
+        proposer.start()
+        space = Space.from_dict({"params": {"c": {"type": "choice", "choices": ["only"]}}})
+        for study in (1, 2):
+            proposer.adopt(study, DensitySearch(space, seed=0, maximize=False))
+        assert proposer.propose_many([(2, 1), (1, 1)]) == [[('{"c":"only"}', {"c": "only"})]] * 2
+        with pytest.raises(NoConfigLeft) as error:  # both children fail: study 2 was asked first
+            proposer.propose_many([(2, 1), (1, 1)])
+        assert error.value.study == 2
+        assert proposer.studies() == [1, 2]  # both children answered, so each may be asked again
+    finally:
+        proposer.close()
+    with pytest.raises(ValueError, match="2 or more child processes"):
+        ShardedProposer(1)

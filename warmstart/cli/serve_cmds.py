@@ -35,8 +35,11 @@ def _is_loopback(host: str) -> bool:
               help="Run the studies' searches in a child process, so proposals compute on a second core while "
                    "this process serves HTTP and writes the archive (one Python process uses about one core). "
                    "Default: on when the machine gives this process 2 or more cores.")
+@click.option("--search-processes", default=2, show_default=True, type=click.IntRange(1, 64), metavar="N",
+              help="With --search-process: child processes the studies are spread over (by study id), so "
+                   "proposals of different studies are drawn at once.")
 @click.pass_context
-def serve(ctx, host, port, token_file, lease_seconds, search_process):
+def serve(ctx, host, port, token_file, lease_seconds, search_process, search_processes):
     """Serve the archive to the team over HTTP: one process owns the file.
 
     Training jobs propose and record through it (leases keep parallel workers
@@ -61,13 +64,15 @@ def serve(ctx, host, port, token_file, lease_seconds, search_process):
     archive = open_archive(ctx.find_root().obj["archive_path"], wait=wait_seconds(ctx))
     if search_process is None:
         search_process = usable_cores() >= 2
-    app = create_app(archive, tokens=tokens, lease_seconds=lease_seconds, search_process=search_process)
+    children = search_processes if search_process else 0
+    app = create_app(archive, tokens=tokens, lease_seconds=lease_seconds, search_process=children)
     listener = _log_to_stderr()
     config = uvicorn.Config(app, host=host, port=port, log_level="warning", access_log=False, lifespan="on",
                             timeout_graceful_shutdown=30)
     server = _make_server(config)
     who = f"tokens for {', '.join(tokens.names())}" if tokens else "no tokens (loopback only)"
-    where = "searches in a child process" if search_process else "searches in this process"
+    where = ("searches in this process" if not children else "searches in a child process" if children == 1
+             else f"searches in {children} child processes")
     click.echo(f"serving {archive.path} on http://{host}:{port} ({who}; {where}); page at /, "
                "API description at /api/v1/openapi.json; Ctrl-C stops", err=True)
     try:

@@ -162,7 +162,7 @@ class _RequestLog:
 
 
 def create_app(archive: Archive | str, tokens: Tokens | None = None,
-               lease_seconds: float = DEFAULT_LEASE_SECONDS, search_process: bool = False,
+               lease_seconds: float = DEFAULT_LEASE_SECONDS, search_process: bool | int = False,
                fast_lane: bool = True) -> FastAPI:
     """The service's ASGI app over one archive.
 
@@ -175,8 +175,9 @@ def create_app(archive: Archive | str, tokens: Tokens | None = None,
         The team's tokens; None lets every request in (loopback use only).
     lease_seconds : float, default 3600
         Life of a lease when a proposal asks for none.
-    search_process : bool, default False
-        Run the studies' searches in a child process (see :class:`Service`).
+    search_process : bool or int, default False
+        Run the studies' searches in a child process, or spread over that
+        many (see :class:`~warmstart.service.core.Service`).
     fast_lane : bool, default True
         Answer ordinary propose and record requests in
         :class:`~warmstart.service.fastlane.FastLane` (same answers, a

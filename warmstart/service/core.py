@@ -61,15 +61,17 @@ class Service:
         The team's tokens; None lets every request in as an anonymous admin.
     lease_seconds : float, default 3600
         Life of a lease when a proposal asks for none.
-    search_process : bool, default False
+    search_process : bool or int, default False
         Keep the studies' searches in a child process of their own
         (:mod:`warmstart.service.search_process`), so their computation runs
-        on another core than HTTP and the archive's writes; False keeps them
-        in this process (no process to start: what in-process tests want).
+        on another core than HTTP and the archive's writes; a number of 2 or
+        more spreads the studies over that many children (a batch's
+        proposals of different studies drawn at once); False keeps them in
+        this process (no process to start: what in-process tests want).
     """
 
     def __init__(self, archive: Archive, tokens: Tokens | None = None,
-                 lease_seconds: float = DEFAULT_LEASE_SECONDS, search_process: bool = False):
+                 lease_seconds: float = DEFAULT_LEASE_SECONDS, search_process: bool | int = False):
         if archive.read_only:
             raise ValueError("the service needs the archive opened for writing")
         self.archive = archive
@@ -77,7 +79,11 @@ class Service:
         #: the queries module caches profile indexes in one process-wide table; its
         #: users (neighbors, defaults, priors, warm starts) take turns through this lock
         self.query_lock = threading.Lock()
-        if search_process:
+        if int(search_process) > 1:
+            from warmstart.service.search_process import ShardedProposer
+
+            searches = ShardedProposer(int(search_process))
+        elif search_process:
             from warmstart.service.search_process import ChildProcessProposer
 
             searches = ChildProcessProposer()

@@ -24,6 +24,10 @@ its study is used next) and starts a new child at the next message. When
 the service process dies, even by ``kill -9``, the child reads the end of
 its pipe and exits. Ctrl-C in a terminal reaches the child too: it ignores
 SIGINT and is stopped by the service as it shuts down.
+
+:class:`ShardedProposer` spreads the studies over several such children (by
+study id), so the proposals of different studies in one batch are drawn at
+once; one study's proposals stay in one child, in the order asked.
 """
 
 from __future__ import annotations
@@ -35,13 +39,15 @@ import signal
 import threading
 import traceback
 from dataclasses import dataclass
-from typing import Any, NoReturn
+from typing import Any, Iterable, NoReturn
 
 from warmstart.errors import WarmstartError
-from warmstart.service.proposer import (Bundle, Forget, HeldSearch, Message, Proposer, ProposeMany, SearchesLost,
-                                        Stop)
+from warmstart.search.strategy import SearchStrategy
+from warmstart.service.proposer import (Bundle, Forget, HeldSearch, Message, NoConfigLeft, Proposer, ProposeMany,
+                                        SearchesLost, Stop)
 
-__all__ = ["ChildProcessProposer", "SearchFailed", "serve_searches", "START_METHOD", "REPLY_TIMEOUT_S"]
+__all__ = ["ChildProcessProposer", "ShardedProposer", "SearchFailed", "serve_searches", "START_METHOD",
+           "REPLY_TIMEOUT_S"]
 
 log = logging.getLogger("warmstart.service")
 START_METHOD = "spawn"  # a fresh interpreter: forking a process with threads (the service's) is unsafe
@@ -214,6 +220,111 @@ class ChildProcessProposer(Proposer):
                     "request, every search rebuilt from the archive", why, code, hint)
         raise SearchesLost(f"the search process ended ({why}, exit code {code}){hint}; the searches are "
                            "rebuilt from the archive: retry the request") from None
+
+
+class ShardedProposer(Proposer):
+    """The searches spread over ``n`` child processes, a study's in child
+    ``study_id % n``: a batch's proposals of studies in different children are
+    drawn at once. Each study sees the same calls in the same order as with
+    one child, so it proposes the same.
+
+    Parameters
+    ----------
+    n : int
+        Child processes (2 or more).
+    reply_timeout : float, default 300
+        As :class:`ChildProcessProposer`.
+    """
+
+    in_child = True
+
+    def __init__(self, n: int, reply_timeout: float = REPLY_TIMEOUT_S):
+        if int(n) < 2:
+            raise ValueError(f"a sharded proposer needs 2 or more child processes, got {n!r}")
+        self.children = [ChildProcessProposer(reply_timeout) for _ in range(int(n))]
+
+    def _child(self, study: int) -> ChildProcessProposer:
+        return self.children[int(study) % len(self.children)]
+
+    @property
+    def pids(self) -> list[int | None]:
+        """Each child's process id (None where none runs)."""
+        return [child.pid for child in self.children]
+
+    @property
+    def started(self) -> int:
+        """Children started so far, over every shard."""
+        return sum(child.started for child in self.children)
+
+    def start(self) -> None:
+        for child in self.children:
+            child.start()
+
+    def close(self) -> None:
+        for child in self.children:
+            child.close()
+
+    def adopt(self, study: int, search: SearchStrategy, held: Iterable[str] = ()) -> None:
+        self._child(study).adopt(study, search, held)
+
+    def release(self, study: int, keys: Iterable[str]) -> None:
+        self._child(study).release(study, keys)
+
+    def record(self, study: int, key: str, score: float | None, status: str) -> None:
+        self._child(study).record(study, key, score, status)
+
+    def forget(self, study: int | None = None) -> None:
+        for child in (self.children if study is None else [self._child(study)]):
+            child.forget(study)
+
+    def studies(self) -> list[int]:
+        return sorted(study for child in self.children for study in child.studies())
+
+    def sync(self) -> None:
+        for child in self.children:
+            child.sync()
+
+    def propose_many(self, items: Iterable[tuple[int, int]]) -> list[list[tuple[str, dict]]]:
+        return self.ask_many(items)()
+
+    def ask_many(self, items):
+        """Each child's share of the proposals, sent to all before any answer is
+        read; the function returned reads every answer (all of them, so that each
+        child may be asked again) and puts them back in the order asked. When
+        some fail, the error of the first item asked that failed is raised."""
+        items = [(int(study), int(k)) for study, k in items]
+        shares: dict[int, list[int]] = {}  # child -> positions of its items
+        for i, (study, _) in enumerate(items):
+            shares.setdefault(study % len(self.children), []).append(i)
+        asked: dict = {}
+        for c, where in shares.items():  # every child asked (a lost one fails later), none read yet
+            try:
+                asked[c] = self.children[c].ask_many([items[i] for i in where])
+            except SearchesLost as exc:
+                asked[c] = exc
+
+        def answer() -> list:
+            drawn: list = [None] * len(items)
+            failed: list[tuple[int, BaseException]] = []
+            for c, where in shares.items():
+                try:
+                    if isinstance(asked[c], BaseException):
+                        raise asked[c]
+                    got = asked[c]()
+                except (NoConfigLeft, SearchesLost) as exc:
+                    study = getattr(exc, "study", None)
+                    first = next((i for i in where if items[i][0] == study), where[0])
+                    failed.append((first, exc))
+                    continue
+                for i, configs in zip(where, got):
+                    drawn[i] = configs
+            if failed:
+                raise min(failed, key=lambda f: f[0])[1]
+            return drawn
+        return answer
+
+    def _send(self, message: Message) -> Any:  # pragma: no cover - every message goes to one child above
+        raise NotImplementedError("a sharded proposer sends each message to the child of its study")
 
 
 def _sendable(error: BaseException) -> BaseException:
